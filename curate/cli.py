@@ -1,0 +1,386 @@
+"""The ``curate`` command: parses, calls one API function, prints. No computation here.
+
+Errors a user can fix print one line on stderr and exit with code 2.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shutil
+import sys
+from pathlib import Path
+from typing import Annotated, Any
+
+import click
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+from curate import __version__, report
+from curate.catalog import AddPlan, Catalog, open_catalog, to_json
+from curate.errors import CurateError, InputError
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+    help="Keep measured time courses with their provenance, noise and trust grade; "
+    "turn them into weighted, checkable data for any fitter.",
+)
+out = Console(highlight=False, soft_wrap=True)
+if not out.is_terminal:  # piped output: keep table rows whole rather than folding them
+    out.width = 220
+err_console = Console(stderr=True, highlight=False, soft_wrap=True)
+
+_KEY = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+class _State:
+    catalog_path: str | None = None
+    actor: str | None = None
+
+
+state = _State()
+
+
+def _catalog() -> Catalog:
+    return open_catalog(state.catalog_path, actor=state.actor)
+
+
+def _emit_json(value: Any) -> None:
+    sys.stdout.write(to_json(value) + "\n")
+
+
+def _conditions(pairs: list[str] | None) -> dict[str, str]:
+    result: dict[str, str] = {}
+    for pair in pairs or []:
+        key, sep, value = pair.partition("=")
+        key = key.strip()
+        if not sep:
+            raise InputError(f"--condition '{pair}': expected KEY=VALUE, e.g. temperature=25degC")
+        if not _KEY.match(key):
+            raise InputError(f"--condition '{pair}': key '{key}' is not a valid identifier; use "
+                             "letters, digits and '_', not starting with a digit")  # fmt: skip
+        result[key] = value.strip()
+    return result
+
+
+@app.callback()
+def _global(
+    catalog: Annotated[str | None, typer.Option(
+        "--catalog", envvar="CURATE_CATALOG",
+        help="catalog file (default ./curate.db; also $CURATE_CATALOG)")] = None,
+    actor: Annotated[str | None, typer.Option(
+        "--actor", envvar="CURATE_USER", help="who is acting, recorded in every event")] = None,
+) -> None:
+    """Global options."""
+    state.catalog_path = catalog
+    state.actor = actor
+
+
+@app.command()
+def version() -> None:
+    """Print the curate version."""
+    out.print(__version__)
+
+
+@app.command()
+def add(
+    file: Annotated[Path, typer.Argument(help="data file (.csv, .tsv, .xlsx) or its TOML sidecar")],
+    meta: Annotated[Path | None, typer.Option(help="TOML sidecar (default: FILE with .toml)")] = None,
+    observable: Annotated[str | None, typer.Option(help="observable id, e.g. front_speed")] = None,
+    label: Annotated[str | None, typer.Option(help="human label of the observable")] = None,
+    unit: Annotated[str | None, typer.Option(help="unit of the values: nM, um/min, a.u., 1")] = None,
+    time_unit: Annotated[str | None, typer.Option(help="unit of the time column: s, min, h")] = None,
+    lab: Annotated[str | None, typer.Option(help="source lab or group")] = None,
+    condition: Annotated[list[str] | None, typer.Option(
+        help="KEY=VALUE, repeatable: temperature=25degC, genotype=wt, dose=10uM")] = None,
+    sd_type: Annotated[str | None, typer.Option(
+        help="what the sd column holds: sd, sem, ci, percent, estimated, assumed")] = None,
+    sd_scale: Annotated[str | None, typer.Option(help="scale of the sd: linear, ln, log10")] = None,
+    ci_level: Annotated[float | None, typer.Option(help="confidence level when --sd-type ci")] = None,
+    sem_n: Annotated[int | None, typer.Option(help="n behind an SEM without an n column")] = None,
+    relative: Annotated[bool | None, typer.Option(
+        "--relative/--absolute", help="values in relative units (need a scale factor)")] = None,
+    layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
+    sheet: Annotated[str | None, typer.Option(help="XLSX sheet name")] = None,
+    method: Annotated[str | None, typer.Option(help="measurement method")] = None,
+    instrument: Annotated[str | None, typer.Option(help="instrument")] = None,
+    contact: Annotated[str | None, typer.Option(help="contact person or address")] = None,
+    acquired: Annotated[str | None, typer.Option(help="acquisition date, YYYY-MM-DD")] = None,
+    reference: Annotated[str | None, typer.Option(help="publication, DOI or notebook page")] = None,
+    calibration_group: Annotated[str | None, typer.Option(
+        help="blot, gel, plate or run sharing one scale and noise level")] = None,
+    normalisation: Annotated[str | None, typer.Option(
+        help="none, reference_time, reference_condition, peak, sum")] = None,
+    grade: Annotated[str | None, typer.Option(help="trust grade A-D, or X (kept, never fitted)")] = None,
+    reason: Annotated[str | None, typer.Option(help="rationale of the grade")] = None,
+    dataset_id: Annotated[str | None, typer.Option("--id", help="dataset id (default: generated)")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
+) -> None:
+    """Log one data file with its metadata; print the new dataset's id."""
+    options: dict[str, Any] = {}
+
+    def put(path: str, value: Any) -> None:
+        if value is None:
+            return
+        node = options
+        *parents, last = path.split(".")
+        for part in parents:
+            node = node.setdefault(part, {})
+        node[last] = value
+
+    put("observable.id", observable)
+    put("observable.label", label)
+    put("observable.unit", unit)
+    put("observable.relative", relative)
+    put("time.unit", time_unit)
+    put("source.lab", lab)
+    put("source.method", method)
+    put("source.instrument", instrument)
+    put("source.contact", contact)
+    put("source.acquired", acquired)
+    put("source.reference", reference)
+    put("uncertainty.type", sd_type)
+    put("uncertainty.scale", sd_scale)
+    put("uncertainty.level", ci_level)
+    put("uncertainty.n", sem_n)
+    put("layout", layout)
+    put("sheet", sheet)
+    put("protocol.calibration_group", calibration_group)
+    put("protocol.normalisation.kind", normalisation)
+    put("id", dataset_id)
+    if grade is not None or reason is not None:
+        if grade is None or not (reason or "").strip():
+            raise InputError("--grade and --reason go together: a grade needs its reason")
+        put("trust.grade", grade)
+        put("trust.rationale", reason)
+    if condition:
+        options["conditions"] = _conditions(condition)
+    with _catalog() as catalog:
+        result = catalog.add(file, sidecar=meta, options=options, dry_run=dry_run)
+    if isinstance(result, AddPlan):
+        if as_json:
+            _emit_json(result.to_dict())
+        else:
+            out.print(report.plan_text(result))
+        return
+    if as_json:
+        _emit_json(result.to_dict())
+        return
+    out.print(result.id)
+    if not result.added:
+        err_console.print(f"already in the catalog as {result.duplicate_of} (identical data); "
+                          "nothing added")  # fmt: skip
+    for warning in result.warnings:
+        err_console.print(f"warning: {warning}")
+
+
+@app.command()
+def intake(
+    folder: Annotated[Path, typer.Argument(help="folder of data files and sidecars")],
+    quarantine: Annotated[Path | None, typer.Option(
+        help="where bad files go (default FOLDER/quarantine)")] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
+    with _catalog() as catalog:
+        show_bar = not as_json and err_console.is_terminal
+        with Progress(TextColumn("logging"), BarColumn(), MofNCompleteColumn(),
+                      TimeElapsedColumn(), TextColumn("{task.description}"),
+                      console=err_console, transient=True, disable=not show_bar) as bar:  # fmt: skip
+            task = bar.add_task("", total=None)
+
+            def progress(done: int, total: int, name: str) -> None:
+                bar.update(task, completed=done, total=total, description=name)
+
+            result = catalog.intake(folder, quarantine=quarantine, progress=progress)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.intake_text(result))
+    if result.count("quarantined") or result.count("refused"):
+        raise typer.Exit(1)
+
+
+@app.command("import-petab")
+def import_petab(
+    problem: Annotated[Path, typer.Argument(help="PEtab problem YAML")],
+    lab: Annotated[str | None, typer.Option(help="source lab (default: the problem's name)")] = None,
+    time_unit: Annotated[str, typer.Option(help="the model's time unit")] = "s",
+    unit: Annotated[str, typer.Option(help="unit of the measurements")] = "1",
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Log a PEtab problem's measurement table, one dataset per observable and condition."""
+    with _catalog() as catalog:
+        results = catalog.import_petab(problem, lab=lab, time_unit=time_unit, unit=unit)
+    if as_json:
+        _emit_json([r.to_dict() for r in results])
+        return
+    added = sum(r.added for r in results)
+    out.print(f"{added} dataset(s) logged, {len(results) - added} already present")
+    for r in results:
+        out.print(f"  {r.id}" + ("" if r.added else f"  (already present as {r.duplicate_of})"))
+
+
+@app.command("list")
+def list_(
+    observable: Annotated[str | None, typer.Option(help="only this observable")] = None,
+    lab: Annotated[str | None, typer.Option(help="only this lab")] = None,
+    condition: Annotated[list[str] | None, typer.Option(help="KEY=VALUE, repeatable")] = None,
+    grade: Annotated[str | None, typer.Option(help="only this grade (or 'none')")] = None,
+    retired: Annotated[bool, typer.Option("--retired", help="include retired datasets")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """List the newest version of every dataset (filters combine)."""
+    with _catalog() as catalog:
+        found = catalog.list(observable=observable, lab=lab, conditions=_conditions(condition),
+                             grade=grade, include_retired=retired)  # fmt: skip
+    if as_json:
+        _emit_json([v.summary() for v in found])
+    else:
+        out.print(report.list_table(found))
+
+
+@app.command()
+def show(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    version: Annotated[int | None, typer.Option(help="an earlier version")] = None,
+    points: Annotated[bool, typer.Option("--points", help="print every point")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show one dataset: metadata, warnings, noise, trust and its points."""
+    with _catalog() as catalog:
+        found = catalog.show(dataset_id, version)
+        total = len(catalog.versions(dataset_id))
+        frame = catalog.points(dataset_id, found.version)
+    if as_json:
+        payload = {**found.summary(), "created_at": found.created_at.isoformat(),
+                   "record_hash": found.record_hash, "versions": total,
+                   "record": found.record.model_dump(mode="json")}  # fmt: skip
+        if points:
+            payload["points"] = json.loads(frame.to_json(orient="records"))
+        _emit_json(payload)
+        return
+    out.print(report.show_text(found, total, frame, all_points=points))
+
+
+@app.command()
+def history(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show every change of one dataset: when, who, what and why."""
+    with _catalog() as catalog:
+        entries = catalog.history(dataset_id)
+    if as_json:
+        _emit_json([e.to_dict() for e in entries])
+    else:
+        out.print(report.history_text(dataset_id, entries))
+
+
+@app.command()
+def retire(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    reason: Annotated[str, typer.Option(help="why it leaves later selections")],
+) -> None:
+    """Hide a dataset from later selections; it stays in the catalog."""
+    with _catalog() as catalog:
+        new = catalog.retire(dataset_id, reason=reason)
+    out.print(f"{new.id} retired (version {new.version})")
+
+
+@app.command()
+def revise(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    reason: Annotated[str, typer.Option(help="why the metadata change")],
+    label: Annotated[str | None, typer.Option(help="new observable label")] = None,
+    condition: Annotated[list[str] | None, typer.Option(
+        help="KEY=VALUE to set, KEY= to remove; repeatable")] = None,
+    lab: Annotated[str | None, typer.Option(help="corrected lab")] = None,
+    reference: Annotated[str | None, typer.Option(help="corrected reference")] = None,
+    calibration_group: Annotated[str | None, typer.Option(help="calibration group")] = None,
+    unretire: Annotated[bool, typer.Option("--unretire", help="bring a retired dataset back")] = False,
+) -> None:
+    """Correct a dataset's metadata as a new version (its data never change)."""
+    with _catalog() as catalog:
+        new = catalog.revise(dataset_id, reason=reason, label=label,
+                             conditions=_conditions(condition), lab=lab, reference=reference,
+                             calibration_group=calibration_group, unretire=unretire)  # fmt: skip
+    out.print(f"{new.id} version {new.version}")
+
+
+@app.command()
+def verify(as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False) -> None:
+    """Recompute every hash and the event chain; exit 1 naming the first problem if any."""
+    with _catalog() as catalog:
+        result = catalog.verify()
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.verify_text(result))
+    if not result.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+def demo(
+    outdir: Annotated[Path, typer.Argument(help="folder for the demo's catalog and outputs")] = Path(
+        "demo_out"),
+    examples: Annotated[Path | None, typer.Option(
+        help="example data folder (default: example_datasets/ of this checkout)")] = None,
+    force: Annotated[bool, typer.Option(help="reuse an existing, non-empty OUTDIR")] = False,
+) -> None:
+    """Run the job on the bundled invented scenario: log every example dataset, then list them."""
+    source = examples or Path(__file__).resolve().parent.parent / "example_datasets"
+    if not (source / "data").is_dir():
+        raise InputError(f"{source}: no example data found (expected a data/ folder); pass "
+                         "--examples")  # fmt: skip
+    if outdir.exists() and any(outdir.iterdir()) and not force:
+        raise InputError(f"{outdir}: the folder exists and is not empty; choose another or pass "
+                         "--force")  # fmt: skip
+    inbox = outdir / "inbox"
+    if inbox.exists():
+        shutil.rmtree(inbox)
+    shutil.copytree(source / "data", inbox)
+    catalog_path = outdir / "curate.db"
+    with Catalog(catalog_path, actor=state.actor or "curate-demo") as catalog:
+        result = catalog.intake(inbox)
+        found = catalog.list(include_retired=True)
+        check = catalog.verify()
+    out.print(report.intake_text(result))
+    out.print(report.list_table(found))
+    out.print(report.verify_text(check))
+    out.print(f"catalog: {catalog_path}  (try: curate --catalog {catalog_path} show "
+              f"{found[0].id if found else 'ID'})")
+
+
+def _fail(message: str, code: int = 2) -> None:
+    err_console.print("curate: error: " + " ".join(message.split()), markup=False)
+    sys.exit(code)
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Run the command line; user errors exit 2 with one line on stderr."""
+    try:
+        code = app(args=argv, prog_name="curate", standalone_mode=False)
+    except CurateError as err:
+        _fail(str(err))
+    except click.exceptions.Exit as exit_:
+        sys.exit(exit_.exit_code)
+    except click.ClickException as usage:
+        _fail(usage.format_message(), usage.exit_code)
+    except click.exceptions.Abort:
+        _fail("aborted", 130)
+    except KeyboardInterrupt:
+        _fail("interrupted", 130)
+    except Exception as bug:  # a defect of ours: still one line, and say so
+        _fail(f"internal error ({type(bug).__name__}: {bug}); please report it", 3)
+    sys.exit(code if isinstance(code, int) else 0)
+
+
+if __name__ == "__main__":
+    main()

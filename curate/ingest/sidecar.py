@@ -1,0 +1,166 @@
+"""The TOML sidecar that describes a data file, and merging it with command-line options.
+
+A sidecar sits beside its data file (``run7.csv`` + ``run7.toml``) or names it with
+``data_file``. Command-line options override sidecar fields. Both pass through one pydantic
+model, :class:`Sidecar`, whose JSON Schema is in ``schemas/sidecar.schema.json``.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import tomllib
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints, ValidationError
+
+from curate.errors import InputError
+from curate.records import Identifier, Normalisation, Uncertainty
+
+__all__ = ["Sidecar", "deep_merge", "load_sidecar", "validate_sidecar"]
+
+MAX_SIDECAR_BYTES = 1024 * 1024
+
+
+class _Part(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
+
+class SidecarObservable(_Part):
+    id: Identifier
+    label: str = ""
+    unit: str = Field(description="unit of the values: 'nM', 'um/min', 'a.u.', '1' ...")
+    relative: bool | None = Field(
+        None, description="relative units needing a scale factor; default: true for a.u.-like units")
+
+
+class SidecarTime(_Part):
+    unit: str = Field(description="unit of the time column: 's', 'min', 'h'")
+
+
+class SidecarColumns(_Part):
+    time: str = "time"
+    value: str = "value"
+    sd: str = "sd"
+    replicate: str = "replicate"
+    n: str = "n"
+    replicates: list[str] | None = Field(
+        None, description="wide layout: the replicate columns (default: every other column)")
+
+
+class ConditionSpec(_Part):
+    value: float | bool | str | None = None
+    unit: str | None = None
+    text: str | None = Field(None, description="a literal text value, never read as a quantity")
+
+
+ConditionInput = float | int | bool | str | ConditionSpec
+
+
+class SidecarSource(_Part):
+    lab: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+    contact: str | None = None
+    method: str | None = None
+    instrument: str | None = None
+    acquired: dt.date | None = None
+    reference: str | None = None
+
+
+class SidecarPretreatment(_Part):
+    step: Annotated[str, StringConstraints(min_length=1)]
+    duration: str | float | None = Field(None, description="'2 h', '30 min' or seconds")
+    details: str | None = None
+
+
+class SidecarProtocol(_Part):
+    normalisation: Normalisation = Normalisation()
+    calibration_group: str | None = None
+    pretreatment: list[SidecarPretreatment] = Field(default_factory=list)
+
+
+class SidecarTrust(_Part):
+    grade: Literal["A", "B", "C", "D", "X"]
+    rationale: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+
+
+class Sidecar(_Part):
+    """Metadata for one data file (TOML sidecar and/or command-line options)."""
+
+    id: Identifier | None = Field(None, description="dataset id to use (default: generated)")
+    data_file: str | None = Field(None, description="data file, relative to the sidecar's folder")
+    layout: Literal["auto", "long", "wide"] = "auto"
+    sheet: str | None = Field(None, description="XLSX sheet (default: the first)")
+    observable: SidecarObservable
+    time: SidecarTime
+    columns: SidecarColumns = SidecarColumns()
+    uncertainty: Uncertainty | None = None
+    conditions: dict[Identifier, ConditionInput] = Field(default_factory=dict)
+    source: SidecarSource
+    protocol: SidecarProtocol = SidecarProtocol()
+    trust: SidecarTrust | None = None
+
+
+# which command-line option fills a required field, for the error hint
+_OPTION_FOR = {
+    "observable": "--observable and --unit",
+    "observable.id": "--observable",
+    "observable.unit": "--unit",
+    "time": "--time-unit",
+    "time.unit": "--time-unit",
+    "source": "--lab",
+    "source.lab": "--lab",
+}
+
+
+def load_sidecar(path: Path) -> dict[str, Any]:
+    """Give the raw TOML content of a sidecar file."""
+    if not path.is_file():
+        raise InputError(f"{path}: no such sidecar file")
+    if path.stat().st_size > MAX_SIDECAR_BYTES:
+        raise InputError(f"{path}: a sidecar larger than {MAX_SIDECAR_BYTES} bytes is refused")
+    try:
+        return tomllib.loads(path.read_bytes().decode("utf-8"))
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not UTF-8 text; expected a TOML sidecar") from None
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"{path}: not valid TOML ({err})") from None
+
+
+def deep_merge(base: dict[str, Any], override: dict[str, Any]) -> dict[str, Any]:
+    """Give ``base`` with ``override`` laid over it, tables merged key by key."""
+    merged = dict(base)
+    for key, value in override.items():
+        if isinstance(value, dict) and isinstance(merged.get(key), dict):
+            merged[key] = deep_merge(merged[key], value)
+        else:
+            merged[key] = value
+    return merged
+
+
+def validate_sidecar(content: dict[str, Any], *, origin: str, sidecar: Path | None) -> Sidecar:
+    """Give the validated metadata; InputError names the first offending field."""
+    try:
+        return Sidecar.model_validate(content)
+    except ValidationError as err:
+        first = err.errors()[0]
+        if first["loc"] and first["loc"][-1] == "[key]":
+            key = first["loc"][-2]
+            place = f"{sidecar}, field '{first['loc'][0]}'" if sidecar else origin
+            raise InputError(f"{place}: key '{key}' is not a valid identifier; use letters, digits "
+                             "and '_', not starting with a digit") from None  # fmt: skip
+        loc = ".".join(str(part) for part in first["loc"])
+        message = first["msg"]
+        if first["type"] == "missing":
+            hint = _OPTION_FOR.get(loc)
+            if sidecar is None:
+                raise InputError(
+                    f"{origin}: field '{loc}' is required; pass {hint or 'it'} or write it in a "
+                    "TOML sidecar beside the data file") from None  # fmt: skip
+            raise InputError(
+                f"{sidecar}, field '{loc}': required but missing"
+                + (f" (or pass {hint})" if hint else "")) from None  # fmt: skip
+        where_text = f"{sidecar}, field '{loc}'" if sidecar else f"{origin}, field '{loc}'"
+        if first["type"] == "extra_forbidden":
+            raise InputError(f"{where_text}: unknown field; see schemas/sidecar.schema.json"
+                             ) from None  # fmt: skip
+        raise InputError(f"{where_text}: {message}") from None

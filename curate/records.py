@@ -1,0 +1,303 @@
+"""Validated records (pydantic v2) of a dataset version, and content hashing.
+
+A dataset is one measured series (or a replicate set of one observable under one condition
+set). Each change to it is a new immutable :class:`DatasetVersion`. The arrays live in a
+:class:`SeriesArrays` value whose :func:`content_hash` is a sha256 over a canonical byte form
+of the arrays and their units; the metadata lives in :class:`DatasetRecord`.
+
+Uncertainty is kept as reported: the ``sd`` array holds the numbers the lab gave, and
+:class:`Uncertainty` says what they are (SD, SEM with n, CI half-width with level, percent of
+the value, an estimate, an assumption) and on which scale (linear, ln, log10). The effective
+sigma of a fit is derived only at export.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+from dataclasses import dataclass
+from enum import StrEnum
+from typing import Annotated, Any, Literal
+
+import numpy as np
+from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_validator, model_validator
+
+__all__ = [
+    "GRADES",
+    "EXCLUSION_GRADE",
+    "ConditionValue",
+    "DatasetRecord",
+    "DatasetVersion",
+    "Identifier",
+    "NoiseEstimate",
+    "Normalisation",
+    "Observable",
+    "PlausibilityWarning",
+    "PretreatmentStep",
+    "Protocol",
+    "SeriesArrays",
+    "Source",
+    "TrustAssessment",
+    "Uncertainty",
+    "UncertaintyScale",
+    "UncertaintyType",
+    "canonical_json",
+    "content_hash",
+    "record_hash",
+]
+
+IDENTIFIER_PATTERN = r"^[A-Za-z_][A-Za-z0-9_]*$"
+# ASCII only: the PEtab library's own check is Unicode-aware, SBML ids are not.
+Identifier = Annotated[str, StringConstraints(pattern=IDENTIFIER_PATTERN, max_length=128)]
+
+# Our trust scale: A (best) to D, and X = kept in the catalog, never fitted.
+GRADES = ("A", "B", "C", "D", "X")
+EXCLUSION_GRADE = "X"
+
+
+class _Record(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class UncertaintyType(StrEnum):
+    """What the numbers in a dataset's ``sd`` column are."""
+
+    SD = "sd"
+    SEM = "sem"
+    CI = "ci"
+    PERCENT = "percent"
+    ESTIMATED = "estimated"
+    ASSUMED = "assumed"
+
+
+class UncertaintyScale(StrEnum):
+    """The scale on which the uncertainty is stated (sd of y, of ln y, or of log10 y)."""
+
+    LINEAR = "linear"
+    LN = "ln"
+    LOG10 = "log10"
+
+
+class Uncertainty(_Record):
+    """How to read a dataset's reported uncertainty column."""
+
+    type: UncertaintyType = UncertaintyType.SD
+    scale: UncertaintyScale = UncertaintyScale.LINEAR
+    level: float | None = Field(None, gt=0, lt=1, description="confidence level of a CI")
+    n: int | None = Field(None, ge=1, description="n behind an SEM when no per-point n is given")
+
+    @model_validator(mode="after")
+    def _level_for_ci(self) -> Uncertainty:
+        if self.type is UncertaintyType.CI and self.level is None:
+            raise ValueError("a confidence interval needs its level (e.g. 0.95)")
+        return self
+
+
+class Observable(_Record):
+    """What was measured and in which unit."""
+
+    id: Identifier
+    label: str = ""
+    unit: str = Field(description="canonical pint unit the values are stored in")
+    unit_original: str = Field(description="unit string as given at intake")
+    ucum: str | None = Field(None, description="UCUM code of the canonical unit")
+    relative: bool = Field(description="relative units: a fit needs a scale factor")
+
+
+class ConditionValue(_Record):
+    """One experimental condition: a number with its canonical unit, or a category."""
+
+    value: float | bool | str
+    unit: str | None = None
+    unit_original: str | None = None
+
+
+class Source(_Record):
+    """Where a dataset came from."""
+
+    lab: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+    contact: str | None = None
+    method: str | None = None
+    instrument: str | None = None
+    acquired: dt.date | None = None
+    reference: str | None = Field(None, description="publication, DOI or lab notebook reference")
+    raw_file_name: str | None = None
+    raw_file_sha256: str | None = None
+
+
+class Normalisation(_Record):
+    """How the lab normalised the values before sending them."""
+
+    kind: Literal["none", "reference_time", "reference_condition", "peak", "sum"] = "none"
+    reference: str | None = Field(None, description="the reference time or condition")
+
+
+class PretreatmentStep(_Record):
+    """A step applied before the measured time course (starvation, pre-equilibration...)."""
+
+    step: Annotated[str, StringConstraints(min_length=1)]
+    duration_s: float | None = Field(None, ge=0, description="duration in seconds")
+    details: str | None = None
+
+
+class Protocol(_Record):
+    """Structured protocol facts that change how a dataset enters a fit."""
+
+    normalisation: Normalisation = Normalisation()
+    calibration_group: str | None = Field(
+        None, description="blot, gel, plate or run whose points share one scale and noise level"
+    )
+    pretreatment: tuple[PretreatmentStep, ...] = ()
+
+
+class NoiseEstimate(_Record):
+    """A noise level estimated for a dataset, with how it was made."""
+
+    sd: float = Field(ge=0, description="pooled noise standard deviation, canonical units")
+    method: str
+    parameters: dict[str, Any] = Field(default_factory=dict)
+    made_at: dt.datetime
+    made_by: str
+
+
+class TrustAssessment(_Record):
+    """A trust grade with its reason, who gave it and when."""
+
+    grade: Literal["A", "B", "C", "D", "X"]
+    rationale: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+    assigned_by: str
+    assigned_at: dt.datetime
+
+
+class PlausibilityWarning(_Record):
+    """Something at intake that looks wrong; recorded, never acted on."""
+
+    code: str
+    message: str
+
+
+class DatasetRecord(_Record):
+    """Everything about one dataset version except its arrays (which the content hash names)."""
+
+    observable: Observable
+    time_unit_original: str
+    conditions: dict[Identifier, ConditionValue] = Field(default_factory=dict)
+    source: Source
+    uncertainty: Uncertainty | None = None
+    protocol: Protocol = Protocol()
+    noise: NoiseEstimate | None = None
+    trust: TrustAssessment | None = None
+    warnings: tuple[PlausibilityWarning, ...] = ()
+    retired: bool = False
+    retired_reason: str | None = None
+    replicate_labels: tuple[str, ...] = ()
+    annotations: dict[str, Any] = Field(
+        default_factory=dict, description="columns and fields kept but not interpreted"
+    )
+    n_points: int = Field(ge=1)
+    content_hash: str
+
+    @field_validator("conditions")
+    @classmethod
+    def _sorted(cls, value: dict[str, ConditionValue]) -> dict[str, ConditionValue]:
+        return dict(sorted(value.items()))
+
+
+class DatasetVersion(_Record):
+    """One immutable version of a dataset as the catalog holds it."""
+
+    id: Identifier
+    version: int = Field(ge=1)
+    created_at: dt.datetime
+    record: DatasetRecord
+    record_hash: str
+
+    @property
+    def grade(self) -> str | None:
+        """Give the current trust grade, or None if none was assigned."""
+        return self.record.trust.grade if self.record.trust else None
+
+    def summary(self) -> dict[str, Any]:
+        """Give the short machine-readable form used by ``list --json``."""
+        rec = self.record
+        return {
+            "id": self.id,
+            "version": self.version,
+            "observable": rec.observable.id,
+            "unit": rec.observable.unit,
+            "relative": rec.observable.relative,
+            "lab": rec.source.lab,
+            "n_points": rec.n_points,
+            "grade": self.grade,
+            "conditions": {k: v.value for k, v in rec.conditions.items()},
+            "retired": rec.retired,
+            "warnings": [w.code for w in rec.warnings],
+            "content_hash": rec.content_hash,
+        }
+
+
+@dataclass(frozen=True, eq=False)
+class SeriesArrays:
+    """The measured arrays of a dataset, in canonical units, sorted by time (stably).
+
+    ``sd`` may hold NaN where a point has no reported uncertainty. ``replicate`` holds integer
+    codes into the record's ``replicate_labels``.
+    """
+
+    time: np.ndarray
+    value: np.ndarray
+    sd: np.ndarray | None = None
+    replicate: np.ndarray | None = None
+    n: np.ndarray | None = None
+
+    def __post_init__(self) -> None:
+        length = len(self.time)
+        for name in ("value", "sd", "replicate", "n"):
+            array = getattr(self, name)
+            if array is not None and len(array) != length:
+                raise ValueError(f"array '{name}' has {len(array)} entries, time has {length}")
+
+    def __len__(self) -> int:
+        return len(self.time)
+
+    def named(self) -> dict[str, np.ndarray | None]:
+        """Give the arrays by name, in canonical order."""
+        return {"time": self.time, "value": self.value, "sd": self.sd,
+                "replicate": self.replicate, "n": self.n}  # fmt: skip
+
+
+_ARRAY_DTYPES = {"time": "<f8", "value": "<f8", "sd": "<f8", "replicate": "<i8", "n": "<i8"}
+
+
+def array_bytes(name: str, array: np.ndarray) -> bytes:
+    """Give the canonical little-endian bytes of one array (NaN and -0.0 normalised)."""
+    data = np.ascontiguousarray(array, dtype=_ARRAY_DTYPES[name])
+    if data.dtype.kind == "f":
+        data = data + 0.0  # folds -0.0 into 0.0
+        data[np.isnan(data)] = np.nan
+    return data.tobytes()
+
+
+def content_hash(arrays: SeriesArrays, *, value_unit: str, time_unit: str = "second") -> str:
+    """Give the sha256 hex digest over the canonical bytes of the arrays and their units."""
+    digest = hashlib.sha256()
+    digest.update(f"curate-series-1|{value_unit}|{time_unit}|{len(arrays)}".encode())
+    for name, array in arrays.named().items():
+        if array is None:
+            digest.update(f"|{name}:none".encode())
+        else:
+            digest.update(f"|{name}:".encode())
+            digest.update(array_bytes(name, array))
+    return digest.hexdigest()
+
+
+def canonical_json(value: Any) -> str:
+    """Give the canonical JSON text (sorted keys, no spaces) hashed throughout the catalog."""
+    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      allow_nan=False, default=str)  # fmt: skip
+
+
+def record_hash(dataset_id: str, version: int, record_json: str) -> str:
+    """Give the sha256 binding a version's id and number to its canonical record JSON."""
+    return hashlib.sha256(f"{dataset_id}|{version}|{record_json}".encode()).hexdigest()

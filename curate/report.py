@@ -1,0 +1,197 @@
+"""Text rendering of results for the terminal (rich renderables). Formatting lives here only."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+
+if TYPE_CHECKING:
+    from curate.catalog import AddPlan, HistoryEntry, VerifyReport
+    from curate.ingest.inbox import IntakeReport
+    from curate.records import ConditionValue, DatasetVersion
+
+__all__ = ["history_text", "intake_text", "list_table", "plan_text", "show_text", "verify_text"]
+
+_UNIT_SHORT = {
+    "second": "s", "micrometer": "µm", "nanomolar": "nM", "micrometer / second": "µm/s",
+    "dimensionless": "1", "arbitrary_unit": "a.u.", "degree_Celsius": "°C", "piconewton": "pN",
+    "1 / second": "1/s", "nanogram / milliliter": "ng/mL", "millivolt": "mV",
+}  # fmt: skip
+
+
+def short_unit(unit: str | None) -> str:
+    """Give a compact label for a canonical unit."""
+    if unit is None:
+        return ""
+    return _UNIT_SHORT.get(unit, unit)
+
+
+def condition_text(value: ConditionValue) -> str:
+    """Give '25 °C' or 'wt' for one condition value."""
+    if isinstance(value.value, float):
+        number = f"{value.value:g}"
+        return f"{number} {short_unit(value.unit)}".strip() if value.unit else number
+    return str(value.value)
+
+
+def list_table(found: list[DatasetVersion]) -> Table | Text:
+    """Give the table printed by ``curate list``."""
+    if not found:
+        return Text("no datasets match")
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in ("id", "v", "observable", "unit", "lab", "conditions", "points", "grade", "notes"):
+        table.add_column(name, justify="right" if name in ("v", "points") else "left")
+    for version in found:
+        rec = version.record
+        notes = [w.code for w in rec.warnings]
+        if rec.retired:
+            notes.insert(0, "retired")
+        table.add_row(
+            version.id, str(version.version), rec.observable.id,
+            short_unit(rec.observable.unit) + (" (rel.)" if rec.observable.relative else ""),
+            rec.source.lab,
+            ", ".join(f"{k}={condition_text(v)}" for k, v in rec.conditions.items()),
+            str(rec.n_points), version.grade or "-", ", ".join(notes),
+        )  # fmt: skip
+    return table
+
+
+def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str, str]]:
+    rec = version.record
+    src = rec.source
+    lines = [
+        ("version", f"{version.version} of {total_versions}, written {version.created_at:%Y-%m-%d %H:%M} UTC"),
+        ("observable", f"{rec.observable.id}" + (f" ({rec.observable.label})" if rec.observable.label else "")),
+        ("unit", f"{short_unit(rec.observable.unit)} (given as '{rec.observable.unit_original}'"
+                 f"{', UCUM ' + rec.observable.ucum if rec.observable.ucum else ''})"
+                 + ("; relative units: fits need a scale factor" if rec.observable.relative else "")),
+        ("time", f"stored in s (given in '{rec.time_unit_original}')"),
+        ("lab", src.lab),
+    ]  # fmt: skip
+    for name in ("contact", "method", "instrument", "acquired", "reference"):
+        value = getattr(src, name)
+        if value:
+            lines.append((name, str(value)))
+    if src.raw_file_name:
+        lines.append(("raw file", f"{src.raw_file_name} (sha256 {(src.raw_file_sha256 or '')[:16]}…)"))
+    if rec.conditions:
+        lines.append(("conditions", ", ".join(f"{k} = {condition_text(v)}"
+                                              for k, v in rec.conditions.items())))  # fmt: skip
+    if rec.uncertainty:
+        u = rec.uncertainty
+        extra = (f", level {u.level:g}" if u.level else "") + (f", n = {u.n}" if u.n else "")
+        lines.append(("uncertainty", f"{u.type.value} on {u.scale.value} scale{extra}"))
+    protocol = rec.protocol
+    if protocol.normalisation.kind != "none":
+        ref = protocol.normalisation.reference
+        lines.append(("normalised", protocol.normalisation.kind + (f" ({ref})" if ref else "")))
+    if protocol.calibration_group:
+        lines.append(("calibration", protocol.calibration_group))
+    for step in protocol.pretreatment:
+        duration = f" for {step.duration_s:g} s" if step.duration_s is not None else ""
+        lines.append(("pretreatment", f"{step.step}{duration}" + (f" ({step.details})" if step.details else "")))
+    if rec.noise:
+        lines.append(("noise", f"sd {rec.noise.sd:.4g} by {rec.noise.method} "
+                               f"({rec.noise.made_at:%Y-%m-%d}, {rec.noise.made_by})"))  # fmt: skip
+    if rec.trust:
+        lines.append(("trust", f"{rec.trust.grade}: {rec.trust.rationale} "
+                               f"({rec.trust.assigned_by}, {rec.trust.assigned_at:%Y-%m-%d})"))  # fmt: skip
+    else:
+        lines.append(("trust", "not graded"))
+    if rec.retired:
+        lines.append(("retired", rec.retired_reason or "yes"))
+    lines.append(("points", f"{rec.n_points}" + (f" in {len(rec.replicate_labels)} replicates"
+                                                if rec.replicate_labels else "")))  # fmt: skip
+    lines.append(("content", rec.content_hash))
+    return lines
+
+
+def show_text(version: DatasetVersion, total_versions: int, points: pd.DataFrame, *,
+              all_points: bool) -> Group:  # fmt: skip
+    """Give what ``curate show`` prints."""
+    parts: list[Any] = [Text(version.id, style="bold")]
+    fields = Table(box=None, show_header=False, pad_edge=False)
+    fields.add_column(style="dim")
+    fields.add_column()
+    for name, value in _field_lines(version, total_versions):
+        fields.add_row(name, value)
+    parts.append(fields)
+    for warning in version.record.warnings:
+        parts.append(Text(f"! {warning.code}: {warning.message}"))
+    limit = len(points) if all_points else 12
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for column in points.columns:
+        table.add_column(f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
+                         if column in ("time", "value", "sd") else column, justify="right")  # fmt: skip
+    for row in points.head(limit).itertuples(index=False):
+        table.add_row(*[f"{x:.6g}" if isinstance(x, float) else str(x) for x in row])
+    parts.append(Text(""))
+    parts.append(table)
+    if len(points) > limit:
+        parts.append(Text(f"… {len(points) - limit} more points (--points shows all)"))
+    return Group(*parts)
+
+
+def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
+    """Give what ``curate history`` prints."""
+    parts: list[Any] = [Text(f"history of {dataset_id}", style="bold")]
+    for entry in entries:
+        head = f"#{entry.seq}  {entry.at[:19].replace('T', ' ')}  {entry.actor}  {entry.kind}"
+        if entry.version is not None:
+            head += f" -> version {entry.version}"
+        parts.append(Text(head))
+        if entry.reason:
+            parts.append(Text(f"    reason: {entry.reason}"))
+        for change in entry.changes:
+            parts.append(Text(f"    {change}"))
+    return Group(*parts)
+
+
+def verify_text(result: VerifyReport) -> Text:
+    """Give what ``curate verify`` prints."""
+    counts = (f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
+              f"{result.events} events")  # fmt: skip
+    if result.ok:
+        return Text(f"intact: {counts} recomputed, every hash and link holds")
+    lines = [f"NOT intact ({counts} checked)"]
+    if result.sqlite != "ok":
+        lines.append(f"  sqlite integrity check: {result.sqlite}")
+    lines += [f"  {problem}" for problem in result.problems]
+    return Text("\n".join(lines))
+
+
+def intake_text(result: IntakeReport) -> Group:
+    """Give what ``curate intake`` prints."""
+    parts: list[Any] = [Text(
+        f"{result.count('added')} logged, {result.count('duplicate')} already present, "
+        f"{result.count('quarantined')} quarantined, {result.count('refused')} refused "
+        f"(folder {result.folder})")]  # fmt: skip
+    for item in result.items:
+        if item.status == "added":
+            line = f"  + {item.file} -> {item.id}"
+            if item.warnings:
+                line += f"  ({len(item.warnings)} warning{'s' if len(item.warnings) > 1 else ''})"
+        elif item.status == "duplicate":
+            line = f"  = {item.file} -> {item.id} (identical data already logged)"
+        else:
+            line = f"  x {item.file}: {item.reason}"
+        parts.append(Text(line))
+        for warning in item.warnings:
+            parts.append(Text(f"      warning: {warning}"))
+    if result.count("quarantined"):
+        parts.append(Text(f"quarantined files and their reasons are in {result.quarantine}"))
+    return Group(*parts)
+
+
+def plan_text(plan: AddPlan) -> Group:
+    """Give what ``curate add --dry-run`` prints."""
+    info = plan.to_dict()
+    lines = [Text(f"dry run: would {'add nothing' if plan.duplicate_of else 'add'} "
+                  f"{info['id']} (version {info['version']}), {info['n_points']} points from "
+                  f"{info['origin']}")]  # fmt: skip
+    lines += [Text(f"warning: {w['message']}") for w in info["warnings"]]
+    return Group(*lines)

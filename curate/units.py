@@ -1,0 +1,216 @@
+"""Units: one pint registry, one canonical unit per dimension, UCUM codes for export.
+
+Every unit string is parsed here at intake. Values are stored in the canonical unit of their
+dimension (seconds, micrometres, nanomolar, ...) and the string the user typed is kept beside
+them. Arbitrary ("a.u.", fold change, normalised) units get a dimension of their own so that
+they can never convert silently into anything physical: pint would otherwise read "a.u." as
+atomic-mass-unit times year and "au" as the astronomical unit.
+"""
+
+from __future__ import annotations
+
+import functools
+import re
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from curate.errors import UnitError
+
+if TYPE_CHECKING:
+    import pint
+
+__all__ = [
+    "CanonicalUnit",
+    "Quantity",
+    "canonical_unit",
+    "convert",
+    "is_relative_unit",
+    "parse_quantity",
+    "registry",
+    "ucum_code",
+]
+
+# Spellings labs use for arbitrary or relative units. Matched case-sensitively after stripping,
+# except where a lower-case form is listed too: "AU" (absorbance) and "au" (astronomical unit)
+# must never reach pint.
+_RELATIVE_ALIASES = {
+    "a.u.", "a. u.", "au", "AU", "A.U.", "arb", "arb.", "arb. units", "arbitrary",
+    "arbitrary units", "arbitrary unit", "arbitrary_unit", "RFU", "RLU", "fold", "fold change",
+    "fold_change", "normalised", "normalized", "relative", "rel", "rel.",
+}  # fmt: skip
+_DIMENSIONLESS_ALIASES = {"", "1", "-", "dimensionless", "none", "unitless"}
+
+# Canonical unit per dimensionality (pint's dimensionality string). A dimension not listed
+# keeps SI base units.
+_CANONICAL_BY_DIMENSION = {
+    "[time]": "second",
+    "1 / [time]": "1 / second",
+    "[length]": "micrometer",
+    "[length] ** 2": "micrometer ** 2",
+    "[length] ** 3": "micrometer ** 3",
+    "[length] / [time]": "micrometer / second",
+    "[length] ** 2 / [time]": "micrometer ** 2 / second",
+    "[substance] / [length] ** 3": "nanomolar",
+    "[substance]": "nanomole",
+    "[mass] / [length] ** 3": "nanogram / milliliter",
+    "[mass] * [length] / [time] ** 2": "piconewton",
+    "[temperature]": "degree_Celsius",
+    "[mass] * [length] ** 2 / [time] ** 3 / [current]": "millivolt",
+    "[mass]": "kilodalton",
+    "dimensionless": "dimensionless",
+    "[arbitrary]": "arbitrary_unit",
+    "[substance] / [length] ** 3 / [time]": "nanomolar / second",
+}
+
+# UCUM codes (case-sensitive form) for the canonical units above. Looked up by canonical unit,
+# never by the string a user typed ("nM" and "nmol/L" are different pint names).
+_UCUM = {
+    "second": "s",
+    "1 / second": "/s",
+    "micrometer": "um",
+    "micrometer ** 2": "um2",
+    "micrometer ** 3": "um3",
+    "micrometer / second": "um/s",
+    "micrometer ** 2 / second": "um2/s",
+    "nanomolar": "nmol/L",
+    "nanomole": "nmol",
+    "nanogram / milliliter": "ng/mL",
+    "piconewton": "pN",
+    "degree_Celsius": "Cel",
+    "millivolt": "mV",
+    "kilodalton": "ku",
+    "dimensionless": "1",
+    "arbitrary_unit": "[arb'U]",
+    "nanomolar / second": "nmol/L/s",
+}
+
+_NUMBER_THEN_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
+
+
+@functools.cache
+def registry() -> pint.UnitRegistry:
+    """Give the process-wide pint registry (built once: quantities of two registries never mix)."""
+    import pint
+
+    ureg = pint.UnitRegistry()
+    ureg.define("arbitrary_unit = [arbitrary] = arb_unit")
+    return ureg
+
+
+def Quantity(value: Any, unit: str) -> pint.Quantity:  # noqa: N802 - mirrors pint's name
+    """Give a pint Quantity of the shared registry."""
+    return registry().Quantity(value, _parse(unit, role="value"))
+
+
+@dataclass(frozen=True)
+class CanonicalUnit:
+    """A parsed unit: what the user wrote, its canonical storage unit and the factor between."""
+
+    original: str
+    canonical: str
+    dimensionality: str
+    relative: bool
+
+    @property
+    def ucum(self) -> str | None:
+        """Give the UCUM code of the canonical unit, or None where we keep no code for it."""
+        return _UCUM.get(self.canonical)
+
+
+def is_relative_unit(text: str) -> bool:
+    """Tell whether a unit string names arbitrary or relative units."""
+    return text.strip() in _RELATIVE_ALIASES or text.strip().lower() in _RELATIVE_ALIASES
+
+
+def _parse(text: str, *, role: str) -> pint.Unit:
+    import pint
+
+    stripped = text.strip()
+    if is_relative_unit(stripped):
+        stripped = "arbitrary_unit"
+    elif stripped.lower() in _DIMENSIONLESS_ALIASES:
+        stripped = "dimensionless"
+    try:
+        return registry().parse_units(stripped)
+    except (pint.UndefinedUnitError, pint.errors.DefinitionSyntaxError, ValueError, TypeError,
+            AttributeError, SyntaxError, AssertionError) as err:  # fmt: skip
+        raise UnitError(
+            f"unknown {role} unit '{text}': expected a unit such as 's', 'min', 'um', 'nM', "
+            f"'um/min', 'a.u.' or '1' ({type(err).__name__})"
+        ) from None
+
+
+def canonical_unit(text: str, *, role: str = "value", dimension: str | None = None) -> CanonicalUnit:
+    """Give the canonical storage unit for a unit string; check its dimension if one is named.
+
+    ``dimension`` is a pint dimensionality such as ``"[time]"``.
+    """
+    unit = _parse(text, role=role)
+    ureg = registry()
+    dims = str(ureg.get_dimensionality(unit))
+    if dimension is not None and dims != dimension:
+        raise UnitError(
+            f"{role} unit '{text}' has dimension {dims}: expected {dimension}"
+            + (" (a time unit such as 's', 'min' or 'h')" if dimension == "[time]" else "")
+        )
+    canonical = _CANONICAL_BY_DIMENSION.get(dims)
+    if canonical is None:
+        canonical = str(ureg.Quantity(1.0, unit).to_base_units().units)
+    return CanonicalUnit(
+        original=text.strip(), canonical=canonical, dimensionality=dims,
+        relative=dims == "[arbitrary]",
+    )  # fmt: skip
+
+
+def convert(values: np.ndarray, unit: CanonicalUnit) -> np.ndarray:
+    """Give ``values`` (in ``unit.original``) converted to ``unit.canonical`` as float64."""
+    source = _parse(unit.original, role="value")
+    target = _parse(unit.canonical, role="value")
+    if source == target:
+        return np.asarray(values, dtype=np.float64)
+    q = registry().Quantity(np.asarray(values, dtype=np.float64), source)
+    return np.asarray(q.m_as(target), dtype=np.float64)
+
+
+def scale_factor(unit: CanonicalUnit) -> float:
+    """Give the multiplier from the original to the canonical unit (for differences such as sd).
+
+    Offset units (degC, degF) convert differences by their scale alone.
+    """
+    source = _parse(unit.original, role="value")
+    target = _parse(unit.canonical, role="value")
+    if source == target:
+        return 1.0
+    ureg = registry()
+    delta = ureg.Quantity(1.0, source)
+    try:
+        return float(delta.m_as(target))
+    except Exception:  # offset units: compare two points instead of one
+        zero = ureg.Quantity(0.0, source).m_as(target)
+        one = ureg.Quantity(1.0, source).m_as(target)
+        return float(one - zero)
+
+
+def ucum_code(canonical: str) -> str | None:
+    """Give the UCUM code of a canonical unit name, or None."""
+    return _UCUM.get(canonical)
+
+
+def parse_quantity(text: str, *, role: str) -> tuple[float, CanonicalUnit] | None:
+    """Give (canonical value, unit) for text like ``'25 degC'`` or ``'10uM'``; None if no number.
+
+    A bare number gives a dimensionless quantity.
+    """
+    match = _NUMBER_THEN_UNIT.match(text)
+    if match is None:
+        return None
+    number, unit_text = match.groups()
+    try:
+        # a word that merely starts with digits ("3T3 fibroblasts") is not a quantity
+        unit = canonical_unit(unit_text or "1", role=role)
+    except UnitError:
+        return None
+    value = float(convert(np.array([float(number)]), unit)[0])
+    return value, unit
