@@ -282,7 +282,7 @@ class Catalog:
         return AddPlan(draft=draft, dataset_id=dataset_id, duplicate_of=duplicate, record=record)
 
     def _new_id(self, rec: DatasetRecord, context: _ActionContext) -> str:
-        prefix = f"{_slug(rec.source.lab, 16)}_{_slug(rec.observable.id, 24)}_"
+        prefix = f"{_slug(rec.source.lab, 40).split('_')[0][:16]}_{_slug(rec.observable.id, 24)}_"
         if not prefix[0].isalpha():
             prefix = "d_" + prefix
         number = 1

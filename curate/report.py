@@ -9,6 +9,8 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
+from curate import units
+
 if TYPE_CHECKING:
     from curate.catalog import AddPlan, HistoryEntry, VerifyReport
     from curate.ingest.inbox import IntakeReport
@@ -33,8 +35,12 @@ def short_unit(unit: str | None) -> str:
 def condition_text(value: ConditionValue) -> str:
     """Give '25 °C' or 'wt' for one condition value."""
     if isinstance(value.value, float):
-        number = f"{value.value:g}"
-        return f"{number} {short_unit(value.unit)}".strip() if value.unit else number
+        if value.unit and value.unit_original:
+            # shown as the lab wrote it (10 uM), stored canonically (10000 nM)
+            number = units.to_unit(value.value, value.unit, value.unit_original)
+            return f"{number:g} {value.unit_original}"
+        number_text = f"{value.value:g}"
+        return f"{number_text} {short_unit(value.unit)}".strip() if value.unit else number_text
     return str(value.value)
 
 

@@ -29,6 +29,8 @@ __all__ = [
     "is_relative_unit",
     "parse_quantity",
     "registry",
+    "scale_factor",
+    "to_unit",
     "ucum_code",
 ]
 
@@ -184,13 +186,16 @@ def scale_factor(unit: CanonicalUnit) -> float:
     if source == target:
         return 1.0
     ureg = registry()
-    delta = ureg.Quantity(1.0, source)
-    try:
-        return float(delta.m_as(target))
-    except Exception:  # offset units: compare two points instead of one
-        zero = ureg.Quantity(0.0, source).m_as(target)
-        one = ureg.Quantity(1.0, source).m_as(target)
-        return float(one - zero)
+    # two points, so that offset units (K -> degC) give the size of a degree, not a temperature
+    zero = ureg.Quantity(0.0, source).m_as(target)
+    one = ureg.Quantity(1.0, source).m_as(target)
+    return float(one - zero)
+
+
+def to_unit(value: float, unit: str, target: str) -> float:
+    """Give ``value`` (in ``unit``) expressed in ``target``, e.g. 10000 nanomolar -> 10 uM."""
+    source, goal = _parse(unit, role="value"), _parse(target, role="value")
+    return float(registry().Quantity(value, source).m_as(goal))
 
 
 def ucum_code(canonical: str) -> str | None:

@@ -1,0 +1,177 @@
+"""Every bad input gives one clear line naming file, line and field; exit 2; catalog unchanged."""
+
+from __future__ import annotations
+
+import sqlite3
+from pathlib import Path
+
+import pytest
+
+from conftest import LONG_CSV, SIDECAR, write
+
+BASE = ["--observable", "front_speed", "--unit", "um/min", "--time-unit", "min", "--lab", "L"]
+
+
+def dump(catalog: Path) -> list[str]:
+    """Give the catalog's whole content as SQL text lines."""
+    conn = sqlite3.connect(catalog)
+    try:
+        return list(conn.iterdump())
+    finally:
+        conn.close()
+
+
+@pytest.fixture
+def seeded(cli, tmp_path):
+    """A CLI runner whose catalog already holds one dataset."""
+    good = write(tmp_path / "good.csv", LONG_CSV)
+    assert cli("add", good, *BASE).code == 0
+    return cli
+
+
+CASES = [
+    # (name, file name, content, extra args, expected fragment of the one error line)
+    ("non-numeric value", "a.csv", "time,value\n0,1\n1,abc\n", [],
+     "a.csv, line 3, column 'value': 'abc' is not a number"),
+    ("nan value", "b.csv", "time,value\n0,1\n1,nan\n", [], "line 3, column 'value': 'nan' is not a finite number"),
+    ("inf time", "c.csv", "time,value\n0,1\ninf,2\n", [], "line 3, column 'time': 'inf' is not a finite number"),
+    ("huge number", "c2.csv", "time,value\n0,1\n1,1e999\n", [], "line 3, column 'value': '1e999' is not a finite"),
+    ("empty value", "d.csv", "time,value\n0,1\n1,\n", [], "line 3, column 'value': empty cell"),
+    ("negative sd", "e.csv", "time,value,sd\n0,1,0.1\n1,2,-0.5\n", [],
+     "line 3, column 'sd': negative uncertainty -0.5"),
+    ("too many cells", "f.csv", "time,value\n0,1\n1,2,3\n", [], "line 3: 3 cells, but the header has 2 columns"),
+    ("too few cells", "f2.csv", "time,value,sd\n0,1,0.1\n1,2\n", [], "line 3: 2 cells, but the header has 3"),
+    ("missing value column", "g.csv", "time,sd\n0,1\n", ["--layout", "long"],
+     "required column 'value' is missing"),
+    ("missing time column", "h.csv", "t,value\n0,1\n", [], "required column 'time' is missing"),
+    ("empty file", "i.csv", "", [], "i.csv: the file is empty"),
+    ("header only", "j.csv", "time,value\n", [], "the file has a header but no data rows"),
+    ("binary as csv", "k.csv", b"\x00\x01\x02PK\x00", [], "not a text file (binary content)"),
+    ("text as xlsx", "l.xlsx", "time,value\n0,1\n", [], "not an XLSX workbook"),
+    ("broken zip as xlsx", "l2.xlsx", b"PK\x03\x04garbage", [], "not a readable XLSX workbook"),
+    ("not utf-8", "m.csv", b"time,value\n0,\xff\n", [], "is not UTF-8 text"),
+    ("unsupported type", "n.dat", "time,value\n0,1\n", [], "unsupported file type '.dat'"),
+    ("duplicate header", "o.csv", "time,value,value\n0,1,2\n", [], "column 'value' appears twice"),
+]
+
+
+@pytest.mark.parametrize(("name", "filename", "content", "extra", "expected"), CASES,
+                         ids=[c[0] for c in CASES])
+def test_bad_data_file(seeded, tmp_path, name, filename, content, extra, expected):
+    path = tmp_path / filename
+    if isinstance(content, bytes):
+        path.write_bytes(content)
+    else:
+        path.write_text(content, encoding="utf-8")
+    before = dump(seeded.catalog)
+    run = seeded("add", path, *BASE, *extra)
+    assert run.code == 2, run
+    assert run.out == ""
+    lines = run.err.strip().splitlines()
+    assert len(lines) == 1, run.err
+    assert expected in lines[0]
+    assert "Traceback" not in run.err
+    assert dump(seeded.catalog) == before
+
+
+OPTION_CASES = [
+    ("unknown unit", ["--observable", "x", "--unit", "wibbles", "--time-unit", "min", "--lab", "L"],
+     "unknown value unit 'wibbles'"),
+    ("time unit of wrong dimension", ["--observable", "x", "--unit", "nM", "--time-unit", "um",
+                                      "--lab", "L"], "time unit 'um' has dimension [length]"),
+    ("invalid condition key", [*BASE, "--condition", "bad-key=3"], "key 'bad-key' is not a valid identifier"),
+    ("condition without =", [*BASE, "--condition", "temperature"], "expected KEY=VALUE"),
+    ("missing unit option", ["--observable", "x", "--time-unit", "min", "--lab", "L"],
+     "field 'observable.unit' is required; pass --unit"),
+    ("missing lab", ["--observable", "x", "--unit", "nM", "--time-unit", "min"], "pass --lab"),
+    ("invalid observable id", ["--observable", "9x", "--unit", "nM", "--time-unit", "min", "--lab", "L"],
+     "field 'observable.id'"),
+    ("grade outside the scale", [*BASE, "--grade", "Q", "--reason", "r"], "field 'trust.grade'"),
+    ("grade without reason", [*BASE, "--grade", "A"], "a grade needs its reason"),
+    ("sem without n", [*BASE, "--sd-type", "sem"], "no n is known"),
+    ("ci without level", [*BASE, "--sd-type", "ci"], "needs its level"),
+    ("unknown sd type", [*BASE, "--sd-type", "stddev"], "field 'uncertainty.type'"),
+    ("bad date", [*BASE, "--acquired", "last tuesday"], "field 'source.acquired'"),
+]
+
+
+@pytest.mark.parametrize(("name", "args", "expected"), OPTION_CASES, ids=[c[0] for c in OPTION_CASES])
+def test_bad_options(seeded, tmp_path, name, args, expected):
+    data = write(tmp_path / "data.csv", "time,value,sd\n0,1,0.1\n1,2,0.1\n")
+    before = dump(seeded.catalog)
+    run = seeded("add", data, *args)
+    assert run.code == 2, run
+    assert len(run.err.strip().splitlines()) == 1, run.err
+    assert expected in run.err
+    assert dump(seeded.catalog) == before
+
+
+SIDECAR_CASES = [
+    ("missing required field", SIDECAR.replace('source.lab = "Test Lab"\n', ""),
+     "field 'source': required but missing"),
+    ("unknown field", SIDECAR + 'colour = "red"\n', "field 'colour': unknown field"),
+    ("invalid toml", "observable = [\n", "not valid TOML"),
+    ("bad condition key in sidecar", SIDECAR + '[conditions]\n"2fast" = 1\n',
+     "key '2fast' is not a valid identifier"),
+    ("wrong type", SIDECAR.replace('time.unit = "min"', "time.unit = 5"), "field 'time.unit'"),
+    ("bad duration", SIDECAR + '[[protocol.pretreatment]]\nstep = "x"\nduration = "soon"\n',
+     "'soon' is not a duration"),
+]
+
+
+@pytest.mark.parametrize(("name", "sidecar", "expected"), SIDECAR_CASES, ids=[c[0] for c in SIDECAR_CASES])
+def test_bad_sidecar(seeded, tmp_path, name, sidecar, expected):
+    data = write(tmp_path / "s.csv", LONG_CSV)
+    write(tmp_path / "s.toml", sidecar)
+    before = dump(seeded.catalog)
+    run = seeded("add", data)
+    assert run.code == 2, run
+    assert len(run.err.strip().splitlines()) == 1, run.err
+    assert expected in run.err
+    assert "s.toml" in run.err
+    assert dump(seeded.catalog) == before
+
+
+def test_sidecar_naming_missing_data_file(seeded, tmp_path):
+    sidecar = write(tmp_path / "meta.toml", 'data_file = "gone.csv"\n' + SIDECAR)
+    run = seeded("add", sidecar)
+    assert run.code == 2
+    assert "meta.toml, field 'data_file': the data file 'gone.csv' does not exist" in run.err
+
+
+@pytest.mark.parametrize("name", ["../outside.csv", "/etc/passwd"])
+def test_sidecar_naming_file_outside_its_folder(seeded, tmp_path, name):
+    write(tmp_path / "outside.csv", LONG_CSV)
+    sidecar = write(tmp_path / "inner" / "meta.toml", f'data_file = "{name}"\n' + SIDECAR)
+    run = seeded("add", sidecar)
+    assert run.code == 2
+    assert "is outside the sidecar's folder" in run.err
+
+
+def test_missing_data_file(seeded, tmp_path):
+    run = seeded("add", tmp_path / "nowhere.csv", *BASE)
+    assert run.code == 2 and "nowhere.csv: no such file" in run.err
+
+
+def test_zero_sd_is_a_warning_not_an_error(seeded, tmp_path):
+    data = write(tmp_path / "zero.csv", "time,value,sd\n0,1,0\n1,2,0.1\n2,3,0.2\n")
+    run = seeded("add", data, *BASE)
+    assert run.code == 0
+    assert "uncertainty exactly 0 at 1 point(s)" in run.err
+
+
+def test_unknown_dataset(seeded):
+    run = seeded("show", "no_such_dataset")
+    assert run.code == 2 and "no dataset 'no_such_dataset'" in run.err
+
+
+def test_catalog_in_missing_folder(cli, tmp_path):
+    run = cli("list", catalog_path=tmp_path / "nope" / "c.db")
+    assert run.code == 2 and "does not exist" in run.err
+
+
+def test_file_that_is_not_a_catalog(cli, tmp_path):
+    fake = tmp_path / "fake.db"
+    fake.write_text("this is not sqlite" * 100)
+    run = cli("list", catalog_path=fake)
+    assert run.code == 2 and "not a usable catalog file" in run.err
