@@ -1,0 +1,221 @@
+"""The catalog: immutable versions, retire/revise, history, filters, verify and tamper evidence."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+
+import numpy as np
+import pytest
+
+import curate
+from conftest import LONG_CSV, write
+from curate.errors import InputError, NotFoundError
+
+OPTIONS = {
+    "observable": {"id": "velarin_conc", "unit": "nM"},
+    "time": {"unit": "min"},
+    "source": {"lab": "Harrow Point Lab"},
+}
+
+
+def add(catalog, tmp_path, name, **overrides):
+    text = LONG_CSV if "values" not in overrides else overrides.pop("values")
+    data = write(tmp_path / f"{name}.csv", text)
+    options = {**OPTIONS, **overrides}
+    return catalog.add(data, options=options)
+
+
+@pytest.fixture
+def filled(catalog, tmp_path):
+    add(catalog, tmp_path, "a", conditions={"temperature": "37 degC", "dose": "1 uM"})
+    add(catalog, tmp_path, "b", values="time,value\n0,2\n1,3\n2,5\n",
+        conditions={"temperature": "30 degC", "dose": "10 uM"},
+        trust={"grade": "A", "rationale": "replicated, calibrated"})
+    add(catalog, tmp_path, "c", values="time,value\n0,5\n1,6\n2,8\n",
+        source={"lab": "Quillfen Institute"}, observable={"id": "glint", "unit": "a.u."},
+        conditions={"temperature": "37 degC", "dose": "10 uM"})
+    return catalog
+
+
+def test_open_catalog_uses_environment(tmp_path, monkeypatch):
+    monkeypatch.setenv("CURATE_CATALOG", str(tmp_path / "env.db"))
+    with curate.open_catalog() as catalog:
+        assert catalog.path == str(tmp_path / "env.db")
+    assert (tmp_path / "env.db").exists()
+
+
+def test_wal_mode_and_migrations(catalog):
+    mode = catalog.store.db.execute("PRAGMA journal_mode").fetchone()[0]
+    assert mode == "wal"
+    assert catalog.store.applied_migrations() == ["0001_initial"]
+    assert len(catalog.catalog_id) == 36
+
+
+def test_reopening_keeps_catalog_id(tmp_path):
+    with curate.open_catalog(tmp_path / "x.db") as first:
+        ident = first.catalog_id
+    with curate.open_catalog(tmp_path / "x.db") as second:
+        assert second.catalog_id == ident
+        assert second.store.applied_migrations() == ["0001_initial"]
+
+
+def test_list_filters(filled):
+    assert [v.id for v in filled.list()] == ["harrow_velarin_conc_01", "harrow_velarin_conc_02",
+                                             "quillfen_glint_01"]
+    assert [v.id for v in filled.list(observable="glint")] == ["quillfen_glint_01"]
+    assert [v.id for v in filled.list(lab="Harrow Point Lab")] == ["harrow_velarin_conc_01",
+                                                                   "harrow_velarin_conc_02"]
+    assert [v.id for v in filled.list(grade="A")] == ["harrow_velarin_conc_02"]
+    assert len(filled.list(grade="none")) == 2
+    # condition filters compare canonical values: 10 uM equals 10000 nM
+    assert [v.id for v in filled.list(conditions={"dose": "10000 nM"})] == [
+        "harrow_velarin_conc_02", "quillfen_glint_01"]
+    assert [v.id for v in filled.list(conditions={"temperature": "37degC", "dose": "10 uM"})] == [
+        "quillfen_glint_01"]
+    with pytest.raises(InputError, match="unknown grade 'Z'"):
+        filled.list(grade="Z")
+
+
+def test_versions_are_immutable_and_retire_hides(filled):
+    target = "harrow_velarin_conc_01"
+    before = filled.show(target)
+    retired = filled.retire(target, reason="superseded by a rerun")
+    assert retired.version == 2 and retired.record.retired
+    assert target not in [v.id for v in filled.list()]
+    assert target in [v.id for v in filled.list(include_retired=True)]
+    # version 1 is still there, unchanged, with the same arrays
+    again = filled.show(target, version=1)
+    assert again.record == before.record and again.record_hash == before.record_hash
+    assert filled.arrays(target, 1).value.tolist() == filled.arrays(target).value.tolist()
+    with pytest.raises(InputError, match="already retired"):
+        filled.retire(target, reason="again")
+    back = filled.revise(target, reason="rerun failed", unretire=True)
+    assert back.version == 3 and not back.record.retired
+
+
+def test_revise_makes_a_new_version_with_history(filled):
+    target = "harrow_velarin_conc_01"
+    new = filled.revise(target, reason="lab sent the right temperature",
+                        conditions={"temperature": "36.5 degC"}, label="velarin (nM)")
+    assert new.version == 2
+    assert new.record.conditions["temperature"].value == 36.5
+    assert new.record.content_hash == filled.show(target, 1).record.content_hash
+    history = filled.history(target)
+    assert [h.kind for h in history] == ["add", "revise"]
+    assert history[1].reason == "lab sent the right temperature"
+    assert "conditions.temperature.value: 37.0 -> 36.5" in history[1].changes
+    assert filled.verify().ok
+
+
+def test_revise_requires_reason_and_a_change(filled):
+    with pytest.raises(InputError, match="a reason is required"):
+        filled.revise("harrow_velarin_conc_01", reason=" ", label="x")
+    with pytest.raises(InputError, match="nothing would change"):
+        filled.revise("harrow_velarin_conc_01", reason="r")
+
+
+def test_show_unknown_version(filled):
+    with pytest.raises(NotFoundError, match="has versions 1 to 1, not 4"):
+        filled.show("harrow_velarin_conc_01", version=4)
+
+
+def test_summary_shape(filled):
+    summary = filled.show("harrow_velarin_conc_02").summary()
+    for key in ("id", "version", "observable", "lab", "n_points", "grade"):
+        assert key in summary
+    assert summary["grade"] == "A" and summary["n_points"] == 3
+
+
+def test_verify_clean(filled):
+    report = filled.verify()
+    assert report.ok, report.problems
+    assert (report.datasets, report.versions, report.events, report.series) == (3, 3, 3, 3)
+
+
+# -- tamper evidence: each edit made directly in the SQLite file is named by verify ------------
+
+def _raw(catalog):
+    return sqlite3.connect(catalog.path, isolation_level=None)
+
+
+def test_verify_detects_edited_point_value(filled):
+    content = filled.show("harrow_velarin_conc_02").record.content_hash
+    conn = _raw(filled)
+    blob = conn.execute("SELECT value FROM series WHERE content_hash = ?", [content]).fetchone()[0]
+    values = np.frombuffer(blob, dtype="<f8").copy()
+    values[1] *= 1.001
+    conn.execute("UPDATE series SET value = ? WHERE content_hash = ?", [values.tobytes(), content])
+    conn.close()
+    report = filled.verify()
+    assert not report.ok
+    assert report.problems[0].startswith("dataset harrow_velarin_conc_02 version 1: its measured "
+                                         "values no longer match")
+
+
+def test_verify_detects_edited_metadata(filled):
+    conn = _raw(filled)
+    row = conn.execute("SELECT record_json FROM versions WHERE dataset_id = 'quillfen_glint_01'").fetchone()
+    record = json.loads(row[0])
+    record["source"]["lab"] = "Someone Else"
+    conn.execute("UPDATE versions SET record_json = ? WHERE dataset_id = 'quillfen_glint_01'",
+                 [json.dumps(record)])
+    conn.close()
+    report = filled.verify()
+    assert not report.ok
+    assert report.problems[0].startswith("dataset quillfen_glint_01 version 1: its metadata no "
+                                         "longer match")
+
+
+def test_verify_detects_edited_searchable_column(filled):
+    conn = _raw(filled)
+    conn.execute("UPDATE versions SET grade = 'A' WHERE dataset_id = 'quillfen_glint_01'")
+    conn.close()
+    report = filled.verify()
+    assert report.problems == ["dataset quillfen_glint_01 version 1: the searchable columns "
+                               "disagree with its record (edited in the file)"]
+
+
+def test_verify_detects_deleted_event(filled):
+    conn = _raw(filled)
+    conn.execute("DELETE FROM events WHERE seq = 2")
+    conn.close()
+    report = filled.verify()
+    assert "event log: event 3 stands where event 2 belongs" in report.problems[0]
+
+
+def test_verify_detects_reordered_events(filled):
+    conn = _raw(filled)
+    conn.execute("UPDATE events SET seq = -1 WHERE seq = 1")
+    conn.execute("UPDATE events SET seq = 1 WHERE seq = 2")
+    conn.execute("UPDATE events SET seq = 2 WHERE seq = -1")
+    conn.close()
+    report = filled.verify()
+    assert report.problems[0].startswith("event log: event 1 does not follow event 0")
+
+
+def test_verify_detects_edited_event_payload(filled):
+    conn = _raw(filled)
+    conn.execute("UPDATE events SET actor = 'mallory' WHERE seq = 3")
+    conn.close()
+    assert filled.verify().problems == ["event log: event 3 was altered after it was written"]
+
+
+def test_verify_detects_deleted_version(filled):
+    conn = _raw(filled)
+    conn.execute("DELETE FROM versions WHERE dataset_id = 'quillfen_glint_01'")
+    conn.close()
+    assert filled.verify().problems == ["dataset quillfen_glint_01 version 1: logged as written "
+                                        "but missing from the file (deleted?)"]
+
+
+def test_verify_exit_code_on_cli(cli, tmp_path):
+    data = write(tmp_path / "v.csv", LONG_CSV)
+    assert cli("add", data, "--observable", "x", "--unit", "nM", "--time-unit", "s", "--lab", "L").code == 0
+    assert cli("verify").code == 0
+    conn = sqlite3.connect(cli.catalog, isolation_level=None)
+    conn.execute("UPDATE events SET kind = 'forged'")
+    conn.close()
+    run = cli("verify")
+    assert run.code == 1
+    assert "NOT intact" in run.out and "event 1 was altered" in run.out

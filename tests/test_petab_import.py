@@ -1,0 +1,109 @@
+"""PEtab import, checked against the petab library's own reading of two published problems.
+
+Problems: Boehm et al., J. Proteome Res. 2014 (doi 10.1021/pr5006923) and Fujita et al.,
+Sci. Signal. 2010 (doi 10.1126/scisignal.2000810), as kept in the public PEtab benchmark
+collection (tests/data/petab/).
+"""
+
+from __future__ import annotations
+
+import logging
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from conftest import DATA
+
+petab_v1 = pytest.importorskip("petab.v1")
+
+PROBLEMS = {
+    "Boehm_JProteomeRes2014": "measurementData_Boehm_JProteomeRes2014.tsv",
+    "Fujita_SciSignal2010": "measurementData_step_Fujita_SciSignal2010.tsv",
+}
+GROUP = ["observableId", "simulationConditionId", "datasetId"]
+
+
+def reference_table(name: str) -> pd.DataFrame:
+    logging.getLogger("petab").setLevel(logging.ERROR)
+    return petab_v1.get_measurement_df(str(DATA / "petab" / name / PROBLEMS[name]))
+
+
+@pytest.mark.parametrize("name", sorted(PROBLEMS))
+def test_import_matches_petab_reading(catalog, name):
+    results = catalog.import_petab(DATA / "petab" / name / f"{name}.yaml")
+    reference = reference_table(name)
+    groups = reference.groupby(GROUP, sort=False)
+    assert len(results) == groups.ngroups
+    assert all(r.added for r in results)
+    total = 0
+    for result in results:
+        record = catalog.show(result.id).record
+        petab_info = record.annotations["petab"]
+        key = (record.observable.id, petab_info["simulationConditionId"], petab_info["datasetId"])
+        expected = groups.get_group(key).sort_values("time", kind="stable")
+        points = catalog.points(result.id)
+        # time unit 's' in, seconds stored: the numbers are exactly the published ones
+        np.testing.assert_array_equal(points["time"].to_numpy(), expected["time"].to_numpy(float))
+        np.testing.assert_array_equal(points["value"].to_numpy(),
+                                      expected["measurement"].to_numpy(float))
+        total += len(points)
+        # every cell of every row kept verbatim, in the stored order
+        rows = record.annotations["petab_rows"]
+        assert [float(t) for t in rows["time"]] == points["time"].tolist()
+        assert [float(m) for m in rows["measurement"]] == points["value"].tolist()
+    assert total == len(reference)
+
+
+def test_numeric_noise_becomes_sd_and_scale_factors_mark_relative_data(catalog):
+    results = catalog.import_petab(DATA / "petab" / "Fujita_SciSignal2010" /
+                                   "Fujita_SciSignal2010.yaml", lab="Fujita lab")  # fmt: skip
+    first = catalog.show(results[0].id)
+    assert first.record.source.lab == "Fujita lab"
+    assert first.record.observable.relative  # observableParameter1_... * (...)
+    assert first.record.uncertainty.type.value == "sd"
+    points = catalog.points(results[0].id)
+    reference = reference_table("Fujita_SciSignal2010")
+    chosen = reference[(reference.datasetId == first.record.annotations["petab"]["datasetId"])]
+    np.testing.assert_array_equal(points["sd"].to_numpy(), chosen["noiseParameters"].to_numpy(float))
+    # the condition table's numeric columns become conditions
+    assert first.record.conditions["EGF_0"].value == pytest.approx(0.1)
+
+
+def test_symbolic_noise_is_kept_as_text(catalog):
+    results = catalog.import_petab(DATA / "petab" / "Boehm_JProteomeRes2014" /
+                                   "Boehm_JProteomeRes2014.yaml")  # fmt: skip
+    record = catalog.show(results[0].id).record
+    assert record.uncertainty is None
+    assert set(record.annotations["petab_rows"]["noiseParameters"]) == {"sd_pSTAT5A_rel"}
+    assert "sd" not in catalog.points(results[0].id)
+    # datasetIds that are valid identifiers become the dataset ids
+    assert results[0].id == "model1_data1_pSTAT5A_rel"
+
+
+def test_reimport_is_recognised(catalog):
+    path = DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml"
+    first = catalog.import_petab(path)
+    again = catalog.import_petab(path)
+    assert not any(r.added for r in again)
+    assert [r.duplicate_of for r in again] == [r.id for r in first]
+    assert catalog.verify().ok
+
+
+def test_import_cli(cli):
+    run = cli("import-petab", DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml",
+              "--time-unit", "min", "--json")
+    assert run.code == 0, run.err
+    import json
+
+    payload = json.loads(run.out)
+    assert len(payload) == 3 and all(p["added"] for p in payload)
+
+
+def test_bad_problem_file(cli, tmp_path):
+    bad = tmp_path / "p.yaml"
+    bad.write_text("format_version: 2\nproblems: []\n")
+    run = cli("import-petab", bad)
+    assert run.code == 2 and "this reader takes PEtab 1" in run.err
+    run = cli("import-petab", tmp_path / "missing.yaml")
+    assert run.code == 2 and "no such PEtab problem file" in run.err
