@@ -7,6 +7,7 @@ methods and prints; notebooks and tests call them directly.
 
 from __future__ import annotations
 
+import builtins
 import datetime as dt
 import getpass
 import json
@@ -102,9 +103,14 @@ class AddResult:
 
     def to_dict(self) -> dict[str, Any]:
         """Give the result as plain data."""
-        return {"id": self.id, "version": self.version, "added": self.added,
-                "duplicate_of": self.duplicate_of, "origin": self.origin,
-                "warnings": list(self.warnings)}  # fmt: skip
+        return {
+            "id": self.id,
+            "version": self.version,
+            "added": self.added,
+            "duplicate_of": self.duplicate_of,
+            "origin": self.origin,
+            "warnings": list(self.warnings),
+        }
 
 
 @dataclass(frozen=True)
@@ -121,8 +127,15 @@ class HistoryEntry:
 
     def to_dict(self) -> dict[str, Any]:
         """Give the entry as plain data."""
-        return {"seq": self.seq, "at": self.at, "actor": self.actor, "kind": self.kind,
-                "version": self.version, "changes": list(self.changes), "reason": self.reason}  # fmt: skip
+        return {
+            "seq": self.seq,
+            "at": self.at,
+            "actor": self.actor,
+            "kind": self.kind,
+            "version": self.version,
+            "changes": list(self.changes),
+            "reason": self.reason,
+        }
 
 
 @dataclass
@@ -143,9 +156,15 @@ class VerifyReport:
 
     def to_dict(self) -> dict[str, Any]:
         """Give the report as plain data."""
-        return {"ok": self.ok, "datasets": self.datasets, "versions": self.versions,
-                "events": self.events, "series": self.series, "sqlite": self.sqlite,
-                "problems": self.problems}  # fmt: skip
+        return {
+            "ok": self.ok,
+            "datasets": self.datasets,
+            "versions": self.versions,
+            "events": self.events,
+            "series": self.series,
+            "sqlite": self.sqlite,
+            "problems": self.problems,
+        }
 
 
 def _slug(text: str, limit: int) -> str:
@@ -186,20 +205,30 @@ class _ActionContext:
     def _remember(self, version: DatasetVersion) -> None:
         rec = version.record
         conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
-        self.neighbours.append(Neighbour(
-            dataset_id=version.id, observable=rec.observable.id, unit=rec.observable.unit,
-            conditions=conditions, lab=rec.source.lab, content_hash=rec.content_hash,
-            magnitude=float(rec.annotations.get("typical_magnitude", 0.0)),
-        ))  # fmt: skip
+        self.neighbours.append(
+            Neighbour(
+                dataset_id=version.id,
+                observable=rec.observable.id,
+                unit=rec.observable.unit,
+                conditions=conditions,
+                lab=rec.source.lab,
+                content_hash=rec.content_hash,
+                magnitude=float(rec.annotations.get("typical_magnitude", 0.0)),
+            )
+        )
         self.by_key[(rec.content_hash, rec.observable.id, conditions, rec.source.lab)] = version
         self.ids.add(version.id)
 
 
 def _version_from_row(row: VersionRow) -> DatasetVersion:
     record = DatasetRecord.model_validate_json(row.record_json)
-    return DatasetVersion(id=row.dataset_id, version=row.version,
-                          created_at=dt.datetime.fromisoformat(row.created_at), record=record,
-                          record_hash=row.record_hash)  # fmt: skip
+    return DatasetVersion(
+        id=row.dataset_id,
+        version=row.version,
+        created_at=dt.datetime.fromisoformat(row.created_at),
+        record=record,
+        record_hash=row.record_hash,
+    )
 
 
 class Catalog:
@@ -232,16 +261,30 @@ class Catalog:
 
     # -- logging ---------------------------------------------------------------------------
 
-    def read_file(self, path: str | Path, *, sidecar: str | Path | None = None,
-                  options: dict[str, Any] | None = None) -> Draft:  # fmt: skip
+    def read_file(
+        self,
+        path: str | Path,
+        *,
+        sidecar: str | Path | None = None,
+        options: dict[str, Any] | None = None,
+    ) -> Draft:
         """Give the validated draft of a data file without logging it."""
         return build_draft(path, sidecar=sidecar, options=options, actor=self.actor)
 
-    def draft(self, time: Sequence[float] | np.ndarray, value: Sequence[float] | np.ndarray, *,
-              observable: str, unit: str, time_unit: str, lab: str,
-              sd: Sequence[float] | np.ndarray | None = None,
-              replicate: Sequence[int] | np.ndarray | None = None,
-              conditions: dict[str, Any] | None = None, **metadata: Any) -> Draft:  # fmt: skip
+    def draft(
+        self,
+        time: Sequence[float] | np.ndarray,
+        value: Sequence[float] | np.ndarray,
+        *,
+        observable: str,
+        unit: str,
+        time_unit: str,
+        lab: str,
+        sd: Sequence[float] | np.ndarray | None = None,
+        replicate: Sequence[int] | np.ndarray | None = None,
+        conditions: dict[str, Any] | None = None,
+        **metadata: Any,
+    ) -> Draft:
         """Give the validated draft of arrays in memory (the other fields as in a sidecar)."""
         meta: dict[str, Any] = {
             "observable": {"id": observable, "unit": unit, **metadata.pop("observable", {})},
@@ -255,30 +298,44 @@ class Catalog:
         if rep is not None:
             labels = tuple(str(x) for x in np.unique(rep))
             rep = np.searchsorted(np.unique(rep), rep)
-        return draft_from_arrays(np.asarray(time), np.asarray(value), metadata=meta,
-                                 sd=None if sd is None else np.asarray(sd), replicate=rep,
-                                 replicate_labels=labels, actor=self.actor)  # fmt: skip
+        return draft_from_arrays(
+            np.asarray(time),
+            np.asarray(value),
+            metadata=meta,
+            sd=None if sd is None else np.asarray(sd),
+            replicate=rep,
+            replicate_labels=labels,
+            actor=self.actor,
+        )
 
     def plan_add(self, draft: Draft, context: _ActionContext | None = None) -> AddPlan:
         """Give what logging ``draft`` would write, against the catalog as it is now."""
         context = context or _ActionContext(self._store)
         rec = draft.record
         conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
-        duplicate = context.by_key.get((rec.content_hash, rec.observable.id, conditions,
-                                        rec.source.lab))  # fmt: skip
+        duplicate = context.by_key.get(
+            (rec.content_hash, rec.observable.id, conditions, rec.source.lab)
+        )
         magnitude = typical_magnitude(draft.arrays.value)
         extra = check_against_others(
-            observable=rec.observable.id, unit=rec.observable.unit,
-            relative=rec.observable.relative, conditions=conditions,
-            content_hash=rec.content_hash, magnitude=magnitude, others=context.neighbours,
-        )  # fmt: skip
+            observable=rec.observable.id,
+            unit=rec.observable.unit,
+            relative=rec.observable.relative,
+            conditions=conditions,
+            content_hash=rec.content_hash,
+            magnitude=magnitude,
+            others=context.neighbours,
+        )
         annotations = {**rec.annotations, "typical_magnitude": magnitude}
-        record = rec.model_copy(update={"warnings": rec.warnings + tuple(extra),
-                                        "annotations": annotations})  # fmt: skip
+        record = rec.model_copy(
+            update={"warnings": rec.warnings + tuple(extra), "annotations": annotations}
+        )
         dataset_id = draft.requested_id or self._new_id(rec, context)
         if draft.requested_id and duplicate is None and draft.requested_id in context.ids:
-            raise InputError(f"{draft.origin}: dataset id '{draft.requested_id}' is taken; choose "
-                             "another id or leave it out to get one generated")  # fmt: skip
+            raise InputError(
+                f"{draft.origin}: dataset id '{draft.requested_id}' is taken; choose "
+                "another id or leave it out to get one generated"
+            )
         return AddPlan(draft=draft, dataset_id=dataset_id, duplicate_of=duplicate, record=record)
 
     def _new_id(self, rec: DatasetRecord, context: _ActionContext) -> str:
@@ -290,42 +347,77 @@ class Catalog:
             number += 1
         return f"{prefix}{number:02d}"
 
-    def _write_version(self, dataset_id: str, version: int, record: DatasetRecord, *,
-                       kind: str, payload: dict[str, Any], arrays: SeriesArrays | None) -> DatasetVersion:  # fmt: skip
+    def _write_version(
+        self,
+        dataset_id: str,
+        version: int,
+        record: DatasetRecord,
+        *,
+        kind: str,
+        payload: dict[str, Any],
+        arrays: SeriesArrays | None,
+    ) -> DatasetVersion:
         created = dt.datetime.now(dt.UTC)
         record_json = canonical_json(record.model_dump(mode="json"))
         sealed = record_hash(dataset_id, version, record_json)
         if arrays is not None:
             self._store.put_series(record.content_hash, arrays)
-        self._store.put_version(VersionRow(
-            dataset_id=dataset_id, version=version, created_at=created.isoformat(),
-            record_json=record_json, record_hash=sealed, content_hash=record.content_hash,
-            observable=record.observable.id, lab=record.source.lab,
-            grade=record.trust.grade if record.trust else None, retired=record.retired,
-        ))  # fmt: skip
-        self._store.append_event(kind, {**payload, "record_hash": sealed,
-                                        "content_hash": record.content_hash},
-                                 actor=self.actor, dataset_id=dataset_id, version=version)  # fmt: skip
-        return DatasetVersion(id=dataset_id, version=version, created_at=created, record=record,
-                              record_hash=sealed)  # fmt: skip
+        self._store.put_version(
+            VersionRow(
+                dataset_id=dataset_id,
+                version=version,
+                created_at=created.isoformat(),
+                record_json=record_json,
+                record_hash=sealed,
+                content_hash=record.content_hash,
+                observable=record.observable.id,
+                lab=record.source.lab,
+                grade=record.trust.grade if record.trust else None,
+                retired=record.retired,
+            )
+        )
+        self._store.append_event(
+            kind,
+            {**payload, "record_hash": sealed, "content_hash": record.content_hash},
+            actor=self.actor,
+            dataset_id=dataset_id,
+            version=version,
+        )
+        return DatasetVersion(
+            id=dataset_id, version=version, created_at=created, record=record, record_hash=sealed
+        )
 
     def apply(self, plan: AddPlan, context: _ActionContext | None = None) -> AddResult:
         """Write a plan (call inside a transaction when batching; otherwise opens one)."""
         if plan.duplicate_of is not None:
             dup = plan.duplicate_of
-            return AddResult(id=dup.id, version=dup.version, added=False, duplicate_of=dup.id,
-                             origin=plan.draft.origin, warnings=())  # fmt: skip
-        payload = {"origin": plan.draft.origin,
-                   "raw_file_sha256": plan.record.source.raw_file_sha256}  # fmt: skip
-        version = self._write_version(plan.dataset_id, 1, plan.record, kind="add",
-                                      payload=payload, arrays=plan.draft.arrays)  # fmt: skip
+            return AddResult(
+                id=dup.id,
+                version=dup.version,
+                added=False,
+                duplicate_of=dup.id,
+                origin=plan.draft.origin,
+                warnings=(),
+            )
+        payload = {
+            "origin": plan.draft.origin,
+            "raw_file_sha256": plan.record.source.raw_file_sha256,
+        }
+        version = self._write_version(
+            plan.dataset_id, 1, plan.record, kind="add", payload=payload, arrays=plan.draft.arrays
+        )
         if context is not None:
             context._remember(version)
-        return AddResult(id=plan.dataset_id, version=1, added=True, duplicate_of=None,
-                         origin=plan.draft.origin,
-                         warnings=tuple(w.message for w in plan.record.warnings))  # fmt: skip
+        return AddResult(
+            id=plan.dataset_id,
+            version=1,
+            added=True,
+            duplicate_of=None,
+            origin=plan.draft.origin,
+            warnings=tuple(w.message for w in plan.record.warnings),
+        )
 
-    def add_drafts(self, drafts: Iterable[Draft]) -> list[AddResult]:
+    def add_drafts(self, drafts: Iterable[Draft]) -> builtins.list[AddResult]:
         """Log many drafts as one action: one transaction, all or nothing."""
         with self._store.transaction():
             context = _ActionContext(self._store)
@@ -334,8 +426,14 @@ class Catalog:
                 results.append(self.apply(self.plan_add(draft, context), context))
         return results
 
-    def add(self, path: str | Path, *, sidecar: str | Path | None = None,
-            options: dict[str, Any] | None = None, dry_run: bool = False) -> AddResult | AddPlan:  # fmt: skip
+    def add(
+        self,
+        path: str | Path,
+        *,
+        sidecar: str | Path | None = None,
+        options: dict[str, Any] | None = None,
+        dry_run: bool = False,
+    ) -> AddResult | AddPlan:
         """Log one data file (with its sidecar and option overrides); give the result.
 
         With ``dry_run`` nothing is written and the plan is given instead.
@@ -345,22 +443,36 @@ class Catalog:
             return self.plan_add(draft)
         return self.add_drafts([draft])[0]
 
-    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None,
-               progress: Callable[[int, int, str], None] | None = None) -> IntakeReport:  # fmt: skip
+    def intake(
+        self,
+        folder: str | Path,
+        *,
+        quarantine: str | Path | None = None,
+        progress: Callable[[int, int, str], None] | None = None,
+    ) -> IntakeReport:
         """Log every data file of a folder; quarantine each bad one with its reason."""
         return intake_folder(self, folder, quarantine=quarantine, progress=progress)
 
-    def import_petab(self, problem: str | Path, *, lab: str | None = None, time_unit: str = "s",
-                     unit: str = "1") -> list[AddResult]:  # fmt: skip
+    def import_petab(
+        self, problem: str | Path, *, lab: str | None = None, time_unit: str = "s", unit: str = "1"
+    ) -> builtins.list[AddResult]:
         """Log a PEtab problem's measurements, one dataset per observable/condition/datasetId."""
-        drafts = read_petab_problem(problem, lab=lab, time_unit=time_unit, unit=unit,
-                                    actor=self.actor)  # fmt: skip
+        drafts = read_petab_problem(
+            problem, lab=lab, time_unit=time_unit, unit=unit, actor=self.actor
+        )
         return self.add_drafts(drafts)
 
     # -- new versions ----------------------------------------------------------------------
 
-    def new_version(self, dataset_id: str, *, kind: str, reason: str | None,
-                    update: dict[str, Any], payload: dict[str, Any] | None = None) -> DatasetVersion:  # fmt: skip
+    def new_version(
+        self,
+        dataset_id: str,
+        *,
+        kind: str,
+        reason: str | None,
+        update: dict[str, Any],
+        payload: dict[str, Any] | None = None,
+    ) -> DatasetVersion:
         """Write a new version of a dataset with some record fields replaced."""
         with self._store.transaction():
             current = self.show(dataset_id)
@@ -369,12 +481,17 @@ class Catalog:
             record = DatasetRecord.model_validate(merged)
             if record == current.record:
                 raise InputError(f"dataset {dataset_id}: nothing would change")
-            changes = describe_changes(current.record.model_dump(mode="json"),
-                                       record.model_dump(mode="json"))  # fmt: skip
+            changes = describe_changes(
+                current.record.model_dump(mode="json"), record.model_dump(mode="json")
+            )
             return self._write_version(
-                dataset_id, current.version + 1, record, kind=kind, arrays=None,
+                dataset_id,
+                current.version + 1,
+                record,
+                kind=kind,
+                arrays=None,
                 payload={"reason": reason, "changes": list(changes), **(payload or {})},
-            )  # fmt: skip
+            )
 
     def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
         """Hide a dataset from later selections (a new version; nothing is deleted)."""
@@ -382,13 +499,25 @@ class Catalog:
             raise InputError("retire: a reason is required (--reason)")
         if self.show(dataset_id).record.retired:
             raise InputError(f"dataset {dataset_id} is already retired")
-        return self.new_version(dataset_id, kind="retire", reason=reason,
-                                update={"retired": True, "retired_reason": reason})  # fmt: skip
+        return self.new_version(
+            dataset_id,
+            kind="retire",
+            reason=reason,
+            update={"retired": True, "retired_reason": reason},
+        )
 
-    def revise(self, dataset_id: str, *, reason: str, label: str | None = None,
-               conditions: dict[str, Any] | None = None, lab: str | None = None,
-               reference: str | None = None, calibration_group: str | None = None,
-               unretire: bool = False) -> DatasetVersion:  # fmt: skip
+    def revise(
+        self,
+        dataset_id: str,
+        *,
+        reason: str,
+        label: str | None = None,
+        conditions: dict[str, Any] | None = None,
+        lab: str | None = None,
+        reference: str | None = None,
+        calibration_group: str | None = None,
+        unretire: bool = False,
+    ) -> DatasetVersion:
         """Correct a dataset's metadata as a new version (the data never change)."""
         if not reason.strip():
             raise InputError("revise: a reason is required (--reason)")
@@ -405,11 +534,13 @@ class Catalog:
                     merged[key] = parse_condition(key, raw, origin=f"dataset {dataset_id}")
             update["conditions"] = merged
         if lab is not None or reference is not None:
-            update["source"] = current.source.model_copy(update={
-                k: v for k, v in (("lab", lab), ("reference", reference)) if v is not None})
+            update["source"] = current.source.model_copy(
+                update={k: v for k, v in (("lab", lab), ("reference", reference)) if v is not None}
+            )
         if calibration_group is not None:
             update["protocol"] = current.protocol.model_copy(
-                update={"calibration_group": calibration_group})  # fmt: skip
+                update={"calibration_group": calibration_group}
+            )
         if unretire:
             update.update({"retired": False, "retired_reason": None})
         return self.new_version(dataset_id, kind="revise", reason=reason, update=update)
@@ -420,17 +551,19 @@ class Catalog:
         """Give one dataset version (the newest unless ``version`` is named)."""
         rows = self._store.versions_of(dataset_id)
         if not rows:
-            raise NotFoundError(f"no dataset '{dataset_id}' in {self.path}; "
-                                "`curate list` shows the ids")  # fmt: skip
+            raise NotFoundError(
+                f"no dataset '{dataset_id}' in {self.path}; `curate list` shows the ids"
+            )
         if version is None:
             return _version_from_row(rows[-1])
         for row in rows:
             if row.version == version:
                 return _version_from_row(row)
-        raise NotFoundError(f"dataset '{dataset_id}' has versions 1 to {rows[-1].version}, "
-                            f"not {version}")  # fmt: skip
+        raise NotFoundError(
+            f"dataset '{dataset_id}' has versions 1 to {rows[-1].version}, not {version}"
+        )
 
-    def versions(self, dataset_id: str) -> list[DatasetVersion]:
+    def versions(self, dataset_id: str) -> builtins.list[DatasetVersion]:
         """Give every version of a dataset, oldest first."""
         self.show(dataset_id)
         return [_version_from_row(r) for r in self._store.versions_of(dataset_id)]
@@ -451,19 +584,34 @@ class Catalog:
             frame["replicate"] = labels[arrays.replicate] if len(labels) else arrays.replicate
         if arrays.n is not None:
             frame["n"] = arrays.n
-        frame.attrs.update({"dataset_id": found.id, "version": found.version,
-                            "time_unit": "second", "unit": found.record.observable.unit})  # fmt: skip
+        frame.attrs.update(
+            {
+                "dataset_id": found.id,
+                "version": found.version,
+                "time_unit": "second",
+                "unit": found.record.observable.unit,
+            }
+        )
         return frame
 
-    def list(self, *, observable: str | None = None, lab: str | None = None,
-             conditions: dict[str, str] | None = None, grade: str | None = None,
-             include_retired: bool = False) -> list[DatasetVersion]:  # fmt: skip
+    def list(
+        self,
+        *,
+        observable: str | None = None,
+        lab: str | None = None,
+        conditions: dict[str, str] | None = None,
+        grade: str | None = None,
+        include_retired: bool = False,
+    ) -> builtins.list[DatasetVersion]:
         """Give the newest version of each dataset that matches every filter given."""
         if grade is not None and grade not in GRADES and grade != "none":
-            raise InputError(f"unknown grade '{grade}'; expected one of {', '.join(GRADES)} "
-                             "or 'none'")  # fmt: skip
-        wanted = {k: parse_condition(k, v, origin="--condition").value
-                  for k, v in (conditions or {}).items()}  # fmt: skip
+            raise InputError(
+                f"unknown grade '{grade}'; expected one of {', '.join(GRADES)} or 'none'"
+            )
+        wanted = {
+            k: parse_condition(k, v, origin="--condition").value
+            for k, v in (conditions or {}).items()
+        }
         found = []
         for row in self._store.latest_versions():
             if observable is not None and row.observable != observable:
@@ -475,26 +623,34 @@ class Catalog:
             if row.retired and not include_retired:
                 continue
             version = _version_from_row(row)
-            if any(_condition_matches(version.record.conditions.get(k), v)
-                   is False for k, v in wanted.items()):  # fmt: skip
+            if any(
+                _condition_matches(version.record.conditions.get(k), v) is False
+                for k, v in wanted.items()
+            ):
                 continue
             found.append(version)
         return found
 
-    def history(self, dataset_id: str) -> list[HistoryEntry]:
+    def history(self, dataset_id: str) -> builtins.list[HistoryEntry]:
         """Give every change of a dataset, oldest first, with what changed and why."""
         self.show(dataset_id)
         entries = []
         for event in self._store.events(dataset_id):
             payload = event.payload
-            entries.append(HistoryEntry(
-                seq=event.seq, at=event.at, actor=event.actor, kind=event.kind,
-                version=event.version, changes=tuple(payload.get("changes", ())),
-                reason=payload.get("reason"),
-            ))  # fmt: skip
+            entries.append(
+                HistoryEntry(
+                    seq=event.seq,
+                    at=event.at,
+                    actor=event.actor,
+                    kind=event.kind,
+                    version=event.version,
+                    changes=tuple(payload.get("changes", ())),
+                    reason=payload.get("reason"),
+                )
+            )
         return entries
 
-    def events(self) -> list[dict[str, Any]]:
+    def events(self) -> builtins.list[dict[str, Any]]:
         """Give the whole event log as plain dicts, oldest first."""
         return [e.to_dict() for e in self._store.events()]
 
@@ -512,31 +668,41 @@ class Catalog:
         for row in rows:
             name = f"dataset {row.dataset_id} version {row.version}"
             if record_hash(row.dataset_id, row.version, row.record_json) != row.record_hash:
-                report.problems.append(f"{name}: its metadata no longer match their record hash "
-                                       "(edited in the file)")  # fmt: skip
+                report.problems.append(
+                    f"{name}: its metadata no longer match their record hash (edited in the file)"
+                )
                 continue
             try:
                 record = DatasetRecord.model_validate_json(row.record_json)
             except Exception as err:
                 report.problems.append(f"{name}: its record does not validate ({err})")
                 continue
-            if (record.content_hash != row.content_hash or record.observable.id != row.observable
-                    or record.source.lab != row.lab or bool(record.retired) != row.retired
-                    or (record.trust.grade if record.trust else None) != row.grade):  # fmt: skip
-                report.problems.append(f"{name}: the searchable columns disagree with its record "
-                                       "(edited in the file)")  # fmt: skip
+            if (
+                record.content_hash != row.content_hash
+                or record.observable.id != row.observable
+                or record.source.lab != row.lab
+                or bool(record.retired) != row.retired
+                or (record.trust.grade if record.trust else None) != row.grade
+            ):
+                report.problems.append(
+                    f"{name}: the searchable columns disagree with its record (edited in the file)"
+                )
                 continue
             key = (row.content_hash, record.observable.unit)
             if key not in checked:
                 try:
                     arrays = store.series(row.content_hash)
-                    checked[key] = (content_hash(arrays, value_unit=record.observable.unit)
-                                    == row.content_hash and len(arrays) == record.n_points)  # fmt: skip
+                    checked[key] = (
+                        content_hash(arrays, value_unit=record.observable.unit) == row.content_hash
+                        and len(arrays) == record.n_points
+                    )
                 except Exception:
                     checked[key] = False
             if not checked[key]:
-                report.problems.append(f"{name}: its measured values no longer match content hash "
-                                       f"{row.content_hash[:12]} (a value was changed or removed)")
+                report.problems.append(
+                    f"{name}: its measured values no longer match content hash "
+                    f"{row.content_hash[:12]} (a value was changed or removed)"
+                )
             sealed_by_version[(row.dataset_id, row.version)] = row.record_hash
         report.series = len({k[0] for k in checked})
         events = store.events()
@@ -548,15 +714,21 @@ class Catalog:
         for event in events:
             if event.dataset_id is not None and event.version is not None:
                 logged[(event.dataset_id, event.version)] = str(event.payload.get("record_hash"))
-        for key, sealed in sealed_by_version.items():
-            if logged.get(key) != sealed:
-                report.problems.append(f"dataset {key[0]} version {key[1]}: no event in the log "
-                                       "records this version as written")  # fmt: skip
-        for key in logged:
-            if key not in sealed_by_version and not any(
-                    p.startswith(f"dataset {key[0]} version {key[1]}:") for p in report.problems):
-                report.problems.append(f"dataset {key[0]} version {key[1]}: logged as written "
-                                       "but missing from the file (deleted?)")  # fmt: skip
+        for version_key, sealed in sealed_by_version.items():
+            if logged.get(version_key) != sealed:
+                report.problems.append(
+                    f"dataset {version_key[0]} version {version_key[1]}: no event in the log "
+                    "records this version as written"
+                )
+        for logged_key in logged:
+            if logged_key not in sealed_by_version and not any(
+                p.startswith(f"dataset {logged_key[0]} version {logged_key[1]}:")
+                for p in report.problems
+            ):
+                report.problems.append(
+                    f"dataset {logged_key[0]} version {logged_key[1]}: logged as written "
+                    "but missing from the file (deleted?)"
+                )
         return report
 
 

@@ -61,19 +61,30 @@ def _conditions(pairs: list[str] | None) -> dict[str, str]:
         if not sep:
             raise InputError(f"--condition '{pair}': expected KEY=VALUE, e.g. temperature=25degC")
         if not _KEY.match(key):
-            raise InputError(f"--condition '{pair}': key '{key}' is not a valid identifier; use "
-                             "letters, digits and '_', not starting with a digit")  # fmt: skip
+            raise InputError(
+                f"--condition '{pair}': key '{key}' is not a valid identifier; use "
+                "letters, digits and '_', not starting with a digit"
+            )
         result[key] = value.strip()
     return result
 
 
 @app.callback()
 def _global(
-    catalog: Annotated[str | None, typer.Option(
-        "--catalog", envvar="CURATE_CATALOG",
-        help="catalog file (default ./curate.db; also $CURATE_CATALOG)")] = None,
-    actor: Annotated[str | None, typer.Option(
-        "--actor", envvar="CURATE_USER", help="who is acting, recorded in every event")] = None,
+    catalog: Annotated[
+        str | None,
+        typer.Option(
+            "--catalog",
+            envvar="CURATE_CATALOG",
+            help="catalog file (default ./curate.db; also $CURATE_CATALOG)",
+        ),
+    ] = None,
+    actor: Annotated[
+        str | None,
+        typer.Option(
+            "--actor", envvar="CURATE_USER", help="who is acting, recorded in every event"
+        ),
+    ] = None,
 ) -> None:
     """Global options."""
     state.catalog_path = catalog
@@ -89,21 +100,37 @@ def version() -> None:
 @app.command()
 def add(
     file: Annotated[Path, typer.Argument(help="data file (.csv, .tsv, .xlsx) or its TOML sidecar")],
-    meta: Annotated[Path | None, typer.Option(help="TOML sidecar (default: FILE with .toml)")] = None,
+    meta: Annotated[
+        Path | None, typer.Option(help="TOML sidecar (default: FILE with .toml)")
+    ] = None,
     observable: Annotated[str | None, typer.Option(help="observable id, e.g. front_speed")] = None,
     label: Annotated[str | None, typer.Option(help="human label of the observable")] = None,
-    unit: Annotated[str | None, typer.Option(help="unit of the values: nM, um/min, a.u., 1")] = None,
-    time_unit: Annotated[str | None, typer.Option(help="unit of the time column: s, min, h")] = None,
+    unit: Annotated[
+        str | None, typer.Option(help="unit of the values: nM, um/min, a.u., 1")
+    ] = None,
+    time_unit: Annotated[
+        str | None, typer.Option(help="unit of the time column: s, min, h")
+    ] = None,
     lab: Annotated[str | None, typer.Option(help="source lab or group")] = None,
-    condition: Annotated[list[str] | None, typer.Option(
-        help="KEY=VALUE, repeatable: temperature=25degC, genotype=wt, dose=10uM")] = None,
-    sd_type: Annotated[str | None, typer.Option(
-        help="what the sd column holds: sd, sem, ci, percent, estimated, assumed")] = None,
+    condition: Annotated[
+        list[str] | None,
+        typer.Option(help="KEY=VALUE, repeatable: temperature=25degC, genotype=wt, dose=10uM"),
+    ] = None,
+    sd_type: Annotated[
+        str | None,
+        typer.Option(help="what the sd column holds: sd, sem, ci, percent, estimated, assumed"),
+    ] = None,
     sd_scale: Annotated[str | None, typer.Option(help="scale of the sd: linear, ln, log10")] = None,
-    ci_level: Annotated[float | None, typer.Option(help="confidence level when --sd-type ci")] = None,
+    ci_level: Annotated[
+        float | None, typer.Option(help="confidence level when --sd-type ci")
+    ] = None,
     sem_n: Annotated[int | None, typer.Option(help="n behind an SEM without an n column")] = None,
-    relative: Annotated[bool | None, typer.Option(
-        "--relative/--absolute", help="values in relative units (need a scale factor)")] = None,
+    relative: Annotated[
+        bool | None,
+        typer.Option(
+            "--relative/--absolute", help="values in relative units (need a scale factor)"
+        ),
+    ] = None,
     layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
     sheet: Annotated[str | None, typer.Option(help="XLSX sheet name")] = None,
     method: Annotated[str | None, typer.Option(help="measurement method")] = None,
@@ -111,13 +138,19 @@ def add(
     contact: Annotated[str | None, typer.Option(help="contact person or address")] = None,
     acquired: Annotated[str | None, typer.Option(help="acquisition date, YYYY-MM-DD")] = None,
     reference: Annotated[str | None, typer.Option(help="publication, DOI or notebook page")] = None,
-    calibration_group: Annotated[str | None, typer.Option(
-        help="blot, gel, plate or run sharing one scale and noise level")] = None,
-    normalisation: Annotated[str | None, typer.Option(
-        help="none, reference_time, reference_condition, peak, sum")] = None,
-    grade: Annotated[str | None, typer.Option(help="trust grade A-D, or X (kept, never fitted)")] = None,
+    calibration_group: Annotated[
+        str | None, typer.Option(help="blot, gel, plate or run sharing one scale and noise level")
+    ] = None,
+    normalisation: Annotated[
+        str | None, typer.Option(help="none, reference_time, reference_condition, peak, sum")
+    ] = None,
+    grade: Annotated[
+        str | None, typer.Option(help="trust grade A-D, or X (kept, never fitted)")
+    ] = None,
     reason: Annotated[str | None, typer.Option(help="rationale of the grade")] = None,
-    dataset_id: Annotated[str | None, typer.Option("--id", help="dataset id (default: generated)")] = None,
+    dataset_id: Annotated[
+        str | None, typer.Option("--id", help="dataset id (default: generated)")
+    ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
     dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
 ) -> None:
@@ -173,8 +206,9 @@ def add(
         return
     out.print(result.id)
     if not result.added:
-        err_console.print(f"already in the catalog as {result.duplicate_of} (identical data); "
-                          "nothing added")  # fmt: skip
+        err_console.print(
+            f"already in the catalog as {result.duplicate_of} (identical data); nothing added"
+        )
     for warning in result.warnings:
         err_console.print(f"warning: {warning}")
 
@@ -182,16 +216,24 @@ def add(
 @app.command()
 def intake(
     folder: Annotated[Path, typer.Argument(help="folder of data files and sidecars")],
-    quarantine: Annotated[Path | None, typer.Option(
-        help="where bad files go (default FOLDER/quarantine)")] = None,
+    quarantine: Annotated[
+        Path | None, typer.Option(help="where bad files go (default FOLDER/quarantine)")
+    ] = None,
     as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
 ) -> None:
     """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
     with _catalog() as catalog:
         show_bar = not as_json and err_console.is_terminal
-        with Progress(TextColumn("logging"), BarColumn(), MofNCompleteColumn(),
-                      TimeElapsedColumn(), TextColumn("{task.description}"),
-                      console=err_console, transient=True, disable=not show_bar) as bar:  # fmt: skip
+        with Progress(
+            TextColumn("logging"),
+            BarColumn(),
+            MofNCompleteColumn(),
+            TimeElapsedColumn(),
+            TextColumn("{task.description}"),
+            console=err_console,
+            transient=True,
+            disable=not show_bar,
+        ) as bar:
             task = bar.add_task("", total=None)
 
             def progress(done: int, total: int, name: str) -> None:
@@ -209,7 +251,9 @@ def intake(
 @app.command("import-petab")
 def import_petab(
     problem: Annotated[Path, typer.Argument(help="PEtab problem YAML")],
-    lab: Annotated[str | None, typer.Option(help="source lab (default: the problem's name)")] = None,
+    lab: Annotated[
+        str | None, typer.Option(help="source lab (default: the problem's name)")
+    ] = None,
     time_unit: Annotated[str, typer.Option(help="the model's time unit")] = "s",
     unit: Annotated[str, typer.Option(help="unit of the measurements")] = "1",
     as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
@@ -237,8 +281,13 @@ def list_(
 ) -> None:
     """List the newest version of every dataset (filters combine)."""
     with _catalog() as catalog:
-        found = catalog.list(observable=observable, lab=lab, conditions=_conditions(condition),
-                             grade=grade, include_retired=retired)  # fmt: skip
+        found = catalog.list(
+            observable=observable,
+            lab=lab,
+            conditions=_conditions(condition),
+            grade=grade,
+            include_retired=retired,
+        )
     if as_json:
         _emit_json([v.summary() for v in found])
     else:
@@ -258,9 +307,13 @@ def show(
         total = len(catalog.versions(dataset_id))
         frame = catalog.points(dataset_id, found.version)
     if as_json:
-        payload = {**found.summary(), "created_at": found.created_at.isoformat(),
-                   "record_hash": found.record_hash, "versions": total,
-                   "record": found.record.model_dump(mode="json")}  # fmt: skip
+        payload = {
+            **found.summary(),
+            "created_at": found.created_at.isoformat(),
+            "record_hash": found.record_hash,
+            "versions": total,
+            "record": found.record.model_dump(mode="json"),
+        }
         if points:
             payload["points"] = json.loads(frame.to_json(orient="records"))
         _emit_json(payload)
@@ -298,18 +351,28 @@ def revise(
     dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
     reason: Annotated[str, typer.Option(help="why the metadata change")],
     label: Annotated[str | None, typer.Option(help="new observable label")] = None,
-    condition: Annotated[list[str] | None, typer.Option(
-        help="KEY=VALUE to set, KEY= to remove; repeatable")] = None,
+    condition: Annotated[
+        list[str] | None, typer.Option(help="KEY=VALUE to set, KEY= to remove; repeatable")
+    ] = None,
     lab: Annotated[str | None, typer.Option(help="corrected lab")] = None,
     reference: Annotated[str | None, typer.Option(help="corrected reference")] = None,
     calibration_group: Annotated[str | None, typer.Option(help="calibration group")] = None,
-    unretire: Annotated[bool, typer.Option("--unretire", help="bring a retired dataset back")] = False,
+    unretire: Annotated[
+        bool, typer.Option("--unretire", help="bring a retired dataset back")
+    ] = False,
 ) -> None:
     """Correct a dataset's metadata as a new version (its data never change)."""
     with _catalog() as catalog:
-        new = catalog.revise(dataset_id, reason=reason, label=label,
-                             conditions=_conditions(condition), lab=lab, reference=reference,
-                             calibration_group=calibration_group, unretire=unretire)  # fmt: skip
+        new = catalog.revise(
+            dataset_id,
+            reason=reason,
+            label=label,
+            conditions=_conditions(condition),
+            lab=lab,
+            reference=reference,
+            calibration_group=calibration_group,
+            unretire=unretire,
+        )
     out.print(f"{new.id} version {new.version}")
 
 
@@ -328,20 +391,25 @@ def verify(as_json: Annotated[bool, typer.Option("--json", help="print JSON")] =
 
 @app.command()
 def demo(
-    outdir: Annotated[Path, typer.Argument(help="folder for the demo's catalog and outputs")] = Path(
-        "demo_out"),
-    examples: Annotated[Path | None, typer.Option(
-        help="example data folder (default: example_datasets/ of this checkout)")] = None,
+    outdir: Annotated[
+        Path, typer.Argument(help="folder for the demo's catalog and outputs")
+    ] = Path("demo_out"),
+    examples: Annotated[
+        Path | None,
+        typer.Option(help="example data folder (default: example_datasets/ of this checkout)"),
+    ] = None,
     force: Annotated[bool, typer.Option(help="reuse an existing, non-empty OUTDIR")] = False,
 ) -> None:
     """Run the job on the bundled invented scenario: log every example dataset, then list them."""
     source = examples or Path(__file__).resolve().parent.parent / "example_datasets"
     if not (source / "data").is_dir():
-        raise InputError(f"{source}: no example data found (expected a data/ folder); pass "
-                         "--examples")  # fmt: skip
+        raise InputError(
+            f"{source}: no example data found (expected a data/ folder); pass --examples"
+        )
     if outdir.exists() and any(outdir.iterdir()) and not force:
-        raise InputError(f"{outdir}: the folder exists and is not empty; choose another or pass "
-                         "--force")  # fmt: skip
+        raise InputError(
+            f"{outdir}: the folder exists and is not empty; choose another or pass --force"
+        )
     inbox = outdir / "inbox"
     if inbox.exists():
         shutil.rmtree(inbox)
@@ -354,8 +422,10 @@ def demo(
     out.print(report.intake_text(result))
     out.print(report.list_table(found))
     out.print(report.verify_text(check))
-    out.print(f"catalog: {catalog_path}  (try: curate --catalog {catalog_path} show "
-              f"{found[0].id if found else 'ID'})")
+    out.print(
+        f"catalog: {catalog_path}  (try: curate --catalog {catalog_path} show "
+        f"{found[0].id if found else 'ID'})"
+    )
 
 
 def _fail(message: str, code: int = 2) -> None:

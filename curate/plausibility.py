@@ -40,7 +40,8 @@ def _is_round(x: float) -> bool:
     exponent = np.floor(np.log10(x))
     mantissa = x / 10**exponent
     return any(np.isclose(mantissa, step, rtol=1e-9) for step in _ROUND_STEPS) or np.isclose(
-        mantissa, 10.0, rtol=1e-9)
+        mantissa, 10.0, rtol=1e-9
+    )
 
 
 def check_series(
@@ -58,43 +59,55 @@ def check_series(
     warnings += _unit_slip(value)
     # baseline noise dips a little below zero; a log-transformed or offset series goes well below
     spread = float(np.max(np.abs(value))) if len(value) else 0.0
-    if nonnegative and len(value) and (
-            np.mean(value < 0) > 0.25 or (value < -0.1 * spread).any()):  # fmt: skip
+    if nonnegative and len(value) and (np.mean(value < 0) > 0.25 or (value < -0.1 * spread).any()):
         negatives = np.flatnonzero(value < 0)
         within_log_range = bool(np.all(np.abs(value) < 12))
-        warnings.append(PlausibilityWarning(
-            code="negative_values",
-            message=f"{len(negatives)} negative value(s) for a quantity that cannot be negative "
-            f"(points {_rows(negatives)})"
-            + ("; the values may already be log-transformed" if within_log_range else ""),
-        ))  # fmt: skip
+        warnings.append(
+            PlausibilityWarning(
+                code="negative_values",
+                message=f"{len(negatives)} negative value(s) for a quantity that cannot be negative"
+                " "
+                f"(points {_rows(negatives)})"
+                + ("; the values may already be log-transformed" if within_log_range else ""),
+            )
+        )
     if sd is not None:
         known = sd[np.isfinite(sd)]
         zero = np.flatnonzero(sd == 0)
         if len(zero):
-            warnings.append(PlausibilityWarning(
-                code="zero_sd",
-                message=f"uncertainty exactly 0 at {len(zero)} point(s) (points {_rows(zero)}); "
-                "a zero sd would give an infinite weight",
-            ))  # fmt: skip
+            warnings.append(
+                PlausibilityWarning(
+                    code="zero_sd",
+                    message=f"uncertainty exactly 0 at {len(zero)} point(s) (points {_rows(zero)});"
+                    " "
+                    "a zero sd would give an infinite weight",
+                )
+            )
         distinct = np.unique(known[known > 0])
         if len(known) >= 5 and 1 <= len(distinct) <= 2 and all(_is_round(x) for x in distinct):
-            warnings.append(PlausibilityWarning(
-                code="round_uncertainty",
-                message="every uncertainty is the round number "
-                + " or ".join(f"{x:g}" for x in distinct)
-                + ": it looks assumed rather than measured",
-            ))  # fmt: skip
+            warnings.append(
+                PlausibilityWarning(
+                    code="round_uncertainty",
+                    message="every uncertainty is the round number "
+                    + " or ".join(f"{x:g}" for x in distinct)
+                    + ": it looks assumed rather than measured",
+                )
+            )
         finite = np.isfinite(sd) & (np.abs(value) > 0)
-        if (uncertainty in (UncertaintyType.SD, UncertaintyType.SEM, None)
-                and finite.sum() >= 3 and len(distinct) <= 2
-                and np.mean(sd[finite] > np.abs(value[finite])) > 0.5
-                and all(_is_round(x) and 1 <= x <= 50 for x in distinct)):  # fmt: skip
-            warnings.append(PlausibilityWarning(
-                code="percent_as_absolute",
-                message="the uncertainty is a constant round number larger than most values: "
-                "a percentage may have been entered as an absolute sd",
-            ))  # fmt: skip
+        if (
+            uncertainty in (UncertaintyType.SD, UncertaintyType.SEM, None)
+            and finite.sum() >= 3
+            and len(distinct) <= 2
+            and np.mean(sd[finite] > np.abs(value[finite])) > 0.5
+            and all(_is_round(x) and 1 <= x <= 50 for x in distinct)
+        ):
+            warnings.append(
+                PlausibilityWarning(
+                    code="percent_as_absolute",
+                    message="the uncertainty is a constant round number larger than most values: "
+                    "a percentage may have been entered as an absolute sd",
+                )
+            )
     return warnings
 
 
@@ -113,11 +126,14 @@ def _unit_slip(value: np.ndarray) -> list[PlausibilityWarning]:
         if 0 < slipped.sum() < len(logs) / 2:
             rest = ~slipped & (deviation < decades / 3)
             if rest.sum() >= 2:
-                return [PlausibilityWarning(
-                    code="unit_slip",
-                    message=f"point(s) {_rows(indices[slipped])} are about 10^{decades:g} times "
-                    "the rest of the series: a unit slip in part of the data?",
-                )]  # fmt: skip
+                return [
+                    PlausibilityWarning(
+                        code="unit_slip",
+                        message=f"point(s) {_rows(indices[slipped])} are about 10^{decades:g}"
+                        " times "
+                        "the rest of the series: a unit slip in part of the data?",
+                    )
+                ]
     return []
 
 
@@ -149,12 +165,16 @@ def check_against_others(
     same_observable: list[Neighbour] = []
     for other in others:
         if other.content_hash == content_hash and (
-                other.conditions != conditions or other.observable != observable):  # fmt: skip
-            warnings.append(PlausibilityWarning(
-                code="identical_to_other",
-                message=f"values identical to dataset {other.dataset_id}, which was logged under "
-                "other conditions or another observable: copied by mistake?",
-            ))  # fmt: skip
+            other.conditions != conditions or other.observable != observable
+        ):
+            warnings.append(
+                PlausibilityWarning(
+                    code="identical_to_other",
+                    message=f"values identical to dataset {other.dataset_id}, which was logged"
+                    " under "
+                    "other conditions or another observable: copied by mistake?",
+                )
+            )
         if other.observable == observable and other.unit == unit and other.magnitude > 0:
             same_observable.append(other)
     if relative or magnitude <= 0 or len(same_observable) < 1:
@@ -163,22 +183,26 @@ def check_against_others(
     ratio = np.log10(magnitude / others_level)
     for decades in _SLIP_DECADES:
         if abs(abs(ratio) - decades) < _SLIP_TOLERANCE:
-            warnings.append(PlausibilityWarning(
-                code="magnitude_vs_others",
-                message=f"typical value {magnitude:.3g} is about 10^{decades:g} times "
-                f"{'larger' if ratio > 0 else 'smaller'} than the other {observable} datasets "
-                f"({others_level:.3g} {unit}): a unit slip?",
-            ))  # fmt: skip
+            warnings.append(
+                PlausibilityWarning(
+                    code="magnitude_vs_others",
+                    message=f"typical value {magnitude:.3g} is about 10^{decades:g} times "
+                    f"{'larger' if ratio > 0 else 'smaller'} than the other {observable} datasets "
+                    f"({others_level:.3g} {unit}): a unit slip?",
+                )
+            )
             break
     else:
         if others_level > 20 and magnitude < 12:
             for base, name in ((10.0, "log10"), (np.e, "ln")):
                 if abs(magnitude - np.log(others_level) / np.log(base)) < 0.25 * magnitude + 0.1:
-                    warnings.append(PlausibilityWarning(
-                        code="looks_log_transformed",
-                        message=f"typical value {magnitude:.3g} is close to the {name} of the "
-                        f"other {observable} datasets' typical value ({others_level:.3g}): "
-                        "already log-transformed?",
-                    ))  # fmt: skip
+                    warnings.append(
+                        PlausibilityWarning(
+                            code="looks_log_transformed",
+                            message=f"typical value {magnitude:.3g} is close to the {name} of the "
+                            f"other {observable} datasets' typical value ({others_level:.3g}): "
+                            "already log-transformed?",
+                        )
+                    )
                     break
     return warnings

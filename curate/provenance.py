@@ -36,10 +36,16 @@ class Event:
     def to_dict(self) -> dict[str, Any]:
         """Give the event as a plain dict."""
         return {
-            "seq": self.seq, "at": self.at, "actor": self.actor, "kind": self.kind,
-            "dataset_id": self.dataset_id, "version": self.version, "payload": self.payload,
-            "prev_hash": self.prev_hash, "hash": self.hash,
-        }  # fmt: skip
+            "seq": self.seq,
+            "at": self.at,
+            "actor": self.actor,
+            "kind": self.kind,
+            "dataset_id": self.dataset_id,
+            "version": self.version,
+            "payload": self.payload,
+            "prev_hash": self.prev_hash,
+            "hash": self.hash,
+        }
 
 
 def event_hash(
@@ -55,8 +61,16 @@ def event_hash(
 ) -> str:
     """Give the sha256 hex digest that seals one event to its predecessor."""
     body = canonical_json(
-        {"seq": seq, "at": at, "actor": actor, "kind": kind, "dataset_id": dataset_id,
-         "version": version, "payload": payload, "prev_hash": prev_hash}  # fmt: skip
+        {
+            "seq": seq,
+            "at": at,
+            "actor": actor,
+            "kind": kind,
+            "dataset_id": dataset_id,
+            "version": version,
+            "payload": payload,
+            "prev_hash": prev_hash,
+        }
     )
     return hashlib.sha256(body.encode()).hexdigest()
 
@@ -75,17 +89,26 @@ def verify_chain(events: list[Event]) -> ChainProblem | None:
     for position, event in enumerate(events, start=1):
         if event.seq != position:
             return ChainProblem(
-                event.seq, f"event {event.seq} stands where event {position} belongs "
-                "(an event was deleted or inserted)")  # fmt: skip
+                event.seq,
+                f"event {event.seq} stands where event {position} belongs "
+                "(an event was deleted or inserted)",
+            )
         if event.prev_hash != expected_prev:
             return ChainProblem(
-                event.seq, f"event {event.seq} does not follow event {position - 1} "
-                "(events were reordered, deleted or edited)")  # fmt: skip
+                event.seq,
+                f"event {event.seq} does not follow event {position - 1} "
+                "(events were reordered, deleted or edited)",
+            )
         recomputed = event_hash(
-            seq=event.seq, at=event.at, actor=event.actor, kind=event.kind,
-            dataset_id=event.dataset_id, version=event.version, payload=event.payload,
+            seq=event.seq,
+            at=event.at,
+            actor=event.actor,
+            kind=event.kind,
+            dataset_id=event.dataset_id,
+            version=event.version,
+            payload=event.payload,
             prev_hash=event.prev_hash,
-        )  # fmt: skip
+        )
         if recomputed != event.hash:
             return ChainProblem(event.seq, f"event {event.seq} was altered after it was written")
         expected_prev = event.hash

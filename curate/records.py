@@ -21,11 +21,18 @@ from enum import StrEnum
 from typing import Annotated, Any, Literal
 
 import numpy as np
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints, field_validator, model_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    StringConstraints,
+    field_validator,
+    model_validator,
+)
 
 __all__ = [
-    "GRADES",
     "EXCLUSION_GRADE",
+    "GRADES",
     "ConditionValue",
     "DatasetRecord",
     "DatasetVersion",
@@ -263,8 +270,13 @@ class SeriesArrays:
 
     def named(self) -> dict[str, np.ndarray | None]:
         """Give the arrays by name, in canonical order."""
-        return {"time": self.time, "value": self.value, "sd": self.sd,
-                "replicate": self.replicate, "n": self.n}  # fmt: skip
+        return {
+            "time": self.time,
+            "value": self.value,
+            "sd": self.sd,
+            "replicate": self.replicate,
+            "n": self.n,
+        }
 
 
 _ARRAY_DTYPES = {"time": "<f8", "value": "<f8", "sd": "<f8", "replicate": "<i8", "n": "<i8"}
@@ -294,8 +306,14 @@ def content_hash(arrays: SeriesArrays, *, value_unit: str, time_unit: str = "sec
 
 def canonical_json(value: Any) -> str:
     """Give the canonical JSON text (sorted keys, no spaces) hashed throughout the catalog."""
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False, default=str)  # fmt: skip
+    return json.dumps(
+        value,
+        sort_keys=True,
+        separators=(",", ":"),
+        ensure_ascii=False,
+        allow_nan=False,
+        default=str,
+    )
 
 
 def record_hash(dataset_id: str, version: int, record_json: str) -> str:

@@ -19,10 +19,18 @@ if TYPE_CHECKING:
 __all__ = ["history_text", "intake_text", "list_table", "plan_text", "show_text", "verify_text"]
 
 _UNIT_SHORT = {
-    "second": "s", "micrometer": "µm", "nanomolar": "nM", "micrometer / second": "µm/s",
-    "dimensionless": "1", "arbitrary_unit": "a.u.", "degree_Celsius": "°C", "piconewton": "pN",
-    "1 / second": "1/s", "nanogram / milliliter": "ng/mL", "millivolt": "mV",
-}  # fmt: skip
+    "second": "s",
+    "micrometer": "µm",
+    "nanomolar": "nM",
+    "micrometer / second": "µm/s",
+    "dimensionless": "1",
+    "arbitrary_unit": "a.u.",
+    "degree_Celsius": "°C",
+    "piconewton": "pN",
+    "1 / second": "1/s",
+    "nanogram / milliliter": "ng/mL",
+    "millivolt": "mV",
+}
 
 
 def short_unit(unit: str | None) -> str:
@@ -57,12 +65,16 @@ def list_table(found: list[DatasetVersion]) -> Table | Text:
         if rec.retired:
             notes.insert(0, "retired")
         table.add_row(
-            version.id, str(version.version), rec.observable.id,
+            version.id,
+            str(version.version),
+            rec.observable.id,
             short_unit(rec.observable.unit) + (" (rel.)" if rec.observable.relative else ""),
             rec.source.lab,
             ", ".join(f"{k}={condition_text(v)}" for k, v in rec.conditions.items()),
-            str(rec.n_points), version.grade or "-", ", ".join(notes),
-        )  # fmt: skip
+            str(rec.n_points),
+            version.grade or "-",
+            ", ".join(notes),
+        )
     return table
 
 
@@ -70,23 +82,39 @@ def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str
     rec = version.record
     src = rec.source
     lines = [
-        ("version", f"{version.version} of {total_versions}, written {version.created_at:%Y-%m-%d %H:%M} UTC"),
-        ("observable", f"{rec.observable.id}" + (f" ({rec.observable.label})" if rec.observable.label else "")),
-        ("unit", f"{short_unit(rec.observable.unit)} (given as '{rec.observable.unit_original}'"
-                 f"{', UCUM ' + rec.observable.ucum if rec.observable.ucum else ''})"
-                 + ("; relative units: fits need a scale factor" if rec.observable.relative else "")),
+        (
+            "version",
+            f"{version.version} of {total_versions},"
+            f" written {version.created_at:%Y-%m-%d %H:%M} UTC",
+        ),
+        (
+            "observable",
+            f"{rec.observable.id}" + (f" ({rec.observable.label})" if rec.observable.label else ""),
+        ),
+        (
+            "unit",
+            f"{short_unit(rec.observable.unit)} (given as '{rec.observable.unit_original}'"
+            f"{', UCUM ' + rec.observable.ucum if rec.observable.ucum else ''})"
+            + ("; relative units: fits need a scale factor" if rec.observable.relative else ""),
+        ),
         ("time", f"stored in s (given in '{rec.time_unit_original}')"),
         ("lab", src.lab),
-    ]  # fmt: skip
+    ]
     for name in ("contact", "method", "instrument", "acquired", "reference"):
         value = getattr(src, name)
         if value:
             lines.append((name, str(value)))
     if src.raw_file_name:
-        lines.append(("raw file", f"{src.raw_file_name} (sha256 {(src.raw_file_sha256 or '')[:16]}…)"))
+        lines.append(
+            ("raw file", f"{src.raw_file_name} (sha256 {(src.raw_file_sha256 or '')[:16]}…)")
+        )
     if rec.conditions:
-        lines.append(("conditions", ", ".join(f"{k} = {condition_text(v)}"
-                                              for k, v in rec.conditions.items())))  # fmt: skip
+        lines.append(
+            (
+                "conditions",
+                ", ".join(f"{k} = {condition_text(v)}" for k, v in rec.conditions.items()),
+            )
+        )
     if rec.uncertainty:
         u = rec.uncertainty
         extra = (f", level {u.level:g}" if u.level else "") + (f", n = {u.n}" if u.n else "")
@@ -99,25 +127,46 @@ def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str
         lines.append(("calibration", protocol.calibration_group))
     for step in protocol.pretreatment:
         duration = f" for {step.duration_s:g} s" if step.duration_s is not None else ""
-        lines.append(("pretreatment", f"{step.step}{duration}" + (f" ({step.details})" if step.details else "")))
+        lines.append(
+            (
+                "pretreatment",
+                f"{step.step}{duration}" + (f" ({step.details})" if step.details else ""),
+            )
+        )
     if rec.noise:
-        lines.append(("noise", f"sd {rec.noise.sd:.4g} by {rec.noise.method} "
-                               f"({rec.noise.made_at:%Y-%m-%d}, {rec.noise.made_by})"))  # fmt: skip
+        lines.append(
+            (
+                "noise",
+                f"sd {rec.noise.sd:.4g} by {rec.noise.method} "
+                f"({rec.noise.made_at:%Y-%m-%d}, {rec.noise.made_by})",
+            )
+        )
     if rec.trust:
-        lines.append(("trust", f"{rec.trust.grade}: {rec.trust.rationale} "
-                               f"({rec.trust.assigned_by}, {rec.trust.assigned_at:%Y-%m-%d})"))  # fmt: skip
+        lines.append(
+            (
+                "trust",
+                f"{rec.trust.grade}: {rec.trust.rationale} "
+                f"({rec.trust.assigned_by}, {rec.trust.assigned_at:%Y-%m-%d})",
+            )
+        )
     else:
         lines.append(("trust", "not graded"))
     if rec.retired:
         lines.append(("retired", rec.retired_reason or "yes"))
-    lines.append(("points", f"{rec.n_points}" + (f" in {len(rec.replicate_labels)} replicates"
-                                                if rec.replicate_labels else "")))  # fmt: skip
+    lines.append(
+        (
+            "points",
+            f"{rec.n_points}"
+            + (f" in {len(rec.replicate_labels)} replicates" if rec.replicate_labels else ""),
+        )
+    )
     lines.append(("content", rec.content_hash))
     return lines
 
 
-def show_text(version: DatasetVersion, total_versions: int, points: pd.DataFrame, *,
-              all_points: bool) -> Group:  # fmt: skip
+def show_text(
+    version: DatasetVersion, total_versions: int, points: pd.DataFrame, *, all_points: bool
+) -> Group:
     """Give what ``curate show`` prints."""
     parts: list[Any] = [Text(version.id, style="bold")]
     fields = Table(box=None, show_header=False, pad_edge=False)
@@ -131,8 +180,12 @@ def show_text(version: DatasetVersion, total_versions: int, points: pd.DataFrame
     limit = len(points) if all_points else 12
     table = Table(box=None, pad_edge=False, header_style="bold")
     for column in points.columns:
-        table.add_column(f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
-                         if column in ("time", "value", "sd") else column, justify="right")  # fmt: skip
+        table.add_column(
+            f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
+            if column in ("time", "value", "sd")
+            else column,
+            justify="right",
+        )
     for row in points.head(limit).itertuples(index=False):
         table.add_row(*[f"{x:.6g}" if isinstance(x, float) else str(x) for x in row])
     parts.append(Text(""))
@@ -159,8 +212,10 @@ def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
 
 def verify_text(result: VerifyReport) -> Text:
     """Give what ``curate verify`` prints."""
-    counts = (f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
-              f"{result.events} events")  # fmt: skip
+    counts = (
+        f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
+        f"{result.events} events"
+    )
     if result.ok:
         return Text(f"intact: {counts} recomputed, every hash and link holds")
     lines = [f"NOT intact ({counts} checked)"]
@@ -172,10 +227,13 @@ def verify_text(result: VerifyReport) -> Text:
 
 def intake_text(result: IntakeReport) -> Group:
     """Give what ``curate intake`` prints."""
-    parts: list[Any] = [Text(
-        f"{result.count('added')} logged, {result.count('duplicate')} already present, "
-        f"{result.count('quarantined')} quarantined, {result.count('refused')} refused "
-        f"(folder {result.folder})")]  # fmt: skip
+    parts: list[Any] = [
+        Text(
+            f"{result.count('added')} logged, {result.count('duplicate')} already present, "
+            f"{result.count('quarantined')} quarantined, {result.count('refused')} refused "
+            f"(folder {result.folder})"
+        )
+    ]
     for item in result.items:
         if item.status == "added":
             line = f"  + {item.file} -> {item.id}"
@@ -196,8 +254,12 @@ def intake_text(result: IntakeReport) -> Group:
 def plan_text(plan: AddPlan) -> Group:
     """Give what ``curate add --dry-run`` prints."""
     info = plan.to_dict()
-    lines = [Text(f"dry run: would {'add nothing' if plan.duplicate_of else 'add'} "
-                  f"{info['id']} (version {info['version']}), {info['n_points']} points from "
-                  f"{info['origin']}")]  # fmt: skip
+    lines = [
+        Text(
+            f"dry run: would {'add nothing' if plan.duplicate_of else 'add'} "
+            f"{info['id']} (version {info['version']}), {info['n_points']} points from "
+            f"{info['origin']}"
+        )
+    ]
     lines += [Text(f"warning: {w['message']}") for w in info["warnings"]]
     return Group(*lines)

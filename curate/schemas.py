@@ -30,8 +30,11 @@ def render_schemas() -> dict[str, str]:
     rendered = {}
     for name, model in SCHEMA_MODELS.items():
         schema: dict[str, Any] = model.model_json_schema()
-        schema = {"$schema": "https://json-schema.org/draft/2020-12/schema",
-                  "$id": f"https://curate.invalid/schemas/{name}", **schema}  # fmt: skip
+        schema = {
+            "$schema": "https://json-schema.org/draft/2020-12/schema",
+            "$id": f"https://curate.invalid/schemas/{name}",
+            **schema,
+        }
         rendered[name] = json.dumps(schema, indent=2, sort_keys=True, ensure_ascii=False) + "\n"
     return rendered
 

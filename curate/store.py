@@ -60,31 +60,63 @@ class VersionRow:
 
 
 def _initial_schema(db: sqlite_utils.Database) -> None:
-    db["meta"].create({"key": str, "value": str}, pk="key")
-    db["series"].create(
-        {"content_hash": str, "n_points": int, "time": bytes, "value": bytes, "sd": bytes,
-         "replicate": bytes, "n": bytes},  # fmt: skip
+    db.table("meta").create({"key": str, "value": str}, pk="key")
+    db.table("series").create(
+        {
+            "content_hash": str,
+            "n_points": int,
+            "time": bytes,
+            "value": bytes,
+            "sd": bytes,
+            "replicate": bytes,
+            "n": bytes,
+        },
         pk="content_hash",
         not_null={"n_points", "time", "value"},
     )
-    db["versions"].create(
-        {"dataset_id": str, "version": int, "created_at": str, "observable": str, "lab": str,
-         "grade": str, "retired": int, "content_hash": str, "record_json": str,
-         "record_hash": str},  # fmt: skip
+    db.table("versions").create(
+        {
+            "dataset_id": str,
+            "version": int,
+            "created_at": str,
+            "observable": str,
+            "lab": str,
+            "grade": str,
+            "retired": int,
+            "content_hash": str,
+            "record_json": str,
+            "record_hash": str,
+        },
         pk=("dataset_id", "version"),
-        not_null={"created_at", "observable", "lab", "retired", "content_hash", "record_json",
-                  "record_hash"},  # fmt: skip
+        not_null={
+            "created_at",
+            "observable",
+            "lab",
+            "retired",
+            "content_hash",
+            "record_json",
+            "record_hash",
+        },
         foreign_keys=[("content_hash", "series", "content_hash")],
     )
-    db["versions"].create_index(["content_hash"])
-    db["versions"].create_index(["observable"])
-    db["events"].create(
-        {"seq": int, "at": str, "actor": str, "kind": str, "dataset_id": str, "version": int,
-         "payload": str, "prev_hash": str, "hash": str},  # fmt: skip
+    db.table("versions").create_index(["content_hash"])
+    db.table("versions").create_index(["observable"])
+    db.table("events").create(
+        {
+            "seq": int,
+            "at": str,
+            "actor": str,
+            "kind": str,
+            "dataset_id": str,
+            "version": int,
+            "payload": str,
+            "prev_hash": str,
+            "hash": str,
+        },
         pk="seq",
         not_null={"at", "actor", "kind", "payload", "prev_hash", "hash"},
     )
-    db["events"].create_index(["dataset_id"])
+    db.table("events").create_index(["dataset_id"])
     db.execute(
         "INSERT INTO meta(key, value) VALUES ('catalog_id', ?), ('created_at', ?)",
         [str(uuid.uuid4()), dt.datetime.now(dt.UTC).isoformat(timespec="seconds")],
@@ -107,9 +139,11 @@ class Store:
                 parent = Path(self.path).resolve().parent
                 if not parent.is_dir():
                     raise CatalogError(
-                        f"{self.path}: the folder {parent} does not exist; create it first")
-            conn = sqlite3.connect(self.path, isolation_level=None, timeout=_BUSY_TIMEOUT_S,
-                                   check_same_thread=False)  # fmt: skip
+                        f"{self.path}: the folder {parent} does not exist; create it first"
+                    )
+            conn = sqlite3.connect(
+                self.path, isolation_level=None, timeout=_BUSY_TIMEOUT_S, check_same_thread=False
+            )
             conn.execute(f"PRAGMA busy_timeout = {int(_BUSY_TIMEOUT_S * 1000)}")
             self._set_wal(conn)
             conn.execute("PRAGMA foreign_keys = ON")
@@ -154,7 +188,8 @@ class Store:
     def _migrate(self) -> None:
         with self.transaction():
             self.db.execute(
-                "CREATE TABLE IF NOT EXISTS migrations (name TEXT PRIMARY KEY, applied_at TEXT)")
+                "CREATE TABLE IF NOT EXISTS migrations (name TEXT PRIMARY KEY, applied_at TEXT)"
+            )
             applied = {row[0] for row in self.db.execute("SELECT name FROM migrations")}
             for name, step in MIGRATIONS:
                 if name in applied:
@@ -198,8 +233,16 @@ class Store:
         """Append one sealed event; call inside :meth:`transaction`."""
         seq, prev = self.head()
         at = at or dt.datetime.now(dt.UTC).isoformat(timespec="microseconds")
-        sealed = event_hash(seq=seq + 1, at=at, actor=actor, kind=kind, dataset_id=dataset_id,
-                            version=version, payload=payload, prev_hash=prev)  # fmt: skip
+        sealed = event_hash(
+            seq=seq + 1,
+            at=at,
+            actor=actor,
+            kind=kind,
+            dataset_id=dataset_id,
+            version=version,
+            payload=payload,
+            prev_hash=prev,
+        )
         self.db.execute(
             "INSERT INTO events(seq, at, actor, kind, dataset_id, version, payload, prev_hash,"
             " hash) VALUES (?,?,?,?,?,?,?,?,?)",
@@ -209,68 +252,100 @@ class Store:
 
     def events(self, dataset_id: str | None = None) -> list[Event]:
         """Give the events in order, all or those of one dataset."""
-        sql = "SELECT seq, at, actor, kind, dataset_id, version, payload, prev_hash, hash FROM events"
+        sql = (
+            "SELECT seq, at, actor, kind, dataset_id, version, payload, prev_hash, hash FROM events"
+        )
         args: list[Any] = []
         if dataset_id is not None:
             sql += " WHERE dataset_id = ?"
             args.append(dataset_id)
         rows = self.db.execute(sql + " ORDER BY seq", args).fetchall()
-        return [Event(int(r[0]), r[1], r[2], r[3], r[4], r[5], json.loads(r[6]), r[7], r[8])
-                for r in rows]  # fmt: skip
+        return [
+            Event(int(r[0]), r[1], r[2], r[3], r[4], r[5], json.loads(r[6]), r[7], r[8])
+            for r in rows
+        ]
 
     # -- series ----------------------------------------------------------------------------
 
     def put_series(self, content_hash: str, arrays: SeriesArrays) -> None:
         """Store the arrays under their content hash (a no-op if already there)."""
-        blobs = {name: (None if a is None else array_bytes(name, a))
-                 for name, a in arrays.named().items()}  # fmt: skip
+        blobs = {
+            name: (None if a is None else array_bytes(name, a))
+            for name, a in arrays.named().items()
+        }
         self.db.execute(
             "INSERT OR IGNORE INTO series(content_hash, n_points, time, value, sd, replicate, n)"
             " VALUES (?,?,?,?,?,?,?)",
-            [content_hash, len(arrays), blobs["time"], blobs["value"], blobs["sd"],
-             blobs["replicate"], blobs["n"]],  # fmt: skip
+            [
+                content_hash,
+                len(arrays),
+                blobs["time"],
+                blobs["value"],
+                blobs["sd"],
+                blobs["replicate"],
+                blobs["n"],
+            ],
         )
 
     def series(self, content_hash: str) -> SeriesArrays:
         """Give the arrays stored under a content hash."""
         row = self.db.execute(
             "SELECT time, value, sd, replicate, n FROM series WHERE content_hash = ?",
-            [content_hash]).fetchone()  # fmt: skip
+            [content_hash],
+        ).fetchone()
         if row is None:
-            raise CatalogError(f"{self.path}: the arrays of content {content_hash[:12]} are missing")
+            raise CatalogError(
+                f"{self.path}: the arrays of content {content_hash[:12]} are missing"
+            )
         return _decode_series(row)
 
     def iter_series(self) -> Iterator[tuple[str, int, SeriesArrays]]:
         """Give every stored (content_hash, n_points, arrays)."""
         cursor = self.db.execute(
-            "SELECT content_hash, n_points, time, value, sd, replicate, n FROM series")
+            "SELECT content_hash, n_points, time, value, sd, replicate, n FROM series"
+        )
         for row in cursor:
             yield str(row[0]), int(row[1]), _decode_series(row[2:])
 
     # -- versions --------------------------------------------------------------------------
 
-    _VERSION_COLUMNS = ("dataset_id, version, created_at, record_json, record_hash, content_hash,"
-                        " observable, lab, grade, retired")  # fmt: skip
+    _VERSION_COLUMNS = (
+        "dataset_id, version, created_at, record_json, record_hash, content_hash,"
+        " observable, lab, grade, retired"
+    )
 
     def put_version(self, row: VersionRow) -> None:
         """Insert one new version row (never replaces one)."""
         self.db.execute(
             f"INSERT INTO versions({self._VERSION_COLUMNS}) VALUES (?,?,?,?,?,?,?,?,?,?)",
-            [row.dataset_id, row.version, row.created_at, row.record_json, row.record_hash,
-             row.content_hash, row.observable, row.lab, row.grade, int(row.retired)],  # fmt: skip
+            [
+                row.dataset_id,
+                row.version,
+                row.created_at,
+                row.record_json,
+                row.record_hash,
+                row.content_hash,
+                row.observable,
+                row.lab,
+                row.grade,
+                int(row.retired),
+            ],
         )
 
     def _versions(self, where: str = "", args: list[Any] | None = None) -> list[VersionRow]:
         sql = f"SELECT {self._VERSION_COLUMNS} FROM versions {where}"
         rows = self.db.execute(sql, args or []).fetchall()
-        return [VersionRow(r[0], int(r[1]), r[2], r[3], r[4], r[5], r[6], r[7], r[8], bool(r[9]))
-                for r in rows]  # fmt: skip
+        return [
+            VersionRow(r[0], int(r[1]), r[2], r[3], r[4], r[5], r[6], r[7], r[8], bool(r[9]))
+            for r in rows
+        ]
 
     def latest_versions(self) -> list[VersionRow]:
         """Give the newest version of every dataset, ordered by dataset id."""
         return self._versions(
             "WHERE (dataset_id, version) IN (SELECT dataset_id, MAX(version) FROM versions"
-            " GROUP BY dataset_id) ORDER BY dataset_id")  # fmt: skip
+            " GROUP BY dataset_id) ORDER BY dataset_id"
+        )
 
     def all_versions(self) -> list[VersionRow]:
         """Give every version row, ordered by dataset id and version."""
@@ -282,15 +357,15 @@ class Store:
 
     def versions_with_content(self, content_hash: str) -> list[VersionRow]:
         """Give every version whose arrays have this content hash."""
-        return self._versions("WHERE content_hash = ? ORDER BY dataset_id, version",
-                              [content_hash])  # fmt: skip
+        return self._versions("WHERE content_hash = ? ORDER BY dataset_id, version", [content_hash])
 
     def dataset_ids_like(self, prefix: str) -> set[str]:
         """Give the dataset ids that start with ``prefix`` (for numbering new ids)."""
         escaped = prefix.replace("\\", "\\\\").replace("%", "\\%").replace("_", "\\_")
         rows = self.db.execute(
             "SELECT DISTINCT dataset_id FROM versions WHERE dataset_id LIKE ? ESCAPE '\\'",
-            [escaped + "%"]).fetchall()  # fmt: skip
+            [escaped + "%"],
+        ).fetchall()
         return {str(r[0]) for r in rows}
 
     def integrity_check(self) -> str:
@@ -307,5 +382,6 @@ def _decode_series(row: Any) -> SeriesArrays:
 
     time_, value = floats(row[0]), floats(row[1])
     assert time_ is not None and value is not None  # NOT NULL columns
-    return SeriesArrays(time=time_, value=value, sd=floats(row[2]), replicate=ints(row[3]),
-                        n=ints(row[4]))  # fmt: skip
+    return SeriesArrays(
+        time=time_, value=value, sd=floats(row[2]), replicate=ints(row[3]), n=ints(row[4])
+    )

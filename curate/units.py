@@ -12,14 +12,11 @@ from __future__ import annotations
 import functools
 import re
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 
 from curate.errors import UnitError
-
-if TYPE_CHECKING:
-    import pint
 
 __all__ = [
     "CanonicalUnit",
@@ -38,10 +35,29 @@ __all__ = [
 # except where a lower-case form is listed too: "AU" (absorbance) and "au" (astronomical unit)
 # must never reach pint.
 _RELATIVE_ALIASES = {
-    "a.u.", "a. u.", "au", "AU", "A.U.", "arb", "arb.", "arb. units", "arbitrary",
-    "arbitrary units", "arbitrary unit", "arbitrary_unit", "RFU", "RLU", "fold", "fold change",
-    "fold_change", "normalised", "normalized", "relative", "rel", "rel.",
-}  # fmt: skip
+    "a.u.",
+    "a. u.",
+    "au",
+    "AU",
+    "A.U.",
+    "arb",
+    "arb.",
+    "arb. units",
+    "arbitrary",
+    "arbitrary units",
+    "arbitrary unit",
+    "arbitrary_unit",
+    "RFU",
+    "RLU",
+    "fold",
+    "fold change",
+    "fold_change",
+    "normalised",
+    "normalized",
+    "relative",
+    "rel",
+    "rel.",
+}
 _DIMENSIONLESS_ALIASES = {"", "1", "-", "dimensionless", "none", "unitless"}
 
 # Canonical unit per dimensionality (pint's dimensionality string). A dimension not listed
@@ -92,16 +108,16 @@ _NUMBER_THEN_UNIT = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)
 
 
 @functools.cache
-def registry() -> pint.UnitRegistry:
+def registry() -> Any:
     """Give the process-wide pint registry (built once: quantities of two registries never mix)."""
     import pint
 
-    ureg = pint.UnitRegistry()
+    ureg: Any = pint.UnitRegistry()
     ureg.define("arbitrary_unit = [arbitrary] = arb_unit")
     return ureg
 
 
-def Quantity(value: Any, unit: str) -> pint.Quantity:  # noqa: N802 - mirrors pint's name
+def Quantity(value: Any, unit: str) -> Any:
     """Give a pint Quantity of the shared registry."""
     return registry().Quantity(value, _parse(unit, role="value"))
 
@@ -126,7 +142,7 @@ def is_relative_unit(text: str) -> bool:
     return text.strip() in _RELATIVE_ALIASES or text.strip().lower() in _RELATIVE_ALIASES
 
 
-def _parse(text: str, *, role: str) -> pint.Unit:
+def _parse(text: str, *, role: str) -> Any:
     import pint
 
     stripped = text.strip()
@@ -136,15 +152,24 @@ def _parse(text: str, *, role: str) -> pint.Unit:
         stripped = "dimensionless"
     try:
         return registry().parse_units(stripped)
-    except (pint.UndefinedUnitError, pint.errors.DefinitionSyntaxError, ValueError, TypeError,
-            AttributeError, SyntaxError, AssertionError) as err:  # fmt: skip
+    except (
+        pint.UndefinedUnitError,
+        pint.errors.DefinitionSyntaxError,
+        ValueError,
+        TypeError,
+        AttributeError,
+        SyntaxError,
+        AssertionError,
+    ) as err:
         raise UnitError(
             f"unknown {role} unit '{text}': expected a unit such as 's', 'min', 'um', 'nM', "
             f"'um/min', 'a.u.' or '1' ({type(err).__name__})"
         ) from None
 
 
-def canonical_unit(text: str, *, role: str = "value", dimension: str | None = None) -> CanonicalUnit:
+def canonical_unit(
+    text: str, *, role: str = "value", dimension: str | None = None
+) -> CanonicalUnit:
     """Give the canonical storage unit for a unit string; check its dimension if one is named.
 
     ``dimension`` is a pint dimensionality such as ``"[time]"``.
@@ -161,9 +186,11 @@ def canonical_unit(text: str, *, role: str = "value", dimension: str | None = No
     if canonical is None:
         canonical = str(ureg.Quantity(1.0, unit).to_base_units().units)
     return CanonicalUnit(
-        original=text.strip(), canonical=canonical, dimensionality=dims,
+        original=text.strip(),
+        canonical=canonical,
+        dimensionality=dims,
         relative=dims == "[arbitrary]",
-    )  # fmt: skip
+    )
 
 
 def convert(values: np.ndarray, unit: CanonicalUnit) -> np.ndarray:

@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from model import TRUTH, velarin  # noqa: E402
+from model import TRUTH, velarin
 
 SEED = 20261202
 GLINT_SCALE = {"harrow": 48.0, "quillfen": 31.0, "corvane": 55.0, "marrowby": 40.0}
@@ -57,21 +57,67 @@ SPECS = [
     Spec("harrow_velarin_37C_1uM", "harrow", "velarin_conc", 1, 37, replicates=3),
     Spec("harrow_velarin_37C_10uM", "harrow", "velarin_conc", 10, 37, replicates=3),
     Spec("harrow_velarin_30C_10uM", "harrow", "velarin_conc", 10, 30, replicates=3),
-    Spec("harrow_glint_37C_10uM", "harrow", "glint", 10, 37, replicates=3, form="wide_xlsx",
-         report_sd="none"),
-    Spec("quillfen_velarin_37C_1uM", "quillfen", "velarin_conc", 1, 37,
-         times=list(range(0, 121, 10)), form="long_tsv", report_sd="sem"),
-    Spec("quillfen_velarin_37C_10uM", "quillfen", "velarin_conc", 10, 37,
-         times=[0, 2, 3, 7, 12, 20, 33, 50, 75, 110], form="long_tsv", report_sd="sem"),
-    Spec("quillfen_velarin_30C_1uM", "quillfen", "velarin_conc", 1, 30,
-         times=list(range(0, 121, 10)), form="long_tsv", report_sd="sem"),
-    Spec("quillfen_glint_37C_1uM", "quillfen", "glint", 1, 37, times=list(range(0, 121, 8)),
-         report_sd="none"),
+    Spec(
+        "harrow_glint_37C_10uM",
+        "harrow",
+        "glint",
+        10,
+        37,
+        replicates=3,
+        form="wide_xlsx",
+        report_sd="none",
+    ),
+    Spec(
+        "quillfen_velarin_37C_1uM",
+        "quillfen",
+        "velarin_conc",
+        1,
+        37,
+        times=list(range(0, 121, 10)),
+        form="long_tsv",
+        report_sd="sem",
+    ),
+    Spec(
+        "quillfen_velarin_37C_10uM",
+        "quillfen",
+        "velarin_conc",
+        10,
+        37,
+        times=[0, 2, 3, 7, 12, 20, 33, 50, 75, 110],
+        form="long_tsv",
+        report_sd="sem",
+    ),
+    Spec(
+        "quillfen_velarin_30C_1uM",
+        "quillfen",
+        "velarin_conc",
+        1,
+        30,
+        times=list(range(0, 121, 10)),
+        form="long_tsv",
+        report_sd="sem",
+    ),
+    Spec(
+        "quillfen_glint_37C_1uM",
+        "quillfen",
+        "glint",
+        1,
+        37,
+        times=list(range(0, 121, 8)),
+        report_sd="none",
+    ),
     Spec("corvane_glint_37C_10uM", "corvane", "glint", 10, 37, replicates=2),
     Spec("corvane_glint_30C_10uM", "corvane", "glint", 10, 30, replicates=2),
     Spec("corvane_velarin_25C_10uM", "corvane", "velarin_conc", 10, 25),
-    Spec("marrowby_velarin_37C_10uM", "marrowby", "velarin_conc", 10, 37, saturate_at=14.0,
-         claimed_sd=0.3),
+    Spec(
+        "marrowby_velarin_37C_10uM",
+        "marrowby",
+        "velarin_conc",
+        10,
+        37,
+        saturate_at=14.0,
+        claimed_sd=0.3,
+    ),
     Spec("marrowby_glint_37C_1uM", "marrowby", "glint", 1, 37, report_sd="round"),
 ]
 
@@ -109,7 +155,7 @@ def _fmt(x: float) -> str:
 def _sidecar(spec: Spec, data_file: str) -> str:
     lab = LAB_NAMES[spec.lab]
     observable = {
-        "velarin_conc": ('velarin_conc', "velarin concentration", "nM"),
+        "velarin_conc": ("velarin_conc", "velarin concentration", "nM"),
         "glint": ("glint", "Glint reporter fluorescence", "a.u."),
     }[spec.observable]
     lines = [
@@ -134,8 +180,11 @@ def _sidecar(spec: Spec, data_file: str) -> str:
     ]
     if spec.lab != "marrowby":  # the poorly documented lab sends no method, date or contact
         method = {"velarin_conc": "calibrated capture assay", "glint": "live-cell Glint imaging"}
-        instrument = {"harrow": "plate reader HX-2", "quillfen": "plate reader QF-9",
-                      "corvane": "spinning-disk scope CV-1"}[spec.lab]
+        instrument = {
+            "harrow": "plate reader HX-2",
+            "quillfen": "plate reader QF-9",
+            "corvane": "spinning-disk scope CV-1",
+        }[spec.lab]
         lines += [
             f'method = "{method[spec.observable]}"',
             f'instrument = "{instrument}"',
@@ -175,7 +224,7 @@ def write(outdir: Path) -> list[Path]:
             sheet.title = "glint"
             sheet.append(["time"] + [f"r{k}" for k in range(1, spec.replicates + 1)])
             for i, t in enumerate(spec.times):
-                block = data["value"][i * spec.replicates:(i + 1) * spec.replicates]
+                block = data["value"][i * spec.replicates : (i + 1) * spec.replicates]
                 sheet.append([t] + [float(_fmt(v)) for v in block])
             book.properties.creator = "curate example generator"
             book.save(outdir / name)

@@ -27,24 +27,28 @@ PARAMETERS = ("k_on", "K_d", "k_off", "k_syn", "k_deg", "q10")
 TRUTH = {"k_on": 0.2, "K_d": 2000.0, "k_off": 0.1, "k_syn": 2.0, "k_deg": 0.05, "q10": 2.2}
 
 
-def velarin(params: dict[str, float], dose_nM: float, temperature_C: float,
-            times_min: np.ndarray) -> np.ndarray:  # fmt: skip
+def velarin(
+    params: dict[str, float], dose_nM: float, temperature_C: float, times_min: np.ndarray
+) -> np.ndarray:
     """Give V (nM) at ``times_min`` for one dose and temperature."""
     f = params["q10"] ** ((temperature_C - 37.0) / 10.0)
     drive = params["k_on"] * dose_nM / (dose_nM + params["K_d"])
 
     def rhs(_t: float, y: np.ndarray) -> list[float]:
         a, v = y
-        return [f * (drive * (1.0 - a) - params["k_off"] * a),
-                f * (params["k_syn"] * a - params["k_deg"] * v)]  # fmt: skip
+        return [
+            f * (drive * (1.0 - a) - params["k_off"] * a),
+            f * (params["k_syn"] * a - params["k_deg"] * v),
+        ]
 
     times = np.asarray(times_min, dtype=float)
     unique = np.unique(times)
     t_end = float(unique[-1]) if len(unique) else 0.0
     if t_end <= 0:
         return np.zeros_like(times)
-    solution = solve_ivp(rhs, (0.0, t_end), [0.0, 0.0], t_eval=unique, method="LSODA",
-                         rtol=1e-8, atol=1e-10)  # fmt: skip
+    solution = solve_ivp(
+        rhs, (0.0, t_end), [0.0, 0.0], t_eval=unique, method="LSODA", rtol=1e-8, atol=1e-10
+    )
     values = solution.y[1]
     return np.asarray(values[np.searchsorted(unique, times)], dtype=float)
 

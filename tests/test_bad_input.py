@@ -6,7 +6,6 @@ import sqlite3
 from pathlib import Path
 
 import pytest
-
 from conftest import LONG_CSV, SIDECAR, write
 
 BASE = ["--observable", "front_speed", "--unit", "um/min", "--time-unit", "min", "--lab", "L"]
@@ -31,18 +30,63 @@ def seeded(cli, tmp_path):
 
 CASES = [
     # (name, file name, content, extra args, expected fragment of the one error line)
-    ("non-numeric value", "a.csv", "time,value\n0,1\n1,abc\n", [],
-     "a.csv, line 3, column 'value': 'abc' is not a number"),
-    ("nan value", "b.csv", "time,value\n0,1\n1,nan\n", [], "line 3, column 'value': 'nan' is not a finite number"),
-    ("inf time", "c.csv", "time,value\n0,1\ninf,2\n", [], "line 3, column 'time': 'inf' is not a finite number"),
-    ("huge number", "c2.csv", "time,value\n0,1\n1,1e999\n", [], "line 3, column 'value': '1e999' is not a finite"),
+    (
+        "non-numeric value",
+        "a.csv",
+        "time,value\n0,1\n1,abc\n",
+        [],
+        "a.csv, line 3, column 'value': 'abc' is not a number",
+    ),
+    (
+        "nan value",
+        "b.csv",
+        "time,value\n0,1\n1,nan\n",
+        [],
+        "line 3, column 'value': 'nan' is not a finite number",
+    ),
+    (
+        "inf time",
+        "c.csv",
+        "time,value\n0,1\ninf,2\n",
+        [],
+        "line 3, column 'time': 'inf' is not a finite number",
+    ),
+    (
+        "huge number",
+        "c2.csv",
+        "time,value\n0,1\n1,1e999\n",
+        [],
+        "line 3, column 'value': '1e999' is not a finite",
+    ),
     ("empty value", "d.csv", "time,value\n0,1\n1,\n", [], "line 3, column 'value': empty cell"),
-    ("negative sd", "e.csv", "time,value,sd\n0,1,0.1\n1,2,-0.5\n", [],
-     "line 3, column 'sd': negative uncertainty -0.5"),
-    ("too many cells", "f.csv", "time,value\n0,1\n1,2,3\n", [], "line 3: 3 cells, but the header has 2 columns"),
-    ("too few cells", "f2.csv", "time,value,sd\n0,1,0.1\n1,2\n", [], "line 3: 2 cells, but the header has 3"),
-    ("missing value column", "g.csv", "time,sd\n0,1\n", ["--layout", "long"],
-     "required column 'value' is missing"),
+    (
+        "negative sd",
+        "e.csv",
+        "time,value,sd\n0,1,0.1\n1,2,-0.5\n",
+        [],
+        "line 3, column 'sd': negative uncertainty -0.5",
+    ),
+    (
+        "too many cells",
+        "f.csv",
+        "time,value\n0,1\n1,2,3\n",
+        [],
+        "line 3: 3 cells, but the header has 2 columns",
+    ),
+    (
+        "too few cells",
+        "f2.csv",
+        "time,value,sd\n0,1,0.1\n1,2\n",
+        [],
+        "line 3: 2 cells, but the header has 3",
+    ),
+    (
+        "missing value column",
+        "g.csv",
+        "time,sd\n0,1\n",
+        ["--layout", "long"],
+        "required column 'value' is missing",
+    ),
     ("missing time column", "h.csv", "t,value\n0,1\n", [], "required column 'time' is missing"),
     ("empty file", "i.csv", "", [], "i.csv: the file is empty"),
     ("header only", "j.csv", "time,value\n", [], "the file has a header but no data rows"),
@@ -55,8 +99,9 @@ CASES = [
 ]
 
 
-@pytest.mark.parametrize(("name", "filename", "content", "extra", "expected"), CASES,
-                         ids=[c[0] for c in CASES])
+@pytest.mark.parametrize(
+    ("name", "filename", "content", "extra", "expected"), CASES, ids=[c[0] for c in CASES]
+)
 def test_bad_data_file(seeded, tmp_path, name, filename, content, extra, expected):
     path = tmp_path / filename
     if isinstance(content, bytes):
@@ -75,17 +120,33 @@ def test_bad_data_file(seeded, tmp_path, name, filename, content, extra, expecte
 
 
 OPTION_CASES = [
-    ("unknown unit", ["--observable", "x", "--unit", "wibbles", "--time-unit", "min", "--lab", "L"],
-     "unknown value unit 'wibbles'"),
-    ("time unit of wrong dimension", ["--observable", "x", "--unit", "nM", "--time-unit", "um",
-                                      "--lab", "L"], "time unit 'um' has dimension [length]"),
-    ("invalid condition key", [*BASE, "--condition", "bad-key=3"], "key 'bad-key' is not a valid identifier"),
+    (
+        "unknown unit",
+        ["--observable", "x", "--unit", "wibbles", "--time-unit", "min", "--lab", "L"],
+        "unknown value unit 'wibbles'",
+    ),
+    (
+        "time unit of wrong dimension",
+        ["--observable", "x", "--unit", "nM", "--time-unit", "um", "--lab", "L"],
+        "time unit 'um' has dimension [length]",
+    ),
+    (
+        "invalid condition key",
+        [*BASE, "--condition", "bad-key=3"],
+        "key 'bad-key' is not a valid identifier",
+    ),
     ("condition without =", [*BASE, "--condition", "temperature"], "expected KEY=VALUE"),
-    ("missing unit option", ["--observable", "x", "--time-unit", "min", "--lab", "L"],
-     "field 'observable.unit' is required; pass --unit"),
+    (
+        "missing unit option",
+        ["--observable", "x", "--time-unit", "min", "--lab", "L"],
+        "field 'observable.unit' is required; pass --unit",
+    ),
     ("missing lab", ["--observable", "x", "--unit", "nM", "--time-unit", "min"], "pass --lab"),
-    ("invalid observable id", ["--observable", "9x", "--unit", "nM", "--time-unit", "min", "--lab", "L"],
-     "field 'observable.id'"),
+    (
+        "invalid observable id",
+        ["--observable", "9x", "--unit", "nM", "--time-unit", "min", "--lab", "L"],
+        "field 'observable.id'",
+    ),
     ("grade outside the scale", [*BASE, "--grade", "Q", "--reason", "r"], "field 'trust.grade'"),
     ("grade without reason", [*BASE, "--grade", "A"], "a grade needs its reason"),
     ("sem without n", [*BASE, "--sd-type", "sem"], "no n is known"),
@@ -95,7 +156,9 @@ OPTION_CASES = [
 ]
 
 
-@pytest.mark.parametrize(("name", "args", "expected"), OPTION_CASES, ids=[c[0] for c in OPTION_CASES])
+@pytest.mark.parametrize(
+    ("name", "args", "expected"), OPTION_CASES, ids=[c[0] for c in OPTION_CASES]
+)
 def test_bad_options(seeded, tmp_path, name, args, expected):
     data = write(tmp_path / "data.csv", "time,value,sd\n0,1,0.1\n1,2,0.1\n")
     before = dump(seeded.catalog)
@@ -107,19 +170,30 @@ def test_bad_options(seeded, tmp_path, name, args, expected):
 
 
 SIDECAR_CASES = [
-    ("missing required field", SIDECAR.replace('source.lab = "Test Lab"\n', ""),
-     "field 'source': required but missing"),
+    (
+        "missing required field",
+        SIDECAR.replace('source.lab = "Test Lab"\n', ""),
+        "field 'source': required but missing",
+    ),
     ("unknown field", SIDECAR + 'colour = "red"\n', "field 'colour': unknown field"),
     ("invalid toml", "observable = [\n", "not valid TOML"),
-    ("bad condition key in sidecar", SIDECAR + '[conditions]\n"2fast" = 1\n',
-     "key '2fast' is not a valid identifier"),
+    (
+        "bad condition key in sidecar",
+        SIDECAR + '[conditions]\n"2fast" = 1\n',
+        "key '2fast' is not a valid identifier",
+    ),
     ("wrong type", SIDECAR.replace('time.unit = "min"', "time.unit = 5"), "field 'time.unit'"),
-    ("bad duration", SIDECAR + '[[protocol.pretreatment]]\nstep = "x"\nduration = "soon"\n',
-     "'soon' is not a duration"),
+    (
+        "bad duration",
+        SIDECAR + '[[protocol.pretreatment]]\nstep = "x"\nduration = "soon"\n',
+        "'soon' is not a duration",
+    ),
 ]
 
 
-@pytest.mark.parametrize(("name", "sidecar", "expected"), SIDECAR_CASES, ids=[c[0] for c in SIDECAR_CASES])
+@pytest.mark.parametrize(
+    ("name", "sidecar", "expected"), SIDECAR_CASES, ids=[c[0] for c in SIDECAR_CASES]
+)
 def test_bad_sidecar(seeded, tmp_path, name, sidecar, expected):
     data = write(tmp_path / "s.csv", LONG_CSV)
     write(tmp_path / "s.toml", sidecar)

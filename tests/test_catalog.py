@@ -7,9 +7,9 @@ import sqlite3
 
 import numpy as np
 import pytest
+from conftest import LONG_CSV, write
 
 import curate
-from conftest import LONG_CSV, write
 from curate.errors import InputError, NotFoundError
 
 OPTIONS = {
@@ -29,12 +29,23 @@ def add(catalog, tmp_path, name, **overrides):
 @pytest.fixture
 def filled(catalog, tmp_path):
     add(catalog, tmp_path, "a", conditions={"temperature": "37 degC", "dose": "1 uM"})
-    add(catalog, tmp_path, "b", values="time,value\n0,2\n1,3\n2,5\n",
+    add(
+        catalog,
+        tmp_path,
+        "b",
+        values="time,value\n0,2\n1,3\n2,5\n",
         conditions={"temperature": "30 degC", "dose": "10 uM"},
-        trust={"grade": "A", "rationale": "replicated, calibrated"})
-    add(catalog, tmp_path, "c", values="time,value\n0,5\n1,6\n2,8\n",
-        source={"lab": "Quillfen Institute"}, observable={"id": "glint", "unit": "a.u."},
-        conditions={"temperature": "37 degC", "dose": "10 uM"})
+        trust={"grade": "A", "rationale": "replicated, calibrated"},
+    )
+    add(
+        catalog,
+        tmp_path,
+        "c",
+        values="time,value\n0,5\n1,6\n2,8\n",
+        source={"lab": "Quillfen Institute"},
+        observable={"id": "glint", "unit": "a.u."},
+        conditions={"temperature": "37 degC", "dose": "10 uM"},
+    )
     return catalog
 
 
@@ -61,18 +72,26 @@ def test_reopening_keeps_catalog_id(tmp_path):
 
 
 def test_list_filters(filled):
-    assert [v.id for v in filled.list()] == ["harrow_velarin_conc_01", "harrow_velarin_conc_02",
-                                             "quillfen_glint_01"]
+    assert [v.id for v in filled.list()] == [
+        "harrow_velarin_conc_01",
+        "harrow_velarin_conc_02",
+        "quillfen_glint_01",
+    ]
     assert [v.id for v in filled.list(observable="glint")] == ["quillfen_glint_01"]
-    assert [v.id for v in filled.list(lab="Harrow Point Lab")] == ["harrow_velarin_conc_01",
-                                                                   "harrow_velarin_conc_02"]
+    assert [v.id for v in filled.list(lab="Harrow Point Lab")] == [
+        "harrow_velarin_conc_01",
+        "harrow_velarin_conc_02",
+    ]
     assert [v.id for v in filled.list(grade="A")] == ["harrow_velarin_conc_02"]
     assert len(filled.list(grade="none")) == 2
     # condition filters compare canonical values: 10 uM equals 10000 nM
     assert [v.id for v in filled.list(conditions={"dose": "10000 nM"})] == [
-        "harrow_velarin_conc_02", "quillfen_glint_01"]
+        "harrow_velarin_conc_02",
+        "quillfen_glint_01",
+    ]
     assert [v.id for v in filled.list(conditions={"temperature": "37degC", "dose": "10 uM"})] == [
-        "quillfen_glint_01"]
+        "quillfen_glint_01"
+    ]
     with pytest.raises(InputError, match="unknown grade 'Z'"):
         filled.list(grade="Z")
 
@@ -96,8 +115,12 @@ def test_versions_are_immutable_and_retire_hides(filled):
 
 def test_revise_makes_a_new_version_with_history(filled):
     target = "harrow_velarin_conc_01"
-    new = filled.revise(target, reason="lab sent the right temperature",
-                        conditions={"temperature": "36.5 degC"}, label="velarin (nM)")
+    new = filled.revise(
+        target,
+        reason="lab sent the right temperature",
+        conditions={"temperature": "36.5 degC"},
+        label="velarin (nM)",
+    )
     assert new.version == 2
     assert new.record.conditions["temperature"].value == 36.5
     assert new.record.content_hash == filled.show(target, 1).record.content_hash
@@ -135,6 +158,7 @@ def test_verify_clean(filled):
 
 # -- tamper evidence: each edit made directly in the SQLite file is named by verify ------------
 
+
 def _raw(catalog):
     return sqlite3.connect(catalog.path, isolation_level=None)
 
@@ -149,22 +173,28 @@ def test_verify_detects_edited_point_value(filled):
     conn.close()
     report = filled.verify()
     assert not report.ok
-    assert report.problems[0].startswith("dataset harrow_velarin_conc_02 version 1: its measured "
-                                         "values no longer match")
+    assert report.problems[0].startswith(
+        "dataset harrow_velarin_conc_02 version 1: its measured values no longer match"
+    )
 
 
 def test_verify_detects_edited_metadata(filled):
     conn = _raw(filled)
-    row = conn.execute("SELECT record_json FROM versions WHERE dataset_id = 'quillfen_glint_01'").fetchone()
+    row = conn.execute(
+        "SELECT record_json FROM versions WHERE dataset_id = 'quillfen_glint_01'"
+    ).fetchone()
     record = json.loads(row[0])
     record["source"]["lab"] = "Someone Else"
-    conn.execute("UPDATE versions SET record_json = ? WHERE dataset_id = 'quillfen_glint_01'",
-                 [json.dumps(record)])
+    conn.execute(
+        "UPDATE versions SET record_json = ? WHERE dataset_id = 'quillfen_glint_01'",
+        [json.dumps(record)],
+    )
     conn.close()
     report = filled.verify()
     assert not report.ok
-    assert report.problems[0].startswith("dataset quillfen_glint_01 version 1: its metadata no "
-                                         "longer match")
+    assert report.problems[0].startswith(
+        "dataset quillfen_glint_01 version 1: its metadata no longer match"
+    )
 
 
 def test_verify_detects_edited_searchable_column(filled):
@@ -172,8 +202,10 @@ def test_verify_detects_edited_searchable_column(filled):
     conn.execute("UPDATE versions SET grade = 'A' WHERE dataset_id = 'quillfen_glint_01'")
     conn.close()
     report = filled.verify()
-    assert report.problems == ["dataset quillfen_glint_01 version 1: the searchable columns "
-                               "disagree with its record (edited in the file)"]
+    assert report.problems == [
+        "dataset quillfen_glint_01 version 1: the searchable columns "
+        "disagree with its record (edited in the file)"
+    ]
 
 
 def test_verify_detects_deleted_event(filled):
@@ -205,13 +237,18 @@ def test_verify_detects_deleted_version(filled):
     conn = _raw(filled)
     conn.execute("DELETE FROM versions WHERE dataset_id = 'quillfen_glint_01'")
     conn.close()
-    assert filled.verify().problems == ["dataset quillfen_glint_01 version 1: logged as written "
-                                        "but missing from the file (deleted?)"]
+    assert filled.verify().problems == [
+        "dataset quillfen_glint_01 version 1: logged as written "
+        "but missing from the file (deleted?)"
+    ]
 
 
 def test_verify_exit_code_on_cli(cli, tmp_path):
     data = write(tmp_path / "v.csv", LONG_CSV)
-    assert cli("add", data, "--observable", "x", "--unit", "nM", "--time-unit", "s", "--lab", "L").code == 0
+    assert (
+        cli("add", data, "--observable", "x", "--unit", "nM", "--time-unit", "s", "--lab", "L").code
+        == 0
+    )
     assert cli("verify").code == 0
     conn = sqlite3.connect(cli.catalog, isolation_level=None)
     conn.execute("UPDATE events SET kind = 'forged'")

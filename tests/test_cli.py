@@ -8,11 +8,20 @@ import subprocess
 import sys
 
 import pytest
-
 from conftest import LONG_CSV, ROOT, write
+
 from curate.cli import app
 
-ADD = ["--observable", "velarin_conc", "--unit", "nM", "--time-unit", "min", "--lab", "Harrow Point Lab"]
+ADD = [
+    "--observable",
+    "velarin_conc",
+    "--unit",
+    "nM",
+    "--time-unit",
+    "min",
+    "--lab",
+    "Harrow Point Lab",
+]
 
 
 def command_names():
@@ -62,7 +71,9 @@ def test_history_and_retire_cli(cli, tmp_path):
     assert len(json.loads(cli("list", "--retired", "--json").out)) == 1
     history = json.loads(cli("history", "harrow_velarin_conc_01", "--json").out)
     assert [h["kind"] for h in history] == ["add", "retire"]
-    assert cli("revise", "harrow_velarin_conc_01", "--unretire", "--reason", "rerun failed").code == 0
+    assert (
+        cli("revise", "harrow_velarin_conc_01", "--unretire", "--reason", "rerun failed").code == 0
+    )
 
 
 def test_dry_run_cli(cli, tmp_path):
@@ -93,8 +104,13 @@ def test_console_script_gives_one_line_and_no_traceback(tmp_path):
     # through a real subprocess, as a user's shell would run it
     bad = write(tmp_path / "bad.csv", "time,value\n0,oops\n")
     env = {**os.environ, "CURATE_CATALOG": str(tmp_path / "c.db")}
-    proc = subprocess.run([sys.executable, "-m", "curate.cli", "add", str(bad), *ADD],
-                          capture_output=True, text=True, env=env, timeout=120)  # fmt: skip
+    proc = subprocess.run(
+        [sys.executable, "-m", "curate.cli", "add", str(bad), *ADD],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert proc.returncode == 2
     assert proc.stderr.count("\n") == 1 and "Traceback" not in proc.stderr
     assert "bad.csv, line 2, column 'value': 'oops' is not a number" in proc.stderr
@@ -110,8 +126,25 @@ def test_public_api_is_exactly_this():
     import curate
 
     assert set(curate.__all__) == {
-        "EXCLUSION_GRADE", "GRADES", "AddPlan", "AddResult", "Catalog", "CatalogError",
-        "CurateError", "DatasetRecord", "DatasetVersion", "Draft", "HistoryEntry", "InputError",
-        "IntakeItem", "IntakeReport", "IntegrityError", "NotFoundError", "SeriesArrays",
-        "UnitError", "VerifyReport", "__version__", "open_catalog",
-    }  # fmt: skip
+        "EXCLUSION_GRADE",
+        "GRADES",
+        "AddPlan",
+        "AddResult",
+        "Catalog",
+        "CatalogError",
+        "CurateError",
+        "DatasetRecord",
+        "DatasetVersion",
+        "Draft",
+        "HistoryEntry",
+        "InputError",
+        "IntakeItem",
+        "IntakeReport",
+        "IntegrityError",
+        "NotFoundError",
+        "SeriesArrays",
+        "UnitError",
+        "VerifyReport",
+        "__version__",
+        "open_catalog",
+    }

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 import openpyxl
 import pytest
-
 from conftest import LONG_CSV, SIDECAR, write
+
 from curate.errors import InputError
 
 OPTIONS = {
@@ -36,14 +36,17 @@ def test_long_csv_with_sidecar(catalog, tmp_path):
 
 
 def test_tsv_with_replicates_keeps_every_row_sorted_stably(catalog, tmp_path):
-    data = write(tmp_path / "r.tsv", """
+    data = write(
+        tmp_path / "r.tsv",
+        """
         time\tvalue\treplicate
         10\t2.0\tb
         0\t1.0\ta
         10\t2.5\ta
         0\t1.2\tb
         10\t2.7\tc
-    """)
+    """,
+    )
     result = catalog.add(data, options=OPTIONS)
     frame = catalog.points(result.id)
     assert len(frame) == 5
@@ -102,7 +105,9 @@ def test_sidecar_given_instead_of_data_file(catalog, tmp_path):
 def test_options_override_sidecar(catalog, tmp_path):
     data = write(tmp_path / "run.csv", LONG_CSV)
     write(tmp_path / "run.toml", SIDECAR)
-    result = catalog.add(data, options={"source": {"lab": "Other Lab"}, "observable": {"label": "x"}})
+    result = catalog.add(
+        data, options={"source": {"lab": "Other Lab"}, "observable": {"label": "x"}}
+    )
     record = catalog.show(result.id).record
     assert record.source.lab == "Other Lab"
     assert record.observable.id == "front_speed"  # kept from the sidecar
@@ -111,7 +116,9 @@ def test_options_override_sidecar(catalog, tmp_path):
 
 def test_full_sidecar_fields(catalog, tmp_path):
     data = write(tmp_path / "full.csv", "time,value,sd,n\n0,1,0.1,3\n1,2,0.2,3\n2,3,0.1,4\n")
-    write(tmp_path / "full.toml", """
+    write(
+        tmp_path / "full.toml",
+        """
         id = "full_example"
         [observable]
         id = "velarin_conc"
@@ -144,7 +151,8 @@ def test_full_sidecar_fields(catalog, tmp_path):
         [trust]
         grade = "B"
         rationale = "calibrated, two replicates only"
-    """)
+    """,
+    )
     result = catalog.add(data)
     assert result.id == "full_example"
     record = catalog.show(result.id).record
@@ -166,14 +174,21 @@ def test_relative_units_are_recognised(catalog, tmp_path):
     data = write(tmp_path / "glint.csv", LONG_CSV)
     result = catalog.add(data, options={**OPTIONS, "observable": {"id": "glint", "unit": "a.u."}})
     observable = catalog.show(result.id).record.observable
-    assert observable.relative and observable.unit == "arbitrary_unit" and observable.ucum == "[arb'U]"
+    assert (
+        observable.relative and observable.unit == "arbitrary_unit" and observable.ucum == "[arb'U]"
+    )
     assert catalog.points(result.id)["value"].tolist() == [1.0, 2.0, 3.5, 4.0]  # never converted
 
 
 def test_dimensionless_written_as_1(catalog, tmp_path):
     data = write(tmp_path / "ratio.csv", LONG_CSV)
-    result = catalog.add(data, options={**OPTIONS, "observable": {"id": "ratio", "unit": "1"},
-                                        })
+    result = catalog.add(
+        data,
+        options={
+            **OPTIONS,
+            "observable": {"id": "ratio", "unit": "1"},
+        },
+    )
     assert catalog.show(result.id).record.observable.unit == "dimensionless"
 
 
@@ -212,9 +227,16 @@ def test_extra_columns_are_kept(catalog, tmp_path):
 
 
 def test_api_arrays_draft(memory_catalog):
-    draft = memory_catalog.draft([0, 1, 2], [1.0, 2.0, 3.0], observable="v", unit="nM",
-                                 time_unit="s", lab="L", sd=[0.1, 0.1, 0.2],
-                                 conditions={"dose": "5 uM"})  # fmt: skip
+    draft = memory_catalog.draft(
+        [0, 1, 2],
+        [1.0, 2.0, 3.0],
+        observable="v",
+        unit="nM",
+        time_unit="s",
+        lab="L",
+        sd=[0.1, 0.1, 0.2],
+        conditions={"dose": "5 uM"},
+    )
     result = memory_catalog.add_drafts([draft])[0]
     assert memory_catalog.points(result.id)["sd"].tolist() == [0.1, 0.1, 0.2]
     with pytest.raises(InputError, match="equal lengths"):

@@ -13,7 +13,12 @@ def test_examples_intake_cleanly(catalog, examples):
     assert report.count("quarantined") == 0
     assert len(catalog.list()) == 13
     labs = {v.record.source.lab for v in catalog.list()}
-    assert labs == {"Harrow Point Lab", "Quillfen Institute", "Corvane Biophysics", "Marrowby Group"}
+    assert labs == {
+        "Harrow Point Lab",
+        "Quillfen Institute",
+        "Corvane Biophysics",
+        "Marrowby Group",
+    }
     relative = {v.record.observable.id for v in catalog.list() if v.record.observable.relative}
     assert relative == {"glint"}
     assert catalog.verify().ok
@@ -34,12 +39,22 @@ def test_bad_file_is_quarantined_with_reason(catalog, tmp_path):
     assert report.count("quarantined") == 2
     jail = inbox / "quarantine"
     assert sorted(p.name for p in jail.iterdir()) == [
-        "bad.csv", "bad.csv.reason.txt", "bad.toml", "nometa.csv", "nometa.csv.reason.txt"]
+        "bad.csv",
+        "bad.csv.reason.txt",
+        "bad.toml",
+        "nometa.csv",
+        "nometa.csv.reason.txt",
+    ]
     reason = (jail / "bad.csv.reason.txt").read_text()
     assert "line 3, column 'value': 'n.d.' is not a number" in reason
     assert "field 'observable' is required" in (jail / "nometa.csv.reason.txt").read_text()
     # the good file and unrelated files stay where they were
-    assert sorted(p.name for p in inbox.iterdir()) == ["good.csv", "good.toml", "notes.txt", "quarantine"]
+    assert sorted(p.name for p in inbox.iterdir()) == [
+        "good.csv",
+        "good.toml",
+        "notes.txt",
+        "quarantine",
+    ]
 
 
 def test_sidecar_pointing_at_missing_file_is_quarantined(catalog, tmp_path):

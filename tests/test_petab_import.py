@@ -12,7 +12,6 @@ import logging
 import numpy as np
 import pandas as pd
 import pytest
-
 from conftest import DATA
 
 petab_v1 = pytest.importorskip("petab.v1")
@@ -45,8 +44,9 @@ def test_import_matches_petab_reading(catalog, name):
         points = catalog.points(result.id)
         # time unit 's' in, seconds stored: the numbers are exactly the published ones
         np.testing.assert_array_equal(points["time"].to_numpy(), expected["time"].to_numpy(float))
-        np.testing.assert_array_equal(points["value"].to_numpy(),
-                                      expected["measurement"].to_numpy(float))
+        np.testing.assert_array_equal(
+            points["value"].to_numpy(), expected["measurement"].to_numpy(float)
+        )
         total += len(points)
         # every cell of every row kept verbatim, in the stored order
         rows = record.annotations["petab_rows"]
@@ -56,8 +56,9 @@ def test_import_matches_petab_reading(catalog, name):
 
 
 def test_numeric_noise_becomes_sd_and_scale_factors_mark_relative_data(catalog):
-    results = catalog.import_petab(DATA / "petab" / "Fujita_SciSignal2010" /
-                                   "Fujita_SciSignal2010.yaml", lab="Fujita lab")  # fmt: skip
+    results = catalog.import_petab(
+        DATA / "petab" / "Fujita_SciSignal2010" / "Fujita_SciSignal2010.yaml", lab="Fujita lab"
+    )
     first = catalog.show(results[0].id)
     assert first.record.source.lab == "Fujita lab"
     assert first.record.observable.relative  # observableParameter1_... * (...)
@@ -65,14 +66,17 @@ def test_numeric_noise_becomes_sd_and_scale_factors_mark_relative_data(catalog):
     points = catalog.points(results[0].id)
     reference = reference_table("Fujita_SciSignal2010")
     chosen = reference[(reference.datasetId == first.record.annotations["petab"]["datasetId"])]
-    np.testing.assert_array_equal(points["sd"].to_numpy(), chosen["noiseParameters"].to_numpy(float))
+    np.testing.assert_array_equal(
+        points["sd"].to_numpy(), chosen["noiseParameters"].to_numpy(float)
+    )
     # the condition table's numeric columns become conditions
     assert first.record.conditions["EGF_0"].value == pytest.approx(0.1)
 
 
 def test_symbolic_noise_is_kept_as_text(catalog):
-    results = catalog.import_petab(DATA / "petab" / "Boehm_JProteomeRes2014" /
-                                   "Boehm_JProteomeRes2014.yaml")  # fmt: skip
+    results = catalog.import_petab(
+        DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml"
+    )
     record = catalog.show(results[0].id).record
     assert record.uncertainty is None
     assert set(record.annotations["petab_rows"]["noiseParameters"]) == {"sd_pSTAT5A_rel"}
@@ -91,8 +95,13 @@ def test_reimport_is_recognised(catalog):
 
 
 def test_import_cli(cli):
-    run = cli("import-petab", DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml",
-              "--time-unit", "min", "--json")
+    run = cli(
+        "import-petab",
+        DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml",
+        "--time-unit",
+        "min",
+        "--json",
+    )
     assert run.code == 0, run.err
     import json
 

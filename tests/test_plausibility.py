@@ -34,21 +34,26 @@ def test_block_off_by_a_thousand_is_a_unit_slip():
 
 def test_zero_and_round_uncertainty():
     value = smooth(6)
-    warnings = check_series(value, np.array([0.5, 0.0, 0.5, 0.5, 0.5, 0.5]),
-                            uncertainty=UncertaintyType.SD, nonnegative=True)  # fmt: skip
+    warnings = check_series(
+        value,
+        np.array([0.5, 0.0, 0.5, 0.5, 0.5, 0.5]),
+        uncertainty=UncertaintyType.SD,
+        nonnegative=True,
+    )
     assert codes(warnings) == ["zero_sd", "round_uncertainty"]
     assert "points 2" in warnings[0].message
 
 
 def test_percent_entered_as_absolute():
     value = np.array([0.5, 1.0, 2.0, 3.0, 4.0, 4.5])
-    warnings = check_series(value, np.full(6, 10.0), uncertainty=UncertaintyType.SD,
-                            nonnegative=True)  # fmt: skip
+    warnings = check_series(
+        value, np.full(6, 10.0), uncertainty=UncertaintyType.SD, nonnegative=True
+    )
     assert "percent_as_absolute" in codes(warnings)
 
 
 def test_negative_concentrations_suggest_log_transform():
-    value = np.log10(smooth())  - 1.0  # mostly negative, small
+    value = np.log10(smooth()) - 1.0  # mostly negative, small
     warnings = check_series(value, None, uncertainty=None, nonnegative=True)
     assert codes(warnings) == ["negative_values"]
     assert "log-transformed" in warnings[0].message
@@ -61,33 +66,64 @@ def test_baseline_noise_below_zero_is_not_flagged():
 
 
 def neighbour(name, magnitude, content="h", conditions="{}"):
-    return Neighbour(dataset_id=name, observable="velarin", unit="nanomolar", conditions=conditions,
-                     lab="L", content_hash=content, magnitude=magnitude)
+    return Neighbour(
+        dataset_id=name,
+        observable="velarin",
+        unit="nanomolar",
+        conditions=conditions,
+        lab="L",
+        content_hash=content,
+        magnitude=magnitude,
+    )
 
 
 def test_whole_series_a_thousand_times_the_others():
-    warnings = check_against_others(observable="velarin", unit="nanomolar", relative=False,
-                                    conditions="{}", content_hash="new", magnitude=15000.0,
-                                    others=[neighbour("a", 14.0), neighbour("b", 16.0)])
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions="{}",
+        content_hash="new",
+        magnitude=15000.0,
+        others=[neighbour("a", 14.0), neighbour("b", 16.0)],
+    )
     assert codes(warnings) == ["magnitude_vs_others"]
 
 
 def test_series_that_looks_log_transformed_against_others():
-    warnings = check_against_others(observable="velarin", unit="nanomolar", relative=False,
-                                    conditions="{}", content_hash="new", magnitude=2.0,
-                                    others=[neighbour("a", 100.0), neighbour("b", 100.0)])
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions="{}",
+        content_hash="new",
+        magnitude=2.0,
+        others=[neighbour("a", 100.0), neighbour("b", 100.0)],
+    )
     assert codes(warnings) == ["looks_log_transformed"]
 
 
 def test_identical_content_under_other_conditions():
-    warnings = check_against_others(observable="velarin", unit="nanomolar", relative=False,
-                                    conditions='{"dose":1}', content_hash="same", magnitude=15.0,
-                                    others=[neighbour("a", 15.0, content="same", conditions='{"dose":2}')])
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions='{"dose":1}',
+        content_hash="same",
+        magnitude=15.0,
+        others=[neighbour("a", 15.0, content="same", conditions='{"dose":2}')],
+    )
     assert codes(warnings) == ["identical_to_other"]
 
 
 def test_relative_units_skip_magnitude_comparison():
-    warnings = check_against_others(observable="velarin", unit="nanomolar", relative=True,
-                                    conditions="{}", content_hash="new", magnitude=15000.0,
-                                    others=[neighbour("a", 14.0)])
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=True,
+        conditions="{}",
+        content_hash="new",
+        magnitude=15000.0,
+        others=[neighbour("a", 14.0)],
+    )
     assert warnings == []

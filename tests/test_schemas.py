@@ -6,8 +6,8 @@ import json
 import tomllib
 
 import pytest
-
 from conftest import EXAMPLES, ROOT
+
 from curate.schemas import render_schemas
 
 jsonschema = pytest.importorskip("jsonschema")
@@ -20,11 +20,12 @@ def test_committed_schemas_match_models():
     assert committed == set(rendered), "run: python -m curate.schemas"
     for name, text in rendered.items():
         assert (folder / name).read_text(encoding="utf-8") == text, (
-            f"schemas/{name} drifted from the models; run: python -m curate.schemas")
+            f"schemas/{name} drifted from the models; run: python -m curate.schemas"
+        )
 
 
 def test_schemas_are_valid_json_schema():
-    for name, text in render_schemas().items():
+    for text in render_schemas().values():
         jsonschema.Draft202012Validator.check_schema(json.loads(text))
 
 
@@ -45,8 +46,12 @@ def test_example_sidecars_validate_against_schema():
 
 def test_schema_rejects_unknown_field():
     schema = json.loads((ROOT / "schemas" / "sidecar.schema.json").read_text())
-    bad = {"observable": {"id": "x", "unit": "nM"}, "time": {"unit": "s"},
-           "source": {"lab": "L"}, "colour": "red"}  # fmt: skip
+    bad = {
+        "observable": {"id": "x", "unit": "nM"},
+        "time": {"unit": "s"},
+        "source": {"lab": "L"},
+        "colour": "red",
+    }
     assert not jsonschema.Draft202012Validator(schema).is_valid(bad)
 
 
@@ -54,9 +59,15 @@ def test_stored_record_validates_against_schema(catalog, tmp_path):
     from conftest import LONG_CSV, write
 
     data = write(tmp_path / "a.csv", LONG_CSV)
-    result = catalog.add(data, options={"observable": {"id": "x", "unit": "nM"},
-                                        "time": {"unit": "s"}, "source": {"lab": "L"},
-                                        "conditions": {"temperature": "20 degC"}})  # fmt: skip
+    result = catalog.add(
+        data,
+        options={
+            "observable": {"id": "x", "unit": "nM"},
+            "time": {"unit": "s"},
+            "source": {"lab": "L"},
+            "conditions": {"temperature": "20 degC"},
+        },
+    )
     version = catalog.show(result.id)
     schema = json.loads((ROOT / "schemas" / "dataset_version.schema.json").read_text())
     jsonschema.validate(json.loads(version.model_dump_json()), schema)

@@ -98,5 +98,6 @@ def test_ucum_codes_convert_like_pint():
         if canonical in ("arbitrary_unit", "degree_Celsius", "dimensionless"):
             continue  # arbitrary and offset units do not convert 1:1 by definition
         quantity = registry.from_ucum(code)
-        assert math.isclose(quantity.to(registry.Quantity(1, canonical).units).m, 1.0,
-                            rel_tol=1e-9), (canonical, code)
+        assert math.isclose(
+            quantity.to(registry.Quantity(1, canonical).units).m, 1.0, rel_tol=1e-9
+        ), (canonical, code)

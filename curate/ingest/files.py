@@ -36,14 +36,26 @@ from curate.records import (
     content_hash,
 )
 
-__all__ = ["Draft", "build_draft", "draft_from_arrays", "find_sidecar", "parse_condition",
-           "resolve_pair"]  # fmt: skip
+__all__ = [
+    "Draft",
+    "build_draft",
+    "draft_from_arrays",
+    "find_sidecar",
+    "parse_condition",
+    "resolve_pair",
+]
 
 # annotations holding one text cell per point, kept in the same (time-sorted) order as the arrays
 _PER_POINT_ANNOTATIONS = ("extra_columns", "petab_rows")
 # dimensions whose quantities cannot be negative (negative values hint at a log transform)
-_NONNEGATIVE = {"[substance] / [length] ** 3", "[length]", "[length] ** 2", "[substance]",
-                "[mass] / [length] ** 3", "[mass]"}  # fmt: skip
+_NONNEGATIVE = {
+    "[substance] / [length] ** 3",
+    "[length]",
+    "[length] ** 2",
+    "[substance]",
+    "[mass] / [length] ** 3",
+    "[mass]",
+}
 
 
 @dataclass(frozen=True, eq=False)
@@ -78,8 +90,10 @@ def resolve_pair(path: Path, sidecar: Path | None) -> tuple[Path, Path | None, d
         content = load_sidecar(path)
         name = content.get("data_file")
         if not isinstance(name, str) or not name:
-            raise InputError(f"{path}, field 'data_file': required when the sidecar is given "
-                             "instead of the data file")  # fmt: skip
+            raise InputError(
+                f"{path}, field 'data_file': required when the sidecar is given "
+                "instead of the data file"
+            )
         data = _inside(path, name)
         if not data.is_file():
             raise InputError(f"{path}, field 'data_file': the data file '{name}' does not exist")
@@ -98,12 +112,16 @@ def resolve_pair(path: Path, sidecar: Path | None) -> tuple[Path, Path | None, d
 def _inside(sidecar: Path, name: str) -> Path:
     candidate = Path(name)
     if candidate.is_absolute() or ".." in candidate.parts:
-        raise InputError(f"{sidecar}, field 'data_file': '{name}' is outside the sidecar's "
-                         "folder; name a file in the same folder")  # fmt: skip
+        raise InputError(
+            f"{sidecar}, field 'data_file': '{name}' is outside the sidecar's "
+            "folder; name a file in the same folder"
+        )
     resolved = (sidecar.parent / candidate).resolve()
     if not resolved.is_relative_to(sidecar.parent.resolve()):
-        raise InputError(f"{sidecar}, field 'data_file': '{name}' leads outside the sidecar's "
-                         "folder (a symbolic link?)")  # fmt: skip
+        raise InputError(
+            f"{sidecar}, field 'data_file': '{name}' leads outside the sidecar's "
+            "folder (a symbolic link?)"
+        )
     return sidecar.parent / candidate
 
 
@@ -113,8 +131,9 @@ def parse_condition(key: str, raw: Any, *, origin: str) -> ConditionValue:
         try:
             raw = ConditionSpec.model_validate(raw)
         except Exception:
-            raise InputError(f"{origin}, condition '{key}': expected value and unit, or text"
-                             ) from None  # fmt: skip
+            raise InputError(
+                f"{origin}, condition '{key}': expected value and unit, or text"
+            ) from None
     if isinstance(raw, ConditionSpec):
         if raw.text is not None:
             return ConditionValue(value=raw.text)
@@ -152,13 +171,16 @@ def _duration_seconds(raw: str | float | None, *, origin: str) -> float | None:
         return float(raw)
     parsed = units.parse_quantity(raw, role="pretreatment duration")
     if parsed is None or parsed[1].dimensionality not in ("[time]", "dimensionless"):
-        raise InputError(f"{origin}, field 'protocol.pretreatment.duration': '{raw}' is not a "
-                         "duration such as '2 h' or '30 min'")  # fmt: skip
+        raise InputError(
+            f"{origin}, field 'protocol.pretreatment.duration': '{raw}' is not a "
+            "duration such as '2 h' or '30 min'"
+        )
     return parsed[0]
 
 
-def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarray | None],
-                                                            tuple[str, ...], dict[str, Any]]:  # fmt: skip
+def _arrays_from_table(
+    table: Table, meta: Sidecar
+) -> tuple[dict[str, np.ndarray | None], tuple[str, ...], dict[str, Any]]:
     columns = meta.columns
     lower = {name.lower(): name for name in table.columns}
 
@@ -167,8 +189,10 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
 
     time_col = find(columns.time)
     if time_col is None:
-        raise InputError(f"{table.path}: required column '{columns.time}' is missing; the columns "
-                         f"are {', '.join(table.columns)}")  # fmt: skip
+        raise InputError(
+            f"{table.path}: required column '{columns.time}' is missing; the columns "
+            f"are {', '.join(table.columns)}"
+        )
     value_col = find(columns.value)
     layout = meta.layout
     if layout == "auto":
@@ -176,8 +200,10 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
     extras: dict[str, Any] = {}
     if layout == "long":
         if value_col is None:
-            raise InputError(f"{table.path}: required column '{columns.value}' is missing; the "
-                             f"columns are {', '.join(table.columns)}")  # fmt: skip
+            raise InputError(
+                f"{table.path}: required column '{columns.value}' is missing; the "
+                f"columns are {', '.join(table.columns)}"
+            )
         time = table.numbers(time_col, what="a time")
         value = table.numbers(value_col, what="a measured value")
         sd = n = replicate = None
@@ -187,23 +213,28 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
             sd = table.numbers(sd_col, allow_empty=True, what="an uncertainty (or an empty cell)")
             negative = np.flatnonzero(sd < 0)
             if len(negative):
-                raise InputError(table.locate(int(negative[0]), sd_col)
-                                 + f"negative uncertainty {sd[negative[0]]:g}; expected >= 0")
+                raise InputError(
+                    table.locate(int(negative[0]), sd_col)
+                    + f"negative uncertainty {sd[negative[0]]:g}; expected >= 0"
+                )
             used.add(sd_col)
         if (n_col := find(columns.n)) is not None:
             counts = table.numbers(n_col, what="a whole number of measurements")
             bad = np.flatnonzero((counts < 1) | (counts != np.round(counts)))
             if len(bad):
-                raise InputError(table.locate(int(bad[0]), n_col)
-                                 + f"'{table.cells[n_col][bad[0]]}'; expected a whole number >= 1")
+                raise InputError(
+                    table.locate(int(bad[0]), n_col)
+                    + f"'{table.cells[n_col][bad[0]]}'; expected a whole number >= 1"
+                )
             n = counts.astype(np.int64)
             used.add(n_col)
         if (rep_col := find(columns.replicate)) is not None:
             text = np.array([str(c).strip() for c in table.cells[rep_col]], dtype=object)
             empty = np.flatnonzero(text == "")
             if len(empty):
-                raise InputError(table.locate(int(empty[0]), rep_col)
-                                 + "empty cell; expected a replicate label")
+                raise InputError(
+                    table.locate(int(empty[0]), rep_col) + "empty cell; expected a replicate label"
+                )
             label_values, codes = np.unique(text.astype(str), return_inverse=True)
             labels = tuple(str(v) for v in label_values)
             replicate = codes.astype(np.int64)
@@ -211,7 +242,11 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
         rest = [c for c in table.columns if c not in used]
         if rest:
             extras["extra_columns"] = {c: [str(x) for x in table.cells[c]] for c in rest}
-        return {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n}, labels, extras
+        return (
+            {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n},
+            labels,
+            extras,
+        )
     # wide: one column per replicate, empty cells are missing points
     names = meta.columns.replicates
     if names is None:
@@ -224,8 +259,10 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
                 raise InputError(f"{table.path}: replicate column '{name}' is missing")
             rep_cols.append(found)
     if not rep_cols:
-        raise InputError(f"{table.path}: no value columns besides '{time_col}'; expected a "
-                         f"'{columns.value}' column or one column per replicate")  # fmt: skip
+        raise InputError(
+            f"{table.path}: no value columns besides '{time_col}'; expected a "
+            f"'{columns.value}' column or one column per replicate"
+        )
     time = table.numbers(time_col, what="a time")
     times, values, codes_list = [], [], []
     for code, col in enumerate(rep_cols):
@@ -237,8 +274,13 @@ def _arrays_from_table(table: Table, meta: Sidecar) -> tuple[dict[str, np.ndarra
     value = np.concatenate(values)
     if len(value) == 0:
         raise InputError(f"{table.path}: every value cell is empty")
-    order_input = {"time": np.concatenate(times), "value": value, "sd": None,
-                   "replicate": np.concatenate(codes_list), "n": None}  # fmt: skip
+    order_input = {
+        "time": np.concatenate(times),
+        "value": value,
+        "sd": None,
+        "replicate": np.concatenate(codes_list),
+        "n": None,
+    }
     extras["layout"] = "wide"
     return order_input, tuple(rep_cols), extras
 
@@ -261,16 +303,25 @@ def build_draft(
     merged.pop("data_file", None)
     meta = validate_sidecar(merged, origin=str(path), sidecar=sidecar_path)
     if path.suffix.lower() not in DATA_SUFFIXES:
-        raise InputError(f"{path}: unsupported file type '{path.suffix}'; expected "
-                         + ", ".join(sorted(DATA_SUFFIXES)))  # fmt: skip
+        raise InputError(
+            f"{path}: unsupported file type '{path.suffix}'; expected "
+            + ", ".join(sorted(DATA_SUFFIXES))
+        )
     table = read_table(path, sheet=meta.sheet)
     raw_arrays, labels, extras = _arrays_from_table(table, meta)
     raw = path.read_bytes()
     return _assemble(
-        meta, raw_arrays, labels, extras, actor=actor, now=now, origin=str(path),
-        meta_origin=str(sidecar_path or path), raw_file_name=path.name,
+        meta,
+        raw_arrays,
+        labels,
+        extras,
+        actor=actor,
+        now=now,
+        origin=str(path),
+        meta_origin=str(sidecar_path or path),
+        raw_file_name=path.name,
         raw_sha256=hashlib.sha256(raw).hexdigest(),
-    )  # fmt: skip
+    )
 
 
 def draft_from_arrays(
@@ -290,34 +341,53 @@ def draft_from_arrays(
     """Give the validated draft for arrays already in memory (the API and the PEtab reader)."""
     meta = validate_sidecar(metadata, origin=origin, sidecar=None)
     arrays: dict[str, np.ndarray | None] = {}
-    for name, array in (("time", time), ("value", value)):
-        data = np.asarray(array, dtype=np.float64)
+    for name, given in (("time", time), ("value", value)):
+        data = np.asarray(given, dtype=np.float64)
         if data.ndim != 1 or not np.isfinite(data).all():
             bad = int(np.argmax(~np.isfinite(data))) if data.ndim == 1 else 0
             raise InputError(f"{origin}, field '{name}': point {bad + 1} is not a finite number")
         arrays[name] = data
     assert arrays["time"] is not None and arrays["value"] is not None
     if len(arrays["time"]) != len(arrays["value"]):
-        raise InputError(f"{origin}: time has {len(arrays['time'])} points but value has "
-                         f"{len(arrays['value'])}; the arrays must have equal lengths")  # fmt: skip
-    for name, array, kind in (("sd", sd, np.float64), ("replicate", replicate, np.int64),
-                              ("n", n, np.int64)):  # fmt: skip
+        raise InputError(
+            f"{origin}: time has {len(arrays['time'])} points but value has "
+            f"{len(arrays['value'])}; the arrays must have equal lengths"
+        )
+    for name, array, kind in (
+        ("sd", sd, np.float64),
+        ("replicate", replicate, np.int64),
+        ("n", n, np.int64),
+    ):
         if array is None:
             arrays[name] = None
             continue
         data = np.asarray(array, dtype=kind)
         if len(data) != len(arrays["time"]):
-            raise InputError(f"{origin}: {name} has {len(data)} points but time has "
-                             f"{len(arrays['time'])}; the arrays must have equal lengths")  # fmt: skip
+            raise InputError(
+                f"{origin}: {name} has {len(data)} points but time has "
+                f"{len(arrays['time'])}; the arrays must have equal lengths"
+            )
         arrays[name] = data
     if arrays["sd"] is not None:
         sd_data = arrays["sd"]
         if (sd_data < 0).any() or np.isinf(sd_data).any():
             bad = int(np.argmax((sd_data < 0) | np.isinf(sd_data)))
-            raise InputError(f"{origin}, field 'sd': point {bad + 1} is {sd_data[bad]:g}; "
-                             "expected a finite uncertainty >= 0")  # fmt: skip
-    return _assemble(meta, arrays, replicate_labels, annotations or {}, actor=actor, now=now,
-                     origin=origin, meta_origin=origin, raw_file_name=None, raw_sha256=None)  # fmt: skip
+            raise InputError(
+                f"{origin}, field 'sd': point {bad + 1} is {sd_data[bad]:g}; "
+                "expected a finite uncertainty >= 0"
+            )
+    return _assemble(
+        meta,
+        arrays,
+        replicate_labels,
+        annotations or {},
+        actor=actor,
+        now=now,
+        origin=origin,
+        meta_origin=origin,
+        raw_file_name=None,
+        raw_sha256=None,
+    )
 
 
 def _assemble(
@@ -339,11 +409,17 @@ def _assemble(
     uncertainty = meta.uncertainty
     if uncertainty is None and raw_arrays.get("sd") is not None:
         uncertainty = Uncertainty()
-    if (uncertainty is not None and uncertainty.type is UncertaintyType.SEM
-            and raw_arrays.get("sd") is not None and raw_arrays.get("n") is None
-            and uncertainty.n is None):  # fmt: skip
-        raise InputError(f"{meta_origin}: the uncertainty is an SEM but no n is known; add an "
-                         "'n' column or set uncertainty.n (or pass --sem-n)")  # fmt: skip
+    if (
+        uncertainty is not None
+        and uncertainty.type is UncertaintyType.SEM
+        and raw_arrays.get("sd") is not None
+        and raw_arrays.get("n") is None
+        and uncertainty.n is None
+    ):
+        raise InputError(
+            f"{meta_origin}: the uncertainty is an SEM but no n is known; add an "
+            "'n' column or set uncertainty.n (or pass --sem-n)"
+        )
 
     # stable sort by time: replicates at one time keep their file order
     time_raw = raw_arrays["time"]
@@ -357,8 +433,12 @@ def _assemble(
     time = units.convert(take("time"), time_unit)  # type: ignore[arg-type]
     value = units.convert(take("value"), value_unit)  # type: ignore[arg-type]
     sd = take("sd")
-    if sd is not None and uncertainty is not None and uncertainty.scale is UncertaintyScale.LINEAR \
-            and uncertainty.type is not UncertaintyType.PERCENT:
+    if (
+        sd is not None
+        and uncertainty is not None
+        and uncertainty.scale is UncertaintyScale.LINEAR
+        and uncertainty.type is not UncertaintyType.PERCENT
+    ):
         sd = sd * units.scale_factor(value_unit)
     arrays = SeriesArrays(time=time, value=value, sd=sd, replicate=take("replicate"), n=take("n"))
     extras = dict(extras)
@@ -366,38 +446,67 @@ def _assemble(
         if per_point in extras:
             extras[per_point] = {k: [v[i] for i in order] for k, v in extras[per_point].items()}
 
-    conditions = {key: parse_condition(key, raw, origin=meta_origin)
-                  for key, raw in meta.conditions.items()}  # fmt: skip
+    conditions = {
+        key: parse_condition(key, raw, origin=meta_origin) for key, raw in meta.conditions.items()
+    }
     relative = value_unit.relative if meta.observable.relative is None else meta.observable.relative
-    observable = Observable(id=meta.observable.id, label=meta.observable.label,
-                            unit=value_unit.canonical, unit_original=value_unit.original,
-                            ucum=value_unit.ucum, relative=relative)  # fmt: skip
+    observable = Observable(
+        id=meta.observable.id,
+        label=meta.observable.label,
+        unit=value_unit.canonical,
+        unit_original=value_unit.original,
+        ucum=value_unit.ucum,
+        relative=relative,
+    )
     source = Source(
-        lab=meta.source.lab, contact=meta.source.contact, method=meta.source.method,
-        instrument=meta.source.instrument, acquired=meta.source.acquired,
-        reference=meta.source.reference, raw_file_name=raw_file_name, raw_file_sha256=raw_sha256,
-    )  # fmt: skip
+        lab=meta.source.lab,
+        contact=meta.source.contact,
+        method=meta.source.method,
+        instrument=meta.source.instrument,
+        acquired=meta.source.acquired,
+        reference=meta.source.reference,
+        raw_file_name=raw_file_name,
+        raw_file_sha256=raw_sha256,
+    )
     protocol = Protocol(
         normalisation=meta.protocol.normalisation,
         calibration_group=meta.protocol.calibration_group,
         pretreatment=tuple(
-            PretreatmentStep(step=p.step, details=p.details,
-                             duration_s=_duration_seconds(p.duration, origin=meta_origin))
-            for p in meta.protocol.pretreatment),
-    )  # fmt: skip
+            PretreatmentStep(
+                step=p.step,
+                details=p.details,
+                duration_s=_duration_seconds(p.duration, origin=meta_origin),
+            )
+            for p in meta.protocol.pretreatment
+        ),
+    )
     trust = None
     if meta.trust is not None:
-        trust = TrustAssessment(grade=meta.trust.grade, rationale=meta.trust.rationale,
-                                assigned_by=actor, assigned_at=now)  # fmt: skip
+        trust = TrustAssessment(
+            grade=meta.trust.grade,
+            rationale=meta.trust.rationale,
+            assigned_by=actor,
+            assigned_at=now,
+        )
     warnings = check_series(
-        arrays.value, arrays.sd, uncertainty=uncertainty.type if uncertainty else None,
+        arrays.value,
+        arrays.sd,
+        uncertainty=uncertainty.type if uncertainty else None,
         nonnegative=value_unit.dimensionality in _NONNEGATIVE and not relative,
-    )  # fmt: skip
+    )
     digest = content_hash(arrays, value_unit=value_unit.canonical)
     record = DatasetRecord(
-        observable=observable, time_unit_original=time_unit.original, conditions=conditions,
-        source=source, uncertainty=uncertainty, protocol=protocol, trust=trust,
-        warnings=tuple(warnings), replicate_labels=labels, annotations=extras,
-        n_points=len(arrays), content_hash=digest,
-    )  # fmt: skip
+        observable=observable,
+        time_unit_original=time_unit.original,
+        conditions=conditions,
+        source=source,
+        uncertainty=uncertainty,
+        protocol=protocol,
+        trust=trust,
+        warnings=tuple(warnings),
+        replicate_labels=labels,
+        annotations=extras,
+        n_points=len(arrays),
+        content_hash=digest,
+    )
     return Draft(record=record, arrays=arrays, requested_id=meta.id, origin=origin)

@@ -40,8 +40,13 @@ class IntakeItem:
 
     def to_dict(self) -> dict[str, Any]:
         """Give the item as plain data."""
-        return {"file": self.file, "status": self.status, "id": self.id, "reason": self.reason,
-                "warnings": list(self.warnings)}  # fmt: skip
+        return {
+            "file": self.file,
+            "status": self.status,
+            "id": self.id,
+            "reason": self.reason,
+            "warnings": list(self.warnings),
+        }
 
 
 @dataclass
@@ -58,10 +63,15 @@ class IntakeReport:
 
     def to_dict(self) -> dict[str, Any]:
         """Give the report as plain data."""
-        return {"folder": self.folder, "quarantine": self.quarantine,
-                "added": self.count("added"), "duplicate": self.count("duplicate"),
-                "quarantined": self.count("quarantined"), "refused": self.count("refused"),
-                "items": [i.to_dict() for i in self.items]}  # fmt: skip
+        return {
+            "folder": self.folder,
+            "quarantine": self.quarantine,
+            "added": self.count("added"),
+            "duplicate": self.count("duplicate"),
+            "quarantined": self.count("quarantined"),
+            "refused": self.count("refused"),
+            "items": [i.to_dict() for i in self.items],
+        }
 
 
 def _inside(folder: Path, path: Path) -> bool:
@@ -106,7 +116,9 @@ def intake_folder(
     jail = Path(quarantine) if quarantine is not None else folder / QUARANTINE
     report = IntakeReport(folder=str(folder), quarantine=str(jail))
 
-    entries = sorted(p for p in folder.iterdir() if p.name != jail.name and not p.name.startswith("."))
+    entries = sorted(
+        p for p in folder.iterdir() if p.name != jail.name and not p.name.startswith(".")
+    )
     sidecar_for: dict[Path, Path] = {}
     sidecars = [p for p in entries if p.suffix.lower() == ".toml"]
     data_files = [p for p in entries if p.suffix.lower() in DATA_SUFFIXES]
@@ -114,8 +126,13 @@ def intake_folder(
     refused: list[IntakeItem] = []
     for path in entries:
         if path.is_symlink() and not _inside(folder, path):
-            refused.append(IntakeItem(file=path.name, status="refused",
-                                      reason="a symbolic link leading outside the folder"))  # fmt: skip
+            refused.append(
+                IntakeItem(
+                    file=path.name,
+                    status="refused",
+                    reason="a symbolic link leading outside the folder",
+                )
+            )
     outside = {folder / item.file for item in refused}
     for sidecar in sidecars:
         if sidecar in outside:
@@ -128,42 +145,52 @@ def intake_folder(
         if isinstance(name, str) and name:
             target = folder / name
             if Path(name).is_absolute() or ".." in Path(name).parts or not _inside(folder, target):
-                jobs.append((sidecar, None, f"{sidecar}, field 'data_file': '{name}' is outside "
-                             "the folder"))  # fmt: skip
+                jobs.append(
+                    (sidecar, None, f"{sidecar}, field 'data_file': '{name}' is outside the folder")
+                )
             elif not target.is_file():
-                jobs.append((sidecar, None, f"{sidecar}, field 'data_file': the data file "
-                             f"'{name}' does not exist"))  # fmt: skip
+                jobs.append(
+                    (
+                        sidecar,
+                        None,
+                        f"{sidecar}, field 'data_file': the data file '{name}' does not exist",
+                    )
+                )
             else:
                 sidecar_for[target] = sidecar
     for data in data_files:
         if data in outside:
             continue
-        sidecar = sidecar_for.get(data)
-        if sidecar is None and data.with_suffix(".toml").is_file():
-            sidecar = data.with_suffix(".toml")
-        jobs.append((data, sidecar, None))
+        paired = sidecar_for.get(data)
+        if paired is None and data.with_suffix(".toml").is_file():
+            paired = data.with_suffix(".toml")
+        jobs.append((data, paired, None))
     jobs.sort(key=lambda job: job[0].name)
 
     report.items.extend(refused)
     total = len(jobs)
-    for done, (data, sidecar, early_error) in enumerate(jobs):
+    for done, (data, job_sidecar, early_error) in enumerate(jobs):
         if progress is not None:
             progress(done, total, data.name)
-        companions = [data] + ([sidecar] if sidecar is not None else [])
+        companions = [data] + ([job_sidecar] if job_sidecar is not None else [])
         try:
             if early_error is not None:
                 raise InputError(early_error)
-            draft = build_draft(data, sidecar=sidecar, actor=catalog.actor)
+            draft = build_draft(data, sidecar=job_sidecar, actor=catalog.actor)
             result = catalog.add_drafts([draft])[0]
         except CurateError as err:
             _quarantine(companions, str(err), jail)
             report.items.append(IntakeItem(file=data.name, status="quarantined", reason=str(err)))
             continue
-        report.items.append(IntakeItem(
-            file=data.name, status="added" if result.added else "duplicate", id=result.id,
-            reason=None if result.added else f"identical to {result.duplicate_of}",
-            warnings=result.warnings,
-        ))  # fmt: skip
+        report.items.append(
+            IntakeItem(
+                file=data.name,
+                status="added" if result.added else "duplicate",
+                id=result.id,
+                reason=None if result.added else f"identical to {result.duplicate_of}",
+                warnings=result.warnings,
+            )
+        )
     if progress is not None:
         progress(total, total, "")
     return report

@@ -22,8 +22,12 @@ from curate.ingest.tables import Table, read_table
 
 __all__ = ["read_petab_problem"]
 
-_GROUP_COLUMNS = ("observableId", "simulationConditionId", "preequilibrationConditionId",
-                  "datasetId")  # fmt: skip
+_GROUP_COLUMNS = (
+    "observableId",
+    "simulationConditionId",
+    "preequilibrationConditionId",
+    "datasetId",
+)
 _SCALE_OF_TRANSFORMATION = {"lin": "linear", "log": "ln", "log10": "log10"}
 
 
@@ -78,7 +82,9 @@ def read_petab_problem(
     for part in content["problems"]:
         observables: dict[str, dict[str, str]] = {}
         for name in part.get("observable_files", []):
-            observables.update(_table_rows(read_table(_inside(base, name, problem)), "observableId"))
+            observables.update(
+                _table_rows(read_table(_inside(base, name, problem)), "observableId")
+            )
         conditions: dict[str, dict[str, str]] = {}
         for name in part.get("condition_files", []):
             conditions.update(_table_rows(read_table(_inside(base, name, problem)), "conditionId"))
@@ -86,16 +92,24 @@ def read_petab_problem(
             path = _inside(base, name, problem)
             table = read_table(path)
             drafts += _drafts_from_measurements(
-                table, observables, conditions, lab=lab, time_unit=time_unit, unit=unit,
-                actor=actor, problem=problem.name,
+                table,
+                observables,
+                conditions,
+                lab=lab,
+                time_unit=time_unit,
+                unit=unit,
+                actor=actor,
+                problem=problem.name,
                 sha256=hashlib.sha256(path.read_bytes()).hexdigest(),
-            )  # fmt: skip
+            )
     if not drafts:
         raise InputError(f"{problem}: the problem lists no measurements")
     ids = [d.requested_id for d in drafts]
     if len(set(ids)) != len(ids):  # a datasetId spanning groups: let the catalog number them
-        drafts = [Draft(record=d.record, arrays=d.arrays, requested_id=None, origin=d.origin)
-                  for d in drafts]  # fmt: skip
+        drafts = [
+            Draft(record=d.record, arrays=d.arrays, requested_id=None, origin=d.origin)
+            for d in drafts
+        ]
     return drafts
 
 
@@ -116,23 +130,29 @@ def _drafts_from_measurements(
             raise InputError(f"{table.path}: required PEtab column '{required}' is missing")
     time = table.numbers("time", what="a time (steady state 'inf' is not supported)")
     measurement = table.numbers("measurement", what="a measured value")
-    keys = [tuple(str(table.cells[c][i]).strip() if c in table.columns else "" for c in _GROUP_COLUMNS)
-            for i in range(len(table))]  # fmt: skip
+    keys = [
+        tuple(str(table.cells[c][i]).strip() if c in table.columns else "" for c in _GROUP_COLUMNS)
+        for i in range(len(table))
+    ]
     groups: dict[tuple[str, ...], list[int]] = {}
     for index, key in enumerate(keys):
         groups.setdefault(key, []).append(index)
     drafts = []
     for key, rows in groups.items():
         observable_id, condition_id, pre_id, dataset_id = key
-        index = np.asarray(rows)
+        row_index = np.asarray(rows)
         observable_row = observables.get(observable_id)
         if observable_row is None:
-            raise InputError(table.locate(rows[0], "observableId")
-                             + f"observable '{observable_id}' is not in the observable table")
+            raise InputError(
+                table.locate(rows[0], "observableId")
+                + f"observable '{observable_id}' is not in the observable table"
+            )
         condition_row = conditions.get(condition_id)
         if condition_row is None:
-            raise InputError(table.locate(rows[0], "simulationConditionId")
-                             + f"condition '{condition_id}' is not in the condition table")
+            raise InputError(
+                table.locate(rows[0], "simulationConditionId")
+                + f"condition '{condition_id}' is not in the condition table"
+            )
         sd = None
         if "noiseParameters" in table.columns:
             text = [str(table.cells["noiseParameters"][i]).strip() for i in rows]
@@ -145,7 +165,9 @@ def _drafts_from_measurements(
             if column in ("conditionId", "conditionName") or not cell.strip():
                 continue
             number = _number_or_nan(cell)
-            condition_values[column] = float(number) if np.isfinite(number) else {"text": cell.strip()}
+            condition_values[column] = (
+                float(number) if np.isfinite(number) else {"text": cell.strip()}
+            )
         replicate = labels = None
         if "replicateId" in table.columns:
             text_rep = np.array([str(table.cells["replicateId"][i]).strip() for i in rows])
@@ -165,22 +187,46 @@ def _drafts_from_measurements(
             "conditions": condition_values,
         }
         if sd is not None:
-            metadata["uncertainty"] = {"type": "sd",
-                                       "scale": _SCALE_OF_TRANSFORMATION.get(transformation, "linear")}
-        requested = dataset_id if dataset_id and dataset_id.isidentifier() and dataset_id.isascii() else None
+            metadata["uncertainty"] = {
+                "type": "sd",
+                "scale": _SCALE_OF_TRANSFORMATION.get(transformation, "linear"),
+            }
+        requested = (
+            dataset_id
+            if dataset_id and dataset_id.isidentifier() and dataset_id.isascii()
+            else None
+        )
         draft = draft_from_arrays(
-            time[index], measurement[index], sd=sd, replicate=replicate,
-            replicate_labels=labels or (), metadata=metadata, actor=actor,
+            time[row_index],
+            measurement[row_index],
+            sd=sd,
+            replicate=replicate,
+            replicate_labels=labels or (),
+            metadata=metadata,
+            actor=actor,
             origin=f"{table.path} ({observable_id} / {condition_id})",
-            annotations={"petab": {
-                "problem": problem, "observable": observable_row, "condition": condition_row,
-                "simulationConditionId": condition_id, "preequilibrationConditionId": pre_id,
-                "datasetId": dataset_id, "measurement_file": table.path.name,
-                "measurement_file_sha256": sha256,
-            }, "petab_rows": petab_rows},
-        )  # fmt: skip
-        drafts.append(Draft(record=draft.record, arrays=draft.arrays, requested_id=requested,
-                            origin=draft.origin))  # fmt: skip
+            annotations={
+                "petab": {
+                    "problem": problem,
+                    "observable": observable_row,
+                    "condition": condition_row,
+                    "simulationConditionId": condition_id,
+                    "preequilibrationConditionId": pre_id,
+                    "datasetId": dataset_id,
+                    "measurement_file": table.path.name,
+                    "measurement_file_sha256": sha256,
+                },
+                "petab_rows": petab_rows,
+            },
+        )
+        drafts.append(
+            Draft(
+                record=draft.record,
+                arrays=draft.arrays,
+                requested_id=requested,
+                origin=draft.origin,
+            )
+        )
     return drafts
 
 

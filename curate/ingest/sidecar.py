@@ -31,7 +31,8 @@ class SidecarObservable(_Part):
     label: str = ""
     unit: str = Field(description="unit of the values: 'nM', 'um/min', 'a.u.', '1' ...")
     relative: bool | None = Field(
-        None, description="relative units needing a scale factor; default: true for a.u.-like units")
+        None, description="relative units needing a scale factor; default: true for a.u.-like units"
+    )
 
 
 class SidecarTime(_Part):
@@ -45,7 +46,8 @@ class SidecarColumns(_Part):
     replicate: str = "replicate"
     n: str = "n"
     replicates: list[str] | None = Field(
-        None, description="wide layout: the replicate columns (default: every other column)")
+        None, description="wide layout: the replicate columns (default: every other column)"
+    )
 
 
 class ConditionSpec(_Part):
@@ -146,8 +148,10 @@ def validate_sidecar(content: dict[str, Any], *, origin: str, sidecar: Path | No
         if first["loc"] and first["loc"][-1] == "[key]":
             key = first["loc"][-2]
             place = f"{sidecar}, field '{first['loc'][0]}'" if sidecar else origin
-            raise InputError(f"{place}: key '{key}' is not a valid identifier; use letters, digits "
-                             "and '_', not starting with a digit") from None  # fmt: skip
+            raise InputError(
+                f"{place}: key '{key}' is not a valid identifier; use letters, digits "
+                "and '_', not starting with a digit"
+            ) from None
         loc = ".".join(str(part) for part in first["loc"])
         message = first["msg"]
         if first["type"] == "missing":
@@ -155,12 +159,15 @@ def validate_sidecar(content: dict[str, Any], *, origin: str, sidecar: Path | No
             if sidecar is None:
                 raise InputError(
                     f"{origin}: field '{loc}' is required; pass {hint or 'it'} or write it in a "
-                    "TOML sidecar beside the data file") from None  # fmt: skip
+                    "TOML sidecar beside the data file"
+                ) from None
             raise InputError(
                 f"{sidecar}, field '{loc}': required but missing"
-                + (f" (or pass {hint})" if hint else "")) from None  # fmt: skip
+                + (f" (or pass {hint})" if hint else "")
+            ) from None
         where_text = f"{sidecar}, field '{loc}'" if sidecar else f"{origin}, field '{loc}'"
         if first["type"] == "extra_forbidden":
-            raise InputError(f"{where_text}: unknown field; see schemas/sidecar.schema.json"
-                             ) from None  # fmt: skip
+            raise InputError(
+                f"{where_text}: unknown field; see schemas/sidecar.schema.json"
+            ) from None
         raise InputError(f"{where_text}: {message}") from None

@@ -48,7 +48,9 @@ class Table:
             return where(self.path, line=int(self.lines[index]), column=column)
         return f"{self.path}, row {int(self.lines[index])}, column '{column}': "
 
-    def numbers(self, column: str, *, allow_empty: bool = False, what: str = "a number") -> np.ndarray:
+    def numbers(
+        self, column: str, *, allow_empty: bool = False, what: str = "a number"
+    ) -> np.ndarray:
         """Give a column as float64; empty cells become NaN only when ``allow_empty``.
 
         Raises InputError naming the first cell that is not a finite number.
@@ -68,7 +70,7 @@ class Table:
                 problem = f"'{cell}' is not a number; expected {what}"
             raise InputError(self.locate(index, column) + problem)
         values[empty] = np.nan
-        return values
+        return np.asarray(values, dtype=np.float64)
 
 
 def _check_file(path: Path, max_bytes: int) -> str:
@@ -78,28 +80,35 @@ def _check_file(path: Path, max_bytes: int) -> str:
         raise InputError(f"{path}: not a regular file")
     suffix = path.suffix.lower()
     if suffix not in DATA_SUFFIXES:
-        raise InputError(f"{path}: unsupported file type '{path.suffix}'; expected "
-                         + ", ".join(sorted(DATA_SUFFIXES)))  # fmt: skip
+        raise InputError(
+            f"{path}: unsupported file type '{path.suffix}'; expected "
+            + ", ".join(sorted(DATA_SUFFIXES))
+        )
     size = path.stat().st_size
     if size == 0:
         raise InputError(f"{path}: the file is empty; expected a header row and data rows")
     if size > max_bytes:
-        raise InputError(f"{path}: the file has {size} bytes, more than the limit of "
-                         f"{max_bytes} bytes for one data file")  # fmt: skip
+        raise InputError(
+            f"{path}: the file has {size} bytes, more than the limit of "
+            f"{max_bytes} bytes for one data file"
+        )
     return suffix
 
 
-def read_table(path: str | Path, *, sheet: str | None = None,
-               max_bytes: int = MAX_FILE_BYTES) -> Table:  # fmt: skip
+def read_table(
+    path: str | Path, *, sheet: str | None = None, max_bytes: int = MAX_FILE_BYTES
+) -> Table:
     """Give the header and text cells of a CSV, TSV or XLSX file."""
     path = Path(path)
     suffix = _check_file(path, max_bytes)
     raw = path.read_bytes()
     if suffix == ".xlsx":
         if not raw.startswith(_ZIP_MAGIC):
-            raise InputError(f"{path}: not an XLSX workbook (the file does not start like one); "
-                             "save it from the spreadsheet program as .xlsx, or rename a text "
-                             "file to .csv")  # fmt: skip
+            raise InputError(
+                f"{path}: not an XLSX workbook (the file does not start like one); "
+                "save it from the spreadsheet program as .xlsx, or rename a text "
+                "file to .csv"
+            )
         rows, lines = _xlsx_rows(path, raw, sheet)
         row_word = "row"
     else:
@@ -112,13 +121,16 @@ def read_table(path: str | Path, *, sheet: str | None = None,
 
 def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]], list[int]]:
     if b"\x00" in raw[:65536] or raw.startswith(_ZIP_MAGIC):
-        raise InputError(f"{path}: not a text file (binary content); expected "
-                         f"{'comma' if delimiter == ',' else 'tab'}-separated text")  # fmt: skip
+        raise InputError(
+            f"{path}: not a text file (binary content); expected "
+            f"{'comma' if delimiter == ',' else 'tab'}-separated text"
+        )
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as err:
-        raise InputError(f"{path}: byte {err.start} is not UTF-8 text; save the file as UTF-8"
-                         ) from None  # fmt: skip
+        raise InputError(
+            f"{path}: byte {err.start} is not UTF-8 text; save the file as UTF-8"
+        ) from None
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     rows: list[list[str]] = []
     lines: list[int] = []
@@ -161,8 +173,10 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str
         elif sheet in book.sheetnames:
             worksheet = book[sheet]
         else:
-            raise InputError(f"{path}: no sheet named '{sheet}'; the workbook has "
-                             + ", ".join(repr(s) for s in book.sheetnames))  # fmt: skip
+            raise InputError(
+                f"{path}: no sheet named '{sheet}'; the workbook has "
+                + ", ".join(repr(s) for s in book.sheetnames)
+            )
         rows: list[list[str]] = []
         lines: list[int] = []
         for number, values in enumerate(worksheet.iter_rows(values_only=True), start=1):
@@ -186,8 +200,10 @@ def _to_table(path: Path, rows: list[list[str]], lines: list[int], row_word: str
         header.pop()
     for position, name in enumerate(header, start=1):
         if name == "":
-            raise InputError(f"{path}, {row_word} {lines[0]}: header cell {position} is empty; "
-                             "every column needs a name")  # fmt: skip
+            raise InputError(
+                f"{path}, {row_word} {lines[0]}: header cell {position} is empty; "
+                "every column needs a name"
+            )
     seen: set[str] = set()
     for name in header:
         if name.lower() in seen:
@@ -199,13 +215,20 @@ def _to_table(path: Path, rows: list[list[str]], lines: list[int], row_word: str
     width = len(header)
     for row, line in zip(body, lines[1:], strict=True):
         if len(row) > width and any(cell.strip() for cell in row[width:]):
-            raise InputError(f"{path}, {row_word} {line}: {len(row)} cells, but the header has "
-                             f"{width} columns")  # fmt: skip
+            raise InputError(
+                f"{path}, {row_word} {line}: {len(row)} cells, but the header has {width} columns"
+            )
         if len(row) < width and row_word == "line":
-            raise InputError(f"{path}, {row_word} {line}: {len(row)} cells, but the header has "
-                             f"{width} columns")  # fmt: skip
+            raise InputError(
+                f"{path}, {row_word} {line}: {len(row)} cells, but the header has {width} columns"
+            )
     padded = [(row + [""] * width)[:width] for row in body]
     matrix = np.array(padded, dtype=object).reshape(len(body), width)
     cells = {name: matrix[:, i] for i, name in enumerate(header)}
-    return Table(path=path, columns=tuple(header), cells=cells,
-                 lines=np.asarray(lines[1:], dtype=np.int64), row_word=row_word)  # fmt: skip
+    return Table(
+        path=path,
+        columns=tuple(header),
+        cells=cells,
+        lines=np.asarray(lines[1:], dtype=np.int64),
+        row_word=row_word,
+    )
