@@ -99,7 +99,9 @@ def _gsj_residuals(time: np.ndarray, value: np.ndarray) -> tuple[np.ndarray, np.
     y = np.asarray(value, dtype=float)
     span = x[2:] - x[:-2]
     if np.any(span <= 0):
-        raise InputError("three consecutive points share one time; pseudo-residuals need distinct times")
+        raise InputError(
+            "three consecutive points share one time; pseudo-residuals need distinct times"
+        )
     a = (x[2:] - x[1:-1]) / span
     b = (x[1:-1] - x[:-2]) / span
     residual = a * y[:-2] + b * y[2:] - y[1:-1]
@@ -121,7 +123,9 @@ def gasser_sroka(time: np.ndarray, value: np.ndarray, *, origin: str = "series")
     return NoiseResult(sd=float(np.sqrt(variance)), method="gsj", dof=len(value) - 2)
 
 
-def hall_kay_titterington(value: np.ndarray, *, order: int = 2, origin: str = "series") -> NoiseResult:
+def hall_kay_titterington(
+    value: np.ndarray, *, order: int = 2, origin: str = "series"
+) -> NoiseResult:
     """Give the optimal-difference-sequence estimate of Hall, Kay & Titterington (1990).
 
     sigma^2 = sum_k (sum_j d_j y_{k+j})^2 / (n - m) for the order-m sequence d (equal spacing).
@@ -137,7 +141,9 @@ def hall_kay_titterington(value: np.ndarray, *, order: int = 2, origin: str = "s
     return NoiseResult(sd=float(np.sqrt(variance)), method=method, dof=len(y) - order)
 
 
-def mad_pseudo_residuals(time: np.ndarray, value: np.ndarray, *, origin: str = "series") -> NoiseResult:
+def mad_pseudo_residuals(
+    time: np.ndarray, value: np.ndarray, *, origin: str = "series"
+) -> NoiseResult:
     """Give a robust SD: 1.4826 * median |c_i e_i| of the normalised GSJ pseudo-residuals.
 
     Robust to a few outliers or steps; the factor 1/Phi^-1(3/4) = 1.4826 makes it consistent
@@ -193,7 +199,9 @@ def replicate_sd(time: np.ndarray, value: np.ndarray, *, origin: str = "series")
     dof_each = counts - 1
     dof = int(dof_each.sum())
     if dof == 0:
-        raise InputError(f"{origin}: no time point has two or more values; replicate SDs need replicates")
+        raise InputError(
+            f"{origin}: no time point has two or more values; replicate SDs need replicates"
+        )
     with np.errstate(invalid="ignore", divide="ignore"):
         sds = np.where(dof_each > 0, np.sqrt(squares / np.maximum(dof_each, 1)), np.nan)
     pooled = float(np.sqrt(squares.sum() / dof))
@@ -292,11 +300,18 @@ def error_model(time: np.ndarray, value: np.ndarray, *, origin: str = "series") 
     a, b = (float(x) for x in best.x)
     a_se, b_se = _hessian_stderr(negative_log_likelihood, np.array([a, b]))
     return ErrorModel(
-        a=a, b=b, a_stderr=a_se, b_stderr=b_se, groups=int(use.sum()), log_likelihood=-float(best.fun)
+        a=a,
+        b=b,
+        a_stderr=a_se,
+        b_stderr=b_se,
+        groups=int(use.sum()),
+        log_likelihood=-float(best.fun),
     )
 
 
-def _hessian_stderr(function: Callable[[np.ndarray], float], theta: np.ndarray) -> tuple[float, float]:
+def _hessian_stderr(
+    function: Callable[[np.ndarray], float], theta: np.ndarray
+) -> tuple[float, float]:
     """Give sqrt(diag(H^-1)) by central differences; NaN where a parameter sits on its bound."""
     h = np.maximum(np.abs(theta) * 1e-4, 1e-8)
     size = len(theta)
@@ -325,7 +340,9 @@ def _hessian_stderr(function: Callable[[np.ndarray], float], theta: np.ndarray) 
     return result[0], result[1]
 
 
-def apply_floor(sd: np.ndarray, value: np.ndarray, *, absolute: float, relative: float) -> np.ndarray:
+def apply_floor(
+    sd: np.ndarray, value: np.ndarray, *, absolute: float, relative: float
+) -> np.ndarray:
     """Give sd_i = max(sd_i, absolute, relative * |y_i|), so no weight is ever infinite."""
     floored = np.maximum(np.asarray(sd, dtype=float), absolute)
     return np.maximum(floored, relative * np.abs(np.asarray(value, dtype=float)))
@@ -391,7 +408,11 @@ def choose_and_estimate(
             sd=float(np.sqrt(np.mean(known**2))),
             method="reported",
             dof=len(known),
-            parameters={"points_with_sd": len(known), "min_sd": float(known.min()), "max_sd": float(known.max())},
+            parameters={
+                "points_with_sd": len(known),
+                "min_sd": float(known.min()),
+                "max_sd": float(known.max()),
+            },
         )
     elif method == "error-model":
         model = error_model(t, y, origin=origin)
@@ -417,13 +438,20 @@ def choose_and_estimate(
         }
         result = _per_replicate(estimators[method], t, y, replicate)
         spacing = np.diff(np.unique(t))
-        if method in ("rice", "hkt2", "hkt3") and len(spacing) and spacing.max() > 1.5 * spacing.min():
+        if (
+            method in ("rice", "hkt2", "hkt3")
+            and len(spacing)
+            and spacing.max() > 1.5 * spacing.min()
+        ):
             result = NoiseResult(
                 sd=result.sd,
                 method=result.method,
                 dof=result.dof,
                 parameters=result.parameters,
-                warnings=(*result.warnings, "uneven time spacing: gsj handles it, this estimator assumes even spacing"),
+                warnings=(
+                    *result.warnings,
+                    "uneven time spacing: gsj handles it, this estimator assumes even spacing",
+                ),
             )
     return NoiseResult(
         sd=result.sd,

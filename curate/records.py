@@ -163,7 +163,10 @@ class NoiseEstimate(_Record):
 
     sd: float = Field(ge=0, description="pooled noise standard deviation, canonical units")
     method: str
+    dof: int | None = Field(None, ge=0, description="degrees of freedom behind the estimate")
+    scale: UncertaintyScale = UncertaintyScale.LINEAR
     parameters: dict[str, Any] = Field(default_factory=dict)
+    warnings: tuple[str, ...] = ()
     made_at: dt.datetime
     made_by: str
 

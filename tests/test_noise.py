@@ -136,7 +136,9 @@ def test_error_model_needs_three_replicated_times():
 
 
 def test_floor():
-    floored = noise.apply_floor(np.array([0.0, 0.01, 1.0]), np.array([5.0, 100.0, 1.0]), absolute=0.02, relative=0.01)
+    floored = noise.apply_floor(
+        np.array([0.0, 0.01, 1.0]), np.array([5.0, 100.0, 1.0]), absolute=0.02, relative=0.01
+    )
     np.testing.assert_allclose(floored, [0.05, 1.0, 1.0])
 
 
