@@ -21,6 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from curate import assess
 from curate.errors import InputError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.inbox import IntakeReport, intake_folder
@@ -492,6 +493,68 @@ class Catalog:
                 arrays=None,
                 payload={"reason": reason, "changes": list(changes), **(payload or {})},
             )
+
+    def record_event(
+        self, kind: str, payload: dict[str, Any], *, dataset_id: str | None = None
+    ) -> None:
+        """Append an event that writes no version (checklist answers, suggestions)."""
+        with self._store.transaction():
+            self._store.append_event(kind, payload, actor=self.actor, dataset_id=dataset_id)
+
+    def latest_event(self, dataset_id: str, kind: str) -> dict[str, Any] | None:
+        """Give the newest event of ``kind`` for a dataset, or None."""
+        found = [e for e in self._store.events(dataset_id) if e.kind == kind]
+        return found[-1].to_dict() if found else None
+
+    # -- judgement (noise, trust, consistency; see curate.assess) ------------------------
+
+    def estimate_noise(
+        self, dataset_ids: builtins.list[str] | None = None, *, method: str = "auto"
+    ) -> builtins.list[tuple[DatasetVersion, Any]]:
+        """Estimate and store the noise of the named datasets (all current ones if None)."""
+        ids = dataset_ids if dataset_ids is not None else [v.id for v in self.list()]
+        return assess.estimate_noise(self, ids, method=method)
+
+    def grade(self, dataset_id: str, grade: str, *, reason: str) -> DatasetVersion:
+        """Record a person's trust grade with its reason (a new version)."""
+        return assess.set_grade(self, dataset_id, grade, reason=reason)
+
+    def grade_from_checklist(
+        self,
+        dataset_id: str,
+        *,
+        answers: dict[str, bool | None] | None = None,
+        answers_file: str | Path | None = None,
+        checklist_file: str | Path | None = None,
+        accept: bool = False,
+    ) -> tuple[Any, DatasetVersion | None]:
+        """Suggest a grade from checklist answers (recorded as an event); grade if ``accept``."""
+        return assess.grade_from_checklist(
+            self,
+            dataset_id,
+            answers=answers,
+            answers_file=answers_file,
+            checklist_file=checklist_file,
+            accept=accept,
+        )
+
+    def accept_suggestion(self, dataset_id: str) -> DatasetVersion:
+        """Take the newest grade suggestion for a dataset as its grade."""
+        return assess.accept_suggestion(self, dataset_id)
+
+    def consistency(
+        self,
+        *,
+        observable: str | None = None,
+        tolerance: float = 0.01,
+        at: float | None = None,
+        alpha: float = 0.05,
+        record: bool = True,
+    ) -> assess.ConsistencyReport:
+        """Compare datasets of one observable under matching conditions; record grade suggestions."""
+        return assess.check_consistency(
+            self, observable=observable, tolerance=tolerance, at=at, alpha=alpha, record=record
+        )
 
     def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
         """Hide a dataset from later selections (a new version; nothing is deleted)."""

@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import json
 import re
-import shutil
 import sys
 from pathlib import Path
 from typing import Annotated, Any
@@ -390,6 +389,145 @@ def verify(as_json: Annotated[bool, typer.Option("--json", help="print JSON")] =
 
 
 @app.command()
+def noise(
+    dataset_id: Annotated[str | None, typer.Argument(metavar="[ID]", help="dataset id")] = None,
+    all_: Annotated[bool, typer.Option("--all", help="every current dataset")] = False,
+    method: Annotated[
+        str,
+        typer.Option(help="auto, replicates, reported, rice, gsj, hkt2, hkt3, mad, error-model"),
+    ] = "auto",
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Estimate each dataset's noise and store it (with its method) as a new version."""
+    if (dataset_id is None) == (not all_):
+        raise InputError("noise: name one dataset ID or pass --all")
+    with _catalog() as catalog:
+        written = catalog.estimate_noise(None if all_ else [dataset_id or ""], method=method)
+    if as_json:
+        _emit_json([{"id": v.id, "version": v.version, **r.to_dict()} for v, r in written])
+        return
+    out.print(report.noise_table(written))
+
+
+@app.command()
+def grade(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    new_grade: Annotated[
+        str | None, typer.Argument(metavar="[GRADE]", help="A, B, C, D, or X (kept, never fitted)")
+    ] = None,
+    reason: Annotated[str | None, typer.Option(help="why this grade (required with GRADE)")] = None,
+    checklist: Annotated[
+        Path | None, typer.Option(help="answers file: [answers] question = true/false")
+    ] = None,
+    checklist_file: Annotated[
+        Path | None, typer.Option(help="the lab's own checklist (default: the one curate ships)")
+    ] = None,
+    accept: Annotated[bool, typer.Option(help="record the checklist's suggested grade")] = False,
+    accept_suggestion: Annotated[
+        bool, typer.Option(help="record the newest grade suggested by `curate consistency`")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Grade a dataset's trust: directly with a reason, from a checklist, or from a suggestion."""
+    with _catalog() as catalog:
+        if new_grade is not None:
+            if checklist or accept_suggestion:
+                raise InputError(
+                    "grade: give GRADE with --reason, or --checklist, or --accept-suggestion"
+                )
+            version = catalog.grade(dataset_id, new_grade, reason=reason or "")
+            _print_graded(version, as_json)
+            return
+        if accept_suggestion:
+            _print_graded(catalog.accept_suggestion(dataset_id), as_json)
+            return
+        answers = None
+        if checklist is None:
+            if not sys.stdin.isatty():
+                raise InputError(
+                    "grade: give GRADE --reason, --checklist FILE or --accept-suggestion "
+                    "(questions are asked only at a terminal)"
+                )
+            answers = _ask_checklist(checklist_file)
+        suggestion, graded = catalog.grade_from_checklist(
+            dataset_id,
+            answers=answers,
+            answers_file=checklist,
+            checklist_file=checklist_file,
+            accept=accept,
+        )
+    if as_json:
+        _emit_json(
+            {
+                "id": dataset_id,
+                "suggestion": suggestion.to_dict(),
+                "graded": None
+                if graded is None
+                else {"version": graded.version, "grade": graded.grade},
+            }
+        )
+        return
+    out.print(report.suggestion_text(dataset_id, suggestion, graded))
+
+
+def _ask_checklist(checklist_file: Path | None) -> dict[str, bool | None]:
+    from curate.grading import load_checklist
+
+    answers: dict[str, bool | None] = {}
+    for question in load_checklist(checklist_file).questions:
+        answers[question.id] = typer.confirm(question.text, default=False)
+    return answers
+
+
+def _print_graded(version: Any, as_json: bool) -> None:
+    if as_json:
+        _emit_json(
+            {
+                "id": version.id,
+                "version": version.version,
+                "grade": version.grade,
+                "rationale": version.record.trust.rationale,
+            }
+        )
+    else:
+        out.print(f"{version.id} graded {version.grade} (version {version.version})")
+
+
+@app.command()
+def consistency(
+    observable: Annotated[str | None, typer.Option(help="only this observable")] = None,
+    tolerance: Annotated[
+        float, typer.Option(help="numeric conditions match within this relative tolerance")
+    ] = 0.01,
+    at: Annotated[
+        str | None,
+        typer.Option(
+            help="compare summary values at this time, e.g. '60 min' (default: the late level)"
+        ),
+    ] = None,
+    level: Annotated[float, typer.Option(help="significance level of the tests")] = 0.05,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Test each dataset against the others measuring the same thing; suggest grades."""
+    at_seconds = None
+    if at is not None:
+        from curate import units
+
+        parsed = units.parse_quantity(at, role="--at")
+        if parsed is None or parsed[1].dimensionality != "[time]":
+            raise InputError(f"--at '{at}': expected a time with its unit, e.g. '60 min'")
+        at_seconds = parsed[0]
+    with _catalog() as catalog:
+        result = catalog.consistency(
+            observable=observable, tolerance=tolerance, at=at_seconds, alpha=level
+        )
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.consistency_text(result))
+
+
+@app.command()
 def demo(
     outdir: Annotated[
         Path, typer.Argument(help="folder for the demo's catalog and outputs")
@@ -400,32 +538,11 @@ def demo(
     ] = None,
     force: Annotated[bool, typer.Option(help="reuse an existing, non-empty OUTDIR")] = False,
 ) -> None:
-    """Run the job on the bundled invented scenario: log every example dataset, then list them."""
-    source = examples or Path(__file__).resolve().parent.parent / "example_datasets"
-    if not (source / "data").is_dir():
-        raise InputError(
-            f"{source}: no example data found (expected a data/ folder); pass --examples"
-        )
-    if outdir.exists() and any(outdir.iterdir()) and not force:
-        raise InputError(
-            f"{outdir}: the folder exists and is not empty; choose another or pass --force"
-        )
-    inbox = outdir / "inbox"
-    if inbox.exists():
-        shutil.rmtree(inbox)
-    shutil.copytree(source / "data", inbox)
-    catalog_path = outdir / "curate.db"
-    with Catalog(catalog_path, actor=state.actor or "curate-demo") as catalog:
-        result = catalog.intake(inbox)
-        found = catalog.list(include_retired=True)
-        check = catalog.verify()
-    out.print(report.intake_text(result))
-    out.print(report.list_table(found))
-    out.print(report.verify_text(check))
-    out.print(
-        f"catalog: {catalog_path}  (try: curate --catalog {catalog_path} show "
-        f"{found[0].id if found else 'ID'})"
-    )
+    """Run the job on the bundled invented scenario and say what it found."""
+    from curate.demo import run_demo
+
+    result = run_demo(outdir, examples=examples, force=force, actor=state.actor or "curate-demo")
+    out.print(report.demo_text(result))
 
 
 def _fail(message: str, code: int = 2) -> None:

@@ -135,6 +135,7 @@ class ConsensusResult:
     p_value: float | None
     scale: float | None  # the dataset's fitted scale (relative units), else None
     note: str = ""
+    in_consensus: bool = True  # part of the consensus pool others are judged against
 
     def to_dict(self) -> dict[str, Any]:
         """Give the result as plain data."""
@@ -148,6 +149,7 @@ class ConsensusResult:
             "p_value": self.p_value,
             "scale": self.scale,
             "note": self.note,
+            "in_consensus": self.in_consensus,
         }
 
 
@@ -180,31 +182,20 @@ def _align_scales(series: Sequence[Series]) -> list[float]:
     return scales
 
 
-def against_consensus(series: Sequence[Series]) -> list[ConsensusResult]:
-    """Give each dataset's chi2 against the consensus of the others on its own time points.
-
-    chi2 = sum (y_t - c_t)^2 / (sd_t^2 + var_c,t) over the points inside the others' time
-    ranges; dof = that count (minus 1 for a fitted scale); R = sqrt(chi2/dof);
-    p = P(chi2_dof > chi2). Relative-unit data are first aligned on one scale.
-    """
-    if len(series) < 2:
-        raise InputError(
-            "a consistency check needs at least two datasets of one observable under matching conditions"
-        )
-    collapsed = [collapse_replicates(s) for s in series]
-    for s in collapsed:
-        if not np.all(np.isfinite(s.sd)) or np.any(s.sd <= 0):
-            raise InputError(
-                f"dataset {s.id}: every point needs a positive, finite sd; run `curate noise {s.id}` first"
-            )
-    scales = _align_scales(collapsed)
+def _evaluate(
+    collapsed: Sequence[Series], pool: set[int], scales: Sequence[float]
+) -> list[ConsensusResult]:
+    """Give each series against the consensus of the pool members other than itself."""
     results = []
-    any_overlap = False
     for k, s in enumerate(collapsed):
-        others = [o for i, o in enumerate(collapsed) if i != k]
-        other_scales = [scales[i] for i in range(len(collapsed)) if i != k]
+        members = [i for i in sorted(pool) if i != k]
+        if not members:  # a lone pool member is judged against everything else
+            members = [i for i in range(len(collapsed)) if i != k]
+        others = [collapsed[i] for i in members]
+        other_scales = [scales[i] for i in members]
         consensus, variance, covered = _consensus(s.time, others, other_scales)
         n = int(covered.sum())
+        in_pool = k in pool
         if n == 0:
             results.append(
                 ConsensusResult(
@@ -217,13 +208,12 @@ def against_consensus(series: Sequence[Series]) -> list[ConsensusResult]:
                     None,
                     None,
                     note="no time overlap with the others",
+                    in_consensus=in_pool,
                 )
             )
             continue
-        any_overlap = True
         y, sd = s.value[covered], s.sd[covered]
-        scale = 1.0
-        lost = 0
+        scale, lost = 1.0, 0
         if s.relative:
             part = Series(s.id, s.lab, s.time[covered], y, sd, True)
             scale = _fit_scale(part, consensus[covered], variance[covered], scales[k])
@@ -231,6 +221,7 @@ def against_consensus(series: Sequence[Series]) -> list[ConsensusResult]:
         residual = scale * y - consensus[covered]
         chi2 = float(np.sum(residual**2 / (scale**2 * sd**2 + variance[covered])))
         dof = n - lost
+        relative_scale = scale if s.relative else None
         if dof <= 0:
             results.append(
                 ConsensusResult(
@@ -241,8 +232,9 @@ def against_consensus(series: Sequence[Series]) -> list[ConsensusResult]:
                     0,
                     None,
                     None,
-                    scale if s.relative else None,
+                    relative_scale,
                     note="too few overlapping points after the scale fit",
+                    in_consensus=in_pool,
                 )
             )
             continue
@@ -255,14 +247,56 @@ def against_consensus(series: Sequence[Series]) -> list[ConsensusResult]:
                 dof,
                 float(np.sqrt(chi2 / dof)),
                 float(stats.chi2.sf(chi2, dof)),
-                scale if s.relative else None,
+                relative_scale,
+                in_consensus=in_pool,
             )
         )
-    if not any_overlap:
-        raise InputError(
-            "no dataset overlaps another in time: a consensus needs a shared time range"
-        )
     return results
+
+
+def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[ConsensusResult]:
+    """Give each dataset's chi2 against the consensus of the others on its own time points.
+
+    chi2 = sum (y_t - c_t)^2 / (sd_t^2 + var_c,t) over the points inside the others' time
+    ranges; dof = that count (minus 1 for a fitted scale); R = sqrt(chi2/dof);
+    p = P(chi2_dof > chi2). Relative-unit data are aligned on one scale first.
+
+    The consensus is pruned in the spirit of the largest consistent subset (Cox 2007): while a
+    member of the consensus pool fails the test at ``alpha`` and more than two remain, the
+    member with the largest Birge ratio leaves the pool. An overconfident bad dataset would
+    otherwise dominate the inverse-variance consensus and make the good ones look wrong. Every
+    dataset is then judged against the pool members other than itself.
+    """
+    if len(series) < 2:
+        raise InputError(
+            "a consistency check needs at least two datasets of one observable under matching conditions"
+        )
+    collapsed = [collapse_replicates(s) for s in series]
+    for s in collapsed:
+        if not np.all(np.isfinite(s.sd)) or np.any(s.sd <= 0):
+            raise InputError(
+                f"dataset {s.id}: every point needs a positive, finite sd; run `curate noise {s.id}` first"
+            )
+    pool = set(range(len(collapsed)))
+    while True:
+        members = sorted(pool)
+        pool_scales = _align_scales([collapsed[i] for i in members])
+        scales = [1.0] * len(collapsed)
+        for i, scale in zip(members, pool_scales, strict=True):
+            scales[i] = scale
+        for i in range(len(collapsed)):
+            if i not in pool and collapsed[i].relative:
+                scales[i] = 1.0 / max(float(np.median(np.abs(collapsed[i].value))), 1e-300)
+        results = _evaluate(collapsed, pool, scales)
+        if not any(r.n_overlap for r in results):
+            raise InputError(
+                "no dataset overlaps another in time: a consensus needs a shared time range"
+            )
+        failing = [i for i in pool if (results[i].p_value or 1.0) < alpha]
+        if not failing or len(pool) <= 2:
+            return results
+        worst = max(failing, key=lambda i: results[i].birge_ratio or 0.0)
+        pool.discard(worst)
 
 
 def summary_values(

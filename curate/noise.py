@@ -227,18 +227,18 @@ def reported_to_sd(
     if kind == "sem":
         if n is None:
             raise InputError("an SEM converts to an SD only with its n")
-        return u * np.sqrt(np.asarray(n, dtype=float))
+        return np.asarray(u * np.sqrt(np.asarray(n, dtype=float)), dtype=float)
     if kind == "ci":
         if level is None:
             raise InputError("a confidence interval converts to an SD only with its level")
         q = (1.0 + level) / 2.0
         if n is None:
-            return u / stats.norm.ppf(q)
-        return u / stats.t.ppf(q, np.asarray(n, dtype=float) - 1.0)
+            return np.asarray(u / stats.norm.ppf(q), dtype=float)
+        return np.asarray(u / stats.t.ppf(q, np.asarray(n, dtype=float) - 1.0), dtype=float)
     if kind == "percent":
         if value is None:
             raise InputError("a percentage uncertainty converts to an SD only with the values")
-        return u / 100.0 * np.abs(np.asarray(value, dtype=float))
+        return np.asarray(u / 100.0 * np.abs(np.asarray(value, dtype=float)), dtype=float)
     raise InputError(f"unknown uncertainty type '{kind}'")
 
 
@@ -345,7 +345,9 @@ def apply_floor(
 ) -> np.ndarray:
     """Give sd_i = max(sd_i, absolute, relative * |y_i|), so no weight is ever infinite."""
     floored = np.maximum(np.asarray(sd, dtype=float), absolute)
-    return np.maximum(floored, relative * np.abs(np.asarray(value, dtype=float)))
+    return np.asarray(
+        np.maximum(floored, relative * np.abs(np.asarray(value, dtype=float))), dtype=float
+    )
 
 
 METHODS = ("auto", "replicates", "reported", "rice", "gsj", "hkt2", "hkt3", "mad", "error-model")

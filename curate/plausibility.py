@@ -37,8 +37,7 @@ def _rows(indices: Iterable[int], limit: int = 5) -> str:
 def _is_round(x: float) -> bool:
     if x <= 0 or not np.isfinite(x):
         return False
-    exponent = np.floor(np.log10(x))
-    mantissa = x / 10**exponent
+    mantissa = float(f"{x:.12e}".split("e")[0])  # text keeps subnormal numbers exact
     return any(np.isclose(mantissa, step, rtol=1e-9) for step in _ROUND_STEPS) or np.isclose(
         mantissa, 10.0, rtol=1e-9
     )

@@ -10,13 +10,28 @@ from rich.table import Table
 from rich.text import Text
 
 from curate import units
+from curate.records import ConditionValue
 
 if TYPE_CHECKING:
+    from curate.assess import ConsistencyReport
     from curate.catalog import AddPlan, HistoryEntry, VerifyReport
+    from curate.demo import DemoResult
+    from curate.grading import GradeSuggestion
     from curate.ingest.inbox import IntakeReport
-    from curate.records import ConditionValue, DatasetVersion
+    from curate.records import DatasetVersion
 
-__all__ = ["history_text", "intake_text", "list_table", "plan_text", "show_text", "verify_text"]
+__all__ = [
+    "consistency_text",
+    "demo_text",
+    "history_text",
+    "intake_text",
+    "list_table",
+    "noise_table",
+    "plan_text",
+    "show_text",
+    "suggestion_text",
+    "verify_text",
+]
 
 _UNIT_SHORT = {
     "second": "s",
@@ -263,3 +278,206 @@ def plan_text(plan: AddPlan) -> Group:
     ]
     lines += [Text(f"warning: {w['message']}") for w in info["warnings"]]
     return Group(*lines)
+
+
+def _num(value: float | None, spec: str = ".3g") -> str:
+    return "-" if value is None else format(value, spec)
+
+
+def noise_table(written: list[tuple[DatasetVersion, Any]]) -> Table:
+    """Give what ``curate noise`` prints."""
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in ("id", "v", "method", "sd", "unit", "dof", "why", "notes"):
+        table.add_column(name, justify="right" if name in ("v", "sd", "dof") else "left")
+    for version, result in written:
+        table.add_row(
+            version.id,
+            str(version.version),
+            result.method,
+            f"{result.sd:.4g}",
+            short_unit(version.record.observable.unit),
+            str(result.dof),
+            str(result.parameters.get("choice", "")),
+            "; ".join(result.warnings),
+        )
+    return table
+
+
+def suggestion_text(
+    dataset_id: str, suggestion: GradeSuggestion, graded: DatasetVersion | None
+) -> Group:
+    """Give what ``curate grade --checklist`` prints."""
+    lines = [
+        Text(
+            f"{dataset_id}: the checklist suggests {suggestion.grade} (penalty {suggestion.penalty})"
+        )
+    ]
+    lines += [Text(f"  {reason}") for reason in suggestion.reasons]
+    if graded is not None:
+        lines.append(
+            Text(f"recorded: {graded.id} graded {graded.grade} (version {graded.version})")
+        )
+    else:
+        lines.append(
+            Text("nothing graded yet: rerun with --accept, or grade it yourself with a reason")
+        )
+    return Group(*lines)
+
+
+def consistency_text(result: ConsistencyReport) -> Group:
+    """Give what ``curate consistency`` prints."""
+    parts: list[Any] = []
+    if not result.groups:
+        parts.append(
+            Text("no two datasets share an observable and matching conditions: nothing to compare")
+        )
+    for group in result.groups:
+        conditions = ", ".join(
+            f"{k}={condition_text(ConditionValue.model_validate(v))}"
+            for k, v in group.conditions.items()
+        )
+        parts.append(Text(f"{group.observable} at {conditions or 'no conditions'}", style="bold"))
+        table = Table(box=None, pad_edge=False, header_style="bold")
+        for name in ("dataset", "lab", "points", "chi2", "dof", "Birge R", "p", "note"):
+            table.add_column(
+                name, justify="left" if name in ("dataset", "lab", "note") else "right"
+            )
+        for row in group.datasets:
+            note = row.note
+            if row.p_value is not None and row.p_value < result.alpha:
+                note = (note + "; " if note else "") + "disagrees with the others"
+            if not row.in_consensus:
+                note = (note + "; " if note else "") + "left out of the consensus"
+            if row.scale is not None:
+                note = (note + "; " if note else "") + f"scale {row.scale:.3g}"
+            table.add_row(
+                row.id,
+                row.lab,
+                str(row.n_overlap),
+                _num(row.chi2, ".1f"),
+                _num(row.dof, "d") if row.dof is not None else "-",
+                _num(row.birge_ratio, ".2f"),
+                _num(row.p_value, ".2g"),
+                note,
+            )
+        parts.append(table)
+        if group.summary is not None:
+            s = group.summary
+            parts.append(
+                Text(
+                    f"  late levels: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
+                    f"(p = {s.q_p_value:.2g}); I² = {100 * s.i2:.0f}%; tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}; "
+                    f"PDG S = {s.pdg_scale:.2f}"
+                )
+            )
+        if group.lab_summary is not None:
+            parts.append(
+                Text(
+                    "  largest consistent set of labs: "
+                    + ", ".join(group.lab_summary.consistent_subset)
+                )
+            )
+        parts.append(Text(""))
+    if result.labs:
+        parts.append(Text("labs against the consensus", style="bold"))
+        table = Table(box=None, pad_edge=False, header_style="bold")
+        for name in ("lab", "Birge R", "dof", "grades", "flag"):
+            table.add_column(name, justify="right" if name in ("Birge R", "dof") else "left")
+        for lab in result.labs:
+            table.add_row(
+                lab.lab, f"{lab.birge_ratio:.2f}", str(lab.dof), ",".join(lab.grades), lab.flag
+            )
+        parts.append(table)
+    if result.suggestions:
+        parts.append(Text(""))
+        parts.append(
+            Text(
+                "grade suggestions (recorded; `curate grade ID --accept-suggestion` takes one)",
+                style="bold",
+            )
+        )
+        for suggestion in result.suggestions:
+            parts.append(
+                Text(
+                    f"  {suggestion.dataset_id}: {suggestion.current or 'ungraded'} -> {suggestion.suggested}: {suggestion.reason}"
+                )
+            )
+    if result.single:
+        parts.append(
+            Text(
+                f"not compared (nothing else under matching conditions): {', '.join(result.single)}"
+            )
+        )
+    return Group(*parts)
+
+
+def demo_text(result: DemoResult) -> Group:
+    """Give the plain-words summary ``curate demo`` prints."""
+    from collections import Counter
+
+    intake = result.intake
+    parts: list[Any] = [
+        Text(
+            "curate demo: an invented scenario (four invented labs, two observables)", style="bold"
+        )
+    ]
+    parts.append(
+        Text(
+            f"1. logged {intake.count('added')} datasets with their units, conditions and sources"
+            f" ({intake.count('quarantined')} quarantined); every change is a sealed event"
+        )
+    )
+    methods = Counter(result.noise_methods.values())
+    parts.append(
+        Text(
+            "2. estimated each dataset's noise: "
+            + ", ".join(f"{n} by {m}" for m, n in sorted(methods.items()))
+        )
+    )
+    grades = Counter(result.grades.values())
+    parts.append(
+        Text(
+            "3. graded trust from each lab's checklist answers: "
+            + ", ".join(f"{n} x {g}" for g, n in sorted(grades.items()))
+        )
+    )
+    flagged = [
+        r
+        for g in result.consistency.groups
+        for r in g.datasets
+        if r.p_value is not None and r.p_value < result.consistency.alpha
+    ]
+    if flagged:
+        lines = [
+            f"{r.id} ({r.lab}): Birge ratio {r.birge_ratio:.1f}, p = {r.p_value:.1g}"
+            for r in flagged
+        ]
+        parts.append(
+            Text(
+                "4. consistency: disagrees with the other datasets measuring the same thing: "
+                + "; ".join(lines)
+            )
+        )
+    else:
+        parts.append(Text("4. consistency: every compared dataset agrees with the others"))
+    for suggestion in result.consistency.suggestions:
+        parts.append(
+            Text(
+                f"   suggested (not applied): {suggestion.dataset_id} {suggestion.current or 'ungraded'} -> {suggestion.suggested}"
+            )
+        )
+    parts.append(Text(""))
+    parts.append(list_table(result.datasets))
+    parts.append(Text(""))
+    parts.append(consistency_text(result.consistency))
+    if result.verify is not None:
+        parts.append(verify_text(result.verify))
+    parts.append(
+        Text(
+            f"catalog: {result.catalog_path}  (try: curate --catalog {result.catalog_path} show ID)"
+        )
+    )
+    parts.append(
+        Text("Grades and suggestions are judgements, and agreement is not proof; see the README.")
+    )
+    return Group(*parts)

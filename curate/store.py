@@ -175,8 +175,14 @@ class Store:
 
     @contextmanager
     def transaction(self) -> Iterator[None]:
-        """Run the block as one write transaction that takes the write lock at once."""
+        """Run the block as one write transaction that takes the write lock at once.
+
+        Inside an open transaction the block simply joins it (one user action, one commit).
+        """
         conn = self.db.conn
+        if conn.in_transaction:
+            yield
+            return
         conn.execute("BEGIN IMMEDIATE")
         try:
             yield

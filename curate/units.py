@@ -23,6 +23,7 @@ __all__ = [
     "Quantity",
     "canonical_unit",
     "convert",
+    "convert_scalar",
     "is_relative_unit",
     "parse_quantity",
     "registry",
@@ -244,5 +245,14 @@ def parse_quantity(text: str, *, role: str) -> tuple[float, CanonicalUnit] | Non
         unit = canonical_unit(unit_text or "1", role=role)
     except UnitError:
         return None
-    value = float(convert(np.array([float(number)]), unit)[0])
-    return value, unit
+    return convert_scalar(float(number), unit), unit
+
+
+def convert_scalar(value: float, unit: CanonicalUnit) -> float:
+    """Give one value in canonical units, rounded to 15 significant digits.
+
+    A condition such as 10 uM then reads 10000 nM, not pint's 9999.999999999998; 15 digits is
+    what a float64 carries exactly, so nothing measurable is lost.
+    """
+    converted = float(convert(np.array([value]), unit)[0])
+    return float(f"{converted:.15g}")

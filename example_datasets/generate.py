@@ -208,6 +208,37 @@ def _sidecar(spec: Spec, data_file: str) -> str:
     return "\n".join(lines) + "\n"
 
 
+# What the modeller could find out about each lab (checklist answers; see curate's default
+# checklist). The Marrowby Group claims a linear readout: its saturation is not declared.
+LAB_ANSWERS = {
+    "harrow": {},
+    "quillfen": {"raw_data_available": False, "blinded_analysis": False},
+    "corvane": {"replicates_3": False, "instrument_precision": False},
+    "marrowby": {"calibration_documented": False, "instrument_precision": False},
+}
+QUESTIONS = (
+    "raw_data_available",
+    "replicates_3",
+    "calibration_documented",
+    "same_conditions",
+    "blinded_analysis",
+    "instrument_precision",
+    "readout_in_range",
+)
+
+
+def _answers(spec: Spec) -> str:
+    answers = {q: True for q in QUESTIONS}
+    answers.update(LAB_ANSWERS[spec.lab])
+    if spec.replicates < 3 and spec.report_sd != "sem":
+        answers["replicates_3"] = False
+    lines = [f"# checklist answers for {spec.name} (invented example)", "[answers]"]
+    lines += [f"{q} = {'true' if a else 'false'}" for q, a in answers.items()]
+    if spec.lab == "marrowby":
+        lines += ["", "[notes]", 'calibration_documented = "asked twice, no reply"']
+    return "\n".join(lines) + "\n"
+
+
 def write(outdir: Path) -> list[Path]:
     """Write every example data file and its sidecar into ``outdir``; give the paths."""
     rng = np.random.default_rng(SEED)
@@ -251,7 +282,11 @@ def write(outdir: Path) -> list[Path]:
             (outdir / name).write_text("\n".join(rows) + "\n", encoding="utf-8")
         sidecar = outdir / f"{spec.name}.toml"
         sidecar.write_text(_sidecar(spec, name), encoding="utf-8")
-        written += [outdir / name, sidecar]
+        checklists = outdir.parent / "checklists"
+        checklists.mkdir(exist_ok=True)
+        answers = checklists / f"{spec.name}.toml"
+        answers.write_text(_answers(spec), encoding="utf-8")
+        written += [outdir / name, sidecar, answers]
     return written
 
 

@@ -86,8 +86,11 @@ def test_dry_run_cli(cli, tmp_path):
 def test_demo_runs_on_examples(cli, tmp_path):
     run = cli("demo", tmp_path / "demo", catalog_path=None)
     assert run.code == 0, run.err
-    assert "13 logged, 0 already present, 0 quarantined" in run.out
-    assert "intact: 13 datasets" in run.out
+    assert "logged 13 datasets" in run.out and "(0 quarantined)" in run.out
+    assert "4 x A, 6 x B, 3 x C" in run.out
+    assert "marrowby_velarin_conc_01 (Marrowby Group): Birge ratio" in run.out
+    assert "suggested (not applied): marrowby_velarin_conc_01 C -> D" in run.out
+    assert "intact: 13 datasets, 39 versions" in run.out
     refused = cli("demo", tmp_path / "demo", catalog_path=None)
     assert refused.code == 2 and "not empty" in refused.err
 

@@ -142,7 +142,7 @@ def parse_condition(key: str, raw: Any, *, origin: str) -> ConditionValue:
         if raw.unit is None or isinstance(raw.value, bool | str):
             return parse_condition(key, raw.value, origin=origin)
         unit = units.canonical_unit(raw.unit, role=f"condition '{key}'")
-        value = float(units.convert(np.array([float(raw.value)]), unit)[0])
+        value = units.convert_scalar(float(raw.value), unit)
         return ConditionValue(value=value, unit=unit.canonical, unit_original=unit.original)
     if isinstance(raw, bool):
         return ConditionValue(value=raw)

@@ -1,0 +1,183 @@
+"""Noise, grades and consistency through the catalog API and the CLI, on the example data."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+
+import numpy as np
+import pytest
+from conftest import EXAMPLES, ROOT, write
+
+from curate.errors import InputError
+
+CHECKLISTS = ROOT / "example_datasets" / "checklists"
+
+
+@pytest.fixture
+def logged(catalog, examples):
+    catalog.intake(examples)
+    return catalog
+
+
+def by_file(catalog, stem):
+    for version in catalog.list(include_retired=True):
+        if version.record.source.raw_file_name.startswith(stem + "."):
+            return version.id
+    raise KeyError(stem)
+
+
+def test_noise_auto_choices_are_recorded(logged):
+    written = {v.id: (v, r) for v, r in logged.estimate_noise()}
+    assert len(written) == 13
+    harrow = by_file(logged, "harrow_velarin_37C_10uM")
+    quillfen_glint = by_file(logged, "quillfen_glint_37C_1uM")
+    quillfen = by_file(logged, "quillfen_velarin_37C_10uM")
+    assert written[harrow][1].method == "replicates"
+    assert written[quillfen_glint][1].method == "gsj"
+    assert written[quillfen][1].method == "reported"
+    stored = logged.show(harrow).record.noise
+    assert stored.method == "replicates" and stored.made_by == "tester" and stored.dof == 20
+    assert "replicates" in stored.parameters["choice"]
+    # the Quillfen SEMs (n = 4) become SDs twice their size: the generator's SD model at ~0.5-1.5 nM
+    assert 0.6 < logged.show(quillfen).record.noise.sd < 1.6
+    assert logged.show(harrow).version == 2
+    assert logged.verify().ok
+
+
+def test_noise_with_too_few_points_changes_nothing(catalog, tmp_path):
+    data = write(tmp_path / "short.csv", "time,value\n0,1\n1,2\n2,2.5\n")
+    result = catalog.add(
+        data,
+        options={
+            "observable": {"id": "v", "unit": "nM"},
+            "time": {"unit": "s"},
+            "source": {"lab": "L"},
+        },
+    )
+    before = len(catalog.events())
+    with pytest.raises(InputError, match="3 points; the gsj estimator needs at least 4"):
+        catalog.estimate_noise([result.id])
+    assert len(catalog.events()) == before and catalog.show(result.id).version == 1
+
+
+def test_grade_with_reason_and_history(logged):
+    target = by_file(logged, "corvane_velarin_25C_10uM")
+    graded = logged.grade(target, "B", reason="single run, calibrated")
+    assert graded.grade == "B" and graded.record.trust.rationale == "single run, calibrated"
+    regraded = logged.grade(target, "C", reason="calibration curve turned out old")
+    assert [h.kind for h in logged.history(target)] == ["add", "grade", "grade"]
+    assert logged.show(target, version=2).grade == "B" and regraded.grade == "C"
+    with pytest.raises(InputError, match="'Q' is not a grade"):
+        logged.grade(target, "Q", reason="r")
+    with pytest.raises(InputError, match="a grade needs its reason"):
+        logged.grade(target, "A", reason="  ")
+
+
+def test_checklist_suggestion_and_accept(logged):
+    target = by_file(logged, "marrowby_velarin_37C_10uM")
+    answers = CHECKLISTS / "marrowby_velarin_37C_10uM.toml"
+    suggestion, graded = logged.grade_from_checklist(target, answers_file=answers)
+    assert suggestion.grade == "C" and graded is None
+    assert logged.show(target).grade is None  # nothing graded without --accept
+    assert logged.latest_event(target, "checklist")["payload"]["suggested"] == "C"
+    suggestion, graded = logged.grade_from_checklist(target, answers_file=answers, accept=True)
+    assert graded.grade == "C"
+    assert graded.record.trust.rationale.startswith("checklist: replicates_3: no (-2)")
+
+
+def test_checklist_with_unknown_question_changes_nothing(logged, tmp_path):
+    target = by_file(logged, "harrow_velarin_37C_1uM")
+    bad = write(tmp_path / "a.toml", "[answers]\nlooks_fine = true\n")
+    before = len(logged.events())
+    with pytest.raises(InputError, match="unknown question"):
+        logged.grade_from_checklist(target, answers_file=bad)
+    assert len(logged.events()) == before
+
+
+def test_consistency_catches_the_saturated_dataset(logged):
+    logged.estimate_noise()
+    for path in sorted(CHECKLISTS.glob("*.toml")):
+        logged.grade_from_checklist(by_file(logged, path.stem), answers_file=path, accept=True)
+    report = logged.consistency()
+    saturated = by_file(logged, "marrowby_velarin_37C_10uM")
+    flagged = {s.dataset_id: s for s in report.suggestions}
+    # the planted bad dataset, and only it, is suggested for a lower grade
+    assert set(flagged) == {saturated}
+    assert (flagged[saturated].current, flagged[saturated].suggested) == ("C", "D")
+    rows = {r.id: r for g in report.groups for r in g.datasets}
+    assert rows[saturated].p_value < 1e-6 and not rows[saturated].in_consensus
+    good = [r for r in rows.values() if r.id != saturated and r.p_value is not None]
+    assert all(r.p_value > 0.001 for r in good)
+    marrowby = next(lab for lab in report.labs if lab.lab == "Marrowby Group")
+    assert marrowby.birge_ratio > 3
+    # recorded as events; grades unchanged until a person accepts
+    assert logged.latest_event(saturated, "grade_suggestion")["payload"]["suggested"] == "D"
+    assert logged.show(saturated).grade == "C"
+    accepted = logged.accept_suggestion(saturated)
+    assert accepted.grade == "D" and "accepted suggestion" in accepted.record.trust.rationale
+
+
+def test_consistency_uses_measured_not_inflated_uncertainty(logged):
+    # grading a dataset down must not change its consistency numbers
+    logged.estimate_noise()
+    first = {r.id: r.chi2 for g in logged.consistency(record=False).groups for r in g.datasets}
+    saturated = by_file(logged, "marrowby_velarin_37C_10uM")
+    logged.grade(saturated, "D", reason="saturates")
+    second = {r.id: r.chi2 for g in logged.consistency(record=False).groups for r in g.datasets}
+    assert first == second
+
+
+def test_consistency_without_noise_is_a_clear_error(logged):
+    with pytest.raises(InputError, match="run `curate noise"):
+        logged.consistency()
+
+
+def test_accept_without_suggestion(logged):
+    with pytest.raises(InputError, match="no grade suggestion to accept"):
+        logged.accept_suggestion(by_file(logged, "harrow_velarin_37C_1uM"))
+
+
+def test_cli_noise_grade_consistency(cli, tmp_path):
+    import shutil
+
+    inbox = tmp_path / "inbox"
+    shutil.copytree(EXAMPLES, inbox)
+    assert cli("intake", inbox).code == 0
+    run = cli("noise", "--all", "--json")
+    assert run.code == 0
+    payload = json.loads(run.out)
+    assert len(payload) == 13 and {"id", "version", "sd", "method", "dof"} <= set(payload[0])
+    ids = [d["id"] for d in json.loads(cli("list", "--json").out)]
+    run = cli("grade", ids[0], "B", "--reason", "looked at the raw files")
+    assert run.code == 0 and "graded B" in run.out
+    run = cli("grade", ids[0], "Z", "--reason", "r")
+    assert run.code == 2 and "'Z' is not a grade" in run.err
+    run = cli("grade", ids[0], "B")
+    assert run.code == 2 and "a grade needs its reason" in run.err
+    run = cli("grade", ids[1], "--checklist", CHECKLISTS / "harrow_velarin_37C_1uM.toml", "--json")
+    assert json.loads(run.out)["suggestion"]["grade"] == "A"
+    run = cli("consistency", "--json")
+    assert run.code == 0
+    report = json.loads(run.out)
+    assert (
+        len(report["suggestions"]) == 1 and report["suggestions"][0]["suggested"] == "D"
+    )  # ungraded counts as B
+    text = cli("consistency", "--observable", "velarin_conc")
+    assert "left out of the consensus" in text.out and "Birge R" in text.out
+    assert cli("consistency", "--at", "60 min").code == 0
+    bad = cli("consistency", "--at", "60 um")
+    assert bad.code == 2 and "expected a time with its unit" in bad.err
+    assert cli("noise").code == 2
+    assert cli("verify").code == 0
+
+
+def test_event_chain_holds_after_judgement(logged):
+    logged.estimate_noise()
+    logged.consistency()
+    conn = sqlite3.connect(logged.path)
+    kinds = [row[0] for row in conn.execute("SELECT kind FROM events ORDER BY seq")]
+    conn.close()
+    assert kinds.count("add") == 13 and kinds.count("noise") == 13 and "grade_suggestion" in kinds
+    assert logged.verify().ok
+    assert np.isfinite(logged.show(by_file(logged, "harrow_glint_37C_10uM")).record.noise.sd)
