@@ -38,9 +38,7 @@ def _is_round(x: float) -> bool:
     if x <= 0 or not np.isfinite(x):
         return False
     mantissa = float(f"{x:.12e}".split("e")[0])  # text keeps subnormal numbers exact
-    return any(np.isclose(mantissa, step, rtol=1e-9) for step in _ROUND_STEPS) or np.isclose(
-        mantissa, 10.0, rtol=1e-9
-    )
+    return any(abs(mantissa - step) <= 1e-9 * step for step in (*_ROUND_STEPS, 10.0))
 
 
 def check_series(
