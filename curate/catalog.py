@@ -556,6 +556,58 @@ class Catalog:
             self, observable=observable, tolerance=tolerance, at=at, alpha=alpha, record=record
         )
 
+    # -- weights, exports, folds (see curate.exporting) -----------------------------------
+
+    def weighted_table(
+        self, *, policy: str | Path | None = None, selection: Any = None
+    ) -> pd.DataFrame:
+        """Give the weighted long table of a selection as a DataFrame (no files written)."""
+        from curate import exporting, weights
+
+        table, _, _ = exporting.weighted_table(
+            self, policy=weights.load_policy(policy), selection=selection
+        )
+        return table
+
+    def weights(self, *, policy: str | Path | None = None, selection: Any = None) -> Any:
+        """Give each dataset's share of the total weight, Kish n_eff and warnings."""
+        from curate import exporting, weights
+
+        _, summary, _ = exporting.weighted_table(
+            self, policy=weights.load_policy(policy), selection=selection
+        )
+        return summary
+
+    def export(self, fmt: str, outdir: str | Path, *, policy: str | Path | None = None, selection: Any = None,
+               force: bool = False) -> Any:  # fmt: skip
+        """Write an export (table, petab, datapackage, prov) with its README and manifest."""
+        from curate import exporting, weights
+
+        return exporting.export(
+            self, fmt, outdir, policy=weights.load_policy(policy), selection=selection, force=force
+        )
+
+    def folds(self, by: str, outdir: str | Path, *, policy: str | Path | None = None, selection: Any = None,
+              force: bool = False) -> Any:  # fmt: skip
+        """Write holdout folds (one folder per fold) with a manifest."""
+        from curate import exporting, weights
+
+        return exporting.write_folds(
+            self, by, outdir, policy=weights.load_policy(policy), selection=selection, force=force
+        )
+
+    def trace(self, outdir: str | Path) -> Any:
+        """Tell whether the catalog still holds exactly the data an export used."""
+        from curate import exporting
+
+        return exporting.trace(self, outdir)
+
+    def impact(self, dataset_id: str) -> Any:
+        """List the exports that used a since-corrected or retired version of a dataset."""
+        from curate import exporting
+
+        return exporting.impact(self, dataset_id)
+
     def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
         """Hide a dataset from later selections (a new version; nothing is deleted)."""
         if not reason.strip():

@@ -527,6 +527,167 @@ def consistency(
         out.print(report.consistency_text(result))
 
 
+SelectObservable = Annotated[
+    list[str] | None, typer.Option("--observable", help="only these observables (repeatable)")
+]
+SelectLab = Annotated[list[str] | None, typer.Option("--lab", help="only these labs (repeatable)")]
+SelectCondition = Annotated[
+    list[str] | None, typer.Option("--condition", help="KEY=VALUE that must match (repeatable)")
+]
+SelectGrade = Annotated[
+    list[str] | None,
+    typer.Option("--grade", help="only these grades (repeatable; 'none' = ungraded)"),
+]
+SelectId = Annotated[
+    list[str] | None, typer.Option("--id", help="only these datasets (repeatable)")
+]
+SelectVersion = Annotated[
+    list[str] | None,
+    typer.Option("--version", help="ID=N pins a dataset to version N (repeatable)"),
+]
+SelectRetired = Annotated[bool, typer.Option("--retired", help="include retired datasets")]
+PolicyOption = Annotated[
+    Path | None,
+    typer.Option("--policy", help="weighting policy TOML (default: the one curate ships)"),
+]
+
+
+def _selection(
+    observable: list[str] | None,
+    lab: list[str] | None,
+    condition: list[str] | None,
+    grade: list[str] | None,
+    ids: list[str] | None,
+    versions: list[str] | None,
+    retired: bool,
+) -> Any:
+    from curate.exporting import Selection
+
+    pinned = []
+    for pair in versions or []:
+        ident, sep, number = pair.partition("=")
+        if not sep or not number.strip().isdigit():
+            raise InputError(f"--version '{pair}': expected ID=N, e.g. harrow_velarin_conc_01=2")
+        pinned.append((ident.strip(), int(number)))
+    return Selection(
+        observables=tuple(observable or ()),
+        labs=tuple(lab or ()),
+        conditions=tuple(_conditions(condition).items()),
+        grades=tuple(grade or ()),
+        ids=tuple(ids or ()),
+        versions=tuple(pinned),
+        include_retired=retired,
+    )
+
+
+@app.command()
+def weights(
+    policy: PolicyOption = None,
+    observable: SelectObservable = None,
+    lab: SelectLab = None,
+    condition: SelectCondition = None,
+    grade: SelectGrade = None,
+    ids: SelectId = None,
+    versions: SelectVersion = None,
+    retired: SelectRetired = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show each dataset's share of the total weight, its effective sample size and warnings."""
+    selection = _selection(observable, lab, condition, grade, ids, versions, retired)
+    with _catalog() as catalog:
+        summary = catalog.weights(policy=policy, selection=selection)
+    if as_json:
+        _emit_json(summary.to_dict())
+    else:
+        out.print(report.weights_text(summary))
+
+
+@app.command()
+def export(
+    fmt: Annotated[str, typer.Argument(metavar="FORMAT", help="table, petab, datapackage or prov")],
+    outdir: Annotated[Path, typer.Argument(help="new (or empty) folder to write into")],
+    policy: PolicyOption = None,
+    observable: SelectObservable = None,
+    lab: SelectLab = None,
+    condition: SelectCondition = None,
+    grade: SelectGrade = None,
+    ids: SelectId = None,
+    versions: SelectVersion = None,
+    retired: SelectRetired = False,
+    force: Annotated[
+        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Write the weighted selection for a fitter, with a README and a traceable manifest."""
+    selection = _selection(observable, lab, condition, grade, ids, versions, retired)
+    with _catalog() as catalog:
+        result = catalog.export(fmt, outdir, policy=policy, selection=selection, force=force)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.export_text(result))
+
+
+@app.command()
+def folds(
+    outdir: Annotated[Path, typer.Argument(help="new (or empty) folder for the folds")],
+    by: Annotated[
+        str, typer.Option(help="dataset, lab, condition:KEY, kfold:K or kfold:K:SEED")
+    ] = "dataset",
+    policy: PolicyOption = None,
+    observable: SelectObservable = None,
+    lab: SelectLab = None,
+    condition: SelectCondition = None,
+    grade: SelectGrade = None,
+    ids: SelectId = None,
+    versions: SelectVersion = None,
+    retired: SelectRetired = False,
+    force: Annotated[
+        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Write holdout folds: one folder per fold with train and test tables and what training lacks."""
+    selection = _selection(observable, lab, condition, grade, ids, versions, retired)
+    with _catalog() as catalog:
+        result = catalog.folds(by, outdir, policy=policy, selection=selection, force=force)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.folds_text(result))
+
+
+@app.command()
+def trace(
+    outdir: Annotated[Path, typer.Argument(help="an export folder (or its manifest.json)")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Tell whether the catalog still holds exactly the data an export used (exit 1 if not)."""
+    with _catalog() as catalog:
+        result = catalog.trace(outdir)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.trace_text(result))
+    if not result.intact:
+        raise typer.Exit(1)
+
+
+@app.command()
+def impact(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """List every export that used a version of this dataset that has since changed."""
+    with _catalog() as catalog:
+        found = catalog.impact(dataset_id)
+    if as_json:
+        _emit_json([f.to_dict() for f in found])
+    else:
+        out.print(report.impact_text(dataset_id, found))
+
+
 @app.command()
 def demo(
     outdir: Annotated[

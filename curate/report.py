@@ -481,3 +481,98 @@ def demo_text(result: DemoResult) -> Group:
         Text("Grades and suggestions are judgements, and agreement is not proof; see the README.")
     )
     return Group(*parts)
+
+
+def weights_text(summary: Any) -> Group:
+    """Give what ``curate weights`` prints."""
+    parts: list[Any] = [
+        Text(f"policy: {summary.policy.name} (sha256 {summary.policy.sha256[:16]}…)")
+    ]
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in (
+        "dataset",
+        "observable",
+        "lab",
+        "grade",
+        "points",
+        "inflation",
+        "balance",
+        "share",
+        "n_eff",
+    ):
+        table.add_column(
+            name,
+            justify="right"
+            if name in ("points", "inflation", "balance", "share", "n_eff")
+            else "left",
+        )
+    for row in summary.datasets:
+        table.add_row(row.id, row.observable, row.lab, row.grade, str(row.n_points), f"{row.inflation:g}",
+                      f"{row.balance:.3g}", f"{100 * row.share:.1f}%", f"{row.n_eff:.1f}")  # fmt: skip
+    parts.append(table)
+    for observable, n_eff in summary.n_eff.items():
+        labs = ", ".join(
+            f"{lab} {100 * share:.0f}%"
+            for lab, share in sorted(summary.lab_shares[observable].items())
+        )
+        parts.append(
+            Text(
+                f"{observable}: Kish n_eff {n_eff:.1f}; weights span {summary.weight_span[observable]:.3g}x; by lab: {labs}"
+            )
+        )
+    parts.append(
+        Text(
+            "shares are within each observable (weights of different units do not add up); for relative units "
+            "they compare w x median|y|², which does not depend on each dataset's arbitrary scale"
+        )
+    )
+    parts += [Text(f"warning: {w}") for w in summary.warnings]
+    return Group(*parts)
+
+
+def export_text(result: Any) -> Group:
+    """Give what ``curate export`` prints."""
+    parts: list[Any] = [Text(f"{result.format} export of {len(result.manifest['datasets'])} dataset versions "
+                             f"({result.summary.n_points} points) written to {result.outdir}")]  # fmt: skip
+    parts += [Text(f"  {name}") for name in sorted(result.files)]
+    parts.append(Text(f"  manifest.json (sha256 {result.manifest['manifest_sha256'][:16]}…)"))
+    parts += [Text(f"warning: {w}") for w in result.summary.warnings]
+    return Group(*parts)
+
+
+def folds_text(result: Any) -> Group:
+    """Give what ``curate folds`` prints."""
+    parts: list[Any] = [
+        Text(f"{len(result.folds)} folds by {result.by} written to {result.outdir}")
+    ]
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in ("fold", "held out", "train", "test", "training lacks"):
+        table.add_column(name, justify="right" if name in ("train", "test") else "left")
+    for fold in result.folds:
+        table.add_row(fold["name"], ", ".join(fold["held_out_groups"]), str(fold["train_points"]),
+                      str(fold["test_points"]), "; ".join(fold["training_lacks"]) or "-")  # fmt: skip
+    parts.append(table)
+    return Group(*parts)
+
+
+def trace_text(result: Any) -> Group:
+    """Give what ``curate trace`` prints."""
+    if result.intact:
+        return Group(Text(f"intact: the catalog still holds exactly the {len(result.same)} dataset versions "
+                          f"this {result.format} export ({result.created_at}) used, and its files are unchanged"))  # fmt: skip
+    parts: list[Any] = [Text(f"changed since the {result.format} export of {result.created_at}:")]
+    parts += [Text(f"  {line}") for line in result.changed + result.files_changed]
+    parts.append(Text(f"{len(result.same)} dataset versions are unchanged"))
+    return Group(*parts)
+
+
+def impact_text(dataset_id: str, found: list[Any]) -> Text:
+    """Give what ``curate impact`` prints."""
+    if not found:
+        return Text(f"no export used an outdated version of {dataset_id}")
+    lines = [f"{len(found)} export(s) used an outdated version of {dataset_id}:"]
+    for entry in found:
+        state = "retired" if entry.retired else f"now version {entry.current_version}"
+        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {entry.format}  {entry.outdir}: used version "
+                     f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
+    return Text("\n".join(lines))

@@ -123,9 +123,18 @@ def _initial_schema(db: sqlite_utils.Database) -> None:
     )
 
 
+def _policies(db: sqlite_utils.Database) -> None:
+    db.table("policies").create(
+        {"sha256": str, "name": str, "origin": str, "text": str, "first_used": str},
+        pk="sha256",
+        not_null={"name", "text", "first_used"},
+    )
+
+
 # Named, ordered schema steps. Append only: a released step is never edited.
 MIGRATIONS: list[tuple[str, Callable[[sqlite_utils.Database], None]]] = [
     ("0001_initial", _initial_schema),
+    ("0002_policies", _policies),
 ]
 
 
@@ -373,6 +382,19 @@ class Store:
             [escaped + "%"],
         ).fetchall()
         return {str(r[0]) for r in rows}
+
+    def put_policy(self, sha256: str, name: str, origin: str, text: str) -> bool:
+        """Store a weighting policy under its hash; give True if it was new."""
+        cursor = self.db.execute(
+            "INSERT OR IGNORE INTO policies(sha256, name, origin, text, first_used) VALUES (?,?,?,?,?)",
+            [sha256, name, origin, text, dt.datetime.now(dt.UTC).isoformat(timespec="seconds")],
+        )
+        return bool(cursor.rowcount)
+
+    def policy_text(self, sha256: str) -> str | None:
+        """Give the stored text of a policy, or None."""
+        row = self.db.execute("SELECT text FROM policies WHERE sha256 = ?", [sha256]).fetchone()
+        return None if row is None else str(row[0])
 
     def integrity_check(self) -> str:
         """Give SQLite's own ``PRAGMA integrity_check`` answer ('ok' when sound)."""

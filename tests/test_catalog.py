@@ -59,7 +59,7 @@ def test_open_catalog_uses_environment(tmp_path, monkeypatch):
 def test_wal_mode_and_migrations(catalog):
     mode = catalog.store.db.execute("PRAGMA journal_mode").fetchone()[0]
     assert mode == "wal"
-    assert catalog.store.applied_migrations() == ["0001_initial"]
+    assert catalog.store.applied_migrations() == ["0001_initial", "0002_policies"]
     assert len(catalog.catalog_id) == 36
 
 
@@ -68,7 +68,7 @@ def test_reopening_keeps_catalog_id(tmp_path):
         ident = first.catalog_id
     with curate.open_catalog(tmp_path / "x.db") as second:
         assert second.catalog_id == ident
-        assert second.store.applied_migrations() == ["0001_initial"]
+        assert second.store.applied_migrations() == ["0001_initial", "0002_policies"]
 
 
 def test_list_filters(filled):

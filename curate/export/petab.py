@@ -1,0 +1,193 @@
+"""PEtab (v1) tables of a weighted selection: measurements, conditions, observables, parameters.
+
+Each point's effective sigma goes into ``noiseParameters`` with ``noiseFormula =
+noiseParameter1_<observableId>``. Relative-unit data get one scale parameter per calibration
+group (``observableParameter1_<observableId> * ...`` in the formula, the parameter id per row
+in ``observableParameters``). Every dataset has its own condition id, so scale parameters never
+become time-point-specific overrides. Grades, weights and versions ride along as annotation
+columns, which PEtab ignores. Time is in seconds (curate's canonical unit).
+
+No model is written: ``observableFormula`` names a placeholder ``<observableId>_model`` for
+absolute data, which the modeller replaces with their model's expression; data imported from
+PEtab keep their original formula, transformation and observable parameters.
+"""
+
+from __future__ import annotations
+
+import io
+import re
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+
+from curate.export.common import write_text
+
+__all__ = ["petab_tables", "write_petab"]
+
+
+def _parameter_id(text: str) -> str:
+    slug = re.sub(r"[^A-Za-z0-9_]+", "_", text).strip("_") or "group"
+    return f"scale_{slug}" if slug[0].isalpha() or slug[0] == "_" else f"scale_g{slug}"
+
+
+def _tsv(frame: pd.DataFrame) -> str:
+    buffer = io.StringIO()
+    frame.to_csv(buffer, sep="\t", index=False, lineterminator="\n", float_format=None)
+    return buffer.getvalue()
+
+
+def _number_text(value: float) -> str:
+    return repr(float(value))
+
+
+def petab_tables(
+    points: pd.DataFrame, datasets: dict[str, dict[str, Any]]
+) -> dict[str, pd.DataFrame]:
+    """Give the PEtab tables for a weighted table (see curate.exporting.weighted_table).
+
+    ``datasets`` maps dataset id to its facts: conditions (key -> value), conditions_text,
+    observable label, relative flag, calibration group, and the PEtab annotations it was
+    imported with (or None).
+    """
+    rows = []
+    scale_parameters: dict[str, str] = {}
+    observables: dict[str, dict[str, str]] = {}
+    for dataset_id, group in points.groupby("dataset_id", sort=False):
+        facts = datasets[str(dataset_id)]
+        observable = str(group["observable"].iloc[0])
+        original = facts.get("petab") or {}
+        original_rows = facts.get("petab_rows")
+        if observable not in observables:
+            observable_row = original.get("observable") or {}
+            formula = observable_row.get("observableFormula", "").strip()
+            if not formula:
+                formula = f"{observable}_model"
+                if facts["relative"]:
+                    formula = f"observableParameter1_{observable} * {formula}"
+            observables[observable] = {
+                "observableId": observable,
+                "observableName": facts["label"]
+                or observable_row.get("observableName", "").strip(),
+                "observableFormula": formula,
+                "noiseFormula": f"noiseParameter1_{observable}",
+                "observableTransformation": "lin",
+                "noiseDistribution": "normal",
+            }
+        if facts["relative"]:
+            if original_rows is not None and "observableParameters" in original_rows:
+                observable_parameters = [
+                    str(x).strip() for x in original_rows["observableParameters"]
+                ]
+                for text in set(observable_parameters):
+                    for part in text.split(";"):
+                        if part and not _is_number(part):
+                            scale_parameters[part] = part
+            else:
+                parameter = _parameter_id(facts["calibration_group"] or str(dataset_id))
+                scale_parameters[parameter] = parameter
+                observable_parameters = [parameter] * len(group)
+        else:
+            observable_parameters = [""] * len(group)
+        condition_id = f"c_{dataset_id}"
+        for k, (_, row) in enumerate(group.iterrows()):
+            rows.append({
+                "observableId": observable,
+                "preequilibrationConditionId": "",
+                "simulationConditionId": condition_id,
+                "measurement": _number_text(row["value"]),
+                "time": _number_text(row["time"]),
+                "observableParameters": observable_parameters[k],
+                "noiseParameters": _number_text(row["sigma"]),
+                "datasetId": str(dataset_id),
+                "replicateId": "" if pd.isna(row.get("replicate")) else str(row["replicate"]),
+                "curateVersion": str(int(row["version"])),
+                "trustGrade": str(row["grade_used"]),
+                "curateSd": _number_text(row["sd"]),
+                "curateWeight": _number_text(row["weight"]),
+            })  # fmt: skip
+    measurements = pd.DataFrame(rows)
+    numeric_keys = sorted({k for facts in datasets.values() for k, v in facts["conditions"].items()
+                           if isinstance(v, float)})  # fmt: skip
+    condition_rows = []
+    for dataset_id in points["dataset_id"].unique():
+        facts = datasets[str(dataset_id)]
+        entry: dict[str, Any] = {
+            "conditionId": f"c_{dataset_id}",
+            "conditionName": facts["conditions_text"] or str(dataset_id),
+        }
+        for key in numeric_keys:
+            value = facts["conditions"].get(key)
+            entry[key] = _number_text(value) if isinstance(value, float) else ""
+        condition_rows.append(entry)
+    conditions = pd.DataFrame(condition_rows)
+    observable_table = pd.DataFrame(list(observables.values()))
+    parameters = pd.DataFrame(
+        [
+            {
+                "parameterId": parameter,
+                "parameterName": f"scale factor {parameter}",
+                "parameterScale": "log10",
+                "lowerBound": "1e-08",
+                "upperBound": "100000000.0",
+                "nominalValue": "1.0",
+                "estimate": "1",
+            }
+            for parameter in sorted(scale_parameters)
+        ],
+        columns=[
+            "parameterId",
+            "parameterName",
+            "parameterScale",
+            "lowerBound",
+            "upperBound",
+            "nominalValue",
+            "estimate",
+        ],
+    )
+    return {
+        "measurements": measurements,
+        "conditions": conditions,
+        "observables": observable_table,
+        "parameters": parameters,
+    }
+
+
+def _is_number(text: str) -> bool:
+    try:
+        float(text)
+    except ValueError:
+        return False
+    return True
+
+
+def write_petab(
+    points: pd.DataFrame, datasets: dict[str, dict[str, Any]], outdir: Path
+) -> dict[str, str]:
+    """Write the PEtab tables and problem.yaml into ``outdir``; give file name -> sha256."""
+    import yaml
+
+    tables = petab_tables(points, datasets)
+    names = {
+        "measurements": "measurements.tsv",
+        "conditions": "conditions.tsv",
+        "observables": "observables.tsv",
+        "parameters": "parameters.tsv",
+    }
+    written = {name: write_text(outdir / name, _tsv(tables[key])) for key, name in names.items()}
+    problem = {
+        "format_version": 1,
+        "parameter_file": names["parameters"],
+        "problems": [
+            {
+                "sbml_files": [],
+                "condition_files": [names["conditions"]],
+                "measurement_files": [names["measurements"]],
+                "observable_files": [names["observables"]],
+            }
+        ],
+    }
+    written["problem.yaml"] = write_text(
+        outdir / "problem.yaml", yaml.safe_dump(problem, sort_keys=False)
+    )
+    return written

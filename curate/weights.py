@@ -1,0 +1,413 @@
+"""Weighting policies and least-squares weights. Pure computation: frames in, frames out.
+
+Weight of point i of dataset d (see the default policy file for the words):
+
+    w_i = b_d / (sd_i^2 * v_grade(d)),    sigma_i = sd_i * sqrt(v_grade(d) / b_d) = w_i^-1/2
+
+with sd_i the measured SD after the noise floors sd_i >= max(absolute, relative * |y_i|),
+v_grade the policy's variance inflation of the dataset's trust grade and b_d the balancing
+factor. Without balancing (b_d = 1) the weighted sum of squares is a Gaussian negative
+log-likelihood (up to constants) whose per-dataset variances the grades inflate; any
+balancing or lab cap makes it a weighted criterion that is no longer a likelihood.
+
+Kish's effective sample size n_eff = (sum w)^2 / sum w^2 (Kish 1965, Survey Sampling).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import tomllib
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+from typing import Any, Literal
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+from curate.records import EXCLUSION_GRADE, GRADES, canonical_json
+
+__all__ = [
+    "DatasetWeight",
+    "Policy",
+    "WeightSummary",
+    "apply_policy",
+    "kish_n_eff",
+    "load_policy",
+]
+
+_FITTED = ("A", "B", "C", "D")
+
+
+@dataclass(frozen=True)
+class Policy:
+    """A weighting policy: grade inflation, exclusions, floors, unknown noise, balancing."""
+
+    name: str
+    inflation: dict[str, float]
+    exclude: tuple[str, ...]
+    ungraded: str
+    absolute_floor: float
+    relative_floor: float
+    unknown_noise: Literal["estimate", "refuse", "default"]
+    default_relative_sd: float
+    balance: Literal["none", "equal", "sqrt"]
+    lab_cap: float
+    origin: str
+    text: str
+    sha256: str
+
+    @property
+    def is_likelihood(self) -> bool:
+        """Tell whether the weighted sum of squares stays a likelihood (no balancing, no cap)."""
+        return self.balance == "none" and self.lab_cap == 0.0
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the policy's settings as plain data (with its hash)."""
+        return {
+            "name": self.name,
+            "inflation": self.inflation,
+            "exclude": list(self.exclude),
+            "ungraded": self.ungraded,
+            "floors": {"absolute": self.absolute_floor, "relative": self.relative_floor},
+            "unknown_noise": {
+                "action": self.unknown_noise,
+                "default_relative_sd": self.default_relative_sd,
+            },
+            "balance": {"mode": self.balance, "lab_cap": self.lab_cap},
+            "origin": self.origin,
+            "sha256": self.sha256,
+        }
+
+
+def _number(
+    origin: str, where: str, value: Any, *, minimum: float = 0.0, strict: bool = False
+) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not np.isfinite(value):
+        raise InputError(f"{origin}, field '{where}': expected a number, got {value!r}")
+    if value < minimum or (strict and value <= minimum):
+        relation = ">" if strict else ">="
+        raise InputError(
+            f"{origin}, field '{where}': {value} is not allowed; expected a number {relation} {minimum}"
+        )
+    return float(value)
+
+
+def load_policy(path: str | Path | None = None) -> Policy:
+    """Give the policy in ``path`` (TOML), or the default that ships with curate."""
+    if path is None:
+        text = resources.files("curate").joinpath("data/policy.toml").read_text(encoding="utf-8")
+        origin = "curate default policy"
+    else:
+        file = Path(path)
+        if not file.is_file():
+            raise InputError(f"{file}: no such policy file")
+        text = file.read_text(encoding="utf-8")
+        origin = str(file)
+    try:
+        content = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"{origin}: not valid TOML ({err})") from None
+    known = {"name", "inflation", "exclude", "ungraded", "floors", "unknown_noise", "balance"}
+    for key in content:
+        if key not in known:
+            raise InputError(
+                f"{origin}, field '{key}': unknown; expected one of {', '.join(sorted(known))}"
+            )
+    raw_inflation = content.get("inflation", {})
+    if not isinstance(raw_inflation, dict):
+        raise InputError(f"{origin}, field 'inflation': expected a table of grade = factor")
+    inflation = {}
+    for grade, factor in raw_inflation.items():
+        if grade not in _FITTED:
+            hint = " (X is never fitted: list it in exclude)" if grade == EXCLUSION_GRADE else ""
+            raise InputError(
+                f"{origin}, field 'inflation.{grade}': unknown grade; expected A, B, C or D{hint}"
+            )
+        inflation[grade] = _number(origin, f"inflation.{grade}", factor, strict=True)
+    exclude = content.get("exclude", [EXCLUSION_GRADE])
+    if not isinstance(exclude, list) or any(g not in GRADES for g in exclude):
+        raise InputError(
+            f"{origin}, field 'exclude': expected a list of grades from {', '.join(GRADES)}"
+        )
+    if EXCLUSION_GRADE not in exclude:
+        exclude = [*exclude, EXCLUSION_GRADE]  # X means "never fitted" whatever the policy says
+    missing = [g for g in _FITTED if g not in inflation and g not in exclude]
+    if missing:
+        raise InputError(
+            f"{origin}, field 'inflation': no factor for grade {missing[0]} (or list it in exclude)"
+        )
+    ungraded = content.get("ungraded", "C")
+    if ungraded not in GRADES:
+        raise InputError(f"{origin}, field 'ungraded': '{ungraded}' is not a grade")
+    floors = content.get("floors", {})
+    unknown = content.get("unknown_noise", {})
+    balance = content.get("balance", {})
+    allowed = {"floors": {"absolute", "relative"}, "unknown_noise": {"action", "default_relative_sd"},
+               "balance": {"mode", "lab_cap"}}  # fmt: skip
+    for table, name in ((floors, "floors"), (unknown, "unknown_noise"), (balance, "balance")):
+        if not isinstance(table, dict):
+            raise InputError(f"{origin}, field '{name}': expected a table")
+        for key in table:
+            if key not in allowed[name]:
+                raise InputError(
+                    f"{origin}, field '{name}.{key}': unknown; expected one of {', '.join(sorted(allowed[name]))}"
+                )
+    action = unknown.get("action", "estimate")
+    if action not in ("estimate", "refuse", "default"):
+        raise InputError(
+            f"{origin}, field 'unknown_noise.action': '{action}'; expected estimate, refuse or default"
+        )
+    mode = balance.get("mode", "none")
+    if mode not in ("none", "equal", "sqrt"):
+        raise InputError(f"{origin}, field 'balance.mode': '{mode}'; expected none, equal or sqrt")
+    lab_cap = _number(origin, "balance.lab_cap", balance.get("lab_cap", 0.0))
+    if lab_cap >= 1.0:
+        raise InputError(
+            f"{origin}, field 'balance.lab_cap': {lab_cap}; expected 0 (no cap) or a share below 1"
+        )
+    normalised = {
+        "inflation": inflation,
+        "exclude": sorted(exclude),
+        "ungraded": ungraded,
+        "floors": {"absolute": _number(origin, "floors.absolute", floors.get("absolute", 0.0)),
+                   "relative": _number(origin, "floors.relative", floors.get("relative", 0.0))},
+        "unknown_noise": {"action": action,
+                          "default_relative_sd": _number(origin, "unknown_noise.default_relative_sd",
+                                                         unknown.get("default_relative_sd", 0.1), strict=True)},
+        "balance": {"mode": mode, "lab_cap": lab_cap},
+    }  # fmt: skip
+    # the hash covers what the policy does, not its comments or layout
+    sha256 = hashlib.sha256(canonical_json(normalised).encode()).hexdigest()
+    return Policy(
+        name=str(content.get("name", Path(origin).stem)),
+        inflation=inflation,
+        exclude=tuple(sorted(exclude)),
+        ungraded=ungraded,
+        absolute_floor=normalised["floors"]["absolute"],
+        relative_floor=normalised["floors"]["relative"],
+        unknown_noise=action,
+        default_relative_sd=normalised["unknown_noise"]["default_relative_sd"],
+        balance=mode,
+        lab_cap=lab_cap,
+        origin=origin,
+        text=text,
+        sha256=sha256,
+    )
+
+
+def kish_n_eff(weights: np.ndarray) -> float:
+    """Give Kish's effective sample size (sum w)^2 / sum w^2."""
+    w = np.asarray(weights, dtype=float)
+    total = float(np.sum(w))
+    return total * total / float(np.sum(w * w)) if total > 0 else 0.0
+
+
+@dataclass(frozen=True)
+class DatasetWeight:
+    """One dataset's part of the total weight of its observable."""
+
+    id: str
+    observable: str
+    lab: str
+    grade: str
+    n_points: int
+    inflation: float
+    balance: float
+    share: float  # of its observable's total weight (relative units: scale-free, w * median|y|^2)
+    n_eff: float
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the row as plain data."""
+        return dict(self.__dict__)
+
+
+@dataclass
+class WeightSummary:
+    """Shares, effective sample sizes and warnings of one weighting, per observable."""
+
+    policy: Policy
+    datasets: list[DatasetWeight]
+    lab_shares: dict[str, dict[str, float]]  # observable -> lab -> share
+    n_points: int
+    n_eff: dict[str, float]  # observable -> Kish n_eff
+    weight_span: dict[str, float]  # observable -> max/min weight
+    likelihood: bool
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the summary as plain data."""
+        return {
+            "policy": {
+                "name": self.policy.name,
+                "sha256": self.policy.sha256,
+                "origin": self.policy.origin,
+            },
+            "datasets": [d.to_dict() for d in self.datasets],
+            "lab_shares": self.lab_shares,
+            "n_points": self.n_points,
+            "n_eff": self.n_eff,
+            "weight_span": self.weight_span,
+            "likelihood": self.likelihood,
+            "warnings": self.warnings,
+        }
+
+
+def apply_policy(points: pd.DataFrame, policy: Policy) -> tuple[pd.DataFrame, WeightSummary]:
+    """Give the points with sd (floored), inflation, balance, sigma and weight columns, and a summary.
+
+    ``points`` needs columns dataset_id, observable, lab, grade (None for ungraded), value, sd. Rows of
+    excluded grades must already be gone (the selection removes them).
+    """
+    frame = points.copy()
+    if frame.empty:
+        raise InputError("nothing to weight: the selection holds no points")
+    grades = frame["grade"].where(frame["grade"].notna(), policy.ungraded).astype(str)
+    excluded = grades.isin(policy.exclude)
+    if excluded.any():
+        raise InputError(
+            f"dataset {frame.loc[excluded, 'dataset_id'].iloc[0]}: its grade is excluded by the policy"
+        )
+    frame["grade_used"] = grades
+    frame["inflation"] = grades.map(policy.inflation).astype(float)
+    sd = frame["sd"].to_numpy(dtype=float)
+    if not np.all(np.isfinite(sd)) or np.any(sd < 0):
+        bad = frame.loc[~np.isfinite(sd) | (sd < 0), "dataset_id"].iloc[0]
+        raise InputError(f"dataset {bad}: a point has no usable sd")
+    floored = np.maximum(sd, policy.absolute_floor)
+    floored = np.maximum(
+        floored, policy.relative_floor * np.abs(frame["value"].to_numpy(dtype=float))
+    )
+    if np.any(floored <= 0):
+        bad = frame.loc[floored <= 0, "dataset_id"].iloc[0]
+        raise InputError(
+            f"dataset {bad}: an sd of 0 with no noise floor would give an infinite weight; "
+            "set floors.absolute or floors.relative in the policy"
+        )
+    frame["sd"] = floored
+    base = 1.0 / (floored**2 * frame["inflation"].to_numpy())
+    ids = frame["dataset_id"].to_numpy()
+    unique_ids, inverse = np.unique(ids, return_inverse=True)
+    totals = np.bincount(inverse, weights=base)
+    sizes = np.bincount(inverse).astype(float)
+    labs = frame.groupby("dataset_id")["lab"].first().reindex(unique_ids).to_numpy()
+    observable_of = (
+        frame.groupby("dataset_id")["observable"].first().reindex(unique_ids).astype(str).to_numpy()
+    )
+    factors = np.ones(len(unique_ids))
+    # balancing and caps act within each observable: weights of different units do not add up
+    for observable in np.unique(observable_of):
+        part = observable_of == observable
+        if policy.balance == "equal":
+            factors[part] = totals[part].mean() / totals[part]
+        elif policy.balance == "sqrt":
+            target = np.sqrt(sizes[part])
+            factors[part] = target / totals[part] * (totals[part].sum() / target.sum())
+        if policy.lab_cap > 0 and len(np.unique(labs[part])) > 1:
+            factors[part] = (
+                _cap_labs(totals[part] * factors[part], labs[part], policy.lab_cap) / totals[part]
+            )
+    frame["balance"] = factors[inverse]
+    weight = base * frame["balance"].to_numpy()
+    frame["weight"] = weight
+    frame["sigma"] = 1.0 / np.sqrt(weight)
+    summary = _summarise(frame, policy, unique_ids, inverse, labs)
+    return frame, summary
+
+
+def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
+    """Give per-dataset totals rescaled so no lab carries more than ``cap`` of the whole."""
+    totals = totals.astype(float).copy()
+    lab_names = np.unique(labs)
+    if cap * len(lab_names) < 1.0:
+        raise InputError(
+            f"balance.lab_cap {cap}: {len(lab_names)} labs cannot each stay below it (need cap >= {1 / len(lab_names):.3g})"
+        )
+    for _ in range(100):
+        whole = totals.sum()
+        shares = {lab: totals[labs == lab].sum() / whole for lab in lab_names}
+        over = [lab for lab, share in shares.items() if share > cap + 1e-12]
+        if not over:
+            return totals
+        under_total = sum(totals[labs == lab].sum() for lab in lab_names if lab not in over)
+        # capped labs take exactly cap each; the rest keep their proportions
+        capped_share = cap * len(over)
+        for lab in over:
+            totals[labs == lab] *= (cap * under_total / (1 - capped_share)) / totals[
+                labs == lab
+            ].sum()
+    return totals
+
+
+def _summarise(
+    frame: pd.DataFrame, policy: Policy, ids: np.ndarray, inverse: np.ndarray, labs: np.ndarray
+) -> WeightSummary:
+    weight = frame["weight"].to_numpy()
+    if "relative" in frame.columns and frame["relative"].any():
+        # a relative-unit dataset carries its own scale factor, so its raw weights depend on
+        # its arbitrary units: compare w * m^2 (m = the dataset's median |y|), i.e. 1/CV^2
+        magnitude = frame.groupby("dataset_id")["value"].transform(
+            lambda v: float(np.median(np.abs(v))) or 1.0
+        )
+        relative = frame["relative"].to_numpy(dtype=bool)
+        weight = np.where(relative, weight * magnitude.to_numpy() ** 2, weight)
+    per_dataset = np.bincount(inverse, weights=weight)
+    per_dataset_sq = np.bincount(inverse, weights=weight**2)
+    first = frame.groupby("dataset_id").first().reindex(ids)
+    sizes = np.bincount(inverse)
+    observable_of = first["observable"].astype(str).to_numpy()
+    totals = {
+        obs: float(per_dataset[observable_of == obs].sum()) for obs in np.unique(observable_of)
+    }
+    rows = [
+        DatasetWeight(
+            id=str(ident),
+            observable=str(observable_of[k]),
+            lab=str(first.loc[ident, "lab"]),
+            grade=str(first.loc[ident, "grade_used"]),
+            n_points=int(sizes[k]),
+            inflation=float(first.loc[ident, "inflation"]),
+            balance=float(first.loc[ident, "balance"]),
+            share=float(per_dataset[k] / totals[observable_of[k]]),
+            n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
+        )
+        for k, ident in enumerate(ids)
+    ]
+    lab_shares: dict[str, dict[str, float]] = {}
+    for row in rows:
+        shares = lab_shares.setdefault(row.observable, {})
+        shares[row.lab] = shares.get(row.lab, 0.0) + row.share
+    observables = frame["observable"].astype(str).to_numpy()
+    n_eff = {obs: kish_n_eff(weight[observables == obs]) for obs in totals}
+    span = {
+        obs: float(weight[observables == obs].max() / weight[observables == obs].min())
+        for obs in totals
+    }
+    warnings = []
+    for row in rows:
+        if row.share > 0.5 and sum(r.observable == row.observable for r in rows) > 1:
+            warnings.append(
+                f"dataset {row.id} carries {100 * row.share:.0f}% of the {row.observable} weight: "
+                "the fit of that observable is mostly this one dataset"
+            )
+    for obs, value in span.items():
+        if value > 1e6:
+            warnings.append(
+                f"{obs} weights span a factor of {value:.2g} (more than 1e6): check the smallest sds and the noise floors"
+            )
+    if not policy.is_likelihood:
+        warnings.append(
+            "balancing or a lab cap is on: the weighted sum of squares is no longer a likelihood, "
+            "so chi2 and standard errors from it lose their usual meaning"
+        )
+    return WeightSummary(
+        policy=policy,
+        datasets=rows,
+        lab_shares=lab_shares,
+        n_points=len(frame),
+        n_eff=n_eff,
+        weight_span=span,
+        likelihood=policy.is_likelihood,
+        warnings=warnings,
+    )
