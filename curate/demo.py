@@ -11,6 +11,7 @@ from curate.catalog import Catalog, VerifyReport
 from curate.errors import InputError
 from curate.ingest.inbox import IntakeReport
 from curate.records import DatasetVersion
+from curate.weights import WeightSummary
 
 __all__ = ["DemoResult", "default_examples", "run_demo"]
 
@@ -30,6 +31,8 @@ class DemoResult:
     grades: dict[str, str]
     consistency: ConsistencyReport
     datasets: list[DatasetVersion] = field(default_factory=list)
+    exports: dict[str, Path] = field(default_factory=dict)
+    weights: WeightSummary | None = None
     verify: VerifyReport | None = None
 
 
@@ -37,7 +40,7 @@ def run_demo(
     outdir: Path, *, examples: Path | None = None, force: bool = False, actor: str = "curate-demo"
 ) -> DemoResult:
     """Log the example data into a fresh catalog in ``outdir``, estimate noise, grade from the
-    checklists, and check consistency; give what was found.
+    checklists, check consistency, write every export and the folds; give what was found.
     """
     source = examples or default_examples()
     if not (source / "data").is_dir():
@@ -52,6 +55,9 @@ def run_demo(
     catalog_path = outdir / "curate.db"
     for stale in (catalog_path, outdir / "curate.db-wal", outdir / "curate.db-shm"):
         stale.unlink(missing_ok=True)
+    for ours in ("exports", "folds"):  # only the demo's own output folders are replaced
+        if (outdir / ours).is_dir() and force:
+            shutil.rmtree(outdir / ours)
     inbox = outdir / "inbox"
     if inbox.exists():
         shutil.rmtree(inbox)
@@ -72,6 +78,12 @@ def run_demo(
                 grades[dataset_id] = graded.grade
         consistency = catalog.consistency()
         datasets = catalog.list(include_retired=True)
+        exports = {}
+        for fmt in ("table", "petab", "datapackage", "prov"):
+            exports[fmt] = catalog.export(fmt, outdir / "exports" / fmt).outdir
+        for by in ("dataset", "lab"):
+            exports[f"folds by {by}"] = catalog.folds(by, outdir / "folds" / by).outdir
+        summary = catalog.weights()
         verify = catalog.verify()
     return DemoResult(
         catalog_path=catalog_path,
@@ -80,5 +92,7 @@ def run_demo(
         grades=grades,
         consistency=consistency,
         datasets=datasets,
+        exports=exports,
+        weights=summary,
         verify=verify,
     )

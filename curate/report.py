@@ -466,6 +466,18 @@ def demo_text(result: DemoResult) -> Group:
                 f"   suggested (not applied): {suggestion.dataset_id} {suggestion.current or 'ungraded'} -> {suggestion.suggested}"
             )
         )
+    if result.weights is not None:
+        heavy = ", ".join(f"{obs}: n_eff {n:.0f}" for obs, n in result.weights.n_eff.items())
+        parts.append(
+            Text(
+                f"5. weighted every point by its grade and noise ({result.weights.policy.name} policy; {heavy})"
+            )
+        )
+    if result.exports:
+        parts.append(
+            Text("6. wrote exports and holdout folds, each with README.txt and manifest.json:")
+        )
+        parts += [Text(f"   {name}: {path}") for name, path in result.exports.items()]
     parts.append(Text(""))
     parts.append(list_table(result.datasets))
     parts.append(Text(""))
