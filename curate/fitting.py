@@ -542,7 +542,7 @@ def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
             seed=options.seed, polish=False, tol=1e-8, maxiter=300,
         )  # fmt: skip
         candidates = [np.asarray(found.x), *candidates]
-    starts = []
+    starts: list[dict[str, Any]] = []
     best = None
     for number, x0 in enumerate(candidates):
         try:
@@ -558,7 +558,7 @@ def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
             )
             continue
         chi2 = float(2 * solution.cost)
-        record = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
+        record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
                   "message": str(solution.message), "from": "global search" if options.global_search and number == 0 else "start"}  # fmt: skip
         starts.append(record)
         if best is None or chi2 < 2 * best.cost:

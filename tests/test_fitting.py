@@ -53,7 +53,7 @@ def test_nist_higher_difficulty_from_start_2(name):
 def test_multistart_rescues_a_hard_start():
     # MGH09 from start 1 is a known failure for local optimisers; Latin-hypercube starts inside
     # generous bounds find the certified minimum
-    points, function, spec, content, names = nist.problem("MGH09", "start1")
+    points, function, _spec, content, names = nist.problem("MGH09", "start1")
     bounded = fitting.spec_from_dict({"parameters": {n: {"start": s, "lower": -1.0, "upper": 1.0} for n, s in
                                                      zip(names, [0.25, 0.39, 0.415, 0.39], strict=True)}})  # fmt: skip
     result = fitting.fit(
@@ -153,7 +153,7 @@ def test_log_parameter_stderr_maps_to_natural_scale():
 
 
 def test_global_search_then_polish():
-    points, function, spec, content, names = nist.problem("BoxBOD", "start1")
+    points, function, _spec, content, _names = nist.problem("BoxBOD", "start1")
     bounded = fitting.spec_from_dict({"parameters": {"b1": {"start": 1.0, "lower": 1.0, "upper": 1000.0},
                                                      "b2": {"start": 1.0, "lower": 0.01, "upper": 5.0}}})  # fmt: skip
     result = fitting.fit(
