@@ -608,6 +608,38 @@ class Catalog:
 
         return exporting.impact(self, dataset_id)
 
+    # -- fits and sensitivity (see curate.analysis) ---------------------------------------
+
+    def fit(self, model: str, params: str | Path, *, policy: str | Path | None = None, selection: Any = None,
+            options: Any = None) -> Any:  # fmt: skip
+        """Fit a Python model (module:function or file.py:function) to the weighted selection."""
+        from curate import analysis, weights
+
+        return analysis.run_fit(
+            self,
+            model,
+            params,
+            policy=weights.load_policy(policy),
+            selection=selection,
+            options=options,
+        )
+
+    def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
+                    fitter_cmd: str | None = None, method: str = "exact", policy: str | Path | None = None,
+                    selection: Any = None, options: Any = None, workers: int = 1, dask: str | None = None,
+                    threshold: float = 2.0, policies: Sequence[str | Path] | None = None,
+                    timeout: float = 600.0, workdir: str | Path | None = None,
+                    progress: Callable[[int, int], None] | None = None) -> Any:  # fmt: skip
+        """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs."""
+        from curate import analysis, weights
+
+        return analysis.run_sensitivity(
+            self, by=by, model_ref=model, spec_path=params, fitter_cmd=fitter_cmd, method=method,
+            policy=weights.load_policy(policy), selection=selection, options=options, workers=workers, dask=dask,
+            threshold=threshold, alternative_policies=[weights.load_policy(p) for p in policies or []],
+            timeout=timeout, workdir=workdir, progress=progress,
+        )  # fmt: skip
+
     def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
         """Hide a dataset from later selections (a new version; nothing is deleted)."""
         if not reason.strip():

@@ -689,6 +689,138 @@ def impact(
 
 
 @app.command()
+def fit(
+    model: Annotated[str, typer.Option(help="module:function or path/to/model.py:function")],
+    params: Annotated[
+        Path, typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)")
+    ],
+    policy: PolicyOption = None,
+    observable: SelectObservable = None,
+    lab: SelectLab = None,
+    condition: SelectCondition = None,
+    grade: SelectGrade = None,
+    ids: SelectId = None,
+    versions: SelectVersion = None,
+    retired: SelectRetired = False,
+    starts: Annotated[
+        int, typer.Option(help="number of starts (Latin hypercube within the bounds)")
+    ] = 1,
+    seed: Annotated[int, typer.Option(help="seed of the multi-start sampler")] = 0,
+    global_search: Annotated[
+        bool, typer.Option("--global", help="differential evolution first (finite bounds)")
+    ] = False,
+    scale_covariance: Annotated[
+        bool,
+        typer.Option(
+            help="scale the covariance by the reduced chi2 (when sigmas are only relative)"
+        ),
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Fit a model to the weighted selection: values, standard errors, scale factors, chi2."""
+    from curate.fitting import FitOptions
+
+    selection = _selection(observable, lab, condition, grade, ids, versions, retired)
+    if starts < 1:
+        raise InputError(f"--starts {starts}: expected at least 1")
+    options = FitOptions(
+        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance
+    )
+    with _catalog() as catalog:
+        result = catalog.fit(model, params, policy=policy, selection=selection, options=options)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.fit_text(result))
+
+
+@app.command()
+def sensitivity(
+    by: Annotated[str, typer.Option(help="dataset, lab or condition:KEY")] = "dataset",
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
+    params: Annotated[Path | None, typer.Option(help="parameter spec TOML")] = None,
+    fitter_cmd: Annotated[
+        str | None, typer.Option(help="external fitter instead of --model: 'COMMAND {data} {out}'")
+    ] = None,
+    method: Annotated[str, typer.Option(help="exact refits, or one-step screening")] = "exact",
+    workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
+    dask: Annotated[
+        str | None, typer.Option(help="Dask scheduler address, or 'local' for a LocalCluster")
+    ] = None,
+    threshold: Annotated[
+        float, typer.Option(help="flag shifts beyond this many standard errors")
+    ] = 2.0,
+    policies: Annotated[
+        list[Path] | None, typer.Option(help="alternative policies to refit under: P1 P2 ...")
+    ] = None,
+    report_file: Annotated[
+        Path | None, typer.Option("--report", help="write an HTML report here")
+    ] = None,
+    timeout: Annotated[
+        float, typer.Option(help="seconds each external fitter run may take")
+    ] = 600.0,
+    workdir: Annotated[
+        Path | None, typer.Option(help="folder for the external fitter's files")
+    ] = None,
+    policy: PolicyOption = None,
+    observable: SelectObservable = None,
+    lab: SelectLab = None,
+    condition: SelectCondition = None,
+    grade: SelectGrade = None,
+    ids: SelectId = None,
+    versions: SelectVersion = None,
+    retired: SelectRetired = False,
+    starts: Annotated[int, typer.Option(help="starts of the full fit")] = 1,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
+    import os
+
+    from curate.fitting import FitOptions
+
+    selection = _selection(observable, lab, condition, grade, ids, versions, retired)
+    count = workers if workers > 0 else (os.cpu_count() or 1)
+    with _catalog() as catalog:
+        show_bar = not as_json and err_console.is_terminal
+        with Progress(TextColumn("refitting"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+                      console=err_console, transient=True, disable=not show_bar) as bar:  # fmt: skip
+            task = bar.add_task("", total=None)
+
+            def progress(done: int, total: int) -> None:
+                bar.update(task, completed=done, total=total)
+
+            result = catalog.sensitivity(
+                by=by,
+                model=model,
+                params=params,
+                fitter_cmd=fitter_cmd,
+                method=method,
+                policy=policy,
+                selection=selection,
+                options=FitOptions(starts=starts),
+                workers=count,
+                dask=dask,
+                threshold=threshold,
+                policies=policies or [],
+                timeout=timeout,
+                workdir=workdir,
+                progress=progress,
+            )
+    if report_file is not None:
+        from curate.html import write_sensitivity_report
+
+        write_sensitivity_report(result, report_file)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(report.sensitivity_text(result))
+        if report_file is not None:
+            out.print(f"report: {report_file}")
+
+
+@app.command()
 def demo(
     outdir: Annotated[
         Path, typer.Argument(help="folder for the demo's catalog and outputs")
@@ -711,8 +843,29 @@ def _fail(message: str, code: int = 2) -> None:
     sys.exit(code)
 
 
+def _spread_multi_value_options(argv: list[str]) -> list[str]:
+    """Turn ``--policies A B C`` into ``--policies A --policies B --policies C``."""
+    spread: list[str] = []
+    k = 0
+    while k < len(argv):
+        token = argv[k]
+        spread.append(token)
+        k += 1
+        if token == "--policies":
+            values = []
+            while k < len(argv) and not argv[k].startswith("-"):
+                values.append(argv[k])
+                k += 1
+            if values:
+                spread.append(values[0])
+                for value in values[1:]:
+                    spread += ["--policies", value]
+    return spread
+
+
 def main(argv: list[str] | None = None) -> None:
     """Run the command line; user errors exit 2 with one line on stderr."""
+    argv = _spread_multi_value_options(list(sys.argv[1:] if argv is None else argv))
     try:
         code = app(args=argv, prog_name="curate", standalone_mode=False)
     except CurateError as err:

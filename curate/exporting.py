@@ -554,12 +554,13 @@ class ImpactEntry:
 
 
 def impact(catalog: Catalog, dataset_id: str) -> list[ImpactEntry]:
-    """Give every export (and fold set) that used a since-corrected or retired version of a dataset."""
+    """Give every export, fold set, fit and sensitivity run that used a since-corrected or retired
+    version of a dataset."""
     current = catalog.show(dataset_id)
     history = catalog.history(dataset_id)
     found = []
     for event in catalog.events():
-        if event["kind"] != "export":
+        if event["kind"] not in ("export", "fit", "sensitivity"):
             continue
         used = [v for ident, v in event["payload"]["datasets"] if ident == dataset_id]
         if not used or used[0] >= current.version:

@@ -588,3 +588,107 @@ def impact_text(dataset_id: str, found: list[Any]) -> Text:
         lines.append(f"  {entry.at[:19].replace('T', ' ')}  {entry.format}  {entry.outdir}: used version "
                      f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
     return Text("\n".join(lines))
+
+
+def fit_text(result: Any) -> Group:
+    """Give what ``curate fit`` prints."""
+    parts: list[Any] = [Text(f"chi2 {result.chi2:.4g} on {result.dof} dof (reduced {result.reduced_chi2:.3g}), "
+                             f"{result.n_points} points, {'converged' if result.converged else 'NOT converged'}: {result.message}")]  # fmt: skip
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in ("parameter", "value", "stderr", "rel. error"):
+        table.add_column(name, justify="left" if name == "parameter" else "right")
+    for name, p in result.parameters.items():
+        value, se = p["value"], p["stderr"]
+        relative = f"{100 * se / abs(value):.1f}%" if (se is not None and value) else "-"
+        table.add_row(name, f"{value:.6g}", "fixed" if se is None else f"{se:.3g}", relative)
+    parts.append(table)
+    if result.scale_factors:
+        parts.append(
+            Text(
+                "scale factors: "
+                + ", ".join(f"{k} {v:.4g}" for k, v in result.scale_factors.items())
+            )
+        )
+    if len(result.starts) > 1:
+        best = sorted(s["chi2"] for s in result.starts if s["chi2"] is not None)
+        parts.append(
+            Text(
+                f"{len(result.starts)} starts; best chi2 values: "
+                + ", ".join(f"{c:.4g}" for c in best[:5])
+            )
+        )
+    return Group(*parts)
+
+
+def sensitivity_text(result: Any) -> Group:
+    """Give what ``curate sensitivity`` prints."""
+    full = result.full if isinstance(result.full, dict) else result.full.to_dict()
+    names = list(full["parameters"])
+    parts: list[Any] = [Text(f"leave one {result.by} out ({result.method}, {result.executor}); "
+                             f"flags beyond {result.shift_threshold:g} SE", style="bold")]  # fmt: skip
+    table = Table(box=None, pad_edge=False, header_style="bold")
+    table.add_column(f"without {result.by}")
+    table.add_column("points", justify="right")
+    for name in names:
+        table.add_column(f"{name} (SE)", justify="right")
+    for name in ("Cook D", "held-out chi2/dof"):
+        table.add_column(name, justify="right")
+    for group in result.groups:
+        if group.error:
+            table.add_row(
+                group.group, str(group.n_points), *(["-"] * len(names)), "-", group.error[:40]
+            )
+            continue
+        shifts = []
+        for name in names:
+            z = group.parameters.get(name, {}).get("shift_se")
+            shifts.append(
+                "-"
+                if z is None
+                else f"{z:+.2f}" + (" !" if abs(z) > result.shift_threshold else "")
+            )
+        heldout = (
+            f"{group.heldout_chi2:.1f}/{group.heldout_dof}"
+            if group.heldout_chi2 is not None
+            else "-"
+        )
+        table.add_row(
+            group.group,
+            str(group.n_points),
+            *shifts,
+            "-" if group.cook_distance is None else f"{group.cook_distance:.3g}",
+            heldout,
+        )
+    parts.append(table)
+    se_table = Table(box=None, pad_edge=False, header_style="bold")
+    for name in ("parameter", "value", "asymptotic SE", "jackknife SE"):
+        se_table.add_column(name, justify="left" if name == "parameter" else "right")
+    for name in names:
+        p = full["parameters"][name]
+        jack = result.jackknife_stderr.get(name)
+        se_table.add_row(name, f"{p['value']:.6g}", "-" if p.get("stderr") is None else f"{p['stderr']:.3g}",
+                         "-" if jack is None else f"{jack:.3g}")  # fmt: skip
+    parts.append(Text(""))
+    parts.append(se_table)
+    for entry in result.policies:
+        moved = ", ".join(
+            f"{n} {v['shift_se']:+.2f} SE"
+            for n, v in entry["parameters"].items()
+            if v["shift_se"] is not None
+        )
+        parts.append(Text(f"under policy {entry['policy']} ({entry['origin']}): {moved}"))
+    flags = result.flags()
+    parts.append(Text(""))
+    if flags:
+        parts.append(Text("conclusions that hinge on one group:", style="bold"))
+        parts += [Text(f"  {flag}") for flag in flags]
+    else:
+        parts.append(
+            Text(
+                f"no parameter moves more than {result.shift_threshold:g} SE when any one {result.by} is left out"
+            )
+        )
+    parts.append(
+        Text("A stable fit can still be wrong in every dataset at once: this check is not proof.")
+    )
+    return Group(*parts)
