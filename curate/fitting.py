@@ -43,6 +43,7 @@ __all__ = [
     "FitResult",
     "ParameterSpec",
     "fit",
+    "jacobian",
     "load_model",
     "load_spec",
     "model_sha256",
@@ -462,6 +463,23 @@ def _least_squares(
     )  # fmt: skip
 
 
+def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+    """Give the Jacobian of the projected residual by central differences.
+
+    Steps of eps^(1/3) relative size balance truncation and rounding (about 1e-10 relative
+    error for smooth models), better than the optimiser's own forward differences.
+    """
+    step = 6e-6 * np.maximum(1.0, np.abs(theta))
+    columns = []
+    for k in range(len(theta)):
+        e = np.zeros(len(theta))
+        e[k] = step[k]
+        columns.append(
+            (problem.residual(theta + e, rows) - problem.residual(theta - e, rows)) / (2 * step[k])
+        )
+    return np.column_stack(columns)
+
+
 def covariance_from_jacobian(jacobian: np.ndarray) -> np.ndarray:
     """Give (J^T J)^-1 by SVD (pseudo-inverse where J is rank deficient)."""
     _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
@@ -565,5 +583,5 @@ def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
             best = solution
     if best is None:
         raise InputError("no start converged: " + "; ".join(str(s["message"]) for s in starts[:3]))
-    return summarise(problem, best.x, best.jac, converged=bool(best.success), starts=starts,
+    return summarise(problem, best.x, jacobian(problem, best.x), converged=bool(best.success), starts=starts,
                      message=str(best.message), options=options)  # fmt: skip

@@ -177,7 +177,10 @@ def check_against_others(
     if relative or magnitude <= 0 or len(same_observable) < 1:
         return warnings
     others_level = float(np.median([o.magnitude for o in same_observable]))
-    ratio = np.log10(magnitude / others_level)
+    with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+        ratio = float(np.log10(magnitude) - np.log10(others_level))
+    if not np.isfinite(ratio):
+        return warnings
     for decades in _SLIP_DECADES:
         if abs(abs(ratio) - decades) < _SLIP_TOLERANCE:
             warnings.append(

@@ -127,3 +127,17 @@ def test_relative_units_skip_magnitude_comparison():
         others=[neighbour("a", 14.0)],
     )
     assert warnings == []
+
+
+def test_extreme_magnitudes_give_no_numeric_warnings():
+    # found by the round-trip property test: tiny against huge magnitudes must not overflow
+    for mine, theirs in ((5e-324, 1e300), (1e300, 5e-324), (1e-300, 1e-300)):
+        check_against_others(
+            observable="velarin",
+            unit="nanomolar",
+            relative=False,
+            conditions="{}",
+            content_hash="new",
+            magnitude=mine,
+            others=[neighbour("a", theirs)],
+        )
