@@ -243,7 +243,8 @@ def run_sensitivity(
 
 
 def _summary(result: sensitivity.SensitivityResult) -> dict[str, Any]:
+    """Give the whole result as plain data (the report draws from the newest recorded run)."""
     data = result.to_dict()
-    full = data["full"]
-    return {"by": result.by, "method": result.method, "flags": result.flags(),
-            "parameters": full.get("parameters"), "jackknife_stderr": result.jackknife_stderr}  # fmt: skip
+    data["full"] = {k: v for k, v in data["full"].items() if k != "starts"}
+    data["flags"] = result.flags()
+    return data

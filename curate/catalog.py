@@ -35,6 +35,7 @@ from curate.records import (
     SeriesArrays,
     canonical_json,
     content_hash,
+    jsonable,
     record_hash,
 )
 from curate.store import Store, VersionRow
@@ -499,7 +500,9 @@ class Catalog:
     ) -> None:
         """Append an event that writes no version (checklist answers, suggestions)."""
         with self._store.transaction():
-            self._store.append_event(kind, payload, actor=self.actor, dataset_id=dataset_id)
+            self._store.append_event(
+                kind, jsonable(payload), actor=self.actor, dataset_id=dataset_id
+            )
 
     def latest_event(self, dataset_id: str, kind: str) -> dict[str, Any] | None:
         """Give the newest event of ``kind`` for a dataset, or None."""
@@ -639,6 +642,12 @@ class Catalog:
             threshold=threshold, alternative_policies=[weights.load_policy(p) for p in policies or []],
             timeout=timeout, workdir=workdir, progress=progress,
         )  # fmt: skip
+
+    def report(self, path: str | Path, *, policy: str | Path | None = None) -> str:
+        """Write the self-contained HTML report of the catalog; give its sha256."""
+        from curate import report_html
+
+        return report_html.write_report(self, path, policy=policy)
 
     def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
         """Hide a dataset from later selections (a new version; nothing is deleted)."""

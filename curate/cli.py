@@ -820,6 +820,17 @@ def sensitivity(
             out.print(f"report: {report_file}")
 
 
+@app.command("report")
+def report_command(
+    out_file: Annotated[Path, typer.Argument(metavar="OUT.html", help="where to write the report")],
+    policy: PolicyOption = None,
+) -> None:
+    """Write one self-contained HTML report: catalog, series, weights, consistency, fit, sensitivity."""
+    with _catalog() as catalog:
+        catalog.report(out_file, policy=policy)
+    out.print(f"report: {out_file}")
+
+
 @app.command()
 def demo(
     outdir: Annotated[

@@ -2,9 +2,12 @@
 
 from __future__ import annotations
 
+import os
+import runpy
 import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Any
 
 from curate.assess import ConsistencyReport
 from curate.catalog import Catalog, VerifyReport
@@ -33,14 +36,23 @@ class DemoResult:
     datasets: list[DatasetVersion] = field(default_factory=list)
     exports: dict[str, Path] = field(default_factory=dict)
     weights: WeightSummary | None = None
+    accepted: list[str] = field(default_factory=list)
+    before: Any = None  # sensitivity by dataset before the suggestions were accepted
+    fit: Any = None
+    sensitivity: dict[str, Any] = field(default_factory=dict)
+    truth: dict[str, float] = field(default_factory=dict)
+    report: Path | None = None
     verify: VerifyReport | None = None
 
 
 def run_demo(
     outdir: Path, *, examples: Path | None = None, force: bool = False, actor: str = "curate-demo"
 ) -> DemoResult:
-    """Log the example data into a fresh catalog in ``outdir``, estimate noise, grade from the
-    checklists, check consistency, write every export and the folds; give what was found.
+    """Run the whole job on the example data in a fresh catalog in ``outdir``; give what was found.
+
+    Intake, noise, grades from the checklists, consistency (its suggestions accepted, as a
+    reviewer would after looking), weights, every export and fold set, the fit, sensitivity
+    by dataset and by lab, and the HTML report.
     """
     source = examples or default_examples()
     if not (source / "data").is_dir():
@@ -77,13 +89,45 @@ def run_demo(
             if graded is not None and graded.grade is not None:
                 grades[dataset_id] = graded.grade
         consistency = catalog.consistency()
-        datasets = catalog.list(include_retired=True)
+        policy = source / "policy.toml"
+        policy_path = policy if policy.is_file() else None
+        model, params = source / "model.py", source / "params.toml"
+        reference = f"{model.resolve()}:predict"
+        has_model = model.is_file() and params.is_file()
+        workers = max(1, min(os.cpu_count() or 1, 4))
+        before = None
+        if (
+            has_model
+        ):  # with the grades as the checklists set them: does the fit hinge on one dataset?
+            before = catalog.sensitivity(
+                by="dataset", model=reference, params=params, policy=policy_path, workers=workers
+            )
+        # the demo stands in for the person who reviews each finding and accepts its suggestion
+        accepted = []
+        for suggestion in consistency.suggestions:
+            catalog.accept_suggestion(suggestion.dataset_id)
+            accepted.append(suggestion.dataset_id)
         exports = {}
         for fmt in ("table", "petab", "datapackage", "prov"):
-            exports[fmt] = catalog.export(fmt, outdir / "exports" / fmt).outdir
+            exports[fmt] = catalog.export(fmt, outdir / "exports" / fmt, policy=policy_path).outdir
         for by in ("dataset", "lab"):
-            exports[f"folds by {by}"] = catalog.folds(by, outdir / "folds" / by).outdir
-        summary = catalog.weights()
+            exports[f"folds by {by}"] = catalog.folds(
+                by, outdir / "folds" / by, policy=policy_path
+            ).outdir
+        summary = catalog.weights(policy=policy_path)
+        fitted = None
+        sensitivity: dict[str, Any] = {}
+        truth: dict[str, float] = {}
+        if has_model:
+            fitted = catalog.fit(reference, params, policy=policy_path)
+            for by in ("dataset", "lab"):
+                sensitivity[by] = catalog.sensitivity(
+                    by=by, model=reference, params=params, policy=policy_path, workers=workers
+                )
+            truth = dict(runpy.run_path(str(model)).get("TRUTH", {}))
+        report = outdir / "report.html"
+        catalog.report(report, policy=policy_path)
+        datasets = catalog.list(include_retired=True)
         verify = catalog.verify()
     return DemoResult(
         catalog_path=catalog_path,
@@ -94,5 +138,11 @@ def run_demo(
         datasets=datasets,
         exports=exports,
         weights=summary,
+        accepted=accepted,
+        before=before,
+        fit=fitted,
+        sensitivity=sensitivity,
+        truth=truth,
+        report=report,
         verify=verify,
     )

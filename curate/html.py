@@ -98,7 +98,7 @@ def sensitivity_section(result: Any) -> str:
     full = result.full if isinstance(result.full, dict) else result.full.to_dict()
     names = list(full["parameters"])
     groups = [g for g in result.groups if g.error is None]
-    parts = [f'<section id="sensitivity"><h2>Leave one {html.escape(result.by)} out</h2>',
+    parts = [f'<section id="sensitivity-{html.escape(result.by.replace(":", "-"))}"><h2>Leave one {html.escape(result.by)} out</h2>',
              f'<p class="note">Method: {html.escape(result.method)} ({html.escape(result.executor)}). Each point is a '
              f"parameter's shift, in full-fit standard errors, when that {html.escape(result.by)} is left out; dashed lines "
              f"mark the flag threshold of ±{result.shift_threshold:g} SE.</p>"]  # fmt: skip

@@ -51,6 +51,7 @@ __all__ = [
     "UncertaintyType",
     "canonical_json",
     "content_hash",
+    "jsonable",
     "record_hash",
 ]
 
@@ -305,6 +306,19 @@ def content_hash(arrays: SeriesArrays, *, value_unit: str, time_unit: str = "sec
             digest.update(f"|{name}:".encode())
             digest.update(array_bytes(name, array))
     return digest.hexdigest()
+
+
+def jsonable(value: Any) -> Any:
+    """Give plain JSON data: numpy scalars unwrapped, NaN and infinities as None."""
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, list | tuple):
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.generic):
+        value = value.item()
+    if isinstance(value, float) and not np.isfinite(value):
+        return None
+    return value
 
 
 def canonical_json(value: Any) -> str:

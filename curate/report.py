@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import pandas as pd
@@ -418,7 +419,8 @@ def demo_text(result: DemoResult) -> Group:
     intake = result.intake
     parts: list[Any] = [
         Text(
-            "curate demo: an invented scenario (four invented labs, two observables)", style="bold"
+            "curate demo: an invented scenario (four invented labs, two observables, one planted fault)",
+            style="bold",
         )
     ]
     parts.append(
@@ -460,37 +462,85 @@ def demo_text(result: DemoResult) -> Group:
         )
     else:
         parts.append(Text("4. consistency: every compared dataset agrees with the others"))
+    if result.before is not None:
+        rows = [g for g in result.before.groups if g.error is None and g.cook_distance is not None]
+        hinged = sorted({g.group for g in rows if g.flags})
+        if rows:
+            cook = max(rows, key=lambda g: g.cook_distance or 0.0)
+            worst = max(rows, key=lambda g: (g.heldout_chi2 or 0.0) / max(g.heldout_dof or 1, 1))
+            parts.append(Text(
+                f"   before review, the fit hinges on {len(hinged)} of {len(rows)} datasets left out one at a time; "
+                f"largest Cook distance {cook.cook_distance:.3g} without {cook.group}; worst held-out fit: "
+                f"{worst.group} at chi2/dof {(worst.heldout_chi2 or 0.0) / max(worst.heldout_dof or 1, 1):.1f}"
+            ))  # fmt: skip
     for suggestion in result.consistency.suggestions:
+        accepted = suggestion.dataset_id in result.accepted
         parts.append(
             Text(
-                f"   suggested (not applied): {suggestion.dataset_id} {suggestion.current or 'ungraded'} -> {suggestion.suggested}"
+                f"   suggested {suggestion.dataset_id} {suggestion.current or 'ungraded'} -> {suggestion.suggested}"
+                + (" (accepted by the demo, standing in for the reviewer)" if accepted else "")
             )
         )
     if result.weights is not None:
         heavy = ", ".join(f"{obs}: n_eff {n:.0f}" for obs, n in result.weights.n_eff.items())
         parts.append(
             Text(
-                f"5. weighted every point by its grade and noise ({result.weights.policy.name} policy; {heavy})"
+                f"5. weighted every point by its grade and noise ({result.weights.policy.name}; {heavy})"
             )
         )
     if result.exports:
         parts.append(
-            Text("6. wrote exports and holdout folds, each with README.txt and manifest.json:")
+            Text(
+                "6. wrote exports and holdout folds, each with README.txt and manifest.json, under "
+                f"{Path(next(iter(result.exports.values()))).parent.parent}"
+            )
         )
-        parts += [Text(f"   {name}: {path}") for name, path in result.exports.items()]
-    parts.append(Text(""))
-    parts.append(list_table(result.datasets))
-    parts.append(Text(""))
-    parts.append(consistency_text(result.consistency))
+    if result.fit is not None:
+        fit = result.fit
+        parts.append(
+            Text(
+                f"7. fitted the scenario's ODE model: chi2 {fit.chi2:.1f} on {fit.dof} dof (reduced {fit.reduced_chi2:.2f})"
+            )
+        )
+        if result.truth:
+            within = []
+            for name, truth in result.truth.items():
+                p = fit.parameters.get(name)
+                if p and p["stderr"]:
+                    within.append(
+                        f"{name} {p['value']:.3g} ± {p['stderr']:.2g} (true {truth:g}, {(p['value'] - truth) / p['stderr']:+.1f} SE)"
+                    )
+            parts.append(
+                Text("   against the values that generated the invented data: " + "; ".join(within))
+            )
+    for by, sens in result.sensitivity.items():
+        worst = max(
+            (g for g in sens.groups if g.cook_distance is not None),
+            key=lambda g: g.cook_distance,
+            default=None,
+        )
+        text = f"8. after review, leave one {by} out: {len(sens.flags())} flag(s)"
+        if worst is not None:
+            moved = max(((n, v["shift_se"]) for n, v in worst.parameters.items() if v["shift_se"] is not None),
+                        key=lambda item: abs(item[1]), default=None)  # fmt: skip
+            text += f"; the conclusions depend most on {by} {worst.group} (Cook distance {worst.cook_distance:.2f}"
+            if moved:
+                text += f", {moved[0]} shifts {moved[1]:+.1f} SE without it"
+            if worst.heldout_chi2 is not None and worst.heldout_dof:
+                text += f", its own data fit at chi2/dof {worst.heldout_chi2 / worst.heldout_dof:.1f} without it"
+            text += ")"
+        parts.append(Text(text))
     if result.verify is not None:
-        parts.append(verify_text(result.verify))
+        parts.append(Text("9. " + str(verify_text(result.verify))))
+    if result.report is not None:
+        parts.append(Text(f"report (open it in a browser): {result.report}"))
     parts.append(
-        Text(
-            f"catalog: {result.catalog_path}  (try: curate --catalog {result.catalog_path} show ID)"
-        )
+        Text(f"catalog: {result.catalog_path}  (try: curate --catalog {result.catalog_path} list)")
     )
     parts.append(
-        Text("Grades and suggestions are judgements, and agreement is not proof; see the README.")
+        Text(
+            "Grades, suggestions and weights are judgements, and a stable fit is not proof: see the README."
+        )
     )
     return Group(*parts)
 

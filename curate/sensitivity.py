@@ -94,6 +94,23 @@ class SensitivityResult:
     policies: list[dict[str, Any]] = field(default_factory=list)
     executor: str = "serial"
 
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> SensitivityResult:
+        """Give a result back from its plain-data form (as recorded in the catalog)."""
+        groups = [
+            GroupResult(
+                group=g["group"], n_points=g["n_points"], parameters=g["parameters"], cook_distance=g["cook_distance"],
+                heldout_chi2=g["heldout_chi2"], heldout_dof=g["heldout_dof"], flags=list(g["flags"]),
+                converged=g.get("converged", True), error=g.get("error"),
+            )
+            for g in data["groups"]
+        ]  # fmt: skip
+        return cls(
+            full=data["full"], by=data["by"], method=data["method"], groups=groups,
+            jackknife_stderr=data["jackknife_stderr"], shift_threshold=data["shift_threshold"],
+            cook_threshold=data["cook_threshold"], policies=data.get("policies", []), executor=data.get("executor", ""),
+        )  # fmt: skip
+
     def flags(self) -> list[str]:
         """Give every plain-words flag."""
         return [flag for g in self.groups for flag in g.flags]

@@ -89,8 +89,12 @@ def test_demo_runs_on_examples(cli, tmp_path):
     assert "logged 13 datasets" in run.out and "(0 quarantined)" in run.out
     assert "4 x A, 6 x B, 3 x C" in run.out
     assert "marrowby_velarin_conc_01 (Marrowby Group): Birge ratio" in run.out
-    assert "suggested (not applied): marrowby_velarin_conc_01 C -> D" in run.out
-    assert "intact: 13 datasets, 39 versions" in run.out
+    assert "suggested marrowby_velarin_conc_01 C -> D (accepted by the demo" in run.out
+    assert "worst held-out fit: marrowby_velarin_conc_01" in run.out
+    assert "7. fitted the scenario's ODE model" in run.out and "true 0.2" in run.out
+    assert "after review, leave one lab out" in run.out
+    assert "intact: 13 datasets, 40 versions" in run.out
+    assert (tmp_path / "demo" / "report.html").stat().st_size > 100_000
     refused = cli("demo", tmp_path / "demo", catalog_path=None)
     assert refused.code == 2 and "not empty" in refused.err
 

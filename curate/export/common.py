@@ -45,6 +45,9 @@ def write_bytes(path: Path, data: bytes) -> str:
     try:
         with os.fdopen(handle, "wb") as stream:
             stream.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)  # mkstemp makes files private; exports are for sharing
         os.replace(temporary, path)
     except BaseException:
         Path(temporary).unlink(missing_ok=True)

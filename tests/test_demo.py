@@ -1,0 +1,170 @@
+"""The invented scenario end to end: data, generator, demo, fit recovery, report, browser."""
+
+from __future__ import annotations
+
+import filecmp
+import os
+import re
+import runpy
+import shutil
+import subprocess
+import tomllib
+from html.parser import HTMLParser
+
+import numpy as np
+import openpyxl
+import pytest
+from conftest import ROOT
+
+import curate
+from curate.demo import run_demo
+from curate.report_html import SECTIONS
+
+EXAMPLES = ROOT / "example_datasets"
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("demo") / "out"
+    return run_demo(folder)
+
+
+def test_the_scenario_has_what_the_job_needs():
+    sidecars = [tomllib.loads(p.read_text()) for p in sorted((EXAMPLES / "data").glob("*.toml"))]
+    assert len(sidecars) >= 12
+    assert len({s["source"]["lab"] for s in sidecars}) >= 4
+    assert {s["observable"]["unit"] for s in sidecars} == {"nM", "a.u."}  # absolute and relative
+    assert all({"temperature", "dose"} <= set(s["conditions"]) for s in sidecars)
+    assert any(s.get("layout") == "wide" for s in sidecars)
+    poorly_documented = [s for s in sidecars if "method" not in s["source"]]
+    assert {s["source"]["lab"] for s in poorly_documented} == {"Marrowby Group"}
+    assert len(list((EXAMPLES / "checklists").glob("*.toml"))) == len(sidecars)
+    for name in ("model.py", "params.toml", "policy.toml", "generate.py"):
+        assert (EXAMPLES / name).is_file()
+    model = runpy.run_path(str(EXAMPLES / "model.py"))
+    assert 4 <= len(model["PARAMETERS"]) <= 6 and "q10" in model["TRUTH"]
+
+
+def test_generator_reproduces_the_committed_data(tmp_path):
+    generator = runpy.run_path(str(EXAMPLES / "generate.py"))
+    generator["write"](tmp_path / "data")
+    for committed in sorted((EXAMPLES / "data").iterdir()):
+        fresh = tmp_path / "data" / committed.name
+        if committed.suffix == ".xlsx":  # workbook files carry save times; compare the cells
+            cells = [
+                [c.value for c in row]
+                for row in openpyxl.load_workbook(committed).active.iter_rows()
+            ]
+            again = [
+                [c.value for c in row] for row in openpyxl.load_workbook(fresh).active.iter_rows()
+            ]
+            assert cells == again, committed.name
+        else:
+            assert filecmp.cmp(committed, fresh, shallow=False), committed.name
+    for committed in sorted((EXAMPLES / "checklists").iterdir()):
+        assert filecmp.cmp(committed, tmp_path / "checklists" / committed.name, shallow=False), (
+            committed.name
+        )
+
+
+def test_sensitivity_before_review_points_at_the_planted_dataset(demo):
+    rows = {g.group: g for g in demo.before.groups}
+    saturated = rows["marrowby_velarin_conc_01"]
+    ratios = {g.group: g.heldout_chi2 / g.heldout_dof for g in demo.before.groups if g.heldout_dof}
+    assert max(ratios, key=ratios.get) == "marrowby_velarin_conc_01"
+    assert saturated.flags  # it moves parameters beyond the threshold
+    assert demo.accepted == ["marrowby_velarin_conc_01"]
+
+
+def test_fit_recovers_the_generating_parameters_once_the_bad_dataset_is_down_weighted(demo):
+    truth = demo.truth
+    for name, value in truth.items():
+        fitted = demo.fit.parameters[name]
+        # within the 95% confidence interval (1.96 standard errors, normal approximation)
+        assert abs(fitted["value"] - value) < 1.96 * fitted["stderr"], (name, fitted, value)
+    assert 0.7 < demo.fit.reduced_chi2 < 1.3
+
+
+def test_demo_outputs(demo):
+    folder = demo.catalog_path.parent
+    for name in ("exports/table/points.csv", "exports/petab/problem.yaml", "exports/datapackage/datapackage.json",
+                 "exports/prov/lineage.json", "folds/lab/manifest.json", "report.html"):  # fmt: skip
+        assert (folder / name).is_file(), name
+    assert demo.verify.ok
+    with curate.open_catalog(demo.catalog_path) as catalog:
+        assert catalog.trace(folder / "exports" / "petab").intact
+
+
+class _Page(HTMLParser):
+    def __init__(self) -> None:
+        super().__init__()
+        self.sections: list[str] = []
+        self.images: list[dict[str, str]] = []
+        self.text: list[str] = []
+        self.external: list[str] = []
+
+    def handle_starttag(self, tag, attrs):
+        attributes = dict(attrs)
+        if tag == "section":
+            self.sections.append(attributes.get("id", ""))
+        if tag == "img":
+            self.images.append(attributes)
+        for key in ("src", "href"):
+            value = attributes.get(key) or ""
+            if re.match(r"^(https?:)?//", value):
+                self.external.append(value)
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def test_report_has_every_section_and_embedded_image(demo):
+    parser = _Page()
+    parser.feed(demo.report.read_text(encoding="utf-8"))
+    top = [s for s in parser.sections if not s.startswith("sensitivity-")]
+    assert top == list(SECTIONS)
+    assert {"sensitivity-dataset", "sensitivity-lab"} <= set(parser.sections)
+    assert len(parser.sections) == len(set(parser.sections))  # ids are unique
+    assert len(parser.images) >= 6 and all(
+        i["src"].startswith("data:image/png;base64,") for i in parser.images
+    )
+    assert all(i.get("alt") for i in parser.images)
+    assert parser.external == []  # viewable with no network
+    text = " ".join(parser.text)
+    assert "marrowby_velarin_conc_01" in text and "left out of the consensus" in text
+    assert "Leave one dataset out" in text and "Leave one lab out" in text
+    assert "jackknife" in text and "manifest sha256" in text and "is not proof" in text
+
+
+def _chromium() -> str | None:
+    for name in ("chromium", "chromium-browser", "google-chrome"):
+        found = shutil.which(name)
+        if found:
+            return found
+    return None
+
+
+@pytest.mark.skipif(
+    _chromium() is None, reason="no headless Chromium here (.ci/run installs Debian's chromium)"
+)
+def test_report_renders_in_a_real_headless_browser(demo, tmp_path):
+    screenshot = tmp_path / "report.png"
+    flags = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+             "--disable-background-networking", "--disable-component-update", "--disable-sync",
+             f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr", "--v=0",
+             "--window-size=1280,2400"]  # fmt: skip
+    browser = _chromium()
+    result = subprocess.run([browser, *flags, f"--screenshot={screenshot}", demo.report.as_uri()],
+                            capture_output=True, text=True, timeout=180, env={**os.environ, "HOME": str(tmp_path)})  # fmt: skip
+    assert screenshot.is_file(), result.stderr[-2000:]
+    console = [
+        line for line in result.stderr.splitlines() if "CONSOLE" in line or "Uncaught" in line
+    ]
+    assert console == [], console
+    dom = subprocess.run([browser, *flags, "--dump-dom", demo.report.as_uri()], capture_output=True, text=True,
+                         timeout=180, env={**os.environ, "HOME": str(tmp_path)})  # fmt: skip
+    assert 'id="sensitivity"' in dom.stdout and "curate report" in dom.stdout
+    import matplotlib.image
+
+    pixels = matplotlib.image.imread(screenshot)
+    assert pixels.shape[0] >= 1000 and float(np.std(pixels[..., :3])) > 0.05  # not blank
