@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 
 from curate import assess
-from curate.errors import InputError, NotFoundError
+from curate.errors import InputError, IntegrityError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.inbox import IntakeReport, intake_folder
 from curate.ingest.petab import read_petab_problem
@@ -48,6 +48,7 @@ __all__ = [
     "VerifyReport",
     "default_actor",
     "open_catalog",
+    "restore_catalog",
 ]
 
 DEFAULT_CATALOG = "curate.db"
@@ -62,6 +63,41 @@ def default_actor() -> str:
         return getpass.getuser()
     except Exception:  # no login name in some containers
         return "unknown"
+
+
+def restore_catalog(
+    backup: str | Path, catalog_path: str | Path | None = None
+) -> tuple[Path, Path | None]:
+    """Put a verified backup in place of the catalog; give (catalog, where the old one went).
+
+    The current catalog is kept beside it as ``NAME.before-restore-TIMESTAMP``; nothing is
+    deleted. Stop other writers first.
+    """
+    source = Path(backup)
+    if not source.is_file():
+        raise InputError(f"{source}: no such backup file")
+    with Catalog(source) as candidate:
+        report = candidate.verify()
+    if not report.ok:
+        raise IntegrityError(
+            f"{source}: the backup does not verify ({report.problems[0] if report.problems else report.sqlite}); nothing restored"
+        )
+    target = Path(catalog_path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG)
+    staged = target.with_name(target.name + ".restoring")
+    import shutil
+
+    shutil.copyfile(source, staged)
+    kept = None
+    if target.exists():
+        stamp = dt.datetime.now(dt.UTC).strftime("%Y%m%dT%H%M%SZ")
+        kept = target.with_name(f"{target.name}.before-restore-{stamp}")
+        with Catalog(target) as old:  # fold the write-ahead log into the file before moving it
+            old.store.db.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+        os.replace(target, kept)
+        for suffix in ("-wal", "-shm"):
+            Path(str(target) + suffix).unlink(missing_ok=True)
+    os.replace(staged, target)
+    return target, kept
 
 
 def open_catalog(path: str | Path | None = None, *, actor: str | None = None) -> Catalog:
@@ -642,6 +678,28 @@ class Catalog:
             threshold=threshold, alternative_policies=[weights.load_policy(p) for p in policies or []],
             timeout=timeout, workdir=workdir, progress=progress,
         )  # fmt: skip
+
+    def backup(self, destination: str | Path, *, force: bool = False) -> VerifyReport:
+        """Write a verified copy of the catalog to ``destination`` (while others may write)."""
+        target = Path(destination)
+        if target.exists() and not force:
+            raise InputError(f"{target}: exists; choose a new file name or pass --force")
+        if not target.parent.is_dir():
+            raise InputError(f"{target.parent}: no such folder")
+        partial = target.with_name(target.name + ".part")
+        partial.unlink(missing_ok=True)
+        try:
+            self._store.backup_to(partial)
+            with Catalog(partial, actor=self.actor) as copy:
+                report = copy.verify()
+            if not report.ok:
+                raise IntegrityError(
+                    f"{target}: the copy does not verify ({report.problems[0] if report.problems else report.sqlite}); nothing written"
+                )
+            os.replace(partial, target)
+        finally:
+            partial.unlink(missing_ok=True)
+        return report
 
     def report(self, path: str | Path, *, policy: str | Path | None = None) -> str:
         """Write the self-contained HTML report of the catalog; give its sha256."""

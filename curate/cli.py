@@ -832,6 +832,31 @@ def report_command(
 
 
 @app.command()
+def backup(
+    destination: Annotated[Path, typer.Argument(help="new file for the copy")],
+    force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+) -> None:
+    """Copy the catalog with SQLite's online backup (others may keep writing) and verify the copy."""
+    with _catalog() as catalog:
+        result = catalog.backup(destination, force=force)
+    out.print(f"backup written to {destination}; " + str(report.verify_text(result)))
+
+
+@app.command()
+def restore(
+    source: Annotated[Path, typer.Argument(help="a backup made by `curate backup`")],
+) -> None:
+    """Put a verified backup in place of the catalog; the current one is kept beside it."""
+    from curate.catalog import restore_catalog
+
+    target, kept = restore_catalog(source, state.catalog_path)
+    out.print(
+        f"restored {source} as {target}"
+        + (f"; the previous catalog is kept as {kept}" if kept else "")
+    )
+
+
+@app.command()
 def demo(
     outdir: Annotated[
         Path, typer.Argument(help="folder for the demo's catalog and outputs")

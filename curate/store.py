@@ -396,6 +396,18 @@ class Store:
         row = self.db.execute("SELECT text FROM policies WHERE sha256 = ?", [sha256]).fetchone()
         return None if row is None else str(row[0])
 
+    def backup_to(self, destination: Path) -> None:
+        """Copy the whole catalog into a new SQLite file with SQLite's online backup.
+
+        One backup step reads a consistent snapshot; in WAL mode writers go on meanwhile.
+        """
+        target = sqlite3.connect(str(destination))
+        try:
+            self.db.conn.backup(target, pages=-1)
+            target.execute("PRAGMA journal_mode = DELETE")  # a self-contained single file
+        finally:
+            target.close()
+
     def integrity_check(self) -> str:
         """Give SQLite's own ``PRAGMA integrity_check`` answer ('ok' when sound)."""
         return str(self.db.execute("PRAGMA integrity_check").fetchone()[0])
