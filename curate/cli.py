@@ -192,8 +192,13 @@ def add(
         put("trust.rationale", reason)
     if condition:
         options["conditions"] = _conditions(condition)
+    from curate.catalog import default_actor
+    from curate.ingest import build_draft
+
+    # read and validate the file before the catalog is opened: a bad first file creates nothing
+    draft = build_draft(file, sidecar=meta, options=options, actor=state.actor or default_actor())
     with _catalog() as catalog:
-        result = catalog.add(file, sidecar=meta, options=options, dry_run=dry_run)
+        result: Any = catalog.plan_add(draft) if dry_run else catalog.add_drafts([draft])[0]
     if isinstance(result, AddPlan):
         if as_json:
             _emit_json(result.to_dict())
