@@ -7,6 +7,7 @@ methods and prints; notebooks and tests call them directly.
 
 from __future__ import annotations
 
+import bisect
 import builtins
 import datetime as dt
 import getpass
@@ -230,32 +231,43 @@ def describe_changes(before: dict[str, Any], after: dict[str, Any]) -> tuple[str
 
 
 class _ActionContext:
-    """What one user action knows about the catalog while it writes (built once per action)."""
+    """What one user action knows about the catalog while it writes (built once per action).
+
+    Indexed so that logging N datasets costs O(N log N), not O(N^2): datasets by content hash,
+    ids, and per observable and unit a sorted list of typical values for the median.
+    """
 
     def __init__(self, store: Store) -> None:
-        self.neighbours: list[Neighbour] = []
+        self.by_hash: dict[str, list[Neighbour]] = {}
         self.by_key: dict[tuple[str, str, str, str], DatasetVersion] = {}
+        self.levels: dict[tuple[str, str], list[float]] = {}
         self.ids: set[str] = set()
         for row in store.latest_versions():
-            version = _version_from_row(row)
-            self._remember(version)
+            self._remember(_version_from_row(row))
 
     def _remember(self, version: DatasetVersion) -> None:
         rec = version.record
         conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
-        self.neighbours.append(
-            Neighbour(
-                dataset_id=version.id,
-                observable=rec.observable.id,
-                unit=rec.observable.unit,
-                conditions=conditions,
-                lab=rec.source.lab,
-                content_hash=rec.content_hash,
-                magnitude=float(rec.annotations.get("typical_magnitude", 0.0)),
+        magnitude = float(rec.annotations.get("typical_magnitude", 0.0))
+        neighbour = Neighbour(
+            dataset_id=version.id, observable=rec.observable.id, unit=rec.observable.unit,
+            conditions=conditions, lab=rec.source.lab, content_hash=rec.content_hash, magnitude=magnitude,
+        )  # fmt: skip
+        self.by_hash.setdefault(rec.content_hash, []).append(neighbour)
+        if magnitude > 0:
+            bisect.insort(
+                self.levels.setdefault((rec.observable.id, rec.observable.unit), []), magnitude
             )
-        )
         self.by_key[(rec.content_hash, rec.observable.id, conditions, rec.source.lab)] = version
         self.ids.add(version.id)
+
+    def level(self, observable: str, unit: str) -> float | None:
+        """Give the median typical value of the datasets of one observable and unit."""
+        values = self.levels.get((observable, unit))
+        if not values:
+            return None
+        middle = len(values) // 2
+        return values[middle] if len(values) % 2 else 0.5 * (values[middle - 1] + values[middle])
 
 
 def _version_from_row(row: VersionRow) -> DatasetVersion:
@@ -356,14 +368,11 @@ class Catalog:
         )
         magnitude = typical_magnitude(draft.arrays.value)
         extra = check_against_others(
-            observable=rec.observable.id,
-            unit=rec.observable.unit,
-            relative=rec.observable.relative,
-            conditions=conditions,
-            content_hash=rec.content_hash,
-            magnitude=magnitude,
-            others=context.neighbours,
-        )
+            observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
+            conditions=conditions, content_hash=rec.content_hash, magnitude=magnitude,
+            same_content=context.by_hash.get(rec.content_hash, []),
+            others_level=context.level(rec.observable.id, rec.observable.unit),
+        )  # fmt: skip
         annotations = {**rec.annotations, "typical_magnitude": magnitude}
         record = rec.model_copy(
             update={"warnings": rec.warnings + tuple(extra), "annotations": annotations}

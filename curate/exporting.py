@@ -80,10 +80,8 @@ def select(catalog: Catalog, selection: Selection, policy: weights.Policy) -> li
     candidates = catalog.list(
         include_retired=selection.include_retired or bool(pinned), conditions=wanted_conditions
     )
-    known_ids = {v.id for v in catalog.list(include_retired=True)}
     for ident in (*selection.ids, *pinned):
-        if ident not in known_ids:
-            raise NotFoundError(f"selection: no dataset '{ident}' in the catalog")
+        catalog.show(ident)  # NotFoundError names an unknown id
     for version in candidates:
         if selection.ids and version.id not in selection.ids and version.id not in pinned:
             continue
@@ -118,56 +116,105 @@ def _condition_column(key: str) -> str:
     return f"condition_{key}" if key in _STANDARD_COLUMNS else key
 
 
-def _points_of(
-    catalog: Catalog, version: DatasetVersion, policy: weights.Policy
-) -> tuple[pd.DataFrame, str]:
-    arrays = catalog.arrays(version.id, version.version)
+def _sd_of(
+    catalog: Catalog, version: DatasetVersion, arrays: Any, policy: weights.Policy
+) -> tuple[np.ndarray, str]:
+    """Give each point's measured SD and where it came from, the policy deciding when unknown."""
     record = version.record
     try:
         sd = measured_sd(version, arrays)
-        source = (
-            "reported"
-            if record.uncertainty is not None and arrays.sd is not None
-            else f"noise estimate ({record.noise.method if record.noise else '?'})"
-        )
+        if record.uncertainty is not None and arrays.sd is not None:
+            return sd, "reported"
+        return sd, f"noise estimate ({record.noise.method if record.noise else '?'})"
     except InputError:
         if policy.unknown_noise == "refuse":
             raise InputError(
                 f"dataset {version.id}: no uncertainty is known and the policy refuses to guess; run `curate noise {version.id}`"
             ) from None
         if policy.unknown_noise == "default":
-            sd = policy.default_relative_sd * np.abs(arrays.value)
-            source = f"policy default ({policy.default_relative_sd:g} of |y|)"
+            return policy.default_relative_sd * np.abs(
+                arrays.value
+            ), f"policy default ({policy.default_relative_sd:g} of |y|)"
+        result = noise.choose_and_estimate(
+            arrays.time, arrays.value, replicate=arrays.replicate, origin=f"dataset {version.id}"
+        )
+        return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
+
+
+def points_table(
+    catalog: Catalog, versions: list[DatasetVersion], policy: weights.Policy
+) -> pd.DataFrame:
+    """Give one row per point of the versions (before weighting), built column-wise in one go."""
+    per_point: dict[str, list[np.ndarray]] = {"time": [], "value": [], "sd": [], "replicate": []}
+    per_dataset: dict[str, list[Any]] = {name: [] for name in (
+        "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade", "sd_source", "calibration_group")}  # fmt: skip
+    conditions: dict[str, list[Any]] = {}
+    lengths = []
+    for position, version in enumerate(versions):
+        record = version.record
+        arrays = catalog.store.series(record.content_hash)
+        sd, source = _sd_of(catalog, version, arrays, policy)
+        labels = np.array(record.replicate_labels, dtype=object)
+        per_point["time"].append(arrays.time)
+        per_point["value"].append(arrays.value)
+        per_point["sd"].append(np.asarray(sd, dtype=float))
+        per_point["replicate"].append(labels[arrays.replicate] if (arrays.replicate is not None and len(labels))
+                                      else np.full(len(arrays), None, dtype=object))  # fmt: skip
+        for name, value in (("dataset_id", version.id), ("version", version.version), ("observable", record.observable.id),
+                            ("unit", record.observable.unit), ("unit_ucum", record.observable.ucum or ""),
+                            ("relative", record.observable.relative), ("lab", record.source.lab), ("grade", version.grade),
+                            ("sd_source", source), ("calibration_group", record.protocol.calibration_group or version.id)):  # fmt: skip
+            per_dataset[name].append(value)
+        for key, condition in record.conditions.items():
+            conditions.setdefault(_condition_column(key), [None] * position).append(condition.value)
+        for values in conditions.values():
+            if len(values) == position:
+                values.append(None)
+        lengths.append(len(arrays))
+    counts = np.asarray(lengths)
+    columns: dict[str, Any] = {}
+    for name in (
+        "dataset_id",
+        "version",
+        "observable",
+        "unit",
+        "unit_ucum",
+        "relative",
+        "lab",
+        "grade",
+    ):
+        columns[name] = np.repeat(
+            np.asarray(per_dataset[name], dtype=object if name != "version" else np.int64), counts
+        )
+    columns["relative"] = columns["relative"].astype(bool)
+    for name in ("time", "value", "sd"):
+        columns[name] = np.concatenate(per_point[name])
+    columns["sd_source"] = np.repeat(np.asarray(per_dataset["sd_source"], dtype=object), counts)
+    columns["replicate"] = np.concatenate(per_point["replicate"])
+    columns["calibration_group"] = np.repeat(
+        np.asarray(per_dataset["calibration_group"], dtype=object), counts
+    )
+    for column, values in conditions.items():
+        kinds = {type(v) for v in values if v is not None}
+        if kinds == {float}:
+            data = np.array([np.nan if v is None else v for v in values], dtype=float)
+        elif len(kinds) > 1:  # a key numeric in one dataset, text in another: keep it as text
+            data = np.array([None if v is None else str(v) for v in values], dtype=object)
         else:
-            result = noise.choose_and_estimate(
-                arrays.time,
-                arrays.value,
-                replicate=arrays.replicate,
-                origin=f"dataset {version.id}",
-            )
-            sd = np.full(len(arrays), result.sd)
-            source = f"estimated at export ({result.method})"
-    labels = np.array(record.replicate_labels, dtype=object)
-    replicate = labels[arrays.replicate] if (arrays.replicate is not None and len(labels)) else None
-    frame = pd.DataFrame({
-        "dataset_id": version.id,
-        "version": version.version,
-        "observable": record.observable.id,
-        "unit": record.observable.unit,
-        "unit_ucum": record.observable.ucum or "",
-        "relative": record.observable.relative,
-        "lab": record.source.lab,
-        "grade": version.grade,
-        "time": arrays.time,
-        "value": arrays.value,
-        "sd": sd,
-        "sd_source": source,
-        "replicate": replicate if replicate is not None else pd.Series([None] * len(arrays), dtype=object),
-        "calibration_group": record.protocol.calibration_group or version.id,
-    })  # fmt: skip
-    for key, condition in record.conditions.items():
-        frame[_condition_column(key)] = condition.value
-    return frame, source
+            data = np.array(values, dtype=object)
+        columns[column] = np.repeat(data, counts)
+    frame = pd.DataFrame(columns)
+    for name in (
+        "dataset_id",
+        "observable",
+        "unit",
+        "unit_ucum",
+        "lab",
+        "sd_source",
+        "calibration_group",
+    ):
+        frame[name] = frame[name].astype(str)
+    return frame
 
 
 def weighted_table(catalog: Catalog, *, policy: weights.Policy | None = None,
@@ -175,18 +222,10 @@ def weighted_table(catalog: Catalog, *, policy: weights.Policy | None = None,
     """Give the weighted long table (one row per point), the weight summary and the versions used."""
     policy = policy or weights.load_policy()
     versions = select(catalog, selection or Selection(), policy)
-    frames = [_points_of(catalog, v, policy)[0] for v in versions]
-    points = pd.concat(frames, ignore_index=True)
+    points = points_table(catalog, versions, policy)
     weighted, summary = weights.apply_policy(points, policy)
     condition_columns = [c for c in weighted.columns if c not in _STANDARD_COLUMNS]
-    for column in condition_columns:
-        kinds = {type(v) for v in weighted[column].dropna()}
-        if len(kinds) > 1:  # a key numeric in one dataset, text in another: keep it as text
-            weighted[column] = weighted[column].map(
-                lambda v: None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v)
-            )
     ordered = [c for c in _STANDARD_COLUMNS if c in weighted.columns] + sorted(condition_columns)
-    weighted["grade"] = weighted["grade"].astype(object)
     return weighted[ordered], summary, versions
 
 

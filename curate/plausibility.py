@@ -155,28 +155,37 @@ def check_against_others(
     conditions: str,
     content_hash: str,
     magnitude: float,
-    others: Iterable[Neighbour],
+    others: Iterable[Neighbour] = (),
+    same_content: Iterable[Neighbour] | None = None,
+    others_level: float | None = None,
 ) -> list[PlausibilityWarning]:
-    """Give the warnings from comparing a new series with the catalog's other datasets."""
+    """Give the warnings from comparing a new series with the catalog's other datasets.
+
+    Either ``others`` (every other dataset) or, for large catalogs, the pre-indexed
+    ``same_content`` (datasets with the same content hash) and ``others_level`` (the median
+    typical value of the other datasets of this observable and unit).
+    """
     warnings: list[PlausibilityWarning] = []
-    same_observable: list[Neighbour] = []
-    for other in others:
-        if other.content_hash == content_hash and (
-            other.conditions != conditions or other.observable != observable
-        ):
+    if same_content is None:
+        others = list(others)
+        same_content = [o for o in others if o.content_hash == content_hash]
+        levels = [
+            o.magnitude
+            for o in others
+            if o.observable == observable and o.unit == unit and o.magnitude > 0
+        ]
+        others_level = float(np.median(levels)) if levels else None
+    for other in same_content:
+        if other.conditions != conditions or other.observable != observable:
             warnings.append(
                 PlausibilityWarning(
                     code="identical_to_other",
                     message=f"values identical to dataset {other.dataset_id}, which was logged"
-                    " under "
-                    "other conditions or another observable: copied by mistake?",
+                    " under other conditions or another observable: copied by mistake?",
                 )
             )
-        if other.observable == observable and other.unit == unit and other.magnitude > 0:
-            same_observable.append(other)
-    if relative or magnitude <= 0 or len(same_observable) < 1:
+    if relative or magnitude <= 0 or not others_level:
         return warnings
-    others_level = float(np.median([o.magnitude for o in same_observable]))
     with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
         ratio = float(np.log10(magnitude) - np.log10(others_level))
     if not np.isfinite(ratio):

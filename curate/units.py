@@ -144,8 +144,18 @@ def is_relative_unit(text: str) -> bool:
 
 
 def _parse(text: str, *, role: str) -> Any:
+    try:
+        return _parse_cached(text)
+    except UnitError as err:
+        raise UnitError(str(err).replace("unknown value unit", f"unknown {role} unit")) from None
+
+
+@functools.lru_cache(maxsize=4096)
+def _parse_cached(text: str) -> Any:
+    """Give the pint unit for a string (cached: intake parses the same few units again and again)."""
     import pint
 
+    role = "value"
     stripped = text.strip()
     if is_relative_unit(stripped):
         stripped = "arbitrary_unit"
@@ -168,6 +178,20 @@ def _parse(text: str, *, role: str) -> Any:
         ) from None
 
 
+@functools.lru_cache(maxsize=4096)
+def _conversion(original: str, canonical: str) -> tuple[float, float]:
+    """Give (factor, offset) with canonical = factor * original + offset (every unit here is affine)."""
+    source = _parse_cached(original)
+    target = _parse_cached(canonical)
+    if source == target:
+        return 1.0, 0.0
+    ureg = registry()
+    zero = float(ureg.Quantity(0.0, source).m_as(target))
+    one = float(ureg.Quantity(1.0, source).m_as(target))
+    return one - zero, zero
+
+
+@functools.lru_cache(maxsize=4096)
 def canonical_unit(
     text: str, *, role: str = "value", dimension: str | None = None
 ) -> CanonicalUnit:
@@ -195,13 +219,19 @@ def canonical_unit(
 
 
 def convert(values: np.ndarray, unit: CanonicalUnit) -> np.ndarray:
-    """Give ``values`` (in ``unit.original``) converted to ``unit.canonical`` as float64."""
-    source = _parse(unit.original, role="value")
-    target = _parse(unit.canonical, role="value")
-    if source == target:
-        return np.asarray(values, dtype=np.float64)
-    q = registry().Quantity(np.asarray(values, dtype=np.float64), source)
-    return np.asarray(q.m_as(target), dtype=np.float64)
+    """Give ``values`` (in ``unit.original``) converted to ``unit.canonical`` as float64.
+
+    The factor is worked out once by pint and applied with numpy; offset units (degC, degF)
+    go through pint itself so that their offsets stay exact.
+    """
+    data = np.asarray(values, dtype=np.float64)
+    factor, offset = _conversion(unit.original, unit.canonical)
+    if (factor, offset) == (1.0, 0.0):
+        return data.copy()
+    if offset == 0.0:
+        return data * factor
+    q = registry().Quantity(data, _parse_cached(unit.original))
+    return np.asarray(q.m_as(_parse_cached(unit.canonical)), dtype=np.float64)
 
 
 def scale_factor(unit: CanonicalUnit) -> float:
@@ -209,15 +239,8 @@ def scale_factor(unit: CanonicalUnit) -> float:
 
     Offset units (degC, degF) convert differences by their scale alone.
     """
-    source = _parse(unit.original, role="value")
-    target = _parse(unit.canonical, role="value")
-    if source == target:
-        return 1.0
-    ureg = registry()
     # two points, so that offset units (K -> degC) give the size of a degree, not a temperature
-    zero = ureg.Quantity(0.0, source).m_as(target)
-    one = ureg.Quantity(1.0, source).m_as(target)
-    return float(one - zero)
+    return _conversion(unit.original, unit.canonical)[0]
 
 
 def to_unit(value: float, unit: str, target: str) -> float:

@@ -347,8 +347,8 @@ def _summarise(
     if "relative" in frame.columns and frame["relative"].any():
         # a relative-unit dataset carries its own scale factor, so its raw weights depend on
         # its arbitrary units: compare w * m^2 (m = the dataset's median |y|), i.e. 1/CV^2
-        magnitude = frame.groupby("dataset_id")["value"].transform(
-            lambda v: float(np.median(np.abs(v))) or 1.0
+        magnitude = (
+            frame["value"].abs().groupby(frame["dataset_id"]).transform("median").replace(0.0, 1.0)
         )
         relative = frame["relative"].to_numpy(dtype=bool)
         weight = np.where(relative, weight * magnitude.to_numpy() ** 2, weight)
@@ -360,15 +360,19 @@ def _summarise(
     totals = {
         obs: float(per_dataset[observable_of == obs].sum()) for obs in np.unique(observable_of)
     }
+    lab_of = first["lab"].astype(str).to_numpy()
+    grade_of = first["grade_used"].astype(str).to_numpy()
+    inflation_of = first["inflation"].to_numpy(dtype=float)
+    balance_of = first["balance"].to_numpy(dtype=float)
     rows = [
         DatasetWeight(
             id=str(ident),
             observable=str(observable_of[k]),
-            lab=str(first.loc[ident, "lab"]),
-            grade=str(first.loc[ident, "grade_used"]),
+            lab=str(lab_of[k]),
+            grade=str(grade_of[k]),
             n_points=int(sizes[k]),
-            inflation=float(first.loc[ident, "inflation"]),
-            balance=float(first.loc[ident, "balance"]),
+            inflation=float(inflation_of[k]),
+            balance=float(balance_of[k]),
             share=float(per_dataset[k] / totals[observable_of[k]]),
             n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
         )
