@@ -20,6 +20,7 @@ distance above 1 (the usual rule of thumb for Cook's D), are flagged.
 from __future__ import annotations
 
 import math
+import multiprocessing
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -209,7 +210,11 @@ def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
                 progress(done + 1, len(tasks))
         return results, "serial"
     results = []
-    with ProcessPoolExecutor(max_workers=workers) as pool:
+    # spawn, not fork: a forked child can inherit a lock held by another thread (pyarrow's
+    # pool, SQLite) and hang; spawned workers start clean and import the model themselves
+    with ProcessPoolExecutor(
+        max_workers=workers, mp_context=multiprocessing.get_context("spawn")
+    ) as pool:
         for done, result in enumerate(pool.map(_exact_refit, tasks)):
             results.append(result)
             if progress:

@@ -314,6 +314,24 @@ class Store:
             )
         return _decode_series(row)
 
+    def series_many(self, content_hashes: list[str]) -> dict[str, SeriesArrays]:
+        """Give the arrays of many content hashes, read in a few queries."""
+        found: dict[str, SeriesArrays] = {}
+        wanted = list(dict.fromkeys(content_hashes))
+        for start in range(0, len(wanted), 500):
+            chunk = wanted[start : start + 500]
+            marks = ",".join("?" * len(chunk))
+            rows = self.db.execute(
+                f"SELECT content_hash, time, value, sd, replicate, n FROM series WHERE content_hash IN ({marks})",
+                chunk,
+            ).fetchall()
+            for row in rows:
+                found[str(row[0])] = _decode_series(row[1:])
+        missing = [h for h in wanted if h not in found]
+        if missing:
+            raise CatalogError(f"{self.path}: the arrays of content {missing[0][:12]} are missing")
+        return found
+
     def iter_series(self) -> Iterator[tuple[str, int, SeriesArrays]]:
         """Give every stored (content_hash, n_points, arrays)."""
         cursor = self.db.execute(

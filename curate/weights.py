@@ -287,8 +287,9 @@ def apply_policy(points: pd.DataFrame, policy: Policy) -> tuple[pd.DataFrame, We
         )
     frame["sd"] = floored
     base = 1.0 / (floored**2 * frame["inflation"].to_numpy())
-    ids = frame["dataset_id"].to_numpy()
-    unique_ids, inverse = np.unique(ids, return_inverse=True)
+    codes, uniques = pd.factorize(frame["dataset_id"], sort=True)  # hashing: no sort of every row
+    inverse = np.asarray(codes)
+    unique_ids = np.asarray(uniques, dtype=object)
     totals = np.bincount(inverse, weights=base)
     sizes = np.bincount(inverse).astype(float)
     labs = frame.groupby("dataset_id")["lab"].first().reindex(unique_ids).to_numpy()

@@ -1,0 +1,312 @@
+"""Benchmarks: curate against the baseline a user would otherwise write, measured in one run.
+
+    python -m bench [--quick]
+
+Every case times ours and its baseline in this same process (medians of repetitions; the
+machines are noisy), prints a table and writes bench/results.json as
+{"CASE": {"ratio", "target", "ours_s", "baseline_s", "n", ...}}. A ratio below its target
+meets it. Data are synthetic and made here.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import multiprocessing
+import os
+import sqlite3
+import statistics
+import sys
+import tempfile
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+
+import curate  # noqa: E402
+from curate import fitting, sensitivity  # noqa: E402
+from curate.export.table import table_bytes  # noqa: E402
+from curate.exporting import weighted_table  # noqa: E402
+
+from bench.peak import export_peak  # noqa: E402
+
+POINTS_PER_SERIES = 100
+
+
+def median_time(function: Callable[[], Any], repeats: int) -> tuple[float, Any]:
+    """Give the median wall time of ``repeats`` calls and the last result."""
+    times, result = [], None
+    for _ in range(repeats):
+        started = time.perf_counter()
+        result = function()
+        times.append(time.perf_counter() - started)
+    return statistics.median(times), result
+
+
+def synthetic_series(n_series: int, seed: int = 0) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+    rng = np.random.default_rng(seed)
+    t = np.arange(POINTS_PER_SERIES, dtype=float) * 30.0
+    return [(t, 20 * (1 - np.exp(-t / 900.0)) + rng.normal(0, 0.5, POINTS_PER_SERIES), np.full(POINTS_PER_SERIES, 0.5))
+            for _ in range(n_series)]  # fmt: skip
+
+
+def ours_intake(folder: Path, series: list, tag: str) -> Path:
+    path = folder / f"ours_{tag}.db"
+    with curate.open_catalog(path, actor="bench") as catalog:
+        drafts = [catalog.draft(t, y, sd=sd, observable="velarin_conc", unit="nM", time_unit="s", lab=f"Lab {k % 8}",
+                                conditions={"dose": float(k % 50), "temperature": 37.0}) for k, (t, y, sd) in enumerate(series)]  # fmt: skip
+        catalog.add_drafts(drafts)
+    return path
+
+
+def floor_intake(folder: Path, series: list, tag: str) -> Path:
+    path = folder / f"floor_{tag}.db"
+    conn = sqlite3.connect(path)
+    conn.execute("CREATE TABLE points (series INTEGER, time REAL, value REAL, sd REAL)")
+    rows = ((k, float(t_), float(y_), float(s_)) for k, (t, y, sd) in enumerate(series) for t_, y_, s_ in zip(t, y, sd, strict=True))
+    with conn:
+        conn.executemany("INSERT INTO points VALUES (?, ?, ?, ?)", rows)
+    conn.close()
+    return path
+
+
+def blob_intake(folder: Path, series: list, tag: str) -> Path:
+    path = folder / f"blob_{tag}.db"
+    conn = sqlite3.connect(path)
+    conn.execute("CREATE TABLE series (id INTEGER PRIMARY KEY, time BLOB, value BLOB, sd BLOB)")
+    with conn:
+        conn.executemany("INSERT INTO series VALUES (?, ?, ?, ?)",
+                         ((k, t.tobytes(), y.tobytes(), sd.tobytes()) for k, (t, y, sd) in enumerate(series)))  # fmt: skip
+    conn.close()
+    return path
+
+
+def fresh(folder: Path, *names: str) -> None:
+    for name in names:
+        for suffix in ("", "-wal", "-shm"):
+            Path(str(folder / name) + suffix).unlink(missing_ok=True)
+
+
+def case_intake(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
+    series = synthetic_series(n_series)
+    tag = str(n_series)
+
+    def ours() -> Path:
+        fresh(folder, f"ours_{tag}.db")
+        return ours_intake(folder, series, tag)
+
+    def floor() -> Path:
+        fresh(folder, f"floor_{tag}.db")
+        return floor_intake(folder, series, tag)
+
+    def blob() -> Path:
+        fresh(folder, f"blob_{tag}.db")
+        return blob_intake(folder, series, tag)
+
+    ours_s, _ = median_time(ours, repeats)
+    floor_s, _ = median_time(floor, repeats)
+    blob_s, _ = median_time(blob, repeats)
+    return {"ratio": ours_s / floor_s, "target": 0.5, "ours_s": ours_s, "baseline_s": floor_s, "n": n_series * POINTS_PER_SERIES,
+            "blob_s": blob_s, "ours_vs_blob": ours_s / blob_s, "blob_vs_floor": blob_s / floor_s}  # fmt: skip
+
+
+def case_export(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
+    tag = str(n_series)
+    catalog_path, floor_path = folder / f"ours_{tag}.db", folder / f"floor_{tag}.db"
+
+    def ours() -> int:
+        with curate.open_catalog(catalog_path) as catalog:
+            table, _, _ = weighted_table(catalog)
+        data = table_bytes(table, "parquet")
+        (folder / "ours.parquet").write_bytes(data)
+        return len(table)
+
+    def baseline() -> int:
+        conn = sqlite3.connect(floor_path)
+        frame = pd.read_sql("SELECT * FROM points", conn)
+        conn.close()
+        frame.to_parquet(folder / "baseline.parquet")
+        return len(frame)
+
+    ours_s, rows = median_time(ours, repeats)
+    baseline_s, _ = median_time(baseline, repeats)
+    return {"ratio": ours_s / baseline_s, "target": 0.3, "ours_s": ours_s, "baseline_s": baseline_s, "n": rows}
+
+
+def case_csv_writer(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
+    with curate.open_catalog(folder / f"ours_{n_series}.db") as catalog:
+        table, _, _ = weighted_table(catalog)
+    ours_s, _ = median_time(lambda: (folder / "ours.csv").write_bytes(table_bytes(table, "csv")), repeats)
+    baseline_s, _ = median_time(lambda: table.to_csv(folder / "pandas.csv", index=False), repeats)
+    return {"ratio": ours_s / baseline_s, "target": 0.3, "ours_s": ours_s, "baseline_s": baseline_s, "n": len(table)}
+
+
+def sensitivity_problem(n_datasets: int) -> tuple[pd.DataFrame, fitting.ParameterSpec]:
+    from bench.ode_model import TRUTH, predict
+
+    rng = np.random.default_rng(7)
+    conditions = [(1000.0, 37.0), (10000.0, 37.0), (10000.0, 30.0), (3000.0, 33.0)]
+    frames = []
+    for k in range(n_datasets):
+        dose, temperature = conditions[k % len(conditions)]
+        t = np.sort(rng.uniform(0, 120 * 60, 50))
+        frame = pd.DataFrame({"time": t, "dose": dose, "temperature": temperature})
+        clean = predict(TRUTH, frame) * (30 + 10 * k)
+        frame["value"] = clean + rng.normal(0, 0.03 * np.abs(clean).max(), 50)
+        frame["weight"] = 1.0 / (0.03 * np.abs(clean).max()) ** 2
+        frame["relative"] = True
+        frame["dataset_id"] = f"d{k:02d}"
+        frame["calibration_group"] = f"d{k:02d}"
+        frames.append(frame)
+    spec = fitting.spec_from_dict({"parameters": {
+        "k_on": {"start": 0.1, "lower": 1e-3, "upper": 10, "log": True},
+        "K_d": {"start": 1000.0, "lower": 10, "upper": 1e6, "log": True},
+        "k_off": {"start": 0.05, "lower": 1e-3, "upper": 10, "log": True},
+        "k_deg": {"start": 0.1, "lower": 1e-3, "upper": 10, "log": True},
+        "q10": {"start": 2.0, "lower": 1.0, "upper": 5.0},
+    }})  # fmt: skip
+    return pd.concat(frames, ignore_index=True), spec
+
+
+def hand_written_loop(points: pd.DataFrame, spec: fitting.ParameterSpec) -> list[np.ndarray]:
+    """The loop a modeller writes by hand: scale factors as free parameters, every refit from
+    the original start, one after another."""
+    from scipy.optimize import least_squares
+
+    from bench.ode_model import predict
+
+    names = [p.name for p in spec.parameters]
+    logs = [p.log for p in spec.parameters]
+    ids = sorted(points["dataset_id"].unique())
+
+    def fit(frame: pd.DataFrame) -> np.ndarray:
+        present = sorted(frame["dataset_id"].unique())
+        index = {d: k for k, d in enumerate(present)}
+        group = frame["dataset_id"].map(index).to_numpy()
+        y, w = frame["value"].to_numpy(), np.sqrt(frame["weight"].to_numpy())
+
+        def residual(x: np.ndarray) -> np.ndarray:
+            params = {n: (math.exp(v) if lg else v) for n, v, lg in zip(names, x[:5], logs, strict=True)}
+            return w * (y - x[5:][group] * predict(params, frame))
+
+        x0 = np.array([math.log(p.start) if p.log else p.start for p in spec.parameters] + [1.0] * len(present))
+        return least_squares(residual, x0).x
+
+    results = [fit(points)]
+    for left_out in ids:
+        results.append(fit(points[points["dataset_id"] != left_out]))
+    return results
+
+
+def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
+    points, spec = sensitivity_problem(n_datasets)
+    model_ref = f"{HERE / 'ode_model.py'}:predict"
+    model = fitting.load_model(model_ref)
+    problem = fitting.FitProblem(points, model, spec)
+    labels = points["dataset_id"].to_numpy()
+
+    def exact() -> sensitivity.SensitivityResult:
+        full = fitting.fit(problem)
+        return sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="exact", model_ref=model_ref, workers=2)
+
+    def one_step() -> sensitivity.SensitivityResult:
+        full = fitting.fit(problem)
+        return sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="one-step")
+
+    exact_s, exact_result = median_time(exact, repeats)
+    baseline_s, _ = median_time(lambda: hand_written_loop(points, spec), 1)
+    one_step_s, one_step_result = median_time(one_step, repeats)
+    full_s, _ = median_time(lambda: fitting.fit(problem), repeats)
+    errors = []
+    for a, b in zip(exact_result.groups, one_step_result.groups, strict=True):
+        for name in a.parameters:
+            errors.append(abs(a.parameters[name]["shift_se"] - b.parameters[name]["shift_se"]))
+    n = len(points)
+    return (
+        {"ratio": exact_s / baseline_s, "target": 0.12, "ours_s": exact_s, "baseline_s": baseline_s, "n": n, "datasets": n_datasets},
+        {"ratio": one_step_s / full_s, "target": 1.2, "ours_s": one_step_s, "baseline_s": full_s, "n": n, "datasets": n_datasets,
+         "max_error_se": max(errors), "error_target_se": 0.05},
+    )  # fmt: skip
+
+
+def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
+    intake_times, export_times, peaks = [], [], []
+    context = multiprocessing.get_context("spawn")
+    for n_series in sizes:
+        series = synthetic_series(n_series, seed=n_series)
+        tag = f"scale{n_series}"
+        fresh(folder, f"ours_{tag}.db")
+        started = time.perf_counter()
+        path = ours_intake(folder, series, tag)
+        intake_times.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        with curate.open_catalog(path) as catalog:
+            table, _, _ = weighted_table(catalog)
+        (folder / "scale.parquet").write_bytes(table_bytes(table, "parquet"))
+        export_times.append(time.perf_counter() - started)
+        queue = context.Queue()
+        child = context.Process(target=export_peak, args=(str(path), str(folder / "peak.parquet"), queue))
+        child.start()
+        peaks.append(queue.get(timeout=600))
+        child.join()
+    points = np.array(sizes) * POINTS_PER_SERIES
+    exponent = lambda times: float(np.polyfit(np.log(points), np.log(times), 1)[0])  # noqa: E731
+    raw_bytes = points * 3 * 8  # time, value, sd as float64
+    return {
+        "ratio": max(exponent(intake_times), exponent(export_times)), "target": 1.1,
+        "ours_s": intake_times[-1], "baseline_s": export_times[-1], "n": int(points[-1]),
+        "intake_exponent": exponent(intake_times), "export_exponent": exponent(export_times),
+        "points": points.tolist(), "intake_s": intake_times, "export_s": export_times,
+        "export_peak_bytes": peaks, "raw_data_bytes": raw_bytes.tolist(),
+        "peak_over_data": [p / b for p, b in zip(peaks, raw_bytes, strict=True)],
+    }  # fmt: skip
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(prog="python -m bench", description=__doc__.split("\n")[0])
+    parser.add_argument("--quick", action="store_true", help="small sizes, under two minutes on two cores")
+    args = parser.parse_args()
+    quick = args.quick
+    n_series = 2000 if quick else 10000
+    repeats = 3 if quick else 3
+    results: dict[str, Any] = {}
+    with tempfile.TemporaryDirectory(prefix="curate-bench-") as name:
+        folder = Path(name)
+        print(f"curate benchmarks ({'quick' if quick else 'full'}; {os.cpu_count()} cores)", flush=True)
+        results["intake"] = case_intake(folder, n_series, repeats)
+        print(f"  intake done ({results['intake']['ours_s']:.2f} s)", flush=True)
+        results["export_parquet"] = case_export(folder, n_series, repeats)
+        results["export_csv_writer"] = case_csv_writer(folder, n_series, repeats)
+        print("  export done", flush=True)
+        exact, one_step = case_sensitivity(8 if quick else 20, 1)
+        results["sensitivity_exact"] = exact
+        results["sensitivity_one_step"] = one_step
+        print("  sensitivity done", flush=True)
+        results["scaling"] = case_scaling(folder, [100, 1000, 10000] if not quick else [100, 1000, 5000])
+        if not quick:
+            results["scaling_1e7"] = case_scaling(folder, [10000, 100000])
+    print()
+    print(f"{'case':<22}{'n':>10}{'ours s':>10}{'base s':>10}{'ratio':>9}{'target':>8}  met")
+    for case, row in results.items():
+        met = row["ratio"] <= row["target"]
+        print(f"{case:<22}{row['n']:>10}{row['ours_s']:>10.3f}{row['baseline_s']:>10.3f}{row['ratio']:>9.3f}{row['target']:>8}  {'yes' if met else 'NO'}")
+    one = results["sensitivity_one_step"]
+    print(f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})")
+    scaling = results["scaling"]
+    print(f"scaling exponents: intake {scaling['intake_exponent']:.2f}, export {scaling['export_exponent']:.2f}; "
+          "export peak memory / raw data: " + ", ".join(f"{r:.1f}" for r in scaling["peak_over_data"]))  # fmt: skip
+    print(f"intake vs one BLOB row per series: {results['intake']['ours_vs_blob']:.1f}x (BLOB rows are "
+          f"{results['intake']['blob_vs_floor']:.2f}x the row-per-point floor)")
+    (HERE / "results.json").write_text(json.dumps(results, indent=2) + "\n")
+    print(f"written: {HERE / 'results.json'}")
+
+
+if __name__ == "__main__":
+    main()
