@@ -31,11 +31,10 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
+from bench.peak import export_peak  # noqa: E402
 from curate import fitting, sensitivity  # noqa: E402
 from curate.export.table import table_bytes  # noqa: E402
 from curate.exporting import weighted_table  # noqa: E402
-
-from bench.peak import export_peak  # noqa: E402
 
 POINTS_PER_SERIES = 100
 
@@ -50,7 +49,9 @@ def median_time(function: Callable[[], Any], repeats: int) -> tuple[float, Any]:
     return statistics.median(times), result
 
 
-def synthetic_series(n_series: int, seed: int = 0) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
+def synthetic_series(
+    n_series: int, seed: int = 0
+) -> list[tuple[np.ndarray, np.ndarray, np.ndarray]]:
     rng = np.random.default_rng(seed)
     t = np.arange(POINTS_PER_SERIES, dtype=float) * 30.0
     return [(t, 20 * (1 - np.exp(-t / 900.0)) + rng.normal(0, 0.5, POINTS_PER_SERIES), np.full(POINTS_PER_SERIES, 0.5))
@@ -70,7 +71,11 @@ def floor_intake(folder: Path, series: list, tag: str) -> Path:
     path = folder / f"floor_{tag}.db"
     conn = sqlite3.connect(path)
     conn.execute("CREATE TABLE points (series INTEGER, time REAL, value REAL, sd REAL)")
-    rows = ((k, float(t_), float(y_), float(s_)) for k, (t, y, sd) in enumerate(series) for t_, y_, s_ in zip(t, y, sd, strict=True))
+    rows = (
+        (k, float(t_), float(y_), float(s_))
+        for k, (t, y, sd) in enumerate(series)
+        for t_, y_, s_ in zip(t, y, sd, strict=True)
+    )
     with conn:
         conn.executemany("INSERT INTO points VALUES (?, ?, ?, ?)", rows)
     conn.close()
@@ -137,15 +142,29 @@ def case_export(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
 
     ours_s, rows = median_time(ours, repeats)
     baseline_s, _ = median_time(baseline, repeats)
-    return {"ratio": ours_s / baseline_s, "target": 0.3, "ours_s": ours_s, "baseline_s": baseline_s, "n": rows}
+    return {
+        "ratio": ours_s / baseline_s,
+        "target": 0.3,
+        "ours_s": ours_s,
+        "baseline_s": baseline_s,
+        "n": rows,
+    }
 
 
 def case_csv_writer(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
     with curate.open_catalog(folder / f"ours_{n_series}.db") as catalog:
         table, _, _ = weighted_table(catalog)
-    ours_s, _ = median_time(lambda: (folder / "ours.csv").write_bytes(table_bytes(table, "csv")), repeats)
+    ours_s, _ = median_time(
+        lambda: (folder / "ours.csv").write_bytes(table_bytes(table, "csv")), repeats
+    )
     baseline_s, _ = median_time(lambda: table.to_csv(folder / "pandas.csv", index=False), repeats)
-    return {"ratio": ours_s / baseline_s, "target": 0.3, "ours_s": ours_s, "baseline_s": baseline_s, "n": len(table)}
+    return {
+        "ratio": ours_s / baseline_s,
+        "target": 0.3,
+        "ours_s": ours_s,
+        "baseline_s": baseline_s,
+        "n": len(table),
+    }
 
 
 def sensitivity_problem(n_datasets: int) -> tuple[pd.DataFrame, fitting.ParameterSpec]:
@@ -193,11 +212,22 @@ def hand_written_loop(points: pd.DataFrame, spec: fitting.ParameterSpec) -> list
         y, w = frame["value"].to_numpy(), np.sqrt(frame["weight"].to_numpy())
 
         def residual(x: np.ndarray) -> np.ndarray:
-            params = {n: (math.exp(v) if lg else v) for n, v, lg in zip(names, x[:5], logs, strict=True)}
+            params = {
+                n: (math.exp(v) if lg else v) for n, v, lg in zip(names, x[:5], logs, strict=True)
+            }
             return w * (y - x[5:][group] * predict(params, frame))
 
-        x0 = np.array([math.log(p.start) if p.log else p.start for p in spec.parameters] + [1.0] * len(present))
-        return least_squares(residual, x0).x
+        x0 = np.array(
+            [math.log(p.start) if p.log else p.start for p in spec.parameters]
+            + [1.0] * len(present)
+        )
+        lower = [math.log(p.lower) if p.log else p.lower for p in spec.parameters] + [0.0] * len(
+            present
+        )
+        upper = [math.log(p.upper) if p.log else p.upper for p in spec.parameters] + [np.inf] * len(
+            present
+        )
+        return least_squares(residual, x0, bounds=(lower, upper), x_scale="jac").x
 
     results = [fit(points)]
     for left_out in ids:
@@ -214,11 +244,15 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
 
     def exact() -> sensitivity.SensitivityResult:
         full = fitting.fit(problem)
-        return sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="exact", model_ref=model_ref, workers=2)
+        return sensitivity.leave_one_group_out(
+            problem, full, labels, by="dataset", method="exact", model_ref=model_ref, workers=2
+        )
 
     def one_step() -> sensitivity.SensitivityResult:
         full = fitting.fit(problem)
-        return sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="one-step")
+        return sensitivity.leave_one_group_out(
+            problem, full, labels, by="dataset", method="one-step"
+        )
 
     exact_s, exact_result = median_time(exact, repeats)
     baseline_s, _ = median_time(lambda: hand_written_loop(points, spec), 1)
@@ -252,7 +286,9 @@ def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
         (folder / "scale.parquet").write_bytes(table_bytes(table, "parquet"))
         export_times.append(time.perf_counter() - started)
         queue = context.Queue()
-        child = context.Process(target=export_peak, args=(str(path), str(folder / "peak.parquet"), queue))
+        child = context.Process(
+            target=export_peak, args=(str(path), str(folder / "peak.parquet"), queue)
+        )
         child.start()
         peaks.append(queue.get(timeout=600))
         child.join()
@@ -271,7 +307,9 @@ def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
 
 def main() -> None:
     parser = argparse.ArgumentParser(prog="python -m bench", description=__doc__.split("\n")[0])
-    parser.add_argument("--quick", action="store_true", help="small sizes, under two minutes on two cores")
+    parser.add_argument(
+        "--quick", action="store_true", help="small sizes, under two minutes on two cores"
+    )
     args = parser.parse_args()
     quick = args.quick
     n_series = 2000 if quick else 10000
@@ -279,7 +317,10 @@ def main() -> None:
     results: dict[str, Any] = {}
     with tempfile.TemporaryDirectory(prefix="curate-bench-") as name:
         folder = Path(name)
-        print(f"curate benchmarks ({'quick' if quick else 'full'}; {os.cpu_count()} cores)", flush=True)
+        print(
+            f"curate benchmarks ({'quick' if quick else 'full'}; {os.cpu_count()} cores)",
+            flush=True,
+        )
         results["intake"] = case_intake(folder, n_series, repeats)
         print(f"  intake done ({results['intake']['ours_s']:.2f} s)", flush=True)
         results["export_parquet"] = case_export(folder, n_series, repeats)
@@ -289,21 +330,29 @@ def main() -> None:
         results["sensitivity_exact"] = exact
         results["sensitivity_one_step"] = one_step
         print("  sensitivity done", flush=True)
-        results["scaling"] = case_scaling(folder, [100, 1000, 10000] if not quick else [100, 1000, 5000])
+        results["scaling"] = case_scaling(
+            folder, [100, 1000, 10000] if not quick else [100, 1000, 5000]
+        )
         if not quick:
             results["scaling_1e7"] = case_scaling(folder, [10000, 100000])
     print()
     print(f"{'case':<22}{'n':>10}{'ours s':>10}{'base s':>10}{'ratio':>9}{'target':>8}  met")
     for case, row in results.items():
         met = row["ratio"] <= row["target"]
-        print(f"{case:<22}{row['n']:>10}{row['ours_s']:>10.3f}{row['baseline_s']:>10.3f}{row['ratio']:>9.3f}{row['target']:>8}  {'yes' if met else 'NO'}")
+        print(
+            f"{case:<22}{row['n']:>10}{row['ours_s']:>10.3f}{row['baseline_s']:>10.3f}{row['ratio']:>9.3f}{row['target']:>8}  {'yes' if met else 'NO'}"
+        )
     one = results["sensitivity_one_step"]
-    print(f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})")
+    print(
+        f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})"
+    )
     scaling = results["scaling"]
     print(f"scaling exponents: intake {scaling['intake_exponent']:.2f}, export {scaling['export_exponent']:.2f}; "
           "export peak memory / raw data: " + ", ".join(f"{r:.1f}" for r in scaling["peak_over_data"]))  # fmt: skip
-    print(f"intake vs one BLOB row per series: {results['intake']['ours_vs_blob']:.1f}x (BLOB rows are "
-          f"{results['intake']['blob_vs_floor']:.2f}x the row-per-point floor)")
+    print(
+        f"intake vs one BLOB row per series: {results['intake']['ours_vs_blob']:.1f}x (BLOB rows are "
+        f"{results['intake']['blob_vs_floor']:.2f}x the row-per-point floor)"
+    )
     (HERE / "results.json").write_text(json.dumps(results, indent=2) + "\n")
     print(f"written: {HERE / 'results.json'}")
 

@@ -21,7 +21,17 @@ def reporter(params, dose, temperature, minutes):
         return [f * (drive * (1 - a) - params["k_off"] * a), f * (a - params["k_deg"] * v)]
 
     unique = np.unique(minutes)
-    solution = solve_ivp(rhs, (0.0, float(unique[-1])), [0.0, 0.0], t_eval=unique, method="LSODA", rtol=1e-7, atol=1e-9)
+    solution = solve_ivp(
+        rhs,
+        (0.0, float(unique[-1])),
+        [0.0, 0.0],
+        t_eval=unique,
+        method="LSODA",
+        rtol=1e-7,
+        atol=1e-9,
+    )
+    if not solution.success or solution.y.shape[1] != len(unique):
+        return np.full(len(minutes), 1e6)  # a failed solve: a large residual steers the fit away
     return solution.y[1][np.searchsorted(unique, minutes)]
 
 

@@ -148,8 +148,14 @@ def _sensitivity_external(command: str, table: pd.DataFrame, labels: np.ndarray,
         if progress:
             progress(done + 1, len(unique))
         if fold.error is not None:
-            groups.append(sensitivity.GroupResult(group, int((~keep).sum()), {}, None, None, None,
-                                                  [f"fold without {by} {group} failed: {fold.error}"], False, fold.error))  # fmt: skip
+            groups.append(
+                sensitivity.GroupResult.failed(
+                    group,
+                    int((~keep).sum()),
+                    f"fold without {by} {group} failed: {fold.error}",
+                    fold.error,
+                )
+            )
             continue
         parameters: dict[str, dict[str, float | None]] = {}
         flags = []

@@ -242,6 +242,7 @@ class _ActionContext:
         self.by_key: dict[tuple[str, str, str, str], DatasetVersion] = {}
         self.levels: dict[tuple[str, str], list[float]] = {}
         self.ids: set[str] = set()
+        self.next_number: dict[str, int] = {}
         for row in store.latest_versions():
             self._remember(_version_from_row(row))
 
@@ -389,9 +390,10 @@ class Catalog:
         prefix = f"{_slug(rec.source.lab, 40).split('_')[0][:16]}_{_slug(rec.observable.id, 24)}_"
         if not prefix[0].isalpha():
             prefix = "d_" + prefix
-        number = 1
+        number = context.next_number.get(prefix, 1)  # numbers below it are known to be taken
         while f"{prefix}{number:02d}" in context.ids:
             number += 1
+        context.next_number[prefix] = number
         return f"{prefix}{number:02d}"
 
     def _write_version(

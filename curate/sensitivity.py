@@ -66,6 +66,11 @@ class GroupResult:
     converged: bool = True
     error: str | None = None
 
+    @classmethod
+    def failed(cls, group: str, n_points: int, flag: str, error: str | None) -> GroupResult:
+        """Give the row of a group whose refit could not be made."""
+        return cls(group, n_points, {}, None, None, None, [flag], False, error)
+
     def to_dict(self) -> dict[str, Any]:
         """Give the row in the JSON shape of ``curate sensitivity --json``."""
         return {
@@ -328,32 +333,14 @@ def leave_one_group_out(
     for group, (_, held, gap) in plans.items():
         if gap is not None:
             groups.append(
-                GroupResult(
-                    group,
-                    len(held),
-                    {},
-                    None,
-                    None,
-                    None,
-                    [f"leaving out {by} {group} {gap}"],
-                    False,
-                    gap,
-                )
+                GroupResult.failed(group, len(held), f"leaving out {by} {group} {gap}", gap)
             )
             continue
         new_theta, converged, error = refits[group]
         if new_theta is None:
             groups.append(
-                GroupResult(
-                    group,
-                    len(held),
-                    {},
-                    None,
-                    None,
-                    None,
-                    [f"refit without {by} {group} failed: {error}"],
-                    False,
-                    error,
+                GroupResult.failed(
+                    group, len(held), f"refit without {by} {group} failed: {error}", error
                 )
             )
             continue
