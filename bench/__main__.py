@@ -313,7 +313,7 @@ def main() -> None:
     args = parser.parse_args()
     quick = args.quick
     n_series = 2000 if quick else 10000
-    repeats = 3 if quick else 3
+    repeats = 3
     results: dict[str, Any] = {}
     with tempfile.TemporaryDirectory(prefix="curate-bench-") as name:
         folder = Path(name)
