@@ -302,7 +302,7 @@ def leave_one_group_out(
         gap = _unidentified(jacobian, keep, names)
         plans[group] = (keep, np.flatnonzero(held), gap)
     refits: dict[str, tuple[np.ndarray | None, bool, str | None]] = {}
-    executor = "one-step (no refits)"
+    executor = "no refits"
     if method == "exact":
         tasks = [
             _Task(

@@ -24,6 +24,18 @@ class Run:
     err: str
 
 
+def run_main(capsys: pytest.CaptureFixture[str], argv: list[str]) -> Run:
+    """Run ``curate`` in-process with ``argv``; give its exit code, stdout and stderr."""
+    capsys.readouterr()
+    try:
+        main(argv)
+        code = 0
+    except SystemExit as exit_:
+        code = int(exit_.code or 0)
+    captured = capsys.readouterr()
+    return Run(code, captured.out, captured.err)
+
+
 @pytest.fixture
 def cli(capsys: pytest.CaptureFixture[str], tmp_path: Path):
     """Run the curate CLI in-process against a catalog in tmp_path; give code, stdout, stderr."""
@@ -31,14 +43,7 @@ def cli(capsys: pytest.CaptureFixture[str], tmp_path: Path):
 
     def run(*args: str, catalog_path: Path | None = catalog) -> Run:
         argv = (["--catalog", str(catalog_path)] if catalog_path else []) + [str(a) for a in args]
-        capsys.readouterr()
-        try:
-            main(argv)
-            code = 0
-        except SystemExit as exit_:
-            code = int(exit_.code or 0)
-        captured = capsys.readouterr()
-        return Run(code, captured.out, captured.err)
+        return run_main(capsys, argv)
 
     run.catalog = catalog  # type: ignore[attr-defined]
     return run

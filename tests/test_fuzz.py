@@ -11,13 +11,13 @@ import io
 import sqlite3
 import string
 import tempfile
+from dataclasses import astuple
 from pathlib import Path
 
 import openpyxl
+from conftest import run_main
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
-
-from curate.cli import main
 
 EXAMPLES = 700
 OPTIONS = ["--observable", "fuzz", "--unit", "nM", "--time-unit", "s", "--lab", "Fuzz Lab"]
@@ -48,22 +48,11 @@ def snapshot(catalog: Path) -> list[str]:
         conn.close()
 
 
-def run_cli(capsys, argv: list[str]) -> tuple[int, str, str]:
-    capsys.readouterr()
-    try:
-        main(argv)
-        code = 0
-    except SystemExit as exit_:
-        code = int(exit_.code or 0)
-    captured = capsys.readouterr()
-    return code, captured.out, captured.err
-
-
 def check(capsys, folder: Path, data: Path, extra: list[str] | None = None) -> None:
     catalog = folder / "fuzz.db"
     before = snapshot(catalog)
-    code, out, err = run_cli(
-        capsys, ["--catalog", str(catalog), "add", str(data), *OPTIONS, *(extra or [])]
+    code, out, err = astuple(
+        run_main(capsys, ["--catalog", str(catalog), "add", str(data), *OPTIONS, *(extra or [])])
     )
     assert "Traceback" not in err
     assert code in (0, 2), (code, err)  # 3 would be an internal error: a defect of ours
