@@ -93,15 +93,6 @@ def _overview(catalog: Catalog) -> str:
     )
 
 
-def _grade_legend() -> str:
-    items = [
-        f"<li>{g}: {marker} marker, colour {colour}</li>"
-        for g, (colour, marker) in GRADE_STYLE.items()
-        if g
-    ]
-    return '<ul class="note">' + "".join(items) + "</ul>"
-
-
 def _series(catalog: Catalog, fitted: dict[str, Any] | None) -> str:
     plt = _matplotlib()
     versions = catalog.list()
@@ -151,14 +142,26 @@ def _series(catalog: Catalog, fitted: dict[str, Any] | None) -> str:
         axis.set_ylabel(short_unit(version.record.observable.unit), fontsize=7)
     for axis in list(axes.flat)[len(versions) :]:
         axis.axis("off")
-    figure.tight_layout()
+    from matplotlib.lines import Line2D
+
+    key = [Line2D([], [], linestyle="none", marker=marker, color=colour, markeredgecolor="black", markersize=7,
+                  label=f"grade {grade}" if grade else "ungraded")
+           for grade, (colour, marker) in GRADE_STYLE.items()]  # fmt: skip
+    figure.legend(
+        handles=key,
+        loc="upper center",
+        ncol=len(key),
+        frameon=False,
+        fontsize=8,
+        bbox_to_anchor=(0.5, 1.0),
+    )
+    figure.tight_layout(rect=(0, 0, 1, 0.96))
     note = ("Black lines: the newest recorded fit (relative-unit data drawn with their fitted scale factor)."
             if overlay else "No fit recorded yet: run `curate fit` to draw one over the data.")  # fmt: skip
     return (
         '<section id="series"><h2>Every series, with its uncertainty band and grade</h2>'
         f'<p class="note">Shaded band: value ± measured SD (never trust-inflated). {html.escape(note)}</p>'
-        + _grade_legend()
-        + figure_tag(figure, "every measured series with its uncertainty band")
+        + figure_tag(figure, "every measured series with its uncertainty band (key: grade markers)")
         + "</section>"
     )
 
