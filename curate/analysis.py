@@ -31,17 +31,12 @@ __all__ = ["ExternalFold", "run_fit", "run_sensitivity"]
 
 
 def _record(catalog: Catalog, kind: str, *, model: str, spec: fitting.ParameterSpec | None, policy: weights.Policy,
-            versions: list[Any], selection: exporting.Selection, summary: dict[str, Any]) -> int:  # fmt: skip
+            versions: list[Any], selection: exporting.Selection, summary: dict[str, Any]) -> None:  # fmt: skip
     manifest = exporting._manifest(catalog, kind, policy, selection, versions, {})
-    with catalog.store.transaction():
-        catalog.store.put_policy(policy.sha256, policy.name, policy.origin, policy.text)
-        catalog.record_event(kind, {
-            "format": kind, "outdir": "", "model": model, "model_sha256": fitting.model_sha256(model) if ":" in model else None,
-            "spec_sha256": spec.sha256 if spec else None, "spec": spec.to_dict() if spec else None,
-            "policy_sha256": policy.sha256, "manifest_sha256": manifest["manifest_sha256"],
-            "datasets": [[v.id, v.version] for v in versions], "result": summary,
-        })  # fmt: skip
-    return catalog.store.head()[0]
+    exporting.record_run(catalog, kind, policy, versions, manifest, extra={
+        "model": model, "model_sha256": fitting.model_sha256(model) if ":" in model else None,
+        "spec_sha256": spec.sha256 if spec else None, "spec": spec.to_dict() if spec else None, "result": summary,
+    })  # fmt: skip
 
 
 def _problem(catalog: Catalog, model_ref: str, spec_path: str | Path, policy: weights.Policy,

@@ -33,6 +33,7 @@ __all__ = [
     "TraceReport",
     "export",
     "impact",
+    "record_run",
     "select",
     "trace",
     "weighted_table",
@@ -374,16 +375,25 @@ def export(catalog: Catalog, fmt: str, outdir: str | Path, *, policy: weights.Po
     manifest = _manifest(
         catalog, fmt, policy, selection, versions, files, {"weights": summary.to_dict()}
     )
+    record_run(catalog, "export", policy, versions, manifest, folder=folder)
+    return ExportResult(format=fmt, outdir=folder, files=files, manifest=manifest, summary=summary)
+
+
+def record_run(catalog: Catalog, kind: str, policy: weights.Policy, versions: list[DatasetVersion],
+               manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
+    """Store the policy, write the manifest (if a folder is given) and append the run's event,
+    in one transaction: what ``trace`` and ``impact`` later read."""
     with catalog.store.transaction():
         catalog.store.put_policy(policy.sha256, policy.name, policy.origin, policy.text)
-        common.write_text(
-            folder / common.MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n"
-        )
-        catalog.record_event("export", {
-            "format": fmt, "outdir": str(folder.resolve()), "manifest_sha256": manifest["manifest_sha256"],
-            "policy_sha256": policy.sha256, "datasets": [[v.id, v.version] for v in versions],
+        if folder is not None:
+            common.write_text(
+                folder / common.MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n"
+            )
+        catalog.record_event(kind, {
+            "format": manifest["format"], "outdir": str(folder.resolve()) if folder is not None else "",
+            "manifest_sha256": manifest["manifest_sha256"], "policy_sha256": policy.sha256,
+            "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
         })  # fmt: skip
-    return ExportResult(format=fmt, outdir=folder, files=files, manifest=manifest, summary=summary)
 
 
 def _ucum_or_none(unit: str) -> str | None:
@@ -493,15 +503,7 @@ def write_folds(catalog: Catalog, by: str, outdir: str | Path, *, policy: weight
     manifest = _manifest(
         catalog, f"folds:{by}", policy, selection, versions, files, {"folds": described}
     )
-    with catalog.store.transaction():
-        catalog.store.put_policy(policy.sha256, policy.name, policy.origin, policy.text)
-        common.write_text(
-            folder / common.MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n"
-        )
-        catalog.record_event("export", {
-            "format": f"folds:{by}", "outdir": str(folder.resolve()), "manifest_sha256": manifest["manifest_sha256"],
-            "policy_sha256": policy.sha256, "datasets": [[v.id, v.version] for v in versions],
-        })  # fmt: skip
+    record_run(catalog, "export", policy, versions, manifest, folder=folder)
     return FoldSet(by=by, outdir=folder, folds=described, manifest=manifest)
 
 
