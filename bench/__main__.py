@@ -32,9 +32,9 @@ sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
 from bench.peak import export_peak  # noqa: E402
-from curate import fitting, sensitivity  # noqa: E402
+from curate import fit as fitting  # noqa: E402
 from curate.export.table import table_bytes  # noqa: E402
-from curate.exporting import weighted_table  # noqa: E402
+from curate.fit import sensitivity  # noqa: E402
 
 POINTS_PER_SERIES = 100
 
@@ -128,7 +128,7 @@ def case_export(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
 
     def ours() -> int:
         with curate.open_catalog(catalog_path) as catalog:
-            table, _, _ = weighted_table(catalog)
+            table = catalog.weighted_table()
         data = table_bytes(table, "parquet")
         (folder / "ours.parquet").write_bytes(data)
         return len(table)
@@ -153,7 +153,7 @@ def case_export(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
 
 def case_csv_writer(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
     with curate.open_catalog(folder / f"ours_{n_series}.db") as catalog:
-        table, _, _ = weighted_table(catalog)
+        table = catalog.weighted_table()
     ours_s, _ = median_time(
         lambda: (folder / "ours.csv").write_bytes(table_bytes(table, "csv")), repeats
     )
@@ -237,15 +237,14 @@ def hand_written_loop(points: pd.DataFrame, spec: fitting.ParameterSpec) -> list
 
 def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
     points, spec = sensitivity_problem(n_datasets)
-    model_ref = f"{HERE / 'ode_model.py'}:predict"
-    model = fitting.load_model(model_ref)
+    model = fitting.PythonFunction.from_reference(f"{HERE / 'ode_model.py'}:predict")
     problem = fitting.FitProblem(points, model, spec)
     labels = points["dataset_id"].to_numpy()
 
     def exact() -> sensitivity.SensitivityResult:
         full = fitting.fit(problem)
         return sensitivity.leave_one_group_out(
-            problem, full, labels, by="dataset", method="exact", model_ref=model_ref, workers=2
+            problem, full, labels, by="dataset", method="exact", workers=2
         )
 
     def one_step() -> sensitivity.SensitivityResult:
@@ -282,7 +281,7 @@ def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
         intake_times.append(time.perf_counter() - started)
         started = time.perf_counter()
         with curate.open_catalog(path) as catalog:
-            table, _, _ = weighted_table(catalog)
+            table = catalog.weighted_table()
         (folder / "scale.parquet").write_bytes(table_bytes(table, "parquet"))
         export_times.append(time.perf_counter() - started)
         queue = context.Queue()

@@ -15,11 +15,10 @@ def export_peak(catalog_path: str, out: str, queue: Any) -> None:
     """
     import curate
     from curate.export.table import table_bytes
-    from curate.exporting import weighted_table
 
     with curate.open_catalog(catalog_path) as catalog:
         tracemalloc.start()
-        table, _, _ = weighted_table(catalog)
+        table = catalog.weighted_table()
         Path(out).write_bytes(table_bytes(table, "parquet"))
         _, peak = tracemalloc.get_traced_memory()
         tracemalloc.stop()

@@ -12,16 +12,7 @@ The public Python API mirrors the command line::
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
-
-from curate.catalog import (
-    AddPlan,
-    AddResult,
-    Catalog,
-    HistoryEntry,
-    VerifyReport,
-    open_catalog,
-)
+from curate.api import Catalog, open_catalog
 from curate.errors import (
     CatalogError,
     CurateError,
@@ -30,7 +21,9 @@ from curate.errors import (
     NotFoundError,
     UnitError,
 )
-from curate.ingest import Draft, IntakeItem, IntakeReport
+from curate.fit import FitOptions, FitResult, ModelBackend, PythonFunction
+from curate.ingest import Draft
+from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeItem, IntakeReport, VerifyReport
 from curate.records import (
     EXCLUSION_GRADE,
     GRADES,
@@ -38,6 +31,8 @@ from curate.records import (
     DatasetVersion,
     SeriesArrays,
 )
+from curate.version import __version__
+from curate.weighting import Policy, Selection, load_policy
 
 __all__ = [
     "EXCLUSION_GRADE",
@@ -50,15 +45,22 @@ __all__ = [
     "DatasetRecord",
     "DatasetVersion",
     "Draft",
+    "FitOptions",
+    "FitResult",
     "HistoryEntry",
     "InputError",
     "IntakeItem",
     "IntakeReport",
     "IntegrityError",
+    "ModelBackend",
     "NotFoundError",
+    "Policy",
+    "PythonFunction",
+    "Selection",
     "SeriesArrays",
     "UnitError",
     "VerifyReport",
     "__version__",
+    "load_policy",
     "open_catalog",
 ]

@@ -7,14 +7,15 @@ import runpy
 import shutil
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
-from curate.assess import ConsistencyReport
-from curate.catalog import Catalog, VerifyReport
+from curate.api import Catalog
 from curate.errors import InputError
-from curate.ingest.inbox import IntakeReport
+from curate.fit import FitResult
+from curate.fit.sensitivity import SensitivityResult
+from curate.ledger import IntakeReport, VerifyReport
+from curate.quality.actions import ConsistencyReport
 from curate.records import DatasetVersion
-from curate.weights import WeightSummary
+from curate.weighting import WeightSummary, load_policy
 
 __all__ = ["DemoResult", "default_examples", "run_demo"]
 
@@ -37,9 +38,9 @@ class DemoResult:
     exports: dict[str, Path] = field(default_factory=dict)
     weights: WeightSummary | None = None
     accepted: list[str] = field(default_factory=list)
-    before: Any = None  # sensitivity by dataset before the suggestions were accepted
-    fit: Any = None
-    sensitivity: dict[str, Any] = field(default_factory=dict)
+    before: SensitivityResult | None = None  # by dataset, before the suggestions were accepted
+    fit: FitResult | None = None
+    sensitivity: dict[str, SensitivityResult] = field(default_factory=dict)
     truth: dict[str, float] = field(default_factory=dict)
     report: Path | None = None
     verify: VerifyReport | None = None
@@ -89,8 +90,8 @@ def run_demo(
             if graded is not None and graded.grade is not None:
                 grades[dataset_id] = graded.grade
         consistency = catalog.consistency()
-        policy = source / "policy.toml"
-        policy_path = policy if policy.is_file() else None
+        policy_file = source / "policy.toml"
+        policy = load_policy(policy_file if policy_file.is_file() else None)
         model, params = source / "model.py", source / "params.toml"
         reference = f"{model.resolve()}:predict"
         has_model = model.is_file() and params.is_file()
@@ -100,7 +101,7 @@ def run_demo(
             has_model
         ):  # with the grades as the checklists set them: does the fit hinge on one dataset?
             before = catalog.sensitivity(
-                by="dataset", model=reference, params=params, policy=policy_path, workers=workers
+                by="dataset", model=reference, params=params, policy=policy, workers=workers
             )
         # the demo stands in for the person who reviews each finding and accepts its suggestion
         accepted = []
@@ -109,24 +110,24 @@ def run_demo(
             accepted.append(suggestion.dataset_id)
         exports = {}
         for fmt in ("table", "petab", "datapackage", "prov"):
-            exports[fmt] = catalog.export(fmt, outdir / "exports" / fmt, policy=policy_path).outdir
+            exports[fmt] = catalog.export(fmt, outdir / "exports" / fmt, policy=policy).outdir
         for by in ("dataset", "lab"):
             exports[f"folds by {by}"] = catalog.folds(
-                by, outdir / "folds" / by, policy=policy_path
+                by, outdir / "folds" / by, policy=policy
             ).outdir
-        summary = catalog.weights(policy=policy_path)
+        summary = catalog.weights(policy=policy)
         fitted = None
-        sensitivity: dict[str, Any] = {}
+        sensitivity: dict[str, SensitivityResult] = {}
         truth: dict[str, float] = {}
         if has_model:
-            fitted = catalog.fit(reference, params, policy=policy_path)
+            fitted = catalog.fit(reference, params, policy=policy)
             for by in ("dataset", "lab"):
                 sensitivity[by] = catalog.sensitivity(
-                    by=by, model=reference, params=params, policy=policy_path, workers=workers
+                    by=by, model=reference, params=params, policy=policy, workers=workers
                 )
             truth = dict(runpy.run_path(str(model)).get("TRUTH", {}))
         report = outdir / "report.html"
-        catalog.report(report, policy=policy_path)
+        catalog.report(report, policy=policy)
         datasets = catalog.list(include_retired=True)
         verify = catalog.verify()
     return DemoResult(

@@ -12,22 +12,27 @@ from __future__ import annotations
 import functools
 import re
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
 from curate.errors import UnitError
 
+if TYPE_CHECKING:
+    from curate.records import ConditionValue
+
 __all__ = [
     "CanonicalUnit",
     "Quantity",
     "canonical_unit",
+    "condition_text",
     "convert",
     "convert_scalar",
     "is_relative_unit",
     "parse_quantity",
     "registry",
     "scale_factor",
+    "short_unit",
     "to_unit",
     "ucum_code",
 ]
@@ -279,3 +284,37 @@ def convert_scalar(value: float, unit: CanonicalUnit) -> float:
     """
     converted = float(convert(np.array([value]), unit)[0])
     return float(f"{converted:.15g}")
+
+
+_UNIT_SHORT = {
+    "second": "s",
+    "micrometer": "µm",
+    "nanomolar": "nM",
+    "micrometer / second": "µm/s",
+    "dimensionless": "1",
+    "arbitrary_unit": "a.u.",
+    "degree_Celsius": "°C",
+    "piconewton": "pN",
+    "1 / second": "1/s",
+    "nanogram / milliliter": "ng/mL",
+    "millivolt": "mV",
+}
+
+
+def short_unit(unit: str | None) -> str:
+    """Give a compact label for a canonical unit."""
+    if unit is None:
+        return ""
+    return _UNIT_SHORT.get(unit, unit)
+
+
+def condition_text(value: ConditionValue) -> str:
+    """Give '25 °C' or 'wt' for one condition value."""
+    if isinstance(value.value, float):
+        if value.unit and value.unit_original:
+            # shown as the lab wrote it (10 uM), stored canonically (10000 nM)
+            number = to_unit(value.value, value.unit, value.unit_original)
+            return f"{number:g} {value.unit_original}"
+        number_text = f"{value.value:g}"
+        return f"{number_text} {short_unit(value.unit)}".strip() if value.unit else number_text
+    return str(value.value)

@@ -82,7 +82,7 @@ def digits(estimate: float, certified: float) -> float:
 
 def problem(name: str, start: str):
     """Give (points frame, model, spec dict) for a NIST problem from start1 or start2."""
-    from curate.fitting import spec_from_dict
+    from curate.fit.spec import spec_from_dict
 
     content = read(name)
     points = pd.DataFrame(
@@ -102,7 +102,7 @@ def problem(name: str, start: str):
 
 def table() -> str:
     """Give the markdown table of agreeing digits for every problem and both starts."""
-    from curate import fitting
+    from curate import fit as fitting
 
     rows = [
         "| problem | difficulty | start | value digits (min) | sd digits (min) | RSS digits |",

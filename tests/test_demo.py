@@ -18,7 +18,7 @@ from conftest import ROOT
 
 import curate
 from curate.demo import run_demo
-from curate.report_html import SECTIONS
+from curate.present.report import SECTIONS
 
 EXAMPLES = ROOT / "example_datasets"
 

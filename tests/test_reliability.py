@@ -63,6 +63,7 @@ def check_after_kill(catalog: Path, inbox: Path) -> int:
 
 
 @pytest.mark.slow
+@pytest.mark.xdist_group("own_processes")
 def test_killed_intake_leaves_every_file_whole(tmp_path):
     rng = random.Random(20261202)
     # one uninterrupted run tells how long an intake takes on this machine
@@ -110,6 +111,7 @@ def _writer(catalog: str, worker: int, count: int, queue) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.xdist_group("own_processes")
 def test_four_concurrent_writers_lose_nothing(tmp_path):
     catalog = tmp_path / "shared.db"
     context = multiprocessing.get_context("spawn")
@@ -153,6 +155,7 @@ def _busy_writer(catalog: str, stop_after: float) -> None:
 
 
 @pytest.mark.slow
+@pytest.mark.xdist_group("own_processes")
 def test_backup_while_another_process_writes_and_restore(tmp_path, cli):
     catalog = tmp_path / "live.db"
     with curate.open_catalog(catalog) as opened:

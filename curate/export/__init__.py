@@ -1,22 +1,25 @@
-"""Writers of export formats. The only package besides the catalog that writes files."""
+"""Exports: writers for each open format, the manifest, and the runs that write them.
+
+``files`` (atomic writes, the folder rule), ``table``/``petab``/``datapackage``/``prov`` (pure
+writers: frames in, files out), ``formats`` (the name -> writer registry), ``manifest`` (the
+sealed manifest, the README, the run's event), ``actions`` (export and fold sets of a
+selection), ``trace`` (trace and impact).
+"""
 
 from __future__ import annotations
 
-from curate.export.common import MANIFEST, prepare_folder, read_manifest, seal_manifest
-from curate.export.datapackage import write_datapackage
-from curate.export.petab import petab_tables, write_petab
-from curate.export.prov import lineage_document, write_prov
-from curate.export.table import write_table
+from curate.export.actions import ExportResult, FoldSet, export, write_folds
+from curate.export.formats import FORMATS
+from curate.export.trace import ImpactEntry, TraceReport, impact, trace
 
 __all__ = [
-    "MANIFEST",
-    "lineage_document",
-    "petab_tables",
-    "prepare_folder",
-    "read_manifest",
-    "seal_manifest",
-    "write_datapackage",
-    "write_petab",
-    "write_prov",
-    "write_table",
+    "FORMATS",
+    "ExportResult",
+    "FoldSet",
+    "ImpactEntry",
+    "TraceReport",
+    "export",
+    "impact",
+    "trace",
+    "write_folds",
 ]

@@ -8,7 +8,7 @@ from typing import Any
 
 import pandas as pd
 
-from curate.export.common import write_text
+from curate.export.files import write_text
 from curate.export.table import table_bytes
 
 __all__ = ["datapackage_descriptor", "write_datapackage"]
@@ -108,7 +108,7 @@ def datapackage_descriptor(
 def write_datapackage(points: pd.DataFrame, datasets: pd.DataFrame, outdir: Path, *, name: str,
                       condition_units: dict[str, str | None]) -> dict[str, str]:  # fmt: skip
     """Write points.csv, datasets.csv and datapackage.json; give file name -> sha256."""
-    from curate.export.common import write_bytes
+    from curate.export.files import write_bytes
 
     written = {
         "points.csv": write_bytes(outdir / "points.csv", table_bytes(points, "csv")),

@@ -21,7 +21,7 @@ from typing import Any
 
 import pandas as pd
 
-from curate.export.common import write_text
+from curate.export.files import write_text
 
 __all__ = ["petab_tables", "write_petab"]
 

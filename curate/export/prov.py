@@ -9,7 +9,7 @@ import datetime as dt
 from pathlib import Path
 from typing import Any
 
-from curate.export.common import write_text
+from curate.export.files import write_text
 
 __all__ = ["lineage_document", "write_prov"]
 

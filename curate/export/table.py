@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from curate.export.common import write_bytes
+from curate.export.files import write_bytes
 
 __all__ = ["table_bytes", "write_table"]
 

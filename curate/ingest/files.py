@@ -12,6 +12,7 @@ import numpy as np
 
 from curate import units
 from curate.errors import InputError
+from curate.ingest.plausibility import check_series, typical_magnitude
 from curate.ingest.sidecar import (
     ConditionSpec,
     Sidecar,
@@ -20,7 +21,6 @@ from curate.ingest.sidecar import (
     validate_sidecar,
 )
 from curate.ingest.tables import DATA_SUFFIXES, Table, read_table
-from curate.plausibility import check_series, typical_magnitude
 from curate.records import (
     ConditionValue,
     DatasetRecord,

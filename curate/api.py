@@ -1,0 +1,169 @@
+"""The public catalog: the ledger plus every action on it (noise, grades, consistency,
+weights, exports, folds, trace, impact, fits, sensitivity, backup, report).
+
+:class:`Catalog` adds no logic of its own: each method resolves the policy and selection once
+and calls the module that owns the question. The command line is a thin shell over these
+methods, with the same names.
+"""
+
+from __future__ import annotations
+
+import builtins
+import os
+from collections.abc import Callable, Sequence
+from pathlib import Path
+
+import pandas as pd
+
+from curate import export as exporting
+from curate.fit import runs
+from curate.fit.backends import ModelBackend, PythonFunction
+from curate.fit.engine import FitOptions, FitResult
+from curate.fit.sensitivity import DEFAULT_SHIFT_THRESHOLD, SensitivityResult
+from curate.fit.spec import load_spec
+from curate.ledger import (
+    DEFAULT_CATALOG,
+    IntakeReport,
+    Ledger,
+    VerifyReport,
+    backup_catalog,
+    intake_folder,
+)
+from curate.present.report import write_report
+from curate.quality import actions as quality
+from curate.quality.grading import GradeSuggestion
+from curate.quality.noise import NoiseResult
+from curate.records import DatasetVersion
+from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_policy, weighted_table
+
+__all__ = ["Catalog", "open_catalog"]
+
+
+def open_catalog(path: str | Path | None = None, *, actor: str | None = None) -> Catalog:
+    """Give the catalog at ``path`` ($CURATE_CATALOG, else ./curate.db), creating it if new."""
+    chosen = path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG
+    return Catalog(chosen, actor=actor)
+
+
+class Catalog(Ledger):
+    """A catalog of measured datasets in one SQLite file, with every action on them.
+
+    ``policy`` arguments take a loaded :class:`~curate.weighting.Policy`, a TOML path, or None
+    for the policy that ships; ``selection`` a :class:`~curate.weighting.Selection` (None:
+    every current, fitted dataset).
+    """
+
+    def __enter__(self) -> Catalog:
+        return self
+
+    # -- intake ----------------------------------------------------------------------------
+
+    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None,
+               progress: Callable[[int, int, str], None] | None = None) -> IntakeReport:  # fmt: skip
+        """Log every data file of a folder; quarantine each bad one with its reason."""
+        return intake_folder(self, folder, quarantine=quarantine, progress=progress)
+
+    # -- judgement (noise, trust, consistency) --------------------------------------------
+
+    def estimate_noise(
+        self, dataset_ids: builtins.list[str] | None = None, *, method: str = "auto"
+    ) -> builtins.list[tuple[DatasetVersion, NoiseResult]]:
+        """Estimate and store the noise of the named datasets (all current ones if None)."""
+        ids = dataset_ids if dataset_ids is not None else [v.id for v in self.list()]
+        return quality.estimate_noise(self, ids, method=method)
+
+    def grade(self, dataset_id: str, grade: str, *, reason: str) -> DatasetVersion:
+        """Record a person's trust grade with its reason (a new version)."""
+        return quality.set_grade(self, dataset_id, grade, reason=reason)
+
+    def grade_from_checklist(self, dataset_id: str, *, answers: dict[str, bool | None] | None = None,
+                             answers_file: str | Path | None = None, checklist_file: str | Path | None = None,
+                             accept: bool = False) -> tuple[GradeSuggestion, DatasetVersion | None]:  # fmt: skip
+        """Suggest a grade from checklist answers (recorded as an event); grade if ``accept``."""
+        return quality.grade_from_checklist(self, dataset_id, answers=answers, answers_file=answers_file,
+                                            checklist_file=checklist_file, accept=accept)  # fmt: skip
+
+    def accept_suggestion(self, dataset_id: str) -> DatasetVersion:
+        """Take the newest grade suggestion for a dataset as its grade."""
+        return quality.accept_suggestion(self, dataset_id)
+
+    def consistency(self, *, observable: str | None = None, tolerance: float = 0.01, at: float | None = None,
+                    alpha: float = 0.05, record: bool = True) -> quality.ConsistencyReport:  # fmt: skip
+        """Compare datasets of one observable under matching conditions; record grade suggestions."""
+        return quality.check_consistency(self, observable=observable, tolerance=tolerance, at=at,
+                                         alpha=alpha, record=record)  # fmt: skip
+
+    # -- weights, exports, folds -----------------------------------------------------------
+
+    def weighted_table(
+        self, *, policy: PolicyLike = None, selection: Selection | None = None
+    ) -> pd.DataFrame:
+        """Give the weighted long table of a selection as a DataFrame (no files written)."""
+        return weighted_table(self, resolve_policy(policy), selection or Selection()).table
+
+    def weights(
+        self, *, policy: PolicyLike = None, selection: Selection | None = None
+    ) -> WeightSummary:
+        """Give each dataset's share of the total weight, Kish n_eff and warnings."""
+        return weighted_table(self, resolve_policy(policy), selection or Selection()).summary
+
+    def export(self, fmt: str, outdir: str | Path, *, policy: PolicyLike = None,
+               selection: Selection | None = None, force: bool = False) -> exporting.ExportResult:  # fmt: skip
+        """Write an export (table, petab, datapackage, prov) with its README and manifest."""
+        return exporting.export(self, fmt, outdir, policy=resolve_policy(policy),
+                                selection=selection or Selection(), force=force)  # fmt: skip
+
+    def folds(self, by: str, outdir: str | Path, *, policy: PolicyLike = None,
+              selection: Selection | None = None, force: bool = False) -> exporting.FoldSet:  # fmt: skip
+        """Write holdout folds (one folder per fold) with a manifest."""
+        return exporting.write_folds(self, by, outdir, policy=resolve_policy(policy),
+                                     selection=selection or Selection(), force=force)  # fmt: skip
+
+    def trace(self, outdir: str | Path) -> exporting.TraceReport:
+        """Tell whether the catalog still holds exactly the data an export used."""
+        return exporting.trace(self, outdir)
+
+    def impact(self, dataset_id: str) -> builtins.list[exporting.ImpactEntry]:
+        """List the exports and runs that used a since-corrected or retired version of a dataset."""
+        return exporting.impact(self, dataset_id)
+
+    # -- fits and sensitivity ----------------------------------------------------------------
+
+    def fit(self, model: str | ModelBackend, params: str | Path, *, policy: PolicyLike = None,
+            selection: Selection | None = None, options: FitOptions | None = None) -> FitResult:  # fmt: skip
+        """Fit a model (module:function, file.py:function or a backend) to the weighted selection."""
+        chosen = resolve_policy(policy)
+        spec = load_spec(params)
+        backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
+        return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
+                            options=options)  # fmt: skip
+
+    def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
+                    fitter_cmd: str | None = None, method: str = "exact", policy: PolicyLike = None,
+                    selection: Selection | None = None, options: FitOptions | None = None, workers: int = 1,
+                    dask: str | None = None, threshold: float = DEFAULT_SHIFT_THRESHOLD,
+                    policies: Sequence[PolicyLike] = (), timeout: float = 600.0,
+                    workdir: str | Path | None = None,
+                    progress: Callable[[int, int], None] | None = None) -> SensitivityResult:  # fmt: skip
+        """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs."""
+        chosen = resolve_policy(policy)
+        alternatives = [resolve_policy(p) for p in policies]
+        runs.sensitivity_grouping(by)
+        backend, spec = runs.choose_backend(
+            model=model, params=params, fitter_cmd=fitter_cmd, timeout=timeout
+        )
+        return runs.run_sensitivity(
+            self, backend, spec, by=by, policy=chosen, selection=selection or Selection(), method=method,
+            options=options, workers=workers, dask=dask, threshold=threshold, alternative_policies=alternatives,
+            workdir=workdir, progress=progress,
+        )  # fmt: skip
+
+    # -- keeping and showing -------------------------------------------------------------------
+
+    def backup(self, destination: str | Path, *, force: bool = False) -> VerifyReport:
+        """Write a verified copy of the catalog to ``destination`` (while others may write)."""
+        return backup_catalog(self, destination, force=force)
+
+    def report(self, path: str | Path, *, policy: PolicyLike = None) -> str:
+        """Write the self-contained HTML report of the catalog; give its sha256."""
+        return write_report(self, path, resolve_policy(policy))

@@ -1,0 +1,776 @@
+"""The ``curate`` commands: each parses, calls one API method, prints through the text layer.
+
+No computation here. Errors a user can fix print one line on stderr and exit with code 2.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from pathlib import Path
+from typing import Annotated, Any
+
+import click
+import typer
+from rich.console import Console
+
+from curate.api import Catalog, open_catalog
+from curate.cli.options import parse_conditions, selection_options
+from curate.demo import run_demo
+from curate.errors import CurateError, InputError
+from curate.fit import FitOptions
+from curate.ingest import build_draft
+from curate.ledger import AddPlan, default_actor, restore_catalog
+from curate.present import run_text, text
+from curate.present.html import write_sensitivity_report
+from curate.present.jsondata import to_json
+from curate.present.progress import progress_bar
+from curate.quality.grading import load_checklist
+from curate.quality.noise import METHODS as NOISE_METHODS
+from curate.records import DatasetVersion
+from curate.units import parse_quantity
+from curate.version import __version__
+from curate.weighting import Policy, Selection, load_policy
+
+app = typer.Typer(
+    add_completion=False,
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    rich_markup_mode=None,
+    help="Keep measured time courses with their provenance, noise and trust grade; "
+    "turn them into weighted, checkable data for any fitter.",
+)
+out = Console(highlight=False, soft_wrap=True)
+if not out.is_terminal:  # piped output: keep table rows whole rather than folding them
+    out.width = 220
+err_console = Console(stderr=True, highlight=False, soft_wrap=True)
+
+
+class _State:
+    catalog_path: str | None = None
+    actor: str | None = None
+
+
+state = _State()
+
+
+def _catalog() -> Catalog:
+    return open_catalog(state.catalog_path, actor=state.actor)
+
+
+def _emit_json(value: Any) -> None:
+    sys.stdout.write(to_json(value) + "\n")
+
+
+@app.callback()
+def _global(
+    catalog: Annotated[
+        str | None,
+        typer.Option(
+            "--catalog",
+            envvar="CURATE_CATALOG",
+            help="catalog file (default ./curate.db; also $CURATE_CATALOG)",
+        ),
+    ] = None,
+    actor: Annotated[
+        str | None,
+        typer.Option(
+            "--actor", envvar="CURATE_USER", help="who is acting, recorded in every event"
+        ),
+    ] = None,
+) -> None:
+    """Global options."""
+    state.catalog_path = catalog
+    state.actor = actor
+
+
+@app.command()
+def version() -> None:
+    """Print the curate version."""
+    out.print(__version__)
+
+
+@app.command()
+def add(
+    file: Annotated[Path, typer.Argument(help="data file (.csv, .tsv, .xlsx) or its TOML sidecar")],
+    meta: Annotated[
+        Path | None, typer.Option(help="TOML sidecar (default: FILE with .toml)")
+    ] = None,
+    observable: Annotated[str | None, typer.Option(help="observable id, e.g. front_speed")] = None,
+    label: Annotated[str | None, typer.Option(help="human label of the observable")] = None,
+    unit: Annotated[
+        str | None, typer.Option(help="unit of the values: nM, um/min, a.u., 1")
+    ] = None,
+    time_unit: Annotated[
+        str | None, typer.Option(help="unit of the time column: s, min, h")
+    ] = None,
+    lab: Annotated[str | None, typer.Option(help="source lab or group")] = None,
+    condition: Annotated[
+        list[str] | None,
+        typer.Option(help="KEY=VALUE, repeatable: temperature=25degC, genotype=wt, dose=10uM"),
+    ] = None,
+    sd_type: Annotated[
+        str | None,
+        typer.Option(help="what the sd column holds: sd, sem, ci, percent, estimated, assumed"),
+    ] = None,
+    sd_scale: Annotated[str | None, typer.Option(help="scale of the sd: linear, ln, log10")] = None,
+    ci_level: Annotated[
+        float | None, typer.Option(help="confidence level when --sd-type ci")
+    ] = None,
+    sem_n: Annotated[int | None, typer.Option(help="n behind an SEM without an n column")] = None,
+    relative: Annotated[
+        bool | None,
+        typer.Option(
+            "--relative/--absolute", help="values in relative units (need a scale factor)"
+        ),
+    ] = None,
+    layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
+    sheet: Annotated[str | None, typer.Option(help="XLSX sheet name")] = None,
+    method: Annotated[str | None, typer.Option(help="measurement method")] = None,
+    instrument: Annotated[str | None, typer.Option(help="instrument")] = None,
+    contact: Annotated[str | None, typer.Option(help="contact person or address")] = None,
+    acquired: Annotated[str | None, typer.Option(help="acquisition date, YYYY-MM-DD")] = None,
+    reference: Annotated[str | None, typer.Option(help="publication, DOI or notebook page")] = None,
+    calibration_group: Annotated[
+        str | None, typer.Option(help="blot, gel, plate or run sharing one scale and noise level")
+    ] = None,
+    normalisation: Annotated[
+        str | None, typer.Option(help="none, reference_time, reference_condition, peak, sum")
+    ] = None,
+    grade: Annotated[
+        str | None, typer.Option(help="trust grade A-D, or X (kept, never fitted)")
+    ] = None,
+    reason: Annotated[str | None, typer.Option(help="rationale of the grade")] = None,
+    dataset_id: Annotated[
+        str | None, typer.Option("--id", help="dataset id (default: generated)")
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
+) -> None:
+    """Log one data file with its metadata; print the new dataset's id."""
+    options: dict[str, Any] = {}
+
+    def put(path: str, value: Any) -> None:
+        if value is None:
+            return
+        node = options
+        *parents, last = path.split(".")
+        for part in parents:
+            node = node.setdefault(part, {})
+        node[last] = value
+
+    put("observable.id", observable)
+    put("observable.label", label)
+    put("observable.unit", unit)
+    put("observable.relative", relative)
+    put("time.unit", time_unit)
+    put("source.lab", lab)
+    put("source.method", method)
+    put("source.instrument", instrument)
+    put("source.contact", contact)
+    put("source.acquired", acquired)
+    put("source.reference", reference)
+    put("uncertainty.type", sd_type)
+    put("uncertainty.scale", sd_scale)
+    put("uncertainty.level", ci_level)
+    put("uncertainty.n", sem_n)
+    put("layout", layout)
+    put("sheet", sheet)
+    put("protocol.calibration_group", calibration_group)
+    put("protocol.normalisation.kind", normalisation)
+    put("id", dataset_id)
+    if grade is not None or reason is not None:
+        if grade is None or not (reason or "").strip():
+            raise InputError("--grade and --reason go together: a grade needs its reason")
+        put("trust.grade", grade)
+        put("trust.rationale", reason)
+    if condition:
+        options["conditions"] = parse_conditions(condition)
+    # read and validate the file before the catalog is opened: a bad first file creates nothing
+    draft = build_draft(file, sidecar=meta, options=options, actor=state.actor or default_actor())
+    with _catalog() as catalog:
+        result: Any = catalog.plan_add(draft) if dry_run else catalog.add_drafts([draft])[0]
+    if isinstance(result, AddPlan):
+        if as_json:
+            _emit_json(result.to_dict())
+        else:
+            out.print(text.plan_text(result))
+        return
+    if as_json:
+        _emit_json(result.to_dict())
+        return
+    out.print(text.added_text(result))
+    for note in text.added_notes(result):
+        err_console.print(note)
+
+
+@app.command()
+def intake(
+    folder: Annotated[Path, typer.Argument(help="folder of data files and sidecars")],
+    quarantine: Annotated[
+        Path | None, typer.Option(help="where bad files go (default FOLDER/quarantine)")
+    ] = None,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "logging", enabled=show_bar) as update:
+        result = catalog.intake(folder, quarantine=quarantine, progress=update)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(text.intake_text(result))
+    if result.count("quarantined") or result.count("refused"):
+        raise typer.Exit(1)
+
+
+@app.command("import-petab")
+def import_petab(
+    problem: Annotated[Path, typer.Argument(help="PEtab problem YAML")],
+    lab: Annotated[
+        str | None, typer.Option(help="source lab (default: the problem's name)")
+    ] = None,
+    time_unit: Annotated[str, typer.Option(help="the model's time unit")] = "s",
+    unit: Annotated[str, typer.Option(help="unit of the measurements")] = "1",
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Log a PEtab problem's measurement table, one dataset per observable and condition."""
+    with _catalog() as catalog:
+        results = catalog.import_petab(problem, lab=lab, time_unit=time_unit, unit=unit)
+    if as_json:
+        _emit_json([r.to_dict() for r in results])
+        return
+    out.print(text.petab_import_text(results))
+
+
+@app.command("list")
+def list_(
+    observable: Annotated[str | None, typer.Option(help="only this observable")] = None,
+    lab: Annotated[str | None, typer.Option(help="only this lab")] = None,
+    condition: Annotated[list[str] | None, typer.Option(help="KEY=VALUE, repeatable")] = None,
+    grade: Annotated[str | None, typer.Option(help="only this grade (or 'none')")] = None,
+    retired: Annotated[bool, typer.Option("--retired", help="include retired datasets")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """List the newest version of every dataset (filters combine)."""
+    with _catalog() as catalog:
+        found = catalog.list(
+            observable=observable,
+            lab=lab,
+            conditions=parse_conditions(condition),
+            grade=grade,
+            include_retired=retired,
+        )
+    if as_json:
+        _emit_json([v.summary() for v in found])
+    else:
+        out.print(text.list_table(found))
+
+
+@app.command()
+def show(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    version: Annotated[int | None, typer.Option(help="an earlier version")] = None,
+    points: Annotated[bool, typer.Option("--points", help="print every point")] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show one dataset: metadata, warnings, noise, trust and its points."""
+    with _catalog() as catalog:
+        found = catalog.show(dataset_id, version)
+        total = len(catalog.versions(dataset_id))
+        frame = catalog.points(dataset_id, found.version)
+    if as_json:
+        payload = {
+            **found.summary(),
+            "created_at": found.created_at.isoformat(),
+            "record_hash": found.record_hash,
+            "versions": total,
+            "record": found.record.model_dump(mode="json"),
+        }
+        if points:
+            payload["points"] = json.loads(frame.to_json(orient="records"))
+        _emit_json(payload)
+        return
+    out.print(text.show_text(found, total, frame, all_points=points))
+
+
+@app.command()
+def history(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show every change of one dataset: when, who, what and why."""
+    with _catalog() as catalog:
+        entries = catalog.history(dataset_id)
+    if as_json:
+        _emit_json([e.to_dict() for e in entries])
+    else:
+        out.print(text.history_text(dataset_id, entries))
+
+
+@app.command()
+def retire(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    reason: Annotated[str, typer.Option(help="why it leaves later selections")],
+) -> None:
+    """Hide a dataset from later selections; it stays in the catalog."""
+    with _catalog() as catalog:
+        new = catalog.retire(dataset_id, reason=reason)
+    out.print(text.retired_text(new))
+
+
+@app.command()
+def revise(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    reason: Annotated[str, typer.Option(help="why the metadata change")],
+    label: Annotated[str | None, typer.Option(help="new observable label")] = None,
+    condition: Annotated[
+        list[str] | None, typer.Option(help="KEY=VALUE to set, KEY= to remove; repeatable")
+    ] = None,
+    lab: Annotated[str | None, typer.Option(help="corrected lab")] = None,
+    reference: Annotated[str | None, typer.Option(help="corrected reference")] = None,
+    calibration_group: Annotated[str | None, typer.Option(help="calibration group")] = None,
+    unretire: Annotated[
+        bool, typer.Option("--unretire", help="bring a retired dataset back")
+    ] = False,
+) -> None:
+    """Correct a dataset's metadata as a new version (its data never change)."""
+    with _catalog() as catalog:
+        new = catalog.revise(
+            dataset_id,
+            reason=reason,
+            label=label,
+            conditions=parse_conditions(condition),
+            lab=lab,
+            reference=reference,
+            calibration_group=calibration_group,
+            unretire=unretire,
+        )
+    out.print(text.revised_text(new))
+
+
+@app.command()
+def verify(as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False) -> None:
+    """Recompute every hash and the event chain; exit 1 naming the first problem if any."""
+    with _catalog() as catalog:
+        result = catalog.verify()
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(text.verify_text(result))
+    if not result.ok:
+        raise typer.Exit(1)
+
+
+@app.command()
+def noise(
+    dataset_id: Annotated[str | None, typer.Argument(metavar="[ID]", help="dataset id")] = None,
+    all_: Annotated[bool, typer.Option("--all", help="every current dataset")] = False,
+    method: Annotated[
+        str,
+        typer.Option(help=", ".join(NOISE_METHODS)),
+    ] = "auto",
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Estimate each dataset's noise and store it (with its method) as a new version."""
+    if (dataset_id is None) == (not all_):
+        raise InputError("noise: name one dataset ID or pass --all")
+    with _catalog() as catalog:
+        written = catalog.estimate_noise(None if all_ else [dataset_id or ""], method=method)
+    if as_json:
+        _emit_json([{"id": v.id, "version": v.version, **r.to_dict()} for v, r in written])
+        return
+    out.print(text.noise_table(written))
+
+
+@app.command()
+def grade(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    new_grade: Annotated[
+        str | None, typer.Argument(metavar="[GRADE]", help="A, B, C, D, or X (kept, never fitted)")
+    ] = None,
+    reason: Annotated[str | None, typer.Option(help="why this grade (required with GRADE)")] = None,
+    checklist: Annotated[
+        Path | None, typer.Option(help="answers file: [answers] question = true/false")
+    ] = None,
+    checklist_file: Annotated[
+        Path | None, typer.Option(help="the lab's own checklist (default: the one curate ships)")
+    ] = None,
+    accept: Annotated[bool, typer.Option(help="record the checklist's suggested grade")] = False,
+    accept_suggestion: Annotated[
+        bool, typer.Option(help="record the newest grade suggested by `curate consistency`")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Grade a dataset's trust: directly with a reason, from a checklist, or from a suggestion."""
+    with _catalog() as catalog:
+        if new_grade is not None:
+            if checklist or accept_suggestion:
+                raise InputError(
+                    "grade: give GRADE with --reason, or --checklist, or --accept-suggestion"
+                )
+            version = catalog.grade(dataset_id, new_grade, reason=reason or "")
+            _print_graded(version, as_json)
+            return
+        if accept_suggestion:
+            _print_graded(catalog.accept_suggestion(dataset_id), as_json)
+            return
+        answers = None
+        if checklist is None:
+            if not sys.stdin.isatty():
+                raise InputError(
+                    "grade: give GRADE --reason, --checklist FILE or --accept-suggestion "
+                    "(questions are asked only at a terminal)"
+                )
+            answers = _ask_checklist(checklist_file)
+        suggestion, graded = catalog.grade_from_checklist(
+            dataset_id,
+            answers=answers,
+            answers_file=checklist,
+            checklist_file=checklist_file,
+            accept=accept,
+        )
+    if as_json:
+        _emit_json(
+            {
+                "id": dataset_id,
+                "suggestion": suggestion.to_dict(),
+                "graded": None
+                if graded is None
+                else {"version": graded.version, "grade": graded.grade},
+            }
+        )
+        return
+    out.print(text.suggestion_text(dataset_id, suggestion, graded))
+
+
+def _ask_checklist(checklist_file: Path | None) -> dict[str, bool | None]:
+    answers: dict[str, bool | None] = {}
+    for question in load_checklist(checklist_file).questions:
+        answers[question.id] = typer.confirm(question.text, default=False)
+    return answers
+
+
+def _print_graded(version: DatasetVersion, as_json: bool) -> None:
+    if as_json:
+        _emit_json(text.graded_data(version))
+    else:
+        out.print(text.graded_text(version))
+
+
+@app.command()
+def consistency(
+    observable: Annotated[str | None, typer.Option(help="only this observable")] = None,
+    tolerance: Annotated[
+        float, typer.Option(help="numeric conditions match within this relative tolerance")
+    ] = 0.01,
+    at: Annotated[
+        str | None,
+        typer.Option(
+            help="compare summary values at this time, e.g. '60 min' (default: the late level)"
+        ),
+    ] = None,
+    level: Annotated[float, typer.Option(help="significance level of the tests")] = 0.05,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Test each dataset against the others measuring the same thing; suggest grades."""
+    at_seconds = None
+    if at is not None:
+        parsed = parse_quantity(at, role="--at")
+        if parsed is None or parsed[1].dimensionality != "[time]":
+            raise InputError(f"--at '{at}': expected a time with its unit, e.g. '60 min'")
+        at_seconds = parsed[0]
+    with _catalog() as catalog:
+        result = catalog.consistency(
+            observable=observable, tolerance=tolerance, at=at_seconds, alpha=level
+        )
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(text.consistency_text(result))
+
+
+@app.command()
+@selection_options
+def weights(
+    *,
+    selection: Selection,
+    policy: Policy,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Show each dataset's share of the total weight, its effective sample size and warnings."""
+    with _catalog() as catalog:
+        summary = catalog.weights(policy=policy, selection=selection)
+    if as_json:
+        _emit_json(summary.to_dict())
+    else:
+        out.print(run_text.weights_text(summary))
+
+
+@app.command()
+@selection_options
+def export(
+    fmt: Annotated[str, typer.Argument(metavar="FORMAT", help="table, petab, datapackage or prov")],
+    outdir: Annotated[Path, typer.Argument(help="new (or empty) folder to write into")],
+    *,
+    selection: Selection,
+    policy: Policy,
+    force: Annotated[
+        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Write the weighted selection for a fitter, with a README and a traceable manifest."""
+    with _catalog() as catalog:
+        result = catalog.export(fmt, outdir, policy=policy, selection=selection, force=force)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(run_text.export_text(result))
+
+
+@app.command()
+@selection_options
+def folds(
+    outdir: Annotated[Path, typer.Argument(help="new (or empty) folder for the folds")],
+    by: Annotated[
+        str, typer.Option(help="dataset, lab, condition:KEY, kfold:K or kfold:K:SEED")
+    ] = "dataset",
+    *,
+    selection: Selection,
+    policy: Policy,
+    force: Annotated[
+        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Write holdout folds: one folder per fold with train and test tables and what training lacks."""
+    with _catalog() as catalog:
+        result = catalog.folds(by, outdir, policy=policy, selection=selection, force=force)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(run_text.folds_text(result))
+
+
+@app.command()
+def trace(
+    outdir: Annotated[Path, typer.Argument(help="an export folder (or its manifest.json)")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Tell whether the catalog still holds exactly the data an export used (exit 1 if not)."""
+    with _catalog() as catalog:
+        result = catalog.trace(outdir)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(run_text.trace_text(result))
+    if not result.intact:
+        raise typer.Exit(1)
+
+
+@app.command()
+def impact(
+    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """List every export that used a version of this dataset that has since changed."""
+    with _catalog() as catalog:
+        found = catalog.impact(dataset_id)
+    if as_json:
+        _emit_json([f.to_dict() for f in found])
+    else:
+        out.print(run_text.impact_text(dataset_id, found))
+
+
+@app.command()
+@selection_options
+def fit(
+    model: Annotated[str, typer.Option(help="module:function or path/to/model.py:function")],
+    params: Annotated[
+        Path, typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)")
+    ],
+    *,
+    selection: Selection,
+    policy: Policy,
+    starts: Annotated[
+        int, typer.Option(help="number of starts (Latin hypercube within the bounds)")
+    ] = 1,
+    seed: Annotated[int, typer.Option(help="seed of the multi-start sampler")] = 0,
+    global_search: Annotated[
+        bool, typer.Option("--global", help="differential evolution first (finite bounds)")
+    ] = False,
+    scale_covariance: Annotated[
+        bool,
+        typer.Option(
+            help="scale the covariance by the reduced chi2 (when sigmas are only relative)"
+        ),
+    ] = False,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Fit a model to the weighted selection: values, standard errors, scale factors, chi2."""
+    if starts < 1:
+        raise InputError(f"--starts {starts}: expected at least 1")
+    options = FitOptions(
+        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance
+    )
+    with _catalog() as catalog:
+        result = catalog.fit(model, params, policy=policy, selection=selection, options=options)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(run_text.fit_text(result))
+
+
+@app.command()
+@selection_options
+def sensitivity(
+    by: Annotated[str, typer.Option(help="dataset, lab or condition:KEY")] = "dataset",
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
+    params: Annotated[Path | None, typer.Option(help="parameter spec TOML")] = None,
+    fitter_cmd: Annotated[
+        str | None, typer.Option(help="external fitter instead of --model: 'COMMAND {data} {out}'")
+    ] = None,
+    method: Annotated[str, typer.Option(help="exact refits, or one-step screening")] = "exact",
+    workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
+    dask: Annotated[
+        str | None, typer.Option(help="Dask scheduler address, or 'local' for a LocalCluster")
+    ] = None,
+    threshold: Annotated[
+        float, typer.Option(help="flag shifts beyond this many standard errors")
+    ] = 2.0,
+    policies: Annotated[
+        list[Path] | None, typer.Option(help="alternative policies to refit under: P1 P2 ...")
+    ] = None,
+    report_file: Annotated[
+        Path | None, typer.Option("--report", help="write an HTML report here")
+    ] = None,
+    timeout: Annotated[
+        float, typer.Option(help="seconds each external fitter run may take")
+    ] = 600.0,
+    workdir: Annotated[
+        Path | None, typer.Option(help="folder for the external fitter's files")
+    ] = None,
+    *,
+    selection: Selection,
+    policy: Policy,
+    starts: Annotated[int, typer.Option(help="starts of the full fit")] = 1,
+    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+) -> None:
+    """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
+    count = workers if workers > 0 else (os.cpu_count() or 1)
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "refitting", enabled=show_bar) as update:
+        result = catalog.sensitivity(
+            by=by, model=model, params=params, fitter_cmd=fitter_cmd, method=method, policy=policy,
+            selection=selection, options=FitOptions(starts=starts), workers=count, dask=dask,
+            threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,
+            progress=update,
+        )  # fmt: skip
+    if report_file is not None:
+        write_sensitivity_report(result, report_file)
+    if as_json:
+        _emit_json(result.to_dict())
+    else:
+        out.print(run_text.sensitivity_text(result))
+        if report_file is not None:
+            out.print(text.written_text("report", report_file))
+
+
+@app.command("report")
+def report_command(
+    out_file: Annotated[Path, typer.Argument(metavar="OUT.html", help="where to write the report")],
+    policy_file: Annotated[
+        Path | None,
+        typer.Option("--policy", help="weighting policy TOML (default: the one curate ships)"),
+    ] = None,
+) -> None:
+    """Write one self-contained HTML report: catalog, series, weights, consistency, fit, sensitivity."""
+    policy = load_policy(policy_file)
+    with _catalog() as catalog:
+        catalog.report(out_file, policy=policy)
+    out.print(text.written_text("report", out_file))
+
+
+@app.command()
+def backup(
+    destination: Annotated[Path, typer.Argument(help="new file for the copy")],
+    force: Annotated[bool, typer.Option(help="overwrite an existing file")] = False,
+) -> None:
+    """Copy the catalog with SQLite's online backup (others may keep writing) and verify the copy."""
+    with _catalog() as catalog:
+        result = catalog.backup(destination, force=force)
+    out.print(text.backup_text(destination, result))
+
+
+@app.command()
+def restore(
+    source: Annotated[Path, typer.Argument(help="a backup made by `curate backup`")],
+) -> None:
+    """Put a verified backup in place of the catalog; the current one is kept beside it."""
+    target, kept = restore_catalog(source, state.catalog_path)
+    out.print(text.restored_text(source, target, kept))
+
+
+@app.command()
+def demo(
+    outdir: Annotated[
+        Path, typer.Argument(help="folder for the demo's catalog and outputs")
+    ] = Path("demo_out"),
+    examples: Annotated[
+        Path | None,
+        typer.Option(help="example data folder (default: example_datasets/ of this checkout)"),
+    ] = None,
+    force: Annotated[bool, typer.Option(help="reuse an existing, non-empty OUTDIR")] = False,
+) -> None:
+    """Run the job on the bundled invented scenario and say what it found."""
+    result = run_demo(outdir, examples=examples, force=force, actor=state.actor or "curate-demo")
+    out.print(run_text.demo_text(result))
+
+
+def _fail(message: str, code: int = 2) -> None:
+    err_console.print("curate: error: " + " ".join(message.split()), markup=False)
+    sys.exit(code)
+
+
+def _spread_multi_value_options(argv: list[str]) -> list[str]:
+    """Turn ``--policies A B C`` into ``--policies A --policies B --policies C``."""
+    spread: list[str] = []
+    k = 0
+    while k < len(argv):
+        token = argv[k]
+        spread.append(token)
+        k += 1
+        if token == "--policies":
+            values = []
+            while k < len(argv) and not argv[k].startswith("-"):
+                values.append(argv[k])
+                k += 1
+            if values:
+                spread.append(values[0])
+                for value in values[1:]:
+                    spread += ["--policies", value]
+    return spread
+
+
+def main(argv: list[str] | None = None) -> None:
+    """Run the command line; user errors exit 2 with one line on stderr."""
+    argv = _spread_multi_value_options(list(sys.argv[1:] if argv is None else argv))
+    try:
+        code = app(args=argv, prog_name="curate", standalone_mode=False)
+    except CurateError as err:
+        _fail(str(err))
+    except click.exceptions.Exit as exit_:
+        sys.exit(exit_.exit_code)
+    except click.ClickException as usage:
+        _fail(usage.format_message(), usage.exit_code)
+    except click.exceptions.Abort:
+        _fail("aborted", 130)
+    except KeyboardInterrupt:
+        _fail("interrupted", 130)
+    except Exception as bug:  # a defect of ours: still one line, and say so
+        _fail(f"internal error ({type(bug).__name__}: {bug}); please report it", 3)
+    sys.exit(code if isinstance(code, int) else 0)

@@ -1,0 +1,66 @@
+"""What every writer shares: the output folder rule, atomic writes, file hashes, the clock."""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import os
+import tempfile
+from pathlib import Path
+
+from curate.errors import InputError
+
+__all__ = [
+    "now_utc",
+    "prepare_folder",
+    "sha256_file",
+    "write_bytes",
+    "write_text",
+]
+
+
+def prepare_folder(outdir: Path, *, force: bool) -> None:
+    """Create the export folder; refuse a non-empty one unless ``force`` (nothing is deleted)."""
+    if outdir.exists() and not outdir.is_dir():
+        raise InputError(f"{outdir}: exists and is not a folder")
+    if outdir.is_dir() and any(outdir.iterdir()) and not force:
+        raise InputError(
+            f"{outdir}: the folder exists and is not empty; choose a new one, or pass --force to write our files into it (nothing else is touched)"
+        )
+    outdir.mkdir(parents=True, exist_ok=True)
+
+
+def write_bytes(path: Path, data: bytes) -> str:
+    """Write a file atomically (temporary file, then rename); give its sha256."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    try:
+        with os.fdopen(handle, "wb") as stream:
+            stream.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(temporary, 0o666 & ~umask)  # mkstemp makes files private; exports are for sharing
+        os.replace(temporary, path)
+    except BaseException:
+        Path(temporary).unlink(missing_ok=True)
+        raise
+    return hashlib.sha256(data).hexdigest()
+
+
+def write_text(path: Path, text: str) -> str:
+    """Write UTF-8 text atomically; give its sha256."""
+    return write_bytes(path, text.encode("utf-8"))
+
+
+def sha256_file(path: Path) -> str:
+    """Give a file's sha256."""
+    digest = hashlib.sha256()
+    with path.open("rb") as stream:
+        for block in iter(lambda: stream.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+def now_utc() -> str:
+    """Give the current UTC time as ISO 8601 with Z."""
+    return dt.datetime.now(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")

@@ -1,0 +1,124 @@
+"""Does an export still match the catalog (``trace``), and which runs did a correction touch (``impact``)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from curate.errors import InputError, NotFoundError
+from curate.export.files import sha256_file
+from curate.export.manifest import read_manifest
+from curate.ledger import Ledger
+
+__all__ = ["ImpactEntry", "TraceReport", "impact", "trace"]
+
+
+@dataclass
+class TraceReport:
+    """Whether the catalog still holds exactly the data an export used."""
+
+    outdir: str
+    format: str
+    created_at: str
+    same: list[str] = field(default_factory=list)
+    changed: list[str] = field(default_factory=list)
+    files_changed: list[str] = field(default_factory=list)
+
+    @property
+    def intact(self) -> bool:
+        """Tell whether every dataset version and file is exactly as exported."""
+        return not self.changed and not self.files_changed
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the report as plain data."""
+        return {"outdir": self.outdir, "format": self.format, "created_at": self.created_at, "intact": self.intact,
+                "same": self.same, "changed": self.changed, "files_changed": self.files_changed}  # fmt: skip
+
+
+def trace(catalog: Ledger, outdir: str | Path) -> TraceReport:
+    """Re-read an export's manifest and compare every dataset version and file with the catalog."""
+    folder = Path(outdir)
+    manifest = read_manifest(folder)
+    if manifest["catalog_id"] != catalog.catalog_id:
+        raise InputError(
+            f"{folder}: exported from catalog {manifest['catalog_id']}, not from {catalog.path} ({catalog.catalog_id}); open the right one with --catalog"
+        )
+    report = TraceReport(
+        outdir=str(folder), format=manifest["format"], created_at=manifest["created_at"]
+    )
+    base = folder if folder.is_dir() else folder.parent
+    for name, digest in manifest["files"].items():
+        path = base / name
+        if not path.is_file():
+            report.files_changed.append(f"{name}: missing")
+        elif sha256_file(path) != digest:
+            report.files_changed.append(f"{name}: edited since the export")
+    for entry in manifest["datasets"]:
+        ident, number = entry["id"], entry["version"]
+        try:
+            then = catalog.show(ident, number)
+        except NotFoundError:
+            report.changed.append(f"{ident} version {number}: no longer in the catalog")
+            continue
+        if (
+            then.record.content_hash != entry["content_hash"]
+            or then.record_hash != entry["record_hash"]
+        ):
+            report.changed.append(
+                f"{ident} version {number}: stored data differ from the export (run `curate verify`)"
+            )
+            continue
+        later = [v for v in catalog.versions(ident) if v.version > number]
+        if not later:
+            report.same.append(f"{ident} version {number}")
+            continue
+        kinds = [
+            h.kind for h in catalog.history(ident) if h.version is not None and h.version > number
+        ]
+        current = later[-1]
+        what = "retired" if current.record.retired else f"now version {current.version}"
+        report.changed.append(
+            f"{ident} version {number}: {what} ({', '.join(kinds)} since the export)"
+        )
+    return report
+
+
+@dataclass(frozen=True)
+class ImpactEntry:
+    """An export that used a version of a dataset that has since changed."""
+
+    seq: int
+    at: str
+    format: str
+    outdir: str
+    used_version: int
+    current_version: int
+    retired: bool
+    changes: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the entry as plain data."""
+        return {"event": self.seq, "at": self.at, "format": self.format, "outdir": self.outdir,
+                "used_version": self.used_version, "current_version": self.current_version,
+                "retired": self.retired, "changes": list(self.changes)}  # fmt: skip
+
+
+def impact(catalog: Ledger, dataset_id: str) -> list[ImpactEntry]:
+    """Give every export, fold set, fit and sensitivity run that used a since-corrected or retired
+    version of a dataset."""
+    current = catalog.show(dataset_id)
+    history = catalog.history(dataset_id)
+    found = []
+    for event in catalog.events():
+        if event["kind"] not in ("export", "fit", "sensitivity"):
+            continue
+        used = [v for ident, v in event["payload"]["datasets"] if ident == dataset_id]
+        if not used or used[0] >= current.version:
+            continue
+        kinds = tuple(h.kind for h in history if h.version is not None and h.version > used[0])
+        found.append(ImpactEntry(
+            seq=event["seq"], at=event["at"], format=event["payload"]["format"], outdir=event["payload"]["outdir"],
+            used_version=used[0], current_version=current.version, retired=current.record.retired, changes=kinds,
+        ))  # fmt: skip
+    return found

@@ -1,0 +1,65 @@
+"""The model-backend protocol: how fit, sensitivity and the report run any model.
+
+A backend gives predictions for a points table and a parameter dict, says whether it can be
+rebuilt in a worker process from its description, and describes itself for the run record.
+A backend that is itself a fitter (an external program) says so with ``fits_itself`` and fits
+a table with :meth:`ModelBackend.fit_points` instead.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, ClassVar
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+
+__all__ = ["ExternalFit", "ModelBackend"]
+
+
+@dataclass
+class ExternalFit:
+    """One run of a backend's own fitter: its folder, parameters and standard errors, or why not."""
+
+    group: str
+    folder: Path
+    parameters: dict[str, float] = field(default_factory=dict)
+    stderr: dict[str, float] = field(default_factory=dict)
+    error: str | None = None
+
+
+class ModelBackend:
+    """What every model backend offers. Subclasses set ``kind`` and implement the methods."""
+
+    kind: ClassVar[str] = ""
+    fits_itself: ClassVar[bool] = False  # an external fitter: parameters come from fit_points
+
+    def predict(self, parameters: dict[str, float], points: pd.DataFrame) -> np.ndarray:
+        """Give one prediction per row of ``points`` (before scale factors)."""
+        raise InputError(f"the {self.kind} backend gives fitted parameters, not predictions")
+
+    @property
+    def portable(self) -> bool:
+        """Tell whether :meth:`describe` suffices to rebuild the backend in a worker process."""
+        return False
+
+    @property
+    def label(self) -> str:
+        """Give the name a person gave the model (shown and recorded as ``model``)."""
+        return self.kind
+
+    def describe(self) -> dict[str, Any]:
+        """Give plain data naming the backend for the run record (``kind`` first)."""
+        return {"kind": self.kind}
+
+    def fit_points(self, points: pd.DataFrame, *, folder: Path, group: str) -> ExternalFit:
+        """Fit the points with the backend's own fitter (only where ``fits_itself``)."""
+        raise InputError(f"the {self.kind} backend is fitted by curate's engine, not by itself")
+
+    @classmethod
+    def from_description(cls, description: dict[str, Any]) -> ModelBackend:
+        """Give the backend back from :meth:`describe`'s data (in a worker, or for the report)."""
+        raise InputError(f"the {cls.kind} backend cannot be rebuilt from its description")

@@ -1,0 +1,170 @@
+"""The fitting problem: points, weights, a model backend and a parameter spec, and its residual.
+
+Residual of point i:  r_i = sqrt(w_i) * (y_i - s_g * f_i(theta)),  objective sum r_i^2.
+
+Relative-unit rows get one scale factor per calibration group, solved in closed form inside the
+residual, s* = sum(w y h) / sum(w h^2) (h the model prediction): the variable-projection idea of
+Golub & Pereyra (1973), so the optimiser sees only the shared parameters. The optimiser works on
+O(1) numbers: ln p for log parameters, p / |start| otherwise.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+from curate.fit.backends import ModelBackend, PythonFunction
+from curate.fit.spec import ParameterSpec
+
+__all__ = ["FitProblem"]
+
+
+@dataclass
+class FitProblem:
+    """Points, weights, model and spec: what a fit needs, with the projected residual.
+
+    ``model`` is a :class:`~curate.fit.backends.ModelBackend`, or a plain function
+    ``f(params, points) -> ndarray``, which is taken as an in-process Python backend.
+    """
+
+    points: pd.DataFrame
+    model: ModelBackend | Callable[[dict[str, float], pd.DataFrame], Any]
+    spec: ParameterSpec
+    _groups: np.ndarray = field(init=False, repr=False)
+    _group_names: list[str] = field(init=False, repr=False)
+
+    def __post_init__(self) -> None:
+        self.backend: ModelBackend = (
+            self.model if isinstance(self.model, ModelBackend) else PythonFunction(self.model)
+        )
+        for column in ("value", "weight"):
+            if column not in self.points.columns:
+                raise InputError(f"the points need a '{column}' column")
+        self.y = self.points["value"].to_numpy(dtype=float)
+        self.w = self.points["weight"].to_numpy(dtype=float)
+        self.sqrt_w = np.sqrt(self.w)
+        relative = (
+            self.points["relative"].to_numpy(dtype=bool)
+            if "relative" in self.points
+            else np.zeros(len(self.y), bool)
+        )
+        if not self.spec.scale_factors:
+            relative = np.zeros(len(self.y), bool)
+        key = (
+            self.points["calibration_group"]
+            if "calibration_group" in self.points
+            else self.points.get("dataset_id", pd.Series(["all"] * len(self.y)))
+        )
+        labels = np.where(relative, key.astype(str).to_numpy(), "")
+        self._group_names = sorted(set(labels) - {""})
+        index = {name: k for k, name in enumerate(self._group_names)}
+        self._groups = np.array([index.get(label, -1) for label in labels])
+        self.free = self.spec.free
+        self.fixed = {p.name: p.start for p in self.spec.parameters if p.fixed}
+        # the optimiser works on O(1) numbers: ln p for log parameters, p / |start| otherwise
+        # (finite-difference Jacobians lose digits when parameters span many decades)
+        self.typical = np.array([1.0 if p.log or p.start == 0 else abs(p.start) for p in self.free])
+
+    @property
+    def scale_groups(self) -> list[str]:
+        """Give the calibration groups that get a closed-form scale factor."""
+        return list(self._group_names)
+
+    def to_internal(self, natural: dict[str, float]) -> np.ndarray:
+        """Give the optimiser's vector (ln p for log parameters) for natural values."""
+        return np.array(
+            [
+                math.log(natural[p.name]) if p.log else natural[p.name] / t
+                for p, t in zip(self.free, self.typical, strict=True)
+            ]
+        )
+
+    def to_natural(self, theta: np.ndarray) -> dict[str, float]:
+        """Give every parameter's natural value for an optimiser vector."""
+        values = dict(self.fixed)
+        for p, x, t in zip(self.free, theta, self.typical, strict=True):
+            values[p.name] = float(math.exp(x)) if p.log else float(x * t)
+        return values
+
+    def bounds(self) -> tuple[np.ndarray, np.ndarray]:
+        """Give the optimiser's bounds."""
+        lower, upper = [], []
+        for p, t in zip(self.free, self.typical, strict=True):
+            if p.log:
+                lower.append(math.log(p.lower) if p.lower > 0 else -math.inf)
+                upper.append(math.log(p.upper) if math.isfinite(p.upper) else math.inf)
+            else:
+                lower.append(p.lower / t)
+                upper.append(p.upper / t)
+        return np.array(lower), np.array(upper)
+
+    def predict(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """Give the model prediction (before scale factors) for every row, or the chosen rows."""
+        frame = self.points if rows is None else self.points.iloc[rows]
+        params = self.to_natural(theta)
+        try:
+            output = self.backend.predict(params, frame)
+        except InputError:
+            raise
+        except Exception as err:
+            raise InputError(f"the model raised {type(err).__name__}: {err}") from None
+        prediction = (
+            np.asarray(output, dtype=float).reshape(-1) if np.ndim(output) else np.array([])
+        )
+        if prediction.shape != (len(frame),):
+            raise InputError(
+                f"the model returned {np.size(output)} values for {len(frame)} rows; expected one per row"
+            )
+        bad = ~np.isfinite(prediction)
+        if bad.any():
+            position = int(np.argmax(bad))
+            shown = ", ".join(f"{k}={v:.4g}" for k, v in params.items())
+            raise InputError(
+                f"the model returned {prediction[position]} at row {position + 1} for parameters {shown}"
+            )
+        return prediction
+
+    def scales(self, prediction: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """Give the closed-form scale factor of each calibration group, s* = sum(w y h) / sum(w h^2)."""
+        groups = self._groups if rows is None else self._groups[rows]
+        y = self.y if rows is None else self.y[rows]
+        w = self.w if rows is None else self.w[rows]
+        result = np.ones(len(self._group_names))
+        for k in range(len(self._group_names)):
+            part = groups == k
+            if part.any():
+                denominator = float(np.sum(w[part] * prediction[part] ** 2))
+                result[k] = (
+                    float(np.sum(w[part] * y[part] * prediction[part]) / denominator)
+                    if denominator > 0
+                    else 1.0
+                )
+        return result
+
+    def residual(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """Give sqrt(w) (y - s h) with the scale factors projected out."""
+        prediction = self.predict(theta, rows)
+        groups = self._groups if rows is None else self._groups[rows]
+        factor = np.ones(len(prediction))
+        if self._group_names:
+            scale = self.scales(prediction, rows)
+            has = groups >= 0
+            factor[has] = scale[groups[has]]
+        y = self.y if rows is None else self.y[rows]
+        sqrt_w = self.sqrt_w if rows is None else self.sqrt_w[rows]
+        return np.asarray(sqrt_w * (y - factor * prediction), dtype=float)
+
+    def group_index(self, rows: np.ndarray | None = None) -> np.ndarray:
+        """Give each row's scale-group number (-1 for rows without a scale factor)."""
+        return self._groups if rows is None else self._groups[rows]
+
+    def n_scale_factors(self, rows: np.ndarray | None = None) -> int:
+        """Give how many scale groups have rows (each costs one degree of freedom)."""
+        groups = self._groups if rows is None else self._groups[rows]
+        return len(set(groups[groups >= 0].tolist()))

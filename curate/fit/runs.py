@@ -1,0 +1,141 @@
+"""Fits and sensitivity checks on the catalog's weighted data, recorded as runs.
+
+Builds the weighted table (:mod:`curate.weighting`), fits it with any model backend
+(:mod:`curate.fit.engine`), runs the leave-one-group-out checks (:mod:`curate.fit.sensitivity`)
+and records each run in the catalog as an event naming the dataset versions, the backend (and
+its model file's hash), the spec and the policy, so that ``impact`` can find the fits a
+correction touches.
+"""
+
+from __future__ import annotations
+
+import tempfile
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import Any
+
+from curate.errors import InputError
+from curate.export.manifest import build_manifest, record_run
+from curate.fit import sensitivity
+from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
+from curate.fit.engine import FitOptions, FitResult, fit
+from curate.fit.problem import FitProblem
+from curate.fit.spec import ParameterSpec, load_spec
+from curate.ledger import Ledger
+from curate.weighting import Policy, Selection, WeightedTable, weighted_table
+from curate.weighting.groupings import Grouping, parse_grouping
+
+__all__ = ["choose_backend", "run_fit", "run_sensitivity", "sensitivity_grouping"]
+
+
+def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: str | None,
+                   timeout: float = 600.0) -> tuple[ModelBackend, ParameterSpec | None]:  # fmt: skip
+    """Give the backend (and spec) that ``--model``/``--params`` or ``--fitter-cmd`` name."""
+    if (model is None) == (fitter_cmd is None):
+        raise InputError("sensitivity: give either --model with --params, or --fitter-cmd")
+    if fitter_cmd is not None:
+        return ExternalFitter(fitter_cmd, timeout=timeout), None
+    if params is None:
+        raise InputError("sensitivity: --model needs --params SPEC.toml")
+    spec = load_spec(params)
+    assert model is not None
+    return PythonFunction.from_reference(model), spec
+
+
+def sensitivity_grouping(by: str) -> Grouping:
+    """Give the grouping of a sensitivity check: one that leaves one group out (not k-fold)."""
+    grouping = None if by.startswith("kfold") else parse_grouping(by)
+    if grouping is None or not grouping.leaves_one_out:
+        raise InputError("--by for sensitivity: expected dataset, lab or condition:KEY")
+    return grouping
+
+
+def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSpec | None,
+            weighted: WeightedTable, summary: dict[str, Any]) -> None:  # fmt: skip
+    description = backend.describe()
+    manifest = build_manifest(
+        catalog, kind, weighted.policy, weighted.selection, weighted.versions, {}
+    )
+    record_run(catalog, kind, weighted.policy, weighted.versions, manifest, extra={
+        "model": backend.label, "model_sha256": description.get("sha256"), "backend": description,
+        "spec_sha256": spec.sha256 if spec else None, "spec": spec.to_dict() if spec else None, "result": summary,
+    })  # fmt: skip
+
+
+def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, policy: Policy, selection: Selection,
+            options: FitOptions | None = None) -> FitResult:  # fmt: skip
+    """Fit a model to the weighted selection; record the fit; give the result."""
+    if backend.fits_itself:
+        raise InputError(
+            "fit: an external fitter fits by itself; use `curate sensitivity --fitter-cmd`"
+        )
+    weighted = weighted_table(catalog, policy, selection)
+    result = fit(FitProblem(weighted.table, backend, spec), options)
+    _record(catalog, "fit", backend, spec, weighted,
+            {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
+    return result
+
+
+def run_sensitivity(
+    catalog: Ledger,
+    backend: ModelBackend,
+    spec: ParameterSpec | None,
+    *,
+    by: str,
+    policy: Policy,
+    selection: Selection,
+    method: str = "exact",
+    options: FitOptions | None = None,
+    workers: int = 1,
+    dask: str | None = None,
+    threshold: float = sensitivity.DEFAULT_SHIFT_THRESHOLD,
+    alternative_policies: Sequence[Policy] = (),
+    workdir: str | Path | None = None,
+    progress: Callable[[int, int], None] | None = None,
+) -> sensitivity.SensitivityResult:
+    """Run the leave-one-group-out check (and a policy sweep); record it; give the result."""
+    grouping = sensitivity_grouping(by)
+    weighted = weighted_table(catalog, policy, selection)
+    labels = grouping.labels(weighted.table)
+    if backend.fits_itself:
+        folder = Path(workdir) if workdir else Path(tempfile.mkdtemp(prefix="curate-fitter-"))
+        result = sensitivity.leave_one_group_out_external(
+            backend, weighted.table, labels, by=by, workdir=folder, threshold=threshold, progress=progress
+        )  # fmt: skip
+        _record(catalog, "sensitivity", backend, None, weighted, _summary(result))
+        return result
+    if spec is None:
+        raise InputError("sensitivity: --model needs --params SPEC.toml")
+    problem = FitProblem(weighted.table, backend, spec)
+    full = fit(problem, options)
+    result = sensitivity.leave_one_group_out(
+        problem, full, labels, by=by, method=method, options=options, workers=workers, dask=dask,
+        shift_threshold=threshold, progress=progress,
+    )  # fmt: skip
+    tolerance = (options or FitOptions()).tolerance
+    for alternative in alternative_policies:
+        other = weighted_table(catalog, alternative, selection)
+        refit = fit(FitProblem(other.table, backend, spec), FitOptions(tolerance=tolerance))
+        shifts = {}
+        for name in full.free:
+            se = full.parameters[name]["stderr"]
+            value = refit.parameters[name]["value"]
+            base = full.parameters[name]["value"]
+            shifts[name] = {
+                "value": value,
+                "shift_se": (value - base) / se
+                if (se and value is not None and base is not None)
+                else None,
+            }
+        result.policies.append({"policy": alternative.name, "origin": alternative.origin, "sha256": alternative.sha256,
+                                "parameters": shifts, "chi2": refit.chi2})  # fmt: skip
+    _record(catalog, "sensitivity", backend, spec, weighted, _summary(result))
+    return result
+
+
+def _summary(result: sensitivity.SensitivityResult) -> dict[str, Any]:
+    """Give the whole result as plain data (the report draws from the newest recorded run)."""
+    data = result.to_dict()
+    data["full"] = {k: v for k, v in data["full"].items() if k != "starts"}
+    data["flags"] = result.flags()
+    return data

@@ -1,0 +1,440 @@
+"""Leave-one-group-out sensitivity of a fit: exact refits or one-step screening, jackknife.
+
+For each group g (a dataset, a lab, a condition value) the fit is repeated without g's rows:
+
+- exact: least squares on the remaining rows, warm-started at the full optimum. Scale factors
+  of the held-out group's relative data leave with it (they are projected out per group).
+- one-step: one Gauss-Newton step from the full optimum using the remaining rows,
+  delta = -(J_r^T J_r)^-1 J_r^T r_r. For a linear model this is exact and equals the
+  group-deletion formula delta_beta = (X'WX)^-1 X_g' W_g (I - H_gg)^-1 e_g.
+
+Per group: each parameter's shift in units of its full-fit standard error, the Cook-type
+distance D_g = dtheta' C^-1 dtheta / p (Cook 1977, for groups), the held-out chi2 and dof of
+the group under the fit without it, and plain-words flags. Over groups: the delete-one-group
+jackknife standard error sqrt((G-1)/G * sum (theta_g - mean)^2).
+
+Thresholds (common practice, no single source): a shift beyond 2 standard errors, and a Cook
+distance above 1 (the usual rule of thumb for Cook's D), are flagged.
+"""
+
+from __future__ import annotations
+
+import math
+import multiprocessing
+from collections.abc import Callable, Sequence
+from concurrent.futures import ProcessPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+from curate.fit.backends import ModelBackend, rebuild
+from curate.fit.engine import FitOptions, FitResult, covariance_from_jacobian, least_squares
+from curate.fit.engine import jacobian as fitting_jacobian
+from curate.fit.problem import FitProblem
+from curate.fit.spec import ParameterSpec
+
+__all__ = [
+    "DEFAULT_COOK_THRESHOLD",
+    "DEFAULT_SHIFT_THRESHOLD",
+    "GroupResult",
+    "SensitivityResult",
+    "jackknife_stderr",
+    "leave_one_group_out",
+    "leave_one_group_out_external",
+]
+
+DEFAULT_SHIFT_THRESHOLD = 2.0
+DEFAULT_COOK_THRESHOLD = 1.0
+
+
+@dataclass
+class GroupResult:
+    """What leaving one group out does to the fit."""
+
+    group: str
+    n_points: int
+    parameters: dict[str, dict[str, float | None]]
+    cook_distance: float | None
+    heldout_chi2: float | None
+    heldout_dof: int | None
+    flags: list[str]
+    converged: bool = True
+    error: str | None = None
+
+    @classmethod
+    def failed(cls, group: str, n_points: int, flag: str, error: str | None) -> GroupResult:
+        """Give the row of a group whose refit could not be made."""
+        return cls(group, n_points, {}, None, None, None, [flag], False, error)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the row in the JSON shape of ``curate sensitivity --json``."""
+        return {
+            "group": self.group,
+            "n_points": self.n_points,
+            "parameters": self.parameters,
+            "cook_distance": self.cook_distance,
+            "heldout_chi2": self.heldout_chi2,
+            "heldout_dof": self.heldout_dof,
+            "flags": self.flags,
+            "converged": self.converged,
+            "error": self.error,
+        }
+
+
+@dataclass
+class SensitivityResult:
+    """The full fit, every group's refit, and the jackknife standard errors."""
+
+    full: FitResult | dict[str, Any]
+    by: str
+    method: str
+    groups: list[GroupResult]
+    jackknife_stderr: dict[str, float | None]
+    shift_threshold: float
+    cook_threshold: float
+    policies: list[dict[str, Any]] = field(default_factory=list)
+    executor: str = "serial"
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> SensitivityResult:
+        """Give a result back from its plain-data form (as recorded in the catalog)."""
+        groups = [
+            GroupResult(
+                group=g["group"], n_points=g["n_points"], parameters=g["parameters"], cook_distance=g["cook_distance"],
+                heldout_chi2=g["heldout_chi2"], heldout_dof=g["heldout_dof"], flags=list(g["flags"]),
+                converged=g.get("converged", True), error=g.get("error"),
+            )
+            for g in data["groups"]
+        ]  # fmt: skip
+        return cls(
+            full=data["full"], by=data["by"], method=data["method"], groups=groups,
+            jackknife_stderr=data["jackknife_stderr"], shift_threshold=data["shift_threshold"],
+            cook_threshold=data["cook_threshold"], policies=data.get("policies", []), executor=data.get("executor", ""),
+        )  # fmt: skip
+
+    def flags(self) -> list[str]:
+        """Give every plain-words flag."""
+        return [flag for g in self.groups for flag in g.flags]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the JSON shape scripts rely on."""
+        full = self.full.to_dict() if isinstance(self.full, FitResult) else self.full
+        return {
+            "full": full,
+            "by": self.by,
+            "method": self.method,
+            "groups": [g.to_dict() for g in self.groups],
+            "jackknife_stderr": self.jackknife_stderr,
+            "shift_threshold": self.shift_threshold,
+            "cook_threshold": self.cook_threshold,
+            "policies": self.policies,
+            "executor": self.executor,
+        }
+
+
+def jackknife_stderr(
+    values: Sequence[dict[str, float]], names: Sequence[str]
+) -> dict[str, float | None]:
+    """Give the delete-one-group jackknife SE, sqrt((G-1)/G * sum (theta_g - mean)^2), per name."""
+    out: dict[str, float | None] = {}
+    for name in names:
+        column = np.array(
+            [v[name] for v in values if name in v and v[name] is not None], dtype=float
+        )
+        g = len(column)
+        out[name] = (
+            float(math.sqrt((g - 1) / g * np.sum((column - column.mean()) ** 2)))
+            if g >= 2
+            else None
+        )
+    return out
+
+
+@dataclass(frozen=True)
+class _Task:
+    """One refit, in a form that pickles into a worker process or a Dask worker."""
+
+    group: str
+    keep: np.ndarray
+    theta0: np.ndarray
+    backend: ModelBackend | None  # in process, or pickled as it is
+    description: dict[str, Any] | None  # a portable backend is rebuilt from this in the worker
+    points: Any
+    spec: ParameterSpec
+    options: FitOptions
+
+    @classmethod
+    def of(cls, problem: FitProblem, group: str, keep: np.ndarray, theta0: np.ndarray,
+           options: FitOptions, *, in_worker: bool) -> _Task:  # fmt: skip
+        """Give the task of one refit; a portable backend travels as its description."""
+        backend = problem.backend
+        if in_worker and backend.portable:
+            return cls(
+                group, keep, theta0, None, backend.describe(), problem.points, problem.spec, options
+            )
+        return cls(group, keep, theta0, backend, None, problem.points, problem.spec, options)
+
+
+def _exact_refit(task: _Task) -> tuple[str, np.ndarray | None, np.ndarray | None, bool, str | None]:
+    """Give (group, theta, jacobian, converged, error) for one exact refit (runs in a worker)."""
+    backend = task.backend if task.backend is not None else rebuild(task.description or {})
+    problem = FitProblem(task.points, backend, task.spec)
+    try:
+        solution = least_squares(problem, task.theta0, task.options, rows=task.keep)
+        theta = _polish(problem, np.asarray(solution.x), task.keep)
+    except InputError as err:
+        return task.group, None, None, False, str(err)
+    return task.group, theta, np.asarray(solution.jac), bool(solution.success), None
+
+
+def _polish(problem: FitProblem, theta: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """Give theta after one Gauss-Newton step with a central-difference Jacobian, if it helps.
+
+    The optimiser stops on its tolerances with forward-difference Jacobians; one accurate step
+    makes a linear model's refit exact and sharpens a nonlinear one.
+    """
+    lower, upper = problem.bounds()
+    residual = problem.residual(theta, rows)
+    j = fitting_jacobian(problem, theta, rows)
+    candidate = theta - covariance_from_jacobian(j) @ (j.T @ residual)
+    if np.any(candidate < lower) or np.any(candidate > upper):
+        return theta
+    try:
+        better = problem.residual(candidate, rows)
+    except InputError:
+        return theta
+    # accept unless it is clearly worse: near the optimum both costs agree to rounding
+    return candidate if better @ better <= (residual @ residual) * (1 + 1e-9) else theta
+
+
+def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
+               progress: Callable[[int, int], None] | None) -> tuple[list[Any], str]:  # fmt: skip
+    if dask is not None:
+        return _run_on_dask(tasks, dask, progress), f"dask ({dask})"
+    if workers <= 1 or len(tasks) <= 1:
+        results = []
+        for done, task in enumerate(tasks):
+            results.append(_exact_refit(task))
+            if progress:
+                progress(done + 1, len(tasks))
+        return results, "serial"
+    results = []
+    # spawn, not fork: a forked child can inherit a lock held by another thread (pyarrow's
+    # pool, SQLite) and hang; spawned workers start clean and import the model themselves
+    with ProcessPoolExecutor(
+        max_workers=workers, mp_context=multiprocessing.get_context("spawn")
+    ) as pool:
+        for done, result in enumerate(pool.map(_exact_refit, tasks)):
+            results.append(result)
+            if progress:
+                progress(done + 1, len(tasks))
+    return results, f"process pool ({workers} workers)"
+
+
+def _run_on_dask(
+    tasks: list[_Task], address: str, progress: Callable[[int, int], None] | None
+) -> list[Any]:
+    try:
+        from dask.distributed import Client, LocalCluster
+    except ImportError:
+        raise InputError(
+            "--dask needs the dask distributed package: pip install 'curate[dask]'"
+        ) from None
+    cluster = None
+    try:
+        if address == "local":
+            cluster = LocalCluster(
+                n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
+            )
+            client = Client(cluster)
+        else:
+            client = Client(address, timeout=30)
+    except OSError as err:
+        raise InputError(f"--dask {address}: cannot reach the scheduler ({err})") from None
+    try:
+        futures = client.map(_exact_refit, tasks, pure=False)
+        results = client.gather(futures)
+        if progress:
+            progress(len(tasks), len(tasks))
+        return list(results)
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def leave_one_group_out(
+    problem: FitProblem,
+    full: FitResult,
+    labels: np.ndarray,
+    *,
+    by: str,
+    method: str = "exact",
+    options: FitOptions | None = None,
+    workers: int = 1,
+    dask: str | None = None,
+    shift_threshold: float = DEFAULT_SHIFT_THRESHOLD,
+    cook_threshold: float = DEFAULT_COOK_THRESHOLD,
+    progress: Callable[[int, int], None] | None = None,
+) -> SensitivityResult:
+    """Give the leave-one-group-out sensitivity of ``full`` (a fit of ``problem``)."""
+    if method not in ("exact", "one-step"):
+        raise InputError(f"--method {method}: expected exact or one-step")
+    if shift_threshold <= 0:
+        raise InputError(
+            f"--threshold {shift_threshold}: expected a positive number of standard errors"
+        )
+    options = options or FitOptions()
+    labels = np.asarray(labels).astype(str)
+    unique = sorted(set(labels.tolist()))
+    if len(unique) < 2:
+        raise InputError(
+            f"--by {by}: the selection has only one group ({unique[0] if unique else 'none'}); nothing to leave out"
+        )
+    theta = full.theta
+    jacobian = fitting_jacobian(problem, theta)
+    residual = problem.residual(theta)
+    names = full.free
+    natural_full = problem.to_natural(theta)
+    stderr = {n: full.parameters[n]["stderr"] for n in names}
+    inverse_cov = np.linalg.pinv(full.covariance)
+    plans: dict[str, tuple[np.ndarray, np.ndarray, str | None]] = {}
+    for group in unique:
+        held = labels == group
+        keep = np.flatnonzero(~held)
+        gap = _unidentified(jacobian, keep, names)
+        plans[group] = (keep, np.flatnonzero(held), gap)
+    refits: dict[str, tuple[np.ndarray | None, bool, str | None]] = {}
+    executor = "no refits"
+    if method == "exact":
+        in_worker = dask is not None or workers > 1
+        tasks = [
+            _Task.of(problem, group, keep, theta, options, in_worker=in_worker)
+            for group, (keep, _, gap) in plans.items()
+            if gap is None
+        ]
+        results, executor = _run_tasks(tasks, workers=workers, dask=dask, progress=progress)
+        for group, new_theta, _, converged, error in results:
+            refits[group] = (new_theta, converged, error)
+    else:
+        for done, (group, (keep, _, gap)) in enumerate(plans.items()):
+            if gap is None:
+                j, r = jacobian[keep], residual[keep]
+                step = -covariance_from_jacobian(j) @ (j.T @ r)
+                refits[group] = (theta + step, True, None)
+            if progress:
+                progress(done + 1, len(plans))
+    groups = []
+    for group, (_, held, gap) in plans.items():
+        if gap is not None:
+            groups.append(
+                GroupResult.failed(group, len(held), f"leaving out {by} {group} {gap}", gap)
+            )
+            continue
+        new_theta, converged, error = refits[group]
+        if new_theta is None:
+            groups.append(
+                GroupResult.failed(
+                    group, len(held), f"refit without {by} {group} failed: {error}", error
+                )
+            )
+            continue
+        natural = problem.to_natural(new_theta)
+        delta = np.array([natural[n] - natural_full[n] for n in names])
+        parameters: dict[str, dict[str, float | None]] = {}
+        flags = []
+        for k, name in enumerate(names):
+            se = stderr[name]
+            shift = float(delta[k] / se) if se else None
+            parameters[name] = {"value": natural[name], "shift_se": shift}
+            if shift is not None and abs(shift) > shift_threshold:
+                flags.append(f"{name} depends on {by} {group}: shifts {shift:+.1f} SE without it")
+        cook = float(delta @ inverse_cov @ delta / len(names))
+        if cook > cook_threshold:
+            flags.append(
+                f"the fit as a whole depends on {by} {group}: Cook distance {cook:.2f} (> {cook_threshold:g})"
+            )
+        held_residual = problem.residual(new_theta, held)
+        heldout_chi2 = float(held_residual @ held_residual)
+        heldout_dof = len(held) - problem.n_scale_factors(held)
+        if not converged:
+            flags.append(f"the refit without {by} {group} did not converge")
+        groups.append(
+            GroupResult(
+                group, len(held), parameters, cook, heldout_chi2, heldout_dof, flags, converged
+            )
+        )
+    good = [{n: g.parameters[n]["value"] for n in g.parameters} for g in groups if g.error is None]
+    return SensitivityResult(
+        full=full, by=by, method=method, groups=groups, jackknife_stderr=jackknife_stderr(good, names),  # type: ignore[arg-type]
+        shift_threshold=shift_threshold, cook_threshold=cook_threshold, executor=executor,
+    )  # fmt: skip
+
+
+def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str]) -> str | None:
+    """Give a reason if some parameter has no data left in the kept rows, else None."""
+    full_norm = np.linalg.norm(jacobian, axis=0)
+    kept_norm = np.linalg.norm(jacobian[keep], axis=0) if len(keep) else np.zeros(len(names))
+    lost = [
+        n for n, a, b in zip(names, full_norm, kept_norm, strict=True) if a > 0 and b <= 1e-10 * a
+    ]
+    if lost:
+        return f"leaves {', '.join(lost)} with no data"
+    if len(keep) <= len(names):
+        return f"leaves {len(keep)} points for {len(names)} parameters"
+    return None
+
+
+def leave_one_group_out_external(backend: ModelBackend, table: pd.DataFrame, labels: np.ndarray, *, by: str,
+                                 workdir: Path, threshold: float = DEFAULT_SHIFT_THRESHOLD,
+                                 progress: Callable[[int, int], None] | None = None) -> SensitivityResult:  # fmt: skip
+    """Give the leave-one-group-out check of a backend that fits itself (an external fitter).
+
+    The shifts are in units of the standard errors the fitter reported on the full data; there
+    are no Cook distances or held-out chi2 (the fitter's objective is its own).
+    """
+    full = backend.fit_points(table, folder=workdir / "full", group="full")
+    if full.error is not None:
+        raise InputError(f"--fitter-cmd on the full data: {full.error}")
+    groups = []
+    unique = sorted(set(labels.astype(str).tolist()))
+    names = sorted(full.parameters)
+    for done, group in enumerate(unique):
+        keep = labels.astype(str) != group
+        safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in group)
+        fold = backend.fit_points(table[keep], folder=workdir / f"without_{safe}", group=group)
+        if progress:
+            progress(done + 1, len(unique))
+        if fold.error is not None:
+            groups.append(
+                GroupResult.failed(
+                    group,
+                    int((~keep).sum()),
+                    f"fold without {by} {group} failed: {fold.error}",
+                    fold.error,
+                )
+            )
+            continue
+        parameters: dict[str, dict[str, float | None]] = {}
+        flags = []
+        for name in names:
+            value = fold.parameters.get(name)
+            se = full.stderr.get(name)
+            shift = (value - full.parameters[name]) / se if (value is not None and se) else None
+            parameters[name] = {"value": value, "shift_se": shift}
+            if shift is not None and abs(shift) > threshold:
+                flags.append(f"{name} depends on {by} {group}: shifts {shift:+.1f} SE without it")
+        groups.append(GroupResult(group, int((~keep).sum()), parameters, None, None, None, flags))
+    good = [{n: g.parameters[n]["value"] for n in g.parameters} for g in groups if g.error is None]
+    full_dict: dict[str, Any] = {"parameters": {n: {"value": v, "stderr": full.stderr.get(n)} for n, v in full.parameters.items()},
+                 "scale_factors": {}, "chi2": None, "dof": None, "n_points": len(table), "converged": True,
+                 "starts": [], "fitter": backend.describe().get("command", backend.label), "workdir": str(workdir)}  # fmt: skip
+    return SensitivityResult(
+        full=full_dict, by=by, method="external", groups=groups,
+        jackknife_stderr=jackknife_stderr(good, names),  # type: ignore[arg-type]
+        shift_threshold=threshold, cook_threshold=DEFAULT_COOK_THRESHOLD, executor=backend.label,
+    )  # fmt: skip

@@ -1,0 +1,671 @@
+"""The ledger: versioned, hash-chained datasets in one SQLite file.
+
+Log, list, inspect, revise, retire and verify datasets; append events that write no version
+(suggestions, checklist answers, runs). Every method that changes the catalog plans first (a
+value saying what will be written), then applies the plan in one transaction that also appends
+the sealed event. Nothing here knows about noise, weights, exports or fits: those rooms sit
+above and call these methods (see ``curate.api`` for the catalog that has them all).
+"""
+
+from __future__ import annotations
+
+import bisect
+import builtins
+import datetime as dt
+import getpass
+import os
+import re
+from collections.abc import Iterable, Iterator, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError, NotFoundError
+from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
+from curate.ingest.petab import read_petab_problem
+from curate.ingest.plausibility import Neighbour, check_against_others, typical_magnitude
+from curate.ledger.store import Store, VersionRow
+from curate.ledger.verify import VerifyReport, verify_store
+from curate.records import (
+    GRADES,
+    DatasetRecord,
+    DatasetVersion,
+    SeriesArrays,
+    canonical_json,
+    jsonable,
+    record_hash,
+)
+
+__all__ = [
+    "DEFAULT_CATALOG",
+    "AddPlan",
+    "AddResult",
+    "HistoryEntry",
+    "Ledger",
+    "condition_matches",
+    "default_actor",
+    "describe_changes",
+    "version_from_row",
+]
+
+DEFAULT_CATALOG = "curate.db"
+
+
+def default_actor() -> str:
+    """Give who is acting: $CURATE_USER, else the login name."""
+    name = os.environ.get("CURATE_USER")
+    if name:
+        return name
+    try:
+        return getpass.getuser()
+    except Exception:  # no login name in some containers
+        return "unknown"
+
+
+@dataclass(frozen=True)
+class AddPlan:
+    """What logging one draft will write: a new dataset, or nothing (a duplicate)."""
+
+    draft: Draft
+    dataset_id: str
+    duplicate_of: DatasetVersion | None
+    record: DatasetRecord  # with the catalog-level warnings added
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the plan as plain data (what ``--dry-run`` prints)."""
+        return {
+            "action": "none (duplicate)" if self.duplicate_of else "add",
+            "id": self.duplicate_of.id if self.duplicate_of else self.dataset_id,
+            "version": self.duplicate_of.version if self.duplicate_of else 1,
+            "origin": self.draft.origin,
+            "n_points": self.record.n_points,
+            "content_hash": self.record.content_hash,
+            "warnings": [w.model_dump() for w in self.record.warnings],
+        }
+
+
+@dataclass(frozen=True)
+class AddResult:
+    """The outcome of logging one draft."""
+
+    id: str
+    version: int
+    added: bool
+    duplicate_of: str | None
+    origin: str
+    warnings: tuple[str, ...]
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the result as plain data."""
+        return {
+            "id": self.id,
+            "version": self.version,
+            "added": self.added,
+            "duplicate_of": self.duplicate_of,
+            "origin": self.origin,
+            "warnings": list(self.warnings),
+        }
+
+
+@dataclass(frozen=True)
+class HistoryEntry:
+    """One change in a dataset's life."""
+
+    seq: int
+    at: str
+    actor: str
+    kind: str
+    version: int | None
+    changes: tuple[str, ...]
+    reason: str | None
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the entry as plain data."""
+        return {
+            "seq": self.seq,
+            "at": self.at,
+            "actor": self.actor,
+            "kind": self.kind,
+            "version": self.version,
+            "changes": list(self.changes),
+            "reason": self.reason,
+        }
+
+
+def _slug(text: str, limit: int) -> str:
+    slug = re.sub(r"[^a-z0-9]+", "_", text.lower()).strip("_")[:limit].strip("_")
+    return slug or "x"
+
+
+def _flatten(value: Any, prefix: str = "") -> dict[str, Any]:
+    if isinstance(value, dict):
+        out: dict[str, Any] = {}
+        for key, item in value.items():
+            out.update(_flatten(item, f"{prefix}.{key}" if prefix else str(key)))
+        return out
+    return {prefix: value}
+
+
+def describe_changes(before: dict[str, Any], after: dict[str, Any]) -> tuple[str, ...]:
+    """Give 'field: old -> new' lines between two record dicts (flattened)."""
+    a, b = _flatten(before), _flatten(after)
+    lines = []
+    for key in sorted(set(a) | set(b)):
+        if a.get(key) != b.get(key) and key != "content_hash":
+            lines.append(f"{key}: {a.get(key)!r} -> {b.get(key)!r}")
+    return tuple(lines)
+
+
+class _ActionContext:
+    """What one user action knows about the catalog while it writes (built once per action).
+
+    Indexed so that logging N datasets costs O(N log N), not O(N^2): datasets by content hash,
+    ids, and per observable and unit a sorted list of typical values for the median.
+    """
+
+    def __init__(self, store: Store) -> None:
+        self.by_hash: dict[str, list[Neighbour]] = {}
+        self.by_key: dict[tuple[str, str, str, str], DatasetVersion] = {}
+        self.levels: dict[tuple[str, str], list[float]] = {}
+        self.ids: set[str] = set()
+        self.next_number: dict[str, int] = {}
+        for row in store.latest_versions():
+            self._remember(version_from_row(row))
+
+    def _remember(self, version: DatasetVersion) -> None:
+        rec = version.record
+        conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
+        magnitude = float(rec.annotations.get("typical_magnitude", 0.0))
+        neighbour = Neighbour(
+            dataset_id=version.id, observable=rec.observable.id, unit=rec.observable.unit,
+            conditions=conditions, lab=rec.source.lab, content_hash=rec.content_hash, magnitude=magnitude,
+        )  # fmt: skip
+        self.by_hash.setdefault(rec.content_hash, []).append(neighbour)
+        if magnitude > 0:
+            bisect.insort(
+                self.levels.setdefault((rec.observable.id, rec.observable.unit), []), magnitude
+            )
+        self.by_key[(rec.content_hash, rec.observable.id, conditions, rec.source.lab)] = version
+        self.ids.add(version.id)
+
+    def level(self, observable: str, unit: str) -> float | None:
+        """Give the median typical value of the datasets of one observable and unit."""
+        values = self.levels.get((observable, unit))
+        if not values:
+            return None
+        middle = len(values) // 2
+        return values[middle] if len(values) % 2 else 0.5 * (values[middle - 1] + values[middle])
+
+
+def version_from_row(row: VersionRow) -> DatasetVersion:
+    """Give the parsed dataset version of a stored row."""
+    record = DatasetRecord.model_validate_json(row.record_json)
+    return DatasetVersion(
+        id=row.dataset_id,
+        version=row.version,
+        created_at=dt.datetime.fromisoformat(row.created_at),
+        record=record,
+        record_hash=row.record_hash,
+    )
+
+
+class Ledger:
+    """The versioned, hash-chained datasets of one catalog file."""
+
+    def __init__(self, path: str | Path, *, actor: str | None = None) -> None:
+        self.path = str(path)
+        self.actor = actor or default_actor()
+        self._store = Store(path)
+
+    def close(self) -> None:
+        """Close the catalog file."""
+        self._store.close()
+
+    def __enter__(self) -> Ledger:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    @property
+    def catalog_id(self) -> str:
+        """Give the catalog's unique id (made when the file was created)."""
+        return self._store.meta("catalog_id")
+
+    @property
+    def store(self) -> Store:
+        """Give the storage layer (for tools and tests that inspect the file)."""
+        return self._store
+
+    @contextmanager
+    def transaction(self) -> Iterator[None]:
+        """Group several changes into one all-or-nothing action (nests: inner ones join)."""
+        with self._store.transaction():
+            yield
+
+    def head(self) -> tuple[int, str]:
+        """Give the event chain's head: (sequence number, hash) of the newest event."""
+        return self._store.head()
+
+    def store_policy(self, sha256: str, name: str, origin: str, text: str) -> None:
+        """Keep a weighting policy's text under its hash (once), so runs can name it."""
+        self._store.put_policy(sha256, name, origin, text)
+
+    def series_many(self, content_hashes: builtins.list[str]) -> dict[str, SeriesArrays]:
+        """Give the arrays of many content hashes in one read."""
+        return self._store.series_many(content_hashes)
+
+    def verify(self) -> VerifyReport:
+        """Give the result of recomputing every content hash, record hash and the event chain."""
+        return verify_store(self._store)
+
+    # -- logging ---------------------------------------------------------------------------
+
+    def read_file(
+        self,
+        path: str | Path,
+        *,
+        sidecar: str | Path | None = None,
+        options: dict[str, Any] | None = None,
+    ) -> Draft:
+        """Give the validated draft of a data file without logging it."""
+        return build_draft(path, sidecar=sidecar, options=options, actor=self.actor)
+
+    def draft(
+        self,
+        time: Sequence[float] | np.ndarray,
+        value: Sequence[float] | np.ndarray,
+        *,
+        observable: str,
+        unit: str,
+        time_unit: str,
+        lab: str,
+        sd: Sequence[float] | np.ndarray | None = None,
+        replicate: Sequence[int] | np.ndarray | None = None,
+        conditions: dict[str, Any] | None = None,
+        **metadata: Any,
+    ) -> Draft:
+        """Give the validated draft of arrays in memory (the other fields as in a sidecar)."""
+        meta: dict[str, Any] = {
+            "observable": {"id": observable, "unit": unit, **metadata.pop("observable", {})},
+            "time": {"unit": time_unit},
+            "source": {"lab": lab, **metadata.pop("source", {})},
+            "conditions": conditions or {},
+            **metadata,
+        }
+        rep = None if replicate is None else np.asarray(replicate, dtype=np.int64)
+        labels: tuple[str, ...] = ()
+        if rep is not None:
+            labels = tuple(str(x) for x in np.unique(rep))
+            rep = np.searchsorted(np.unique(rep), rep)
+        return draft_from_arrays(
+            np.asarray(time),
+            np.asarray(value),
+            metadata=meta,
+            sd=None if sd is None else np.asarray(sd),
+            replicate=rep,
+            replicate_labels=labels,
+            actor=self.actor,
+        )
+
+    def plan_add(self, draft: Draft, context: _ActionContext | None = None) -> AddPlan:
+        """Give what logging ``draft`` would write, against the catalog as it is now."""
+        context = context or _ActionContext(self._store)
+        rec = draft.record
+        conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
+        duplicate = context.by_key.get(
+            (rec.content_hash, rec.observable.id, conditions, rec.source.lab)
+        )
+        magnitude = typical_magnitude(draft.arrays.value)
+        extra = check_against_others(
+            observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
+            conditions=conditions, content_hash=rec.content_hash, magnitude=magnitude,
+            same_content=context.by_hash.get(rec.content_hash, []),
+            others_level=context.level(rec.observable.id, rec.observable.unit),
+        )  # fmt: skip
+        annotations = {**rec.annotations, "typical_magnitude": magnitude}
+        record = rec.model_copy(
+            update={"warnings": rec.warnings + tuple(extra), "annotations": annotations}
+        )
+        dataset_id = draft.requested_id or self._new_id(rec, context)
+        if draft.requested_id and duplicate is None and draft.requested_id in context.ids:
+            raise InputError(
+                f"{draft.origin}: dataset id '{draft.requested_id}' is taken; choose "
+                "another id or leave it out to get one generated"
+            )
+        return AddPlan(draft=draft, dataset_id=dataset_id, duplicate_of=duplicate, record=record)
+
+    def _new_id(self, rec: DatasetRecord, context: _ActionContext) -> str:
+        prefix = f"{_slug(rec.source.lab, 40).split('_')[0][:16]}_{_slug(rec.observable.id, 24)}_"
+        if not prefix[0].isalpha():
+            prefix = "d_" + prefix
+        number = context.next_number.get(prefix, 1)  # numbers below it are known to be taken
+        while f"{prefix}{number:02d}" in context.ids:
+            number += 1
+        context.next_number[prefix] = number
+        return f"{prefix}{number:02d}"
+
+    def _write_version(
+        self,
+        dataset_id: str,
+        version: int,
+        record: DatasetRecord,
+        *,
+        kind: str,
+        payload: dict[str, Any],
+        arrays: SeriesArrays | None,
+    ) -> DatasetVersion:
+        created = dt.datetime.now(dt.UTC)
+        record_json = canonical_json(record.model_dump(mode="json"))
+        sealed = record_hash(dataset_id, version, record_json)
+        if arrays is not None:
+            self._store.put_series(record.content_hash, arrays)
+        self._store.put_version(
+            VersionRow(
+                dataset_id=dataset_id,
+                version=version,
+                created_at=created.isoformat(),
+                record_json=record_json,
+                record_hash=sealed,
+                content_hash=record.content_hash,
+                observable=record.observable.id,
+                lab=record.source.lab,
+                grade=record.trust.grade if record.trust else None,
+                retired=record.retired,
+            )
+        )
+        self._store.append_event(
+            kind,
+            {**payload, "record_hash": sealed, "content_hash": record.content_hash},
+            actor=self.actor,
+            dataset_id=dataset_id,
+            version=version,
+        )
+        return DatasetVersion(
+            id=dataset_id, version=version, created_at=created, record=record, record_hash=sealed
+        )
+
+    def apply(self, plan: AddPlan, context: _ActionContext | None = None) -> AddResult:
+        """Write a plan (call inside a transaction when batching; otherwise opens one)."""
+        if plan.duplicate_of is not None:
+            dup = plan.duplicate_of
+            return AddResult(
+                id=dup.id,
+                version=dup.version,
+                added=False,
+                duplicate_of=dup.id,
+                origin=plan.draft.origin,
+                warnings=(),
+            )
+        payload = {
+            "origin": plan.draft.origin,
+            "raw_file_sha256": plan.record.source.raw_file_sha256,
+        }
+        version = self._write_version(
+            plan.dataset_id, 1, plan.record, kind="add", payload=payload, arrays=plan.draft.arrays
+        )
+        if context is not None:
+            context._remember(version)
+        return AddResult(
+            id=plan.dataset_id,
+            version=1,
+            added=True,
+            duplicate_of=None,
+            origin=plan.draft.origin,
+            warnings=tuple(w.message for w in plan.record.warnings),
+        )
+
+    def add_drafts(self, drafts: Iterable[Draft]) -> builtins.list[AddResult]:
+        """Log many drafts as one action: one transaction, all or nothing."""
+        with self._store.transaction():
+            context = _ActionContext(self._store)
+            results = []
+            for draft in drafts:
+                results.append(self.apply(self.plan_add(draft, context), context))
+        return results
+
+    def add(
+        self,
+        path: str | Path,
+        *,
+        sidecar: str | Path | None = None,
+        options: dict[str, Any] | None = None,
+        dry_run: bool = False,
+    ) -> AddResult | AddPlan:
+        """Log one data file (with its sidecar and option overrides); give the result.
+
+        With ``dry_run`` nothing is written and the plan is given instead.
+        """
+        draft = self.read_file(path, sidecar=sidecar, options=options)
+        if dry_run:
+            return self.plan_add(draft)
+        return self.add_drafts([draft])[0]
+
+    def import_petab(
+        self, problem: str | Path, *, lab: str | None = None, time_unit: str = "s", unit: str = "1"
+    ) -> builtins.list[AddResult]:
+        """Log a PEtab problem's measurements, one dataset per observable/condition/datasetId."""
+        drafts = read_petab_problem(
+            problem, lab=lab, time_unit=time_unit, unit=unit, actor=self.actor
+        )
+        return self.add_drafts(drafts)
+
+    # -- new versions ----------------------------------------------------------------------
+
+    def new_version(
+        self,
+        dataset_id: str,
+        *,
+        kind: str,
+        reason: str | None,
+        update: dict[str, Any],
+        payload: dict[str, Any] | None = None,
+    ) -> DatasetVersion:
+        """Write a new version of a dataset with some record fields replaced."""
+        with self._store.transaction():
+            current = self.show(dataset_id)
+            merged = current.record.model_dump()
+            merged.update(update)
+            record = DatasetRecord.model_validate(merged)
+            if record == current.record:
+                raise InputError(f"dataset {dataset_id}: nothing would change")
+            changes = describe_changes(
+                current.record.model_dump(mode="json"), record.model_dump(mode="json")
+            )
+            return self._write_version(
+                dataset_id,
+                current.version + 1,
+                record,
+                kind=kind,
+                arrays=None,
+                payload={"reason": reason, "changes": list(changes), **(payload or {})},
+            )
+
+    def record_event(
+        self, kind: str, payload: dict[str, Any], *, dataset_id: str | None = None
+    ) -> None:
+        """Append an event that writes no version (checklist answers, suggestions)."""
+        with self._store.transaction():
+            self._store.append_event(
+                kind, jsonable(payload), actor=self.actor, dataset_id=dataset_id
+            )
+
+    def latest_event(self, dataset_id: str, kind: str) -> dict[str, Any] | None:
+        """Give the newest event of ``kind`` for a dataset, or None."""
+        found = [e for e in self._store.events(dataset_id) if e.kind == kind]
+        return found[-1].to_dict() if found else None
+
+    def retire(self, dataset_id: str, *, reason: str) -> DatasetVersion:
+        """Hide a dataset from later selections (a new version; nothing is deleted)."""
+        if not reason.strip():
+            raise InputError("retire: a reason is required (--reason)")
+        if self.show(dataset_id).record.retired:
+            raise InputError(f"dataset {dataset_id} is already retired")
+        return self.new_version(
+            dataset_id,
+            kind="retire",
+            reason=reason,
+            update={"retired": True, "retired_reason": reason},
+        )
+
+    def revise(
+        self,
+        dataset_id: str,
+        *,
+        reason: str,
+        label: str | None = None,
+        conditions: dict[str, Any] | None = None,
+        lab: str | None = None,
+        reference: str | None = None,
+        calibration_group: str | None = None,
+        unretire: bool = False,
+    ) -> DatasetVersion:
+        """Correct a dataset's metadata as a new version (the data never change)."""
+        if not reason.strip():
+            raise InputError("revise: a reason is required (--reason)")
+        current = self.show(dataset_id).record
+        update: dict[str, Any] = {}
+        if label is not None:
+            update["observable"] = current.observable.model_copy(update={"label": label})
+        if conditions:
+            merged = dict(current.conditions)
+            for key, raw in conditions.items():
+                if raw is None or raw == "":
+                    merged.pop(key, None)
+                else:
+                    merged[key] = parse_condition(key, raw, origin=f"dataset {dataset_id}")
+            update["conditions"] = merged
+        if lab is not None or reference is not None:
+            update["source"] = current.source.model_copy(
+                update={k: v for k, v in (("lab", lab), ("reference", reference)) if v is not None}
+            )
+        if calibration_group is not None:
+            update["protocol"] = current.protocol.model_copy(
+                update={"calibration_group": calibration_group}
+            )
+        if unretire:
+            update.update({"retired": False, "retired_reason": None})
+        return self.new_version(dataset_id, kind="revise", reason=reason, update=update)
+
+    # -- reading ---------------------------------------------------------------------------
+
+    def show(self, dataset_id: str, version: int | None = None) -> DatasetVersion:
+        """Give one dataset version (the newest unless ``version`` is named)."""
+        rows = self._store.versions_of(dataset_id)
+        if not rows:
+            raise NotFoundError(
+                f"no dataset '{dataset_id}' in {self.path}; `curate list` shows the ids"
+            )
+        if version is None:
+            return version_from_row(rows[-1])
+        for row in rows:
+            if row.version == version:
+                return version_from_row(row)
+        raise NotFoundError(
+            f"dataset '{dataset_id}' has versions 1 to {rows[-1].version}, not {version}"
+        )
+
+    def versions(self, dataset_id: str) -> builtins.list[DatasetVersion]:
+        """Give every version of a dataset, oldest first."""
+        self.show(dataset_id)
+        return [version_from_row(r) for r in self._store.versions_of(dataset_id)]
+
+    def arrays(self, dataset_id: str, version: int | None = None) -> SeriesArrays:
+        """Give the measured arrays of a dataset version (canonical units)."""
+        return self._store.series(self.show(dataset_id, version).record.content_hash)
+
+    def points(self, dataset_id: str, version: int | None = None) -> pd.DataFrame:
+        """Give a dataset version's points as a DataFrame (canonical units, time-sorted)."""
+        found = self.show(dataset_id, version)
+        arrays = self._store.series(found.record.content_hash)
+        frame = pd.DataFrame({"time": arrays.time, "value": arrays.value})
+        if arrays.sd is not None:
+            frame["sd"] = arrays.sd
+        if arrays.replicate is not None:
+            labels = np.array(found.record.replicate_labels, dtype=object)
+            frame["replicate"] = labels[arrays.replicate] if len(labels) else arrays.replicate
+        if arrays.n is not None:
+            frame["n"] = arrays.n
+        frame.attrs.update(
+            {
+                "dataset_id": found.id,
+                "version": found.version,
+                "time_unit": "second",
+                "unit": found.record.observable.unit,
+            }
+        )
+        return frame
+
+    def list(
+        self,
+        *,
+        observable: str | None = None,
+        lab: str | None = None,
+        conditions: dict[str, str] | None = None,
+        grade: str | None = None,
+        include_retired: bool = False,
+    ) -> builtins.list[DatasetVersion]:
+        """Give the newest version of each dataset that matches every filter given."""
+        if grade is not None and grade not in GRADES and grade != "none":
+            raise InputError(
+                f"unknown grade '{grade}'; expected one of {', '.join(GRADES)} or 'none'"
+            )
+        wanted = {
+            k: parse_condition(k, v, origin="--condition").value
+            for k, v in (conditions or {}).items()
+        }
+        found = []
+        for row in self._store.latest_versions():
+            if observable is not None and row.observable != observable:
+                continue
+            if lab is not None and row.lab != lab:
+                continue
+            if grade is not None and (row.grade or "none") != grade:
+                continue
+            if row.retired and not include_retired:
+                continue
+            version = version_from_row(row)
+            if any(
+                condition_matches(version.record.conditions.get(k), v) is False
+                for k, v in wanted.items()
+            ):
+                continue
+            found.append(version)
+        return found
+
+    def history(self, dataset_id: str) -> builtins.list[HistoryEntry]:
+        """Give every change of a dataset, oldest first, with what changed and why."""
+        self.show(dataset_id)
+        entries = []
+        for event in self._store.events(dataset_id):
+            payload = event.payload
+            entries.append(
+                HistoryEntry(
+                    seq=event.seq,
+                    at=event.at,
+                    actor=event.actor,
+                    kind=event.kind,
+                    version=event.version,
+                    changes=tuple(payload.get("changes", ())),
+                    reason=payload.get("reason"),
+                )
+            )
+        return entries
+
+    def events(self) -> builtins.list[dict[str, Any]]:
+        """Give the whole event log as plain dicts, oldest first."""
+        return [e.to_dict() for e in self._store.events()]
+
+
+def condition_matches(stored: Any, wanted: Any) -> bool:
+    """Tell whether a stored condition value matches a wanted one (floats within 1e-9)."""
+    if stored is None:
+        return False
+    value = stored.value
+    if isinstance(value, float) and isinstance(wanted, float):
+        return bool(np.isclose(value, wanted, rtol=1e-9, atol=0.0))
+    return bool(value == wanted) or str(value) == str(wanted)

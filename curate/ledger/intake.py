@@ -1,0 +1,194 @@
+"""Intake of a whole folder: log every valid data file, quarantine every bad one with a reason.
+
+Each file is its own transaction, so a killed intake leaves every file either fully logged or
+still waiting in the folder, and a rerun logs the rest (already logged data are recognised by
+their content hash and not added twice). A bad file is moved, with its sidecar and a
+``.reason.txt`` beside it, into the quarantine folder: nothing is deleted.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import os
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from curate.errors import CurateError, InputError
+from curate.ingest.files import build_draft
+from curate.ingest.sidecar import load_sidecar
+from curate.ingest.tables import DATA_SUFFIXES
+from curate.ledger.catalog import Ledger
+
+__all__ = ["IntakeItem", "IntakeReport", "intake_folder"]
+
+QUARANTINE = "quarantine"
+
+
+@dataclass(frozen=True)
+class IntakeItem:
+    """What happened to one file."""
+
+    file: str
+    status: str  # added | duplicate | quarantined | refused
+    id: str | None = None
+    reason: str | None = None
+    warnings: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the item as plain data."""
+        return {
+            "file": self.file,
+            "status": self.status,
+            "id": self.id,
+            "reason": self.reason,
+            "warnings": list(self.warnings),
+        }
+
+
+@dataclass
+class IntakeReport:
+    """The outcome of one folder intake."""
+
+    folder: str
+    quarantine: str
+    items: list[IntakeItem] = field(default_factory=list)
+
+    def count(self, status: str) -> int:
+        """Give how many files ended with ``status``."""
+        return sum(1 for item in self.items if item.status == status)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the report as plain data."""
+        return {
+            "folder": self.folder,
+            "quarantine": self.quarantine,
+            "added": self.count("added"),
+            "duplicate": self.count("duplicate"),
+            "quarantined": self.count("quarantined"),
+            "refused": self.count("refused"),
+            "items": [i.to_dict() for i in self.items],
+        }
+
+
+def _inside(folder: Path, path: Path) -> bool:
+    return path.resolve().is_relative_to(folder.resolve())
+
+
+def _free_name(target: Path) -> Path:
+    if not target.exists():
+        return target
+    stem, suffix = target.stem, target.suffix
+    for k in range(1, 10_000):
+        candidate = target.with_name(f"{stem}.{k}{suffix}")
+        if not candidate.exists():
+            return candidate
+    raise InputError(f"{target.parent}: too many quarantined files named {target.name}")
+
+
+def _quarantine(files: list[Path], reason: str, quarantine: Path) -> None:
+    quarantine.mkdir(parents=True, exist_ok=True)
+    main = files[0]
+    note = _free_name(quarantine / f"{main.name}.reason.txt")
+    temporary = note.with_name(note.name + ".part")
+    stamp = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    temporary.write_text(f"{main.name}\n{stamp}\n{reason}\n", encoding="utf-8")
+    os.replace(temporary, note)
+    for path in files:
+        if path.exists() or path.is_symlink():
+            os.replace(path, _free_name(quarantine / path.name))
+
+
+def intake_folder(
+    catalog: Ledger,
+    folder: str | Path,
+    *,
+    quarantine: str | Path | None = None,
+    progress: Callable[[int, int, str], None] | None = None,
+) -> IntakeReport:
+    """Log every data file in ``folder``; give what happened to each."""
+    folder = Path(folder)
+    if not folder.is_dir():
+        raise InputError(f"{folder}: not a folder")
+    jail = Path(quarantine) if quarantine is not None else folder / QUARANTINE
+    report = IntakeReport(folder=str(folder), quarantine=str(jail))
+
+    entries = sorted(
+        p for p in folder.iterdir() if p.name != jail.name and not p.name.startswith(".")
+    )
+    sidecar_for: dict[Path, Path] = {}
+    sidecars = [p for p in entries if p.suffix.lower() == ".toml"]
+    data_files = [p for p in entries if p.suffix.lower() in DATA_SUFFIXES]
+    jobs: list[tuple[Path, Path | None, str | None]] = []  # data, sidecar, error before reading
+    refused: list[IntakeItem] = []
+    for path in entries:
+        if path.is_symlink() and not _inside(folder, path):
+            refused.append(
+                IntakeItem(
+                    file=path.name,
+                    status="refused",
+                    reason="a symbolic link leading outside the folder",
+                )
+            )
+    outside = {folder / item.file for item in refused}
+    for sidecar in sidecars:
+        if sidecar in outside:
+            continue
+        try:
+            name = load_sidecar(sidecar).get("data_file")
+        except CurateError as err:
+            jobs.append((sidecar, None, str(err)))
+            continue
+        if isinstance(name, str) and name:
+            target = folder / name
+            if Path(name).is_absolute() or ".." in Path(name).parts or not _inside(folder, target):
+                jobs.append(
+                    (sidecar, None, f"{sidecar}, field 'data_file': '{name}' is outside the folder")
+                )
+            elif not target.is_file():
+                jobs.append(
+                    (
+                        sidecar,
+                        None,
+                        f"{sidecar}, field 'data_file': the data file '{name}' does not exist",
+                    )
+                )
+            else:
+                sidecar_for[target] = sidecar
+    for data in data_files:
+        if data in outside:
+            continue
+        paired = sidecar_for.get(data)
+        if paired is None and data.with_suffix(".toml").is_file():
+            paired = data.with_suffix(".toml")
+        jobs.append((data, paired, None))
+    jobs.sort(key=lambda job: job[0].name)
+
+    report.items.extend(refused)
+    total = len(jobs)
+    for done, (data, job_sidecar, early_error) in enumerate(jobs):
+        if progress is not None:
+            progress(done, total, data.name)
+        companions = [data] + ([job_sidecar] if job_sidecar is not None else [])
+        try:
+            if early_error is not None:
+                raise InputError(early_error)
+            draft = build_draft(data, sidecar=job_sidecar, actor=catalog.actor)
+            result = catalog.add_drafts([draft])[0]
+        except CurateError as err:
+            _quarantine(companions, str(err), jail)
+            report.items.append(IntakeItem(file=data.name, status="quarantined", reason=str(err)))
+            continue
+        report.items.append(
+            IntakeItem(
+                file=data.name,
+                status="added" if result.added else "duplicate",
+                id=result.id,
+                reason=None if result.added else f"identical to {result.duplicate_of}",
+                warnings=result.warnings,
+            )
+        )
+    if progress is not None:
+        progress(total, total, "")
+    return report

@@ -1,0 +1,120 @@
+"""Verification: recompute every content hash, record hash and the event chain.
+
+Tells an edited point, edited metadata, a deleted, reordered or edited event and a deleted
+version apart, and names the first broken link of each kind.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from curate.ledger.provenance import verify_chain
+from curate.ledger.store import Store
+from curate.records import DatasetRecord, content_hash, record_hash
+
+__all__ = ["VerifyReport", "verify_store"]
+
+
+@dataclass
+class VerifyReport:
+    """What ``verify`` recomputed and the first thing that did not hold."""
+
+    datasets: int = 0
+    versions: int = 0
+    events: int = 0
+    series: int = 0
+    sqlite: str = "ok"
+    problems: list[str] = field(default_factory=list)
+
+    @property
+    def ok(self) -> bool:
+        """Tell whether everything held."""
+        return not self.problems and self.sqlite == "ok"
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the report as plain data."""
+        return {
+            "ok": self.ok,
+            "datasets": self.datasets,
+            "versions": self.versions,
+            "events": self.events,
+            "series": self.series,
+            "sqlite": self.sqlite,
+            "problems": self.problems,
+        }
+
+
+def verify_store(store: Store) -> VerifyReport:
+    """Give the result of recomputing every content hash, record hash and the event chain."""
+    report = VerifyReport(sqlite=store.integrity_check())
+    rows = store.all_versions()
+    report.versions = len(rows)
+    report.datasets = len({r.dataset_id for r in rows})
+    sealed_by_version: dict[tuple[str, int], str] = {}
+    checked: dict[tuple[str, str], bool] = {}
+    for row in rows:
+        name = f"dataset {row.dataset_id} version {row.version}"
+        if record_hash(row.dataset_id, row.version, row.record_json) != row.record_hash:
+            report.problems.append(
+                f"{name}: its metadata no longer match their record hash (edited in the file)"
+            )
+            continue
+        try:
+            record = DatasetRecord.model_validate_json(row.record_json)
+        except Exception as err:
+            report.problems.append(f"{name}: its record does not validate ({err})")
+            continue
+        if (
+            record.content_hash != row.content_hash
+            or record.observable.id != row.observable
+            or record.source.lab != row.lab
+            or bool(record.retired) != row.retired
+            or (record.trust.grade if record.trust else None) != row.grade
+        ):
+            report.problems.append(
+                f"{name}: the searchable columns disagree with its record (edited in the file)"
+            )
+            continue
+        key = (row.content_hash, record.observable.unit)
+        if key not in checked:
+            try:
+                arrays = store.series(row.content_hash)
+                checked[key] = (
+                    content_hash(arrays, value_unit=record.observable.unit) == row.content_hash
+                    and len(arrays) == record.n_points
+                )
+            except Exception:
+                checked[key] = False
+        if not checked[key]:
+            report.problems.append(
+                f"{name}: its measured values no longer match content hash "
+                f"{row.content_hash[:12]} (a value was changed or removed)"
+            )
+        sealed_by_version[(row.dataset_id, row.version)] = row.record_hash
+    report.series = len({k[0] for k in checked})
+    events = store.events()
+    report.events = len(events)
+    problem = verify_chain(events)
+    if problem is not None:
+        report.problems.append(f"event log: {problem.message}")
+    logged: dict[tuple[str, int], str] = {}
+    for event in events:
+        if event.dataset_id is not None and event.version is not None:
+            logged[(event.dataset_id, event.version)] = str(event.payload.get("record_hash"))
+    for version_key, sealed in sealed_by_version.items():
+        if logged.get(version_key) != sealed:
+            report.problems.append(
+                f"dataset {version_key[0]} version {version_key[1]}: no event in the log "
+                "records this version as written"
+            )
+    for logged_key in logged:
+        if logged_key not in sealed_by_version and not any(
+            p.startswith(f"dataset {logged_key[0]} version {logged_key[1]}:")
+            for p in report.problems
+        ):
+            report.problems.append(
+                f"dataset {logged_key[0]} version {logged_key[1]}: logged as written "
+                "but missing from the file (deleted?)"
+            )
+    return report

@@ -1,0 +1,362 @@
+"""Terminal text of runs: weights, exports, folds, trace, impact, fits, sensitivity, the demo.
+
+Rich renderables; the table style comes from :mod:`curate.present.tables`.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from pathlib import Path
+from typing import Any, Protocol
+
+from rich.console import Group
+from rich.text import Text
+
+from curate.export import ExportResult, FoldSet, ImpactEntry, TraceReport
+from curate.fit.engine import FitResult
+from curate.fit.sensitivity import SensitivityResult
+from curate.ledger import IntakeReport, VerifyReport
+from curate.present.tables import table as plain_table
+from curate.present.text import verify_text
+from curate.quality.actions import ConsistencyReport
+from curate.weighting import WeightSummary
+
+__all__ = [
+    "DemoFindings",
+    "demo_text",
+    "export_text",
+    "fit_text",
+    "folds_text",
+    "impact_text",
+    "sensitivity_text",
+    "trace_text",
+    "weights_text",
+]
+
+
+class DemoFindings(Protocol):
+    """What the demo's summary reads (``curate.demo.DemoResult`` has it all)."""
+
+    catalog_path: Path
+    intake: IntakeReport
+    noise_methods: dict[str, str]
+    grades: dict[str, str]
+    consistency: ConsistencyReport
+    exports: dict[str, Path]
+    weights: WeightSummary | None
+    accepted: list[str]
+    before: SensitivityResult | None
+    fit: FitResult | None
+    sensitivity: dict[str, SensitivityResult]
+    truth: dict[str, float]
+    report: Path | None
+    verify: VerifyReport | None
+
+
+def demo_text(result: DemoFindings) -> Group:
+    """Give the plain-words summary ``curate demo`` prints."""
+    intake = result.intake
+    parts: list[Any] = [
+        Text(
+            "curate demo: an invented scenario (four invented labs, two observables, one planted fault)",
+            style="bold",
+        )
+    ]
+    parts.append(
+        Text(
+            f"1. logged {intake.count('added')} datasets with their units, conditions and sources"
+            f" ({intake.count('quarantined')} quarantined); every change is a sealed event"
+        )
+    )
+    methods = Counter(result.noise_methods.values())
+    parts.append(
+        Text(
+            "2. estimated each dataset's noise: "
+            + ", ".join(f"{n} by {m}" for m, n in sorted(methods.items()))
+        )
+    )
+    grades = Counter(result.grades.values())
+    parts.append(
+        Text(
+            "3. graded trust from each lab's checklist answers: "
+            + ", ".join(f"{n} x {g}" for g, n in sorted(grades.items()))
+        )
+    )
+    flagged = [
+        r
+        for g in result.consistency.groups
+        for r in g.datasets
+        if r.p_value is not None and r.p_value < result.consistency.alpha
+    ]
+    if flagged:
+        lines = [
+            f"{r.id} ({r.lab}): Birge ratio {r.birge_ratio:.1f}, p = {r.p_value:.1g}"
+            for r in flagged
+        ]
+        parts.append(
+            Text(
+                "4. consistency: disagrees with the other datasets measuring the same thing: "
+                + "; ".join(lines)
+            )
+        )
+    else:
+        parts.append(Text("4. consistency: every compared dataset agrees with the others"))
+    if result.before is not None:
+        rows = [g for g in result.before.groups if g.error is None and g.cook_distance is not None]
+        hinged = sorted({g.group for g in rows if g.flags})
+        if rows:
+            cook = max(rows, key=lambda g: g.cook_distance or 0.0)
+            worst = max(rows, key=lambda g: (g.heldout_chi2 or 0.0) / max(g.heldout_dof or 1, 1))
+            parts.append(Text(
+                f"   before review, the fit hinges on {len(hinged)} of {len(rows)} datasets left out one at a time; "
+                f"largest Cook distance {cook.cook_distance:.3g} without {cook.group}; worst held-out fit: "
+                f"{worst.group} at chi2/dof {(worst.heldout_chi2 or 0.0) / max(worst.heldout_dof or 1, 1):.1f}"
+            ))  # fmt: skip
+    for suggestion in result.consistency.suggestions:
+        accepted = suggestion.dataset_id in result.accepted
+        parts.append(
+            Text(
+                f"   suggested {suggestion.dataset_id} {suggestion.current or 'ungraded'} -> {suggestion.suggested}"
+                + (" (accepted by the demo, standing in for the reviewer)" if accepted else "")
+            )
+        )
+    if result.weights is not None:
+        heavy = ", ".join(f"{obs}: n_eff {n:.0f}" for obs, n in result.weights.n_eff.items())
+        parts.append(
+            Text(
+                f"5. weighted every point by its grade and noise ({result.weights.policy.name}; {heavy})"
+            )
+        )
+    if result.exports:
+        parts.append(
+            Text(
+                "6. wrote exports and holdout folds, each with README.txt and manifest.json, under "
+                f"{Path(next(iter(result.exports.values()))).parent.parent}"
+            )
+        )
+    if result.fit is not None:
+        fit = result.fit
+        parts.append(
+            Text(
+                f"7. fitted the scenario's ODE model: chi2 {fit.chi2:.1f} on {fit.dof} dof (reduced {fit.reduced_chi2:.2f})"
+            )
+        )
+        if result.truth:
+            within = []
+            for name, truth in result.truth.items():
+                p = fit.parameters.get(name)
+                value, se = (p["value"], p["stderr"]) if p else (None, None)
+                if value is not None and se:
+                    within.append(
+                        f"{name} {value:.3g} ± {se:.2g} (true {truth:g}, {(value - truth) / se:+.1f} SE)"
+                    )
+            parts.append(
+                Text("   against the values that generated the invented data: " + "; ".join(within))
+            )
+    for by, sens in result.sensitivity.items():
+        measured = [g for g in sens.groups if g.cook_distance is not None]
+        text = f"8. after review, leave one {by} out: {len(sens.flags())} flag(s)"
+        if measured:
+            worst = max(measured, key=lambda g: g.cook_distance or 0.0)
+            moved = max(((n, v["shift_se"]) for n, v in worst.parameters.items() if v["shift_se"] is not None),
+                        key=lambda item: abs(item[1]), default=None)  # fmt: skip
+            text += f"; the conclusions depend most on {by} {worst.group} (Cook distance {worst.cook_distance:.2f}"
+            if moved:
+                text += f", {moved[0]} shifts {moved[1]:+.1f} SE without it"
+            if worst.heldout_chi2 is not None and worst.heldout_dof:
+                text += f", its own data fit at chi2/dof {worst.heldout_chi2 / worst.heldout_dof:.1f} without it"
+            text += ")"
+        parts.append(Text(text))
+    if result.verify is not None:
+        parts.append(Text("9. " + str(verify_text(result.verify))))
+    if result.report is not None:
+        parts.append(Text(f"report (open it in a browser): {result.report}"))
+    parts.append(
+        Text(f"catalog: {result.catalog_path}  (try: curate --catalog {result.catalog_path} list)")
+    )
+    parts.append(
+        Text(
+            "Grades, suggestions and weights are judgements, and a stable fit is not proof: see the README."
+        )
+    )
+    return Group(*parts)
+
+
+def weights_text(summary: WeightSummary) -> Group:
+    """Give what ``curate weights`` prints."""
+    parts: list[Any] = [
+        Text(f"policy: {summary.policy.name} (sha256 {summary.policy.sha256[:16]}…)")
+    ]
+    numbers = ("points", "inflation", "balance", "share", "n_eff")
+    table = plain_table(("dataset", "observable", "lab", "grade", *numbers), right=numbers)
+    for row in summary.datasets:
+        table.add_row(row.id, row.observable, row.lab, row.grade, str(row.n_points), f"{row.inflation:g}",
+                      f"{row.balance:.3g}", f"{100 * row.share:.1f}%", f"{row.n_eff:.1f}")  # fmt: skip
+    parts.append(table)
+    for observable, n_eff in summary.n_eff.items():
+        labs = ", ".join(
+            f"{lab} {100 * share:.0f}%"
+            for lab, share in sorted(summary.lab_shares[observable].items())
+        )
+        parts.append(
+            Text(
+                f"{observable}: Kish n_eff {n_eff:.1f}; weights span {summary.weight_span[observable]:.3g}x; by lab: {labs}"
+            )
+        )
+    parts.append(
+        Text(
+            "shares are within each observable (weights of different units do not add up); for relative units "
+            "they compare w x median|y|², which does not depend on each dataset's arbitrary scale"
+        )
+    )
+    parts += [Text(f"warning: {w}") for w in summary.warnings]
+    return Group(*parts)
+
+
+def export_text(result: ExportResult) -> Group:
+    """Give what ``curate export`` prints."""
+    parts: list[Any] = [Text(f"{result.format} export of {len(result.manifest['datasets'])} dataset versions "
+                             f"({result.summary.n_points} points) written to {result.outdir}")]  # fmt: skip
+    parts += [Text(f"  {name}") for name in sorted(result.files)]
+    parts.append(Text(f"  manifest.json (sha256 {result.manifest['manifest_sha256'][:16]}…)"))
+    parts += [Text(f"warning: {w}") for w in result.summary.warnings]
+    return Group(*parts)
+
+
+def folds_text(result: FoldSet) -> Group:
+    """Give what ``curate folds`` prints."""
+    parts: list[Any] = [
+        Text(f"{len(result.folds)} folds by {result.by} written to {result.outdir}")
+    ]
+    table = plain_table(
+        ("fold", "held out", "train", "test", "training lacks"), right=("train", "test")
+    )
+    for fold in result.folds:
+        table.add_row(fold["name"], ", ".join(fold["held_out_groups"]), str(fold["train_points"]),
+                      str(fold["test_points"]), "; ".join(fold["training_lacks"]) or "-")  # fmt: skip
+    parts.append(table)
+    return Group(*parts)
+
+
+def trace_text(result: TraceReport) -> Group:
+    """Give what ``curate trace`` prints."""
+    if result.intact:
+        return Group(Text(f"intact: the catalog still holds exactly the {len(result.same)} dataset versions "
+                          f"this {result.format} export ({result.created_at}) used, and its files are unchanged"))  # fmt: skip
+    parts: list[Any] = [Text(f"changed since the {result.format} export of {result.created_at}:")]
+    parts += [Text(f"  {line}") for line in result.changed + result.files_changed]
+    parts.append(Text(f"{len(result.same)} dataset versions are unchanged"))
+    return Group(*parts)
+
+
+def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
+    """Give what ``curate impact`` prints."""
+    if not found:
+        return Text(f"no export used an outdated version of {dataset_id}")
+    lines = [f"{len(found)} export(s) used an outdated version of {dataset_id}:"]
+    for entry in found:
+        state = "retired" if entry.retired else f"now version {entry.current_version}"
+        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {entry.format}  {entry.outdir}: used version "
+                     f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
+    return Text("\n".join(lines))
+
+
+def fit_text(result: FitResult) -> Group:
+    """Give what ``curate fit`` prints."""
+    parts: list[Any] = [Text(f"chi2 {result.chi2:.4g} on {result.dof} dof (reduced {result.reduced_chi2:.3g}), "
+                             f"{result.n_points} points, {'converged' if result.converged else 'NOT converged'}: {result.message}")]  # fmt: skip
+    table = plain_table(
+        ("parameter", "value", "stderr", "rel. error"), right=("value", "stderr", "rel. error")
+    )
+    for name, p in result.parameters.items():
+        value, se = p["value"], p["stderr"]
+        relative = f"{100 * se / abs(value):.1f}%" if (se is not None and value) else "-"
+        table.add_row(name, f"{value:.6g}", "fixed" if se is None else f"{se:.3g}", relative)
+    parts.append(table)
+    if result.scale_factors:
+        parts.append(
+            Text(
+                "scale factors: "
+                + ", ".join(f"{k} {v:.4g}" for k, v in result.scale_factors.items())
+            )
+        )
+    if len(result.starts) > 1:
+        best = sorted(s["chi2"] for s in result.starts if s["chi2"] is not None)
+        parts.append(
+            Text(
+                f"{len(result.starts)} starts; best chi2 values: "
+                + ", ".join(f"{c:.4g}" for c in best[:5])
+            )
+        )
+    return Group(*parts)
+
+
+def sensitivity_text(result: SensitivityResult) -> Group:
+    """Give what ``curate sensitivity`` prints."""
+    full = result.full if isinstance(result.full, dict) else result.full.to_dict()
+    names = list(full["parameters"])
+    parts: list[Any] = [Text(f"leave one {result.by} out ({result.method}, {result.executor}); "
+                             f"flags beyond {result.shift_threshold:g} SE", style="bold")]  # fmt: skip
+    shifted = [f"{name} (SE)" for name in names]
+    numbers = ["points", *shifted, "Cook D", "held-out chi2/dof"]
+    table = plain_table([f"without {result.by}", *numbers], right=numbers)
+    for group in result.groups:
+        if group.error:
+            table.add_row(
+                group.group, str(group.n_points), *(["-"] * len(names)), "-", group.error[:40]
+            )
+            continue
+        shifts = []
+        for name in names:
+            z = group.parameters.get(name, {}).get("shift_se")
+            shifts.append(
+                "-"
+                if z is None
+                else f"{z:+.2f}" + (" !" if abs(z) > result.shift_threshold else "")
+            )
+        heldout = (
+            f"{group.heldout_chi2:.1f}/{group.heldout_dof}"
+            if group.heldout_chi2 is not None
+            else "-"
+        )
+        table.add_row(
+            group.group,
+            str(group.n_points),
+            *shifts,
+            "-" if group.cook_distance is None else f"{group.cook_distance:.3g}",
+            heldout,
+        )
+    parts.append(table)
+    se_table = plain_table(
+        ("parameter", "value", "asymptotic SE", "jackknife SE"),
+        right=("value", "asymptotic SE", "jackknife SE"),
+    )
+    for name in names:
+        p = full["parameters"][name]
+        jack = result.jackknife_stderr.get(name)
+        se_table.add_row(name, f"{p['value']:.6g}", "-" if p.get("stderr") is None else f"{p['stderr']:.3g}",
+                         "-" if jack is None else f"{jack:.3g}")  # fmt: skip
+    parts.append(Text(""))
+    parts.append(se_table)
+    for entry in result.policies:
+        moved = ", ".join(
+            f"{n} {v['shift_se']:+.2f} SE"
+            for n, v in entry["parameters"].items()
+            if v["shift_se"] is not None
+        )
+        parts.append(Text(f"under policy {entry['policy']} ({entry['origin']}): {moved}"))
+    flags = result.flags()
+    parts.append(Text(""))
+    if flags:
+        parts.append(Text("conclusions that hinge on one group:", style="bold"))
+        parts += [Text(f"  {flag}") for flag in flags]
+    else:
+        parts.append(
+            Text(
+                f"no parameter moves more than {result.shift_threshold:g} SE when any one {result.by} is left out"
+            )
+        )
+    parts.append(
+        Text("A stable fit can still be wrong in every dataset at once: this check is not proof.")
+    )
+    return Group(*parts)

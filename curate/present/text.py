@@ -1,0 +1,449 @@
+"""Terminal text of the catalog's own results: lists, records, history, verify, intake, noise,
+grades and consistency (rich renderables). Runs (weights, exports, fits) are in ``run_text``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+
+from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
+from curate.present.tables import field_table
+from curate.present.tables import table as plain_table
+from curate.quality.actions import ConsistencyReport
+from curate.quality.grading import GradeSuggestion
+from curate.quality.noise import NoiseResult
+from curate.records import ConditionValue, DatasetVersion
+from curate.units import condition_text, short_unit
+
+__all__ = [
+    "added_notes",
+    "added_text",
+    "backup_text",
+    "consistency_text",
+    "graded_data",
+    "graded_text",
+    "history_text",
+    "intake_text",
+    "list_table",
+    "noise_table",
+    "petab_import_text",
+    "plan_text",
+    "restored_text",
+    "retired_text",
+    "revised_text",
+    "show_text",
+    "suggestion_text",
+    "verify_text",
+    "written_text",
+]
+
+
+def list_table(found: list[DatasetVersion]) -> Table | Text:
+    """Give the table printed by ``curate list``."""
+    if not found:
+        return Text("no datasets match")
+    table = plain_table(
+        ("id", "v", "observable", "unit", "lab", "conditions", "points", "grade", "notes"),
+        right=("v", "points"),
+    )
+    for version in found:
+        rec = version.record
+        notes = [w.code for w in rec.warnings]
+        if rec.retired:
+            notes.insert(0, "retired")
+        table.add_row(
+            version.id,
+            str(version.version),
+            rec.observable.id,
+            short_unit(rec.observable.unit) + (" (rel.)" if rec.observable.relative else ""),
+            rec.source.lab,
+            ", ".join(f"{k}={condition_text(v)}" for k, v in rec.conditions.items()),
+            str(rec.n_points),
+            version.grade or "-",
+            ", ".join(notes),
+        )
+    return table
+
+
+def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str, str]]:
+    rec = version.record
+    src = rec.source
+    lines = [
+        (
+            "version",
+            f"{version.version} of {total_versions},"
+            f" written {version.created_at:%Y-%m-%d %H:%M} UTC",
+        ),
+        (
+            "observable",
+            f"{rec.observable.id}" + (f" ({rec.observable.label})" if rec.observable.label else ""),
+        ),
+        (
+            "unit",
+            f"{short_unit(rec.observable.unit)} (given as '{rec.observable.unit_original}'"
+            f"{', UCUM ' + rec.observable.ucum if rec.observable.ucum else ''})"
+            + ("; relative units: fits need a scale factor" if rec.observable.relative else ""),
+        ),
+        ("time", f"stored in s (given in '{rec.time_unit_original}')"),
+        ("lab", src.lab),
+    ]
+    for name in ("contact", "method", "instrument", "acquired", "reference"):
+        value = getattr(src, name)
+        if value:
+            lines.append((name, str(value)))
+    if src.raw_file_name:
+        lines.append(
+            ("raw file", f"{src.raw_file_name} (sha256 {(src.raw_file_sha256 or '')[:16]}…)")
+        )
+    if rec.conditions:
+        lines.append(
+            (
+                "conditions",
+                ", ".join(f"{k} = {condition_text(v)}" for k, v in rec.conditions.items()),
+            )
+        )
+    if rec.uncertainty:
+        u = rec.uncertainty
+        extra = (f", level {u.level:g}" if u.level else "") + (f", n = {u.n}" if u.n else "")
+        lines.append(("uncertainty", f"{u.type.value} on {u.scale.value} scale{extra}"))
+    protocol = rec.protocol
+    if protocol.normalisation.kind != "none":
+        ref = protocol.normalisation.reference
+        lines.append(("normalised", protocol.normalisation.kind + (f" ({ref})" if ref else "")))
+    if protocol.calibration_group:
+        lines.append(("calibration", protocol.calibration_group))
+    for step in protocol.pretreatment:
+        duration = f" for {step.duration_s:g} s" if step.duration_s is not None else ""
+        lines.append(
+            (
+                "pretreatment",
+                f"{step.step}{duration}" + (f" ({step.details})" if step.details else ""),
+            )
+        )
+    if rec.noise:
+        lines.append(
+            (
+                "noise",
+                f"sd {rec.noise.sd:.4g} by {rec.noise.method} "
+                f"({rec.noise.made_at:%Y-%m-%d}, {rec.noise.made_by})",
+            )
+        )
+    if rec.trust:
+        lines.append(
+            (
+                "trust",
+                f"{rec.trust.grade}: {rec.trust.rationale} "
+                f"({rec.trust.assigned_by}, {rec.trust.assigned_at:%Y-%m-%d})",
+            )
+        )
+    else:
+        lines.append(("trust", "not graded"))
+    if rec.retired:
+        lines.append(("retired", rec.retired_reason or "yes"))
+    lines.append(
+        (
+            "points",
+            f"{rec.n_points}"
+            + (f" in {len(rec.replicate_labels)} replicates" if rec.replicate_labels else ""),
+        )
+    )
+    lines.append(("content", rec.content_hash))
+    return lines
+
+
+def show_text(
+    version: DatasetVersion, total_versions: int, points: pd.DataFrame, *, all_points: bool
+) -> Group:
+    """Give what ``curate show`` prints."""
+    parts: list[Any] = [Text(version.id, style="bold")]
+    fields = field_table()
+    for name, value in _field_lines(version, total_versions):
+        fields.add_row(name, value)
+    parts.append(fields)
+    for warning in version.record.warnings:
+        parts.append(Text(f"! {warning.code}: {warning.message}"))
+    limit = len(points) if all_points else 12
+    headers = [
+        f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
+        if column in ("time", "value", "sd")
+        else str(column)
+        for column in points.columns
+    ]
+    table = plain_table(headers, right=headers)
+    for row in points.head(limit).itertuples(index=False):
+        table.add_row(*[f"{x:.6g}" if isinstance(x, float) else str(x) for x in row])
+    parts.append(Text(""))
+    parts.append(table)
+    if len(points) > limit:
+        parts.append(Text(f"… {len(points) - limit} more points (--points shows all)"))
+    return Group(*parts)
+
+
+def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
+    """Give what ``curate history`` prints."""
+    parts: list[Any] = [Text(f"history of {dataset_id}", style="bold")]
+    for entry in entries:
+        head = f"#{entry.seq}  {entry.at[:19].replace('T', ' ')}  {entry.actor}  {entry.kind}"
+        if entry.version is not None:
+            head += f" -> version {entry.version}"
+        parts.append(Text(head))
+        if entry.reason:
+            parts.append(Text(f"    reason: {entry.reason}"))
+        for change in entry.changes:
+            parts.append(Text(f"    {change}"))
+    return Group(*parts)
+
+
+def verify_text(result: VerifyReport) -> Text:
+    """Give what ``curate verify`` prints."""
+    counts = (
+        f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
+        f"{result.events} events"
+    )
+    if result.ok:
+        return Text(f"intact: {counts} recomputed, every hash and link holds")
+    lines = [f"NOT intact ({counts} checked)"]
+    if result.sqlite != "ok":
+        lines.append(f"  sqlite integrity check: {result.sqlite}")
+    lines += [f"  {problem}" for problem in result.problems]
+    return Text("\n".join(lines))
+
+
+def intake_text(result: IntakeReport) -> Group:
+    """Give what ``curate intake`` prints."""
+    parts: list[Any] = [
+        Text(
+            f"{result.count('added')} logged, {result.count('duplicate')} already present, "
+            f"{result.count('quarantined')} quarantined, {result.count('refused')} refused "
+            f"(folder {result.folder})"
+        )
+    ]
+    for item in result.items:
+        if item.status == "added":
+            line = f"  + {item.file} -> {item.id}"
+            if item.warnings:
+                line += f"  ({len(item.warnings)} warning{'s' if len(item.warnings) > 1 else ''})"
+        elif item.status == "duplicate":
+            line = f"  = {item.file} -> {item.id} (identical data already logged)"
+        else:
+            line = f"  x {item.file}: {item.reason}"
+        parts.append(Text(line))
+        for warning in item.warnings:
+            parts.append(Text(f"      warning: {warning}"))
+    if result.count("quarantined"):
+        parts.append(Text(f"quarantined files and their reasons are in {result.quarantine}"))
+    return Group(*parts)
+
+
+def plan_text(plan: AddPlan) -> Group:
+    """Give what ``curate add --dry-run`` prints."""
+    info = plan.to_dict()
+    lines = [
+        Text(
+            f"dry run: would {'add nothing' if plan.duplicate_of else 'add'} "
+            f"{info['id']} (version {info['version']}), {info['n_points']} points from "
+            f"{info['origin']}"
+        )
+    ]
+    lines += [Text(f"warning: {w['message']}") for w in info["warnings"]]
+    return Group(*lines)
+
+
+def _num(value: float | None, spec: str = ".3g") -> str:
+    return "-" if value is None else format(value, spec)
+
+
+def noise_table(written: list[tuple[DatasetVersion, NoiseResult]]) -> Table:
+    """Give what ``curate noise`` prints."""
+    table = plain_table(
+        ("id", "v", "method", "sd", "unit", "dof", "why", "notes"), right=("v", "sd", "dof")
+    )
+    for version, result in written:
+        table.add_row(
+            version.id,
+            str(version.version),
+            result.method,
+            f"{result.sd:.4g}",
+            short_unit(version.record.observable.unit),
+            str(result.dof),
+            str(result.parameters.get("choice", "")),
+            "; ".join(result.warnings),
+        )
+    return table
+
+
+def suggestion_text(
+    dataset_id: str, suggestion: GradeSuggestion, graded: DatasetVersion | None
+) -> Group:
+    """Give what ``curate grade --checklist`` prints."""
+    lines = [
+        Text(
+            f"{dataset_id}: the checklist suggests {suggestion.grade} (penalty {suggestion.penalty})"
+        )
+    ]
+    lines += [Text(f"  {reason}") for reason in suggestion.reasons]
+    if graded is not None:
+        lines.append(
+            Text(f"recorded: {graded.id} graded {graded.grade} (version {graded.version})")
+        )
+    else:
+        lines.append(
+            Text("nothing graded yet: rerun with --accept, or grade it yourself with a reason")
+        )
+    return Group(*lines)
+
+
+def consistency_text(result: ConsistencyReport) -> Group:
+    """Give what ``curate consistency`` prints."""
+    parts: list[Any] = []
+    if not result.groups:
+        parts.append(
+            Text("no two datasets share an observable and matching conditions: nothing to compare")
+        )
+    for group in result.groups:
+        conditions = ", ".join(
+            f"{k}={condition_text(ConditionValue.model_validate(v))}"
+            for k, v in group.conditions.items()
+        )
+        parts.append(Text(f"{group.observable} at {conditions or 'no conditions'}", style="bold"))
+        table = plain_table(
+            ("dataset", "lab", "points", "chi2", "dof", "Birge R", "p", "note"),
+            right=("points", "chi2", "dof", "Birge R", "p"),
+        )
+        for row in group.datasets:
+            note = row.note
+            if row.p_value is not None and row.p_value < result.alpha:
+                note = (note + "; " if note else "") + "disagrees with the others"
+            if not row.in_consensus:
+                note = (note + "; " if note else "") + "left out of the consensus"
+            if row.scale is not None:
+                note = (note + "; " if note else "") + f"scale {row.scale:.3g}"
+            table.add_row(
+                row.id,
+                row.lab,
+                str(row.n_overlap),
+                _num(row.chi2, ".1f"),
+                _num(row.dof, "d") if row.dof is not None else "-",
+                _num(row.birge_ratio, ".2f"),
+                _num(row.p_value, ".2g"),
+                note,
+            )
+        parts.append(table)
+        if group.summary is not None:
+            s = group.summary
+            parts.append(
+                Text(
+                    f"  late levels: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
+                    f"(p = {s.q_p_value:.2g}); I² = {100 * s.i2:.0f}%; tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}; "
+                    f"PDG S = {s.pdg_scale:.2f}"
+                )
+            )
+        if group.lab_summary is not None:
+            parts.append(
+                Text(
+                    "  largest consistent set of labs: "
+                    + ", ".join(group.lab_summary.consistent_subset)
+                )
+            )
+        parts.append(Text(""))
+    if result.labs:
+        parts.append(Text("labs against the consensus", style="bold"))
+        table = plain_table(("lab", "Birge R", "dof", "grades", "flag"), right=("Birge R", "dof"))
+        for lab in result.labs:
+            table.add_row(
+                lab.lab, f"{lab.birge_ratio:.2f}", str(lab.dof), ",".join(lab.grades), lab.flag
+            )
+        parts.append(table)
+    if result.suggestions:
+        parts.append(Text(""))
+        parts.append(
+            Text(
+                "grade suggestions (recorded; `curate grade ID --accept-suggestion` takes one)",
+                style="bold",
+            )
+        )
+        for suggestion in result.suggestions:
+            parts.append(
+                Text(
+                    f"  {suggestion.dataset_id}: {suggestion.current or 'ungraded'} -> {suggestion.suggested}: {suggestion.reason}"
+                )
+            )
+    if result.single:
+        parts.append(
+            Text(
+                f"not compared (nothing else under matching conditions): {', '.join(result.single)}"
+            )
+        )
+    return Group(*parts)
+
+
+def added_text(result: AddResult) -> Text:
+    """Give what ``curate add`` prints on stdout: the dataset's id."""
+    return Text(result.id)
+
+
+def added_notes(result: AddResult) -> list[str]:
+    """Give what ``curate add`` prints on stderr: a duplicate notice and the warnings."""
+    notes = (
+        []
+        if result.added
+        else [f"already in the catalog as {result.duplicate_of} (identical data); nothing added"]
+    )
+    return notes + [f"warning: {warning}" for warning in result.warnings]
+
+
+def petab_import_text(results: list[AddResult]) -> Text:
+    """Give what ``curate import-petab`` prints."""
+    added = sum(r.added for r in results)
+    lines = [f"{added} dataset(s) logged, {len(results) - added} already present"]
+    lines += [
+        f"  {r.id}" + ("" if r.added else f"  (already present as {r.duplicate_of})")
+        for r in results
+    ]
+    return Text("\n".join(lines))
+
+
+def retired_text(version: DatasetVersion) -> Text:
+    """Give what ``curate retire`` prints."""
+    return Text(f"{version.id} retired (version {version.version})")
+
+
+def revised_text(version: DatasetVersion) -> Text:
+    """Give what ``curate revise`` prints."""
+    return Text(f"{version.id} version {version.version}")
+
+
+def graded_text(version: DatasetVersion) -> Text:
+    """Give what ``curate grade`` prints after recording a grade."""
+    return Text(f"{version.id} graded {version.grade} (version {version.version})")
+
+
+def graded_data(version: DatasetVersion) -> dict[str, Any]:
+    """Give what ``curate grade --json`` prints after recording a grade."""
+    trust = version.record.trust
+    return {"id": version.id, "version": version.version, "grade": version.grade,
+            "rationale": trust.rationale if trust else None}  # fmt: skip
+
+
+def restored_text(source: Path, target: Path, kept: Path | None) -> Text:
+    """Give what ``curate restore`` prints."""
+    return Text(
+        f"restored {source} as {target}"
+        + (f"; the previous catalog is kept as {kept}" if kept else "")
+    )
+
+
+def written_text(what: str, path: Path) -> Text:
+    """Give 'report: PATH' and the like, for a file a command wrote."""
+    return Text(f"{what}: {path}")
+
+
+def backup_text(destination: Path, result: VerifyReport) -> Text:
+    """Give what ``curate backup`` prints."""
+    return Text(f"backup written to {destination}; {verify_text(result)}")

@@ -1,0 +1,90 @@
+"""Selections: which dataset versions go into a weighted table, an export, a fold set or a fit.
+
+One pass over the ledger's current versions applies every filter (observable, lab, condition,
+grade, id, pinned version, retired) and the policy's exclusions.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+from curate.errors import InputError
+from curate.ingest import parse_condition
+from curate.ledger import Ledger
+from curate.ledger.catalog import condition_matches
+from curate.records import DatasetVersion, canonical_json
+from curate.weighting.policy import Policy
+
+__all__ = ["Selection", "select"]
+
+
+@dataclass(frozen=True)
+class Selection:
+    """Which datasets go into an export. Empty filters match everything."""
+
+    observables: tuple[str, ...] = ()
+    labs: tuple[str, ...] = ()
+    conditions: tuple[tuple[str, str], ...] = ()
+    grades: tuple[str, ...] = ()
+    ids: tuple[str, ...] = ()
+    versions: tuple[tuple[str, int], ...] = ()  # pinned (id, version) pairs
+    include_retired: bool = False
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the selection as plain data (recorded in every manifest)."""
+        return {
+            "observables": list(self.observables),
+            "labs": list(self.labs),
+            "conditions": dict(self.conditions),
+            "grades": list(self.grades),
+            "ids": list(self.ids),
+            "versions": {k: v for k, v in self.versions},
+            "include_retired": self.include_retired,
+        }
+
+
+def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[DatasetVersion]:
+    """Give the dataset versions a selection names: current, not retired, not excluded by default.
+
+    A pinned version (``versions``) is taken as pinned, retired or not; every other filter
+    applies to the version that is taken.
+    """
+    pinned = dict(selection.versions)
+    for ident in (*selection.ids, *pinned):
+        catalog.show(ident)  # NotFoundError names an unknown id
+    wanted = {
+        key: parse_condition(key, raw, origin="--condition").value
+        for key, raw in selection.conditions
+    }
+    chosen: list[DatasetVersion] = []
+    for version in catalog.list(include_retired=True):
+        if selection.ids and version.id not in selection.ids and version.id not in pinned:
+            continue
+        if version.id in pinned:
+            version = catalog.show(version.id, pinned[version.id])
+        elif version.record.retired and not selection.include_retired:
+            continue
+        record = version.record
+        if selection.observables and record.observable.id not in selection.observables:
+            continue
+        if selection.labs and record.source.lab not in selection.labs:
+            continue
+        if not all(condition_matches(record.conditions.get(k), v) for k, v in wanted.items()):
+            continue
+        grade = version.grade or policy.ungraded
+        if (
+            selection.grades
+            and (version.grade or "none") not in selection.grades
+            and grade not in selection.grades
+        ):
+            continue
+        if grade in policy.exclude:
+            continue
+        chosen.append(version)
+    if not chosen:
+        raise InputError(
+            "the selection matches no dataset that the policy lets into a fit: "
+            + canonical_json(selection.to_dict())
+        )
+    return chosen

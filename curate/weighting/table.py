@@ -1,0 +1,164 @@
+"""The weighted long table: one row per point of a selection, with sd, sigma and weight.
+
+Columns (their meanings are written down in every export's README): dataset_id, version,
+observable, unit, unit_ucum, relative, lab, grade, grade_used, time (s), value (canonical
+unit), sd (measured or estimated noise), sd_source, inflation, balance, sigma (after trust
+inflation), weight = 1/sigma^2, replicate, calibration_group, then one column per condition.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+from curate.ledger import Ledger
+from curate.quality import noise
+from curate.quality.measured import measured_sd
+from curate.records import DatasetVersion, SeriesArrays
+from curate.weighting.policy import Policy
+from curate.weighting.selection import Selection, select
+from curate.weighting.weights import WeightSummary, apply_policy
+
+__all__ = [
+    "STANDARD_COLUMNS",
+    "WeightedTable",
+    "condition_column",
+    "points_table",
+    "weighted_table",
+]
+
+STANDARD_COLUMNS = (
+    "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade",
+    "grade_used", "time", "value", "sd", "sd_source", "inflation", "balance", "sigma", "weight",
+    "replicate", "calibration_group",
+)  # fmt: skip
+
+
+def condition_column(key: str) -> str:
+    """Give the weighted table's column of a condition key (prefixed where it meets a standard one)."""
+    return f"condition_{key}" if key in STANDARD_COLUMNS else key
+
+
+def _sd_of(version: DatasetVersion, arrays: SeriesArrays, policy: Policy) -> tuple[np.ndarray, str]:
+    """Give each point's measured SD and where it came from, the policy deciding when unknown."""
+    record = version.record
+    try:
+        sd = measured_sd(version, arrays)
+        if record.uncertainty is not None and arrays.sd is not None:
+            return sd, "reported"
+        return sd, f"noise estimate ({record.noise.method if record.noise else '?'})"
+    except InputError:
+        if policy.unknown_noise == "refuse":
+            raise InputError(
+                f"dataset {version.id}: no uncertainty is known and the policy refuses to guess; run `curate noise {version.id}`"
+            ) from None
+        if policy.unknown_noise == "default":
+            return policy.default_relative_sd * np.abs(
+                arrays.value
+            ), f"policy default ({policy.default_relative_sd:g} of |y|)"
+        result = noise.choose_and_estimate(
+            arrays.time, arrays.value, replicate=arrays.replicate, origin=f"dataset {version.id}"
+        )
+        return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
+
+
+def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy) -> pd.DataFrame:
+    """Give one row per point of the versions (before weighting), built column-wise in one go."""
+    per_point: dict[str, list[np.ndarray]] = {"time": [], "value": [], "sd": [], "replicate": []}
+    per_dataset: dict[str, list[Any]] = {name: [] for name in (
+        "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade", "sd_source", "calibration_group")}  # fmt: skip
+    conditions: dict[str, list[Any]] = {}
+    lengths = []
+    stored = catalog.series_many([v.record.content_hash for v in versions])
+    for position, version in enumerate(versions):
+        record = version.record
+        arrays = stored[record.content_hash]
+        sd, source = _sd_of(version, arrays, policy)
+        labels = np.array(record.replicate_labels, dtype=object)
+        per_point["time"].append(arrays.time)
+        per_point["value"].append(arrays.value)
+        per_point["sd"].append(np.asarray(sd, dtype=float))
+        per_point["replicate"].append(labels[arrays.replicate] if (arrays.replicate is not None and len(labels))
+                                      else np.full(len(arrays), None, dtype=object))  # fmt: skip
+        for name, value in (("dataset_id", version.id), ("version", version.version), ("observable", record.observable.id),
+                            ("unit", record.observable.unit), ("unit_ucum", record.observable.ucum or ""),
+                            ("relative", record.observable.relative), ("lab", record.source.lab), ("grade", version.grade),
+                            ("sd_source", source), ("calibration_group", record.protocol.calibration_group or version.id)):  # fmt: skip
+            per_dataset[name].append(value)
+        for key, condition in record.conditions.items():
+            conditions.setdefault(condition_column(key), [None] * position).append(condition.value)
+        for values in conditions.values():
+            if len(values) == position:
+                values.append(None)
+        lengths.append(len(arrays))
+    counts = np.asarray(lengths)
+    columns: dict[str, Any] = {}
+    for name in (
+        "dataset_id",
+        "version",
+        "observable",
+        "unit",
+        "unit_ucum",
+        "relative",
+        "lab",
+        "grade",
+    ):
+        columns[name] = np.repeat(
+            np.asarray(per_dataset[name], dtype=object if name != "version" else np.int64), counts
+        )
+    columns["relative"] = columns["relative"].astype(bool)
+    for name in ("time", "value", "sd"):
+        columns[name] = np.concatenate(per_point[name])
+    columns["sd_source"] = np.repeat(np.asarray(per_dataset["sd_source"], dtype=object), counts)
+    columns["replicate"] = np.concatenate(per_point["replicate"])
+    columns["calibration_group"] = np.repeat(
+        np.asarray(per_dataset["calibration_group"], dtype=object), counts
+    )
+    for column, values in conditions.items():
+        kinds = {type(v) for v in values if v is not None}
+        if kinds == {float}:
+            data = np.array([np.nan if v is None else v for v in values], dtype=float)
+        elif len(kinds) > 1:  # a key numeric in one dataset, text in another: keep it as text
+            data = np.array([None if v is None else str(v) for v in values], dtype=object)
+        else:
+            data = np.array(values, dtype=object)
+        columns[column] = np.repeat(data, counts)
+    for name in (
+        "dataset_id",
+        "observable",
+        "unit",
+        "unit_ucum",
+        "lab",
+        "sd_source",
+        "calibration_group",
+    ):
+        # repeated labels as categories: a fraction of the memory, dictionary-encoded in Parquet
+        columns[name] = pd.Categorical(
+            np.repeat(np.asarray(per_dataset[name], dtype=object), counts).astype(str)
+        )
+    return pd.DataFrame(columns)
+
+
+@dataclass(frozen=True)
+class WeightedTable:
+    """The weighted long table of a selection, its weight summary and the versions it holds."""
+
+    table: pd.DataFrame
+    summary: WeightSummary
+    versions: list[DatasetVersion]
+    policy: Policy
+    selection: Selection
+
+
+def weighted_table(catalog: Ledger, policy: Policy, selection: Selection) -> WeightedTable:
+    """Give the weighted long table (one row per point), the weight summary and the versions used."""
+    versions = select(catalog, selection, policy)
+    points = points_table(catalog, versions, policy)
+    weighted, summary = apply_policy(points, policy)
+    condition_columns = [c for c in weighted.columns if c not in STANDARD_COLUMNS]
+    ordered = [c for c in STANDARD_COLUMNS if c in weighted.columns] + sorted(condition_columns)
+    return WeightedTable(weighted[ordered], summary, versions, policy, selection)

@@ -1,0 +1,253 @@
+"""Weighting policies and least-squares weights. Pure computation: frames in, frames out.
+
+Weight of point i of dataset d (see the default policy file for the words):
+
+    w_i = b_d / (sd_i^2 * v_grade(d)),    sigma_i = sd_i * sqrt(v_grade(d) / b_d) = w_i^-1/2
+
+with sd_i the measured SD after the noise floors sd_i >= max(absolute, relative * |y_i|),
+v_grade the policy's variance inflation of the dataset's trust grade and b_d the balancing
+factor. Without balancing (b_d = 1) the weighted sum of squares is a Gaussian negative
+log-likelihood (up to constants) whose per-dataset variances the grades inflate; any
+balancing or lab cap makes it a weighted criterion that is no longer a likelihood.
+
+Kish's effective sample size n_eff = (sum w)^2 / sum w^2 (Kish 1965, Survey Sampling).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from curate.errors import InputError
+from curate.weighting.policy import Policy
+
+__all__ = [
+    "DatasetWeight",
+    "WeightSummary",
+    "apply_policy",
+    "kish_n_eff",
+]
+
+
+def kish_n_eff(weights: np.ndarray) -> float:
+    """Give Kish's effective sample size (sum w)^2 / sum w^2."""
+    w = np.asarray(weights, dtype=float)
+    total = float(np.sum(w))
+    return total * total / float(np.sum(w * w)) if total > 0 else 0.0
+
+
+@dataclass(frozen=True)
+class DatasetWeight:
+    """One dataset's part of the total weight of its observable."""
+
+    id: str
+    observable: str
+    lab: str
+    grade: str
+    n_points: int
+    inflation: float
+    balance: float
+    share: float  # of its observable's total weight (relative units: scale-free, w * median|y|^2)
+    n_eff: float
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the row as plain data."""
+        return dict(self.__dict__)
+
+
+@dataclass
+class WeightSummary:
+    """Shares, effective sample sizes and warnings of one weighting, per observable."""
+
+    policy: Policy
+    datasets: list[DatasetWeight]
+    lab_shares: dict[str, dict[str, float]]  # observable -> lab -> share
+    n_points: int
+    n_eff: dict[str, float]  # observable -> Kish n_eff
+    weight_span: dict[str, float]  # observable -> max/min weight
+    likelihood: bool
+    warnings: list[str] = field(default_factory=list)
+
+    def to_dict(self) -> dict[str, Any]:
+        """Give the summary as plain data."""
+        return {
+            "policy": {
+                "name": self.policy.name,
+                "sha256": self.policy.sha256,
+                "origin": self.policy.origin,
+            },
+            "datasets": [d.to_dict() for d in self.datasets],
+            "lab_shares": self.lab_shares,
+            "n_points": self.n_points,
+            "n_eff": self.n_eff,
+            "weight_span": self.weight_span,
+            "likelihood": self.likelihood,
+            "warnings": self.warnings,
+        }
+
+
+def apply_policy(points: pd.DataFrame, policy: Policy) -> tuple[pd.DataFrame, WeightSummary]:
+    """Give the points with sd (floored), inflation, balance, sigma and weight columns, and a summary.
+
+    ``points`` needs columns dataset_id, observable, lab, grade (None for ungraded), value, sd. Rows of
+    excluded grades must already be gone (the selection removes them).
+    """
+    frame = points.copy()
+    if frame.empty:
+        raise InputError("nothing to weight: the selection holds no points")
+    grades = frame["grade"].where(frame["grade"].notna(), policy.ungraded).astype(str)
+    excluded = grades.isin(policy.exclude)
+    if excluded.any():
+        raise InputError(
+            f"dataset {frame.loc[excluded, 'dataset_id'].iloc[0]}: its grade is excluded by the policy"
+        )
+    frame["grade_used"] = grades
+    frame["inflation"] = grades.map(policy.inflation).astype(float)
+    sd = frame["sd"].to_numpy(dtype=float)
+    if not np.all(np.isfinite(sd)) or np.any(sd < 0):
+        bad = frame.loc[~np.isfinite(sd) | (sd < 0), "dataset_id"].iloc[0]
+        raise InputError(f"dataset {bad}: a point has no usable sd")
+    floored = np.maximum(sd, policy.absolute_floor)
+    floored = np.maximum(
+        floored, policy.relative_floor * np.abs(frame["value"].to_numpy(dtype=float))
+    )
+    if np.any(floored <= 0):
+        bad = frame.loc[floored <= 0, "dataset_id"].iloc[0]
+        raise InputError(
+            f"dataset {bad}: an sd of 0 with no noise floor would give an infinite weight; "
+            "set floors.absolute or floors.relative in the policy"
+        )
+    frame["sd"] = floored
+    base = 1.0 / (floored**2 * frame["inflation"].to_numpy())
+    codes, uniques = pd.factorize(frame["dataset_id"], sort=True)  # hashing: no sort of every row
+    inverse = np.asarray(codes)
+    unique_ids = np.asarray(uniques, dtype=object)
+    totals = np.bincount(inverse, weights=base)
+    sizes = np.bincount(inverse).astype(float)
+    labs = frame.groupby("dataset_id")["lab"].first().reindex(unique_ids).to_numpy()
+    observable_of = (
+        frame.groupby("dataset_id")["observable"].first().reindex(unique_ids).astype(str).to_numpy()
+    )
+    factors = np.ones(len(unique_ids))
+    # balancing and caps act within each observable: weights of different units do not add up
+    for observable in np.unique(observable_of):
+        part = observable_of == observable
+        if policy.balance == "equal":
+            factors[part] = totals[part].mean() / totals[part]
+        elif policy.balance == "sqrt":
+            target = np.sqrt(sizes[part])
+            factors[part] = target / totals[part] * (totals[part].sum() / target.sum())
+        if policy.lab_cap > 0 and len(np.unique(labs[part])) > 1:
+            factors[part] = (
+                _cap_labs(totals[part] * factors[part], labs[part], policy.lab_cap) / totals[part]
+            )
+    frame["balance"] = factors[inverse]
+    weight = base * frame["balance"].to_numpy()
+    frame["weight"] = weight
+    frame["sigma"] = 1.0 / np.sqrt(weight)
+    summary = _summarise(frame, policy, unique_ids, inverse, labs)
+    return frame, summary
+
+
+def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
+    """Give per-dataset totals rescaled so no lab carries more than ``cap`` of the whole."""
+    totals = totals.astype(float).copy()
+    lab_names = np.unique(labs)
+    if cap * len(lab_names) < 1.0:
+        raise InputError(
+            f"balance.lab_cap {cap}: {len(lab_names)} labs cannot each stay below it (need cap >= {1 / len(lab_names):.3g})"
+        )
+    for _ in range(100):
+        whole = totals.sum()
+        shares = {lab: totals[labs == lab].sum() / whole for lab in lab_names}
+        over = [lab for lab, share in shares.items() if share > cap + 1e-12]
+        if not over:
+            return totals
+        under_total = sum(totals[labs == lab].sum() for lab in lab_names if lab not in over)
+        # capped labs take exactly cap each; the rest keep their proportions
+        capped_share = cap * len(over)
+        for lab in over:
+            totals[labs == lab] *= (cap * under_total / (1 - capped_share)) / totals[
+                labs == lab
+            ].sum()
+    return totals
+
+
+def _summarise(
+    frame: pd.DataFrame, policy: Policy, ids: np.ndarray, inverse: np.ndarray, labs: np.ndarray
+) -> WeightSummary:
+    weight = frame["weight"].to_numpy()
+    if "relative" in frame.columns and frame["relative"].any():
+        # a relative-unit dataset carries its own scale factor, so its raw weights depend on
+        # its arbitrary units: compare w * m^2 (m = the dataset's median |y|), i.e. 1/CV^2
+        magnitude = (
+            frame["value"].abs().groupby(frame["dataset_id"]).transform("median").replace(0.0, 1.0)
+        )
+        relative = frame["relative"].to_numpy(dtype=bool)
+        weight = np.where(relative, weight * magnitude.to_numpy() ** 2, weight)
+    per_dataset = np.bincount(inverse, weights=weight)
+    per_dataset_sq = np.bincount(inverse, weights=weight**2)
+    first = frame.groupby("dataset_id").first().reindex(ids)
+    sizes = np.bincount(inverse)
+    observable_of = first["observable"].astype(str).to_numpy()
+    totals = {
+        obs: float(per_dataset[observable_of == obs].sum()) for obs in np.unique(observable_of)
+    }
+    lab_of = first["lab"].astype(str).to_numpy()
+    grade_of = first["grade_used"].astype(str).to_numpy()
+    inflation_of = first["inflation"].to_numpy(dtype=float)
+    balance_of = first["balance"].to_numpy(dtype=float)
+    rows = [
+        DatasetWeight(
+            id=str(ident),
+            observable=str(observable_of[k]),
+            lab=str(lab_of[k]),
+            grade=str(grade_of[k]),
+            n_points=int(sizes[k]),
+            inflation=float(inflation_of[k]),
+            balance=float(balance_of[k]),
+            share=float(per_dataset[k] / totals[observable_of[k]]),
+            n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
+        )
+        for k, ident in enumerate(ids)
+    ]
+    lab_shares: dict[str, dict[str, float]] = {}
+    for row in rows:
+        shares = lab_shares.setdefault(row.observable, {})
+        shares[row.lab] = shares.get(row.lab, 0.0) + row.share
+    observables = frame["observable"].astype(str).to_numpy()
+    n_eff = {obs: kish_n_eff(weight[observables == obs]) for obs in totals}
+    span = {
+        obs: float(weight[observables == obs].max() / weight[observables == obs].min())
+        for obs in totals
+    }
+    warnings = []
+    for row in rows:
+        if row.share > 0.5 and sum(r.observable == row.observable for r in rows) > 1:
+            warnings.append(
+                f"dataset {row.id} carries {100 * row.share:.0f}% of the {row.observable} weight: "
+                "the fit of that observable is mostly this one dataset"
+            )
+    for obs, value in span.items():
+        if value > 1e6:
+            warnings.append(
+                f"{obs} weights span a factor of {value:.2g} (more than 1e6): check the smallest sds and the noise floors"
+            )
+    if not policy.is_likelihood:
+        warnings.append(
+            "balancing or a lab cap is on: the weighted sum of squares is no longer a likelihood, "
+            "so chi2 and standard errors from it lose their usual meaning"
+        )
+    return WeightSummary(
+        policy=policy,
+        datasets=rows,
+        lab_shares=lab_shares,
+        n_points=len(frame),
+        n_eff=n_eff,
+        weight_span=span,
+        likelihood=policy.is_likelihood,
+        warnings=warnings,
+    )

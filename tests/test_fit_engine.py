@@ -1,0 +1,211 @@
+"""The fitting engine against the NIST StRD certified values, and its bad inputs."""
+
+from __future__ import annotations
+
+import nist
+import numpy as np
+import pandas as pd
+import pytest
+from conftest import write
+
+from curate import fit as fitting
+from curate.errors import InputError
+
+
+def nist_fit(name, start):
+    points, function, spec, content, names = nist.problem(name, start)
+    result = fitting.fit(
+        fitting.FitProblem(points, function, spec),
+        fitting.FitOptions(tolerance=1e-15, scale_covariance=True, max_evaluations=20000),
+    )
+    value_digits = min(
+        nist.digits(result.parameters[n]["value"], c)
+        for n, c in zip(names, content["values"], strict=True)
+    )
+    sd_digits = min(
+        nist.digits(result.parameters[n]["stderr"] or 0.0, c)
+        for n, c in zip(names, content["sds"], strict=True)
+    )
+    return result, value_digits, sd_digits, content
+
+
+@pytest.mark.parametrize(
+    "name", [n for n, d in nist.DIFFICULTY.items() if d in ("lower", "average")]
+)
+def test_nist_lower_and_average_from_start_2(name):
+    # NIST StRD nonlinear regression: require >= 6 agreeing digits in every certified value
+    # (and >= 4 in every certified standard deviation, computed with the residual variance)
+    result, value_digits, sd_digits, content = nist_fit(name, "start2")
+    assert value_digits >= 6, (name, value_digits)
+    assert sd_digits >= 4, (name, sd_digits)
+    assert nist.digits(result.chi2, content["rss"]) >= 6
+    assert result.dof == len(content["y"]) - len(content["values"])
+
+
+@pytest.mark.parametrize("name", [n for n, d in nist.DIFFICULTY.items() if d == "higher"])
+def test_nist_higher_difficulty_from_start_2(name):
+    # stated in DEVELOPERS.md: the higher-difficulty problems from start 2 reach >= 7 digits here;
+    # we require 6
+    _, value_digits, _, _ = nist_fit(name, "start2")
+    assert value_digits >= 6, (name, value_digits)
+
+
+def test_multistart_rescues_a_hard_start():
+    # MGH09 from start 1 is a known failure for local optimisers; Latin-hypercube starts inside
+    # generous bounds find the certified minimum
+    points, function, _spec, content, names = nist.problem("MGH09", "start1")
+    bounded = fitting.spec_from_dict({"parameters": {n: {"start": s, "lower": -1.0, "upper": 1.0} for n, s in
+                                                     zip(names, [0.25, 0.39, 0.415, 0.39], strict=True)}})  # fmt: skip
+    result = fitting.fit(
+        fitting.FitProblem(points, function, bounded),
+        fitting.FitOptions(starts=16, seed=1, tolerance=1e-15),
+    )
+    assert len(result.starts) == 16
+    assert (
+        min(
+            nist.digits(result.parameters[n]["value"], c)
+            for n, c in zip(names, content["values"], strict=True)
+        )
+        >= 4
+    )
+
+
+def linear_points(n=30, seed=0, relative=False):
+    rng = np.random.default_rng(seed)
+    t = np.linspace(0, 10, n)
+    y = 2.0 + 0.5 * t + rng.normal(0, 0.1, n)
+    return pd.DataFrame(
+        {
+            "time": t,
+            "value": y,
+            "weight": 100.0,
+            "relative": relative,
+            "dataset_id": "d",
+            "calibration_group": "d",
+        }
+    )
+
+
+def line(params, points):
+    return params["a"] + params["b"] * points["time"].to_numpy()
+
+
+def test_weighted_linear_fit_matches_closed_form():
+    points = linear_points()
+    spec = fitting.spec_from_dict({"parameters": {"a": {"start": 0.0}, "b": {"start": 0.0}}})
+    result = fitting.fit(fitting.FitProblem(points, line, spec))
+    X = np.column_stack([np.ones(len(points)), points["time"]])
+    W = np.diag(points["weight"])
+    beta = np.linalg.solve(X.T @ W @ X, X.T @ W @ points["value"])
+    covariance = np.linalg.inv(X.T @ W @ X)
+    assert result.parameters["a"]["value"] == pytest.approx(beta[0], rel=1e-9)
+    assert result.parameters["b"]["value"] == pytest.approx(beta[1], rel=1e-9)
+    assert result.parameters["b"]["stderr"] == pytest.approx(np.sqrt(covariance[1, 1]), rel=1e-6)
+    assert result.dof == 28 and result.converged
+
+
+def test_closed_form_scale_factor_of_relative_data():
+    rng = np.random.default_rng(3)
+    t = np.linspace(0.1, 5, 40)
+    points = pd.DataFrame({"time": t, "value": 7.0 * np.exp(-0.8 * t) * (1 + rng.normal(0, 0.01, 40)), "weight": 1.0,
+                           "relative": True, "dataset_id": "glint_1", "calibration_group": "run"})  # fmt: skip
+
+    def decay(params, frame):
+        return np.exp(-params["k"] * frame["time"].to_numpy())
+
+    spec = fitting.spec_from_dict({"parameters": {"k": {"start": 0.3, "lower": 0.0, "log": True}}})
+    result = fitting.fit(fitting.FitProblem(points, decay, spec))
+    assert result.parameters["k"]["value"] == pytest.approx(0.8, rel=0.02)
+    assert result.scale_factors == {"glint_1": pytest.approx(7.0, rel=0.02)}
+    assert result.dof == 40 - 1 - 1  # the scale factor costs a degree of freedom
+
+
+def test_log_parameter_stderr_maps_to_natural_scale():
+    points = linear_points()
+    linear = fitting.fit(
+        fitting.FitProblem(
+            points,
+            line,
+            fitting.spec_from_dict({"parameters": {"a": {"start": 1.0}, "b": {"start": 1.0}}}),
+        )
+    )
+    logged = fitting.fit(
+        fitting.FitProblem(
+            points,
+            line,
+            fitting.spec_from_dict(
+                {
+                    "parameters": {
+                        "a": {"start": 1.0, "lower": 0, "log": True},
+                        "b": {"start": 1.0, "lower": 0, "log": True},
+                    }
+                }
+            ),
+        )
+    )
+    for name in ("a", "b"):
+        assert logged.parameters[name]["value"] == pytest.approx(
+            linear.parameters[name]["value"], rel=1e-7
+        )
+        assert logged.parameters[name]["stderr"] == pytest.approx(
+            linear.parameters[name]["stderr"], rel=1e-4
+        )
+
+
+def test_global_search_then_polish():
+    points, function, _spec, content, _names = nist.problem("BoxBOD", "start1")
+    bounded = fitting.spec_from_dict({"parameters": {"b1": {"start": 1.0, "lower": 1.0, "upper": 1000.0},
+                                                     "b2": {"start": 1.0, "lower": 0.01, "upper": 5.0}}})  # fmt: skip
+    result = fitting.fit(
+        fitting.FitProblem(points, function, bounded),
+        fitting.FitOptions(global_search=True, tolerance=1e-15),
+    )
+    assert result.starts[0]["from"] == "global search"
+    assert nist.digits(result.parameters["b1"]["value"], content["values"][0]) >= 5
+
+
+def test_spec_errors(tmp_path):
+    cases = {
+        "[parameters.k]\nlower = 0\n": "field 'parameters.k.start': required",
+        "[parameters.k]\nstart = 5\nlower = 0\nupper = 1\n": "start 5 is outside its bounds",
+        "[parameters.k]\nstart = 1\nlower = 2\nupper = 1\n": "lower 2 is not below upper 1",
+        "[parameters.k]\nstart = -1\nlog = true\n": "a log-scale parameter needs start > 0",
+        "[parameters.k]\nstart = 1\nfixed = true\n": "every parameter is fixed",
+        "[parameters.k]\nstart = 1\nstep = 2\n": "field 'parameters.k.step': unknown",
+        '[parameters.k]\nstart = "one"\n': "expected a number",
+    }
+    for number, (body, message) in enumerate(cases.items()):
+        path = write(tmp_path / f"s{number}.toml", body)
+        with pytest.raises(InputError, match=message):
+            fitting.load_spec(path)
+    spec = fitting.load_spec(
+        write(tmp_path / "ok.toml", '[parameters.k]\nstart = 1\nupper = "inf"\n')
+    )
+    assert spec.parameters[0].upper == float("inf") and len(spec.sha256) == 64
+
+
+def test_model_errors(tmp_path):
+    with pytest.raises(InputError, match="no such file"):
+        fitting.load_model(str(tmp_path / "missing.py") + ":f")
+    model_file = write(
+        tmp_path / "m.py",
+        """
+        import numpy as np
+        def short(params, points):
+            return np.ones(len(points) - 1)
+        def nan(params, points):
+            return np.full(len(points), np.nan)
+        def boom(params, points):
+            raise RuntimeError("bad dose")
+    """,
+    )
+    with pytest.raises(InputError, match="defines no function 'absent'"):
+        fitting.load_model(f"{model_file}:absent")
+    with pytest.raises(InputError, match="expected module:function"):
+        fitting.load_model("no_colon")
+    spec = fitting.spec_from_dict({"parameters": {"a": {"start": 1.0}}})
+    for name, message in (("short", "returned 29 values for 30 rows"), ("nan", "returned nan at row 1"),
+                          ("boom", "the model raised RuntimeError: bad dose")):  # fmt: skip
+        model = fitting.load_model(f"{model_file}:{name}")
+        with pytest.raises(InputError, match=message):
+            fitting.fit(fitting.FitProblem(linear_points(), model, spec))

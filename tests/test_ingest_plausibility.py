@@ -1,0 +1,143 @@
+"""Plausibility checks at intake: each planted slip is flagged, ordinary data are not."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from curate.ingest.plausibility import Neighbour, check_against_others, check_series
+from curate.records import UncertaintyType
+
+
+def codes(warnings):
+    return [w.code for w in warnings]
+
+
+def smooth(n=12):
+    t = np.linspace(0, 60, n)
+    return 20 * (1 - np.exp(-t / 15)) + 1.0
+
+
+def test_clean_series_has_no_warning():
+    rng = np.random.default_rng(1)
+    value = smooth() + rng.normal(0, 0.3, 12)
+    sd = np.abs(rng.normal(0.5, 0.1, 12))
+    assert check_series(value, sd, uncertainty=UncertaintyType.SD, nonnegative=True) == []
+
+
+def test_block_off_by_a_thousand_is_a_unit_slip():
+    value = smooth()
+    value[7:10] *= 1000
+    warnings = check_series(value, None, uncertainty=None, nonnegative=True)
+    assert codes(warnings) == ["unit_slip"]
+    assert "point(s) 8, 9, 10 are about 10^3 times" in warnings[0].message
+
+
+def test_zero_and_round_uncertainty():
+    value = smooth(6)
+    warnings = check_series(
+        value,
+        np.array([0.5, 0.0, 0.5, 0.5, 0.5, 0.5]),
+        uncertainty=UncertaintyType.SD,
+        nonnegative=True,
+    )
+    assert codes(warnings) == ["zero_sd", "round_uncertainty"]
+    assert "points 2" in warnings[0].message
+
+
+def test_percent_entered_as_absolute():
+    value = np.array([0.5, 1.0, 2.0, 3.0, 4.0, 4.5])
+    warnings = check_series(
+        value, np.full(6, 10.0), uncertainty=UncertaintyType.SD, nonnegative=True
+    )
+    assert "percent_as_absolute" in codes(warnings)
+
+
+def test_negative_concentrations_suggest_log_transform():
+    value = np.log10(smooth()) - 1.0  # mostly negative, small
+    warnings = check_series(value, None, uncertainty=None, nonnegative=True)
+    assert codes(warnings) == ["negative_values"]
+    assert "log-transformed" in warnings[0].message
+
+
+def test_baseline_noise_below_zero_is_not_flagged():
+    value = smooth()
+    value[0] = -0.2  # noise around a zero baseline
+    assert check_series(value, None, uncertainty=None, nonnegative=True) == []
+
+
+def neighbour(name, magnitude, content="h", conditions="{}"):
+    return Neighbour(
+        dataset_id=name,
+        observable="velarin",
+        unit="nanomolar",
+        conditions=conditions,
+        lab="L",
+        content_hash=content,
+        magnitude=magnitude,
+    )
+
+
+def test_whole_series_a_thousand_times_the_others():
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions="{}",
+        content_hash="new",
+        magnitude=15000.0,
+        others=[neighbour("a", 14.0), neighbour("b", 16.0)],
+    )
+    assert codes(warnings) == ["magnitude_vs_others"]
+
+
+def test_series_that_looks_log_transformed_against_others():
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions="{}",
+        content_hash="new",
+        magnitude=2.0,
+        others=[neighbour("a", 100.0), neighbour("b", 100.0)],
+    )
+    assert codes(warnings) == ["looks_log_transformed"]
+
+
+def test_identical_content_under_other_conditions():
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=False,
+        conditions='{"dose":1}',
+        content_hash="same",
+        magnitude=15.0,
+        others=[neighbour("a", 15.0, content="same", conditions='{"dose":2}')],
+    )
+    assert codes(warnings) == ["identical_to_other"]
+
+
+def test_relative_units_skip_magnitude_comparison():
+    warnings = check_against_others(
+        observable="velarin",
+        unit="nanomolar",
+        relative=True,
+        conditions="{}",
+        content_hash="new",
+        magnitude=15000.0,
+        others=[neighbour("a", 14.0)],
+    )
+    assert warnings == []
+
+
+def test_extreme_magnitudes_give_no_numeric_warnings():
+    # found by the round-trip property test: tiny against huge magnitudes must not overflow
+    for mine, theirs in ((5e-324, 1e300), (1e300, 5e-324), (1e-300, 1e-300)):
+        check_against_others(
+            observable="velarin",
+            unit="nanomolar",
+            relative=False,
+            conditions="{}",
+            content_hash="new",
+            magnitude=mine,
+            others=[neighbour("a", theirs)],
+        )

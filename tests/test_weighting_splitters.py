@@ -1,0 +1,93 @@
+"""Holdout splitters: the same partitions as scikit-learn's group splitters, and invariants."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from curate.errors import InputError
+from curate.weighting import splitters as folds
+
+sklearn_model_selection = pytest.importorskip("sklearn.model_selection")
+
+
+def partitions(splits):
+    return [tuple(sorted(map(int, test))) for _, test in splits]
+
+
+def group_labels(seed=0):
+    rng = np.random.default_rng(seed)
+    sizes = rng.integers(1, 30, 11)
+    return np.repeat([f"g{k}" for k in range(11)], sizes)
+
+
+def test_leave_one_group_out_matches_scikit_learn():
+    groups = group_labels()
+    X = np.zeros((len(groups), 1))
+    ours = list(folds.LeaveOneGroupOut().split(X, groups=groups))
+    theirs = list(sklearn_model_selection.LeaveOneGroupOut().split(X, groups=groups))
+    assert partitions(ours) == partitions(theirs)
+    assert folds.LeaveOneGroupOut().get_n_splits(groups=groups) == 11
+
+
+@pytest.mark.parametrize("k", [2, 3, 5])
+def test_group_kfold_without_seed_matches_scikit_learn(k):
+    groups = group_labels(seed=k)
+    X = np.zeros((len(groups), 1))
+    ours = list(folds.GroupKFold(n_splits=k).split(X, groups=groups))
+    theirs = list(sklearn_model_selection.GroupKFold(n_splits=k).split(X, groups=groups))
+    assert sorted(partitions(ours)) == sorted(partitions(theirs))
+
+
+@pytest.mark.parametrize(
+    "splitter", [folds.LeaveOneGroupOut(), folds.GroupKFold(3), folds.GroupKFold(4, seed=7)]
+)
+def test_invariants(splitter):
+    groups = group_labels(seed=3)
+    everything = set(range(len(groups)))
+    seen = []
+    for train, test in splitter.split(groups, groups=groups):
+        assert set(train).isdisjoint(test) and set(train) | set(test) == everything
+        assert set(groups[test]).isdisjoint(groups[train])  # groups are never split
+        seen += list(test)
+    assert sorted(seen) == sorted(everything)  # every row is held out exactly once
+
+
+def test_seeded_kfold_is_deterministic_and_seed_dependent():
+    groups = group_labels(seed=5)
+    one = partitions(folds.GroupKFold(3, seed=11).split(groups, groups=groups))
+    two = partitions(folds.GroupKFold(3, seed=11).split(groups, groups=groups))
+    other = partitions(folds.GroupKFold(3, seed=12).split(groups, groups=groups))
+    assert one == two and one != other
+
+
+def test_relabelling_groups_changes_nothing():
+    groups = group_labels(seed=8)
+    mapping = {g: f"renamed_{g}" for g in np.unique(groups)}
+    renamed = np.array([mapping[g] for g in groups])
+    a = sorted(partitions(folds.LeaveOneGroupOut().split(groups, groups=groups)))
+    b = sorted(partitions(folds.LeaveOneGroupOut().split(renamed, groups=renamed)))
+    assert a == b
+
+
+def test_errors_state_the_rule():
+    groups = np.array(["a", "a", "b"])
+    with pytest.raises(
+        InputError, match="Cannot have n_splits=5 greater than the number of groups: 2."
+    ):
+        list(folds.GroupKFold(5).split(groups, groups=groups))
+    with pytest.raises(InputError, match="at least 2 groups"):
+        list(folds.LeaveOneGroupOut().split(groups[:2], groups=groups[:2]))
+    with pytest.raises(InputError, match="needs groups"):
+        list(folds.LeaveOneGroupOut().split(groups))
+
+
+def test_training_gaps():
+    train = pd.DataFrame({"observable": ["v", "v"], "temperature": [37.0, 37.0]})
+    test = pd.DataFrame({"observable": ["v", "g"], "temperature": [25.0, 37.0]})
+    gaps = [g.text() for g in folds.training_gaps(train, test, condition_columns=["temperature"])]
+    assert gaps == [
+        "observable g is measured only in the held-out data",
+        "condition temperature = 25.0 occurs only in the held-out data",
+    ]
