@@ -8,6 +8,7 @@ from __future__ import annotations
 import json
 import os
 import sys
+from collections.abc import Callable
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -16,7 +17,7 @@ import typer
 from rich.console import Console
 
 from curate.api import Catalog, open_catalog
-from curate.cli.options import parse_conditions, selection_options
+from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions, selection_options
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
@@ -61,6 +62,14 @@ def _catalog() -> Catalog:
 
 def _emit_json(value: Any) -> None:
     sys.stdout.write(to_json(value) + "\n")
+
+
+def _show(data: Any, render: Callable[[], Any], as_json: bool) -> None:
+    """Print the JSON of ``data``, or the rich text ``render()`` gives."""
+    if as_json:
+        _emit_json(data)
+    else:
+        out.print(render())
 
 
 @app.callback()
@@ -145,7 +154,7 @@ def add(
     dataset_id: Annotated[
         str | None, typer.Option("--id", help="dataset id (default: generated)")
     ] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
     dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
 ) -> None:
     """Log one data file with its metadata; print the new dataset's id."""
@@ -211,16 +220,13 @@ def intake(
     quarantine: Annotated[
         Path | None, typer.Option(help="where bad files go (default FOLDER/quarantine)")
     ] = None,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "logging", enabled=show_bar) as update:
         result = catalog.intake(folder, quarantine=quarantine, progress=update)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(text.intake_text(result))
+    _show(result.to_dict(), lambda: text.intake_text(result), as_json)
     if result.count("quarantined") or result.count("refused"):
         raise typer.Exit(1)
 
@@ -233,7 +239,7 @@ def import_petab(
     ] = None,
     time_unit: Annotated[str, typer.Option(help="the model's time unit")] = "s",
     unit: Annotated[str, typer.Option(help="unit of the measurements")] = "1",
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Log a PEtab problem's measurement table, one dataset per observable and condition."""
     with _catalog() as catalog:
@@ -251,7 +257,7 @@ def list_(
     condition: Annotated[list[str] | None, typer.Option(help="KEY=VALUE, repeatable")] = None,
     grade: Annotated[str | None, typer.Option(help="only this grade (or 'none')")] = None,
     retired: Annotated[bool, typer.Option("--retired", help="include retired datasets")] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """List the newest version of every dataset (filters combine)."""
     with _catalog() as catalog:
@@ -262,18 +268,15 @@ def list_(
             grade=grade,
             include_retired=retired,
         )
-    if as_json:
-        _emit_json([v.summary() for v in found])
-    else:
-        out.print(text.list_table(found))
+    _show([v.summary() for v in found], lambda: text.list_table(found), as_json)
 
 
 @app.command()
 def show(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    dataset_id: DatasetId,
     version: Annotated[int | None, typer.Option(help="an earlier version")] = None,
     points: Annotated[bool, typer.Option("--points", help="print every point")] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Show one dataset: metadata, warnings, noise, trust and its points."""
     with _catalog() as catalog:
@@ -297,21 +300,18 @@ def show(
 
 @app.command()
 def history(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    dataset_id: DatasetId,
+    as_json: JsonFlag = False,
 ) -> None:
     """Show every change of one dataset: when, who, what and why."""
     with _catalog() as catalog:
         entries = catalog.history(dataset_id)
-    if as_json:
-        _emit_json([e.to_dict() for e in entries])
-    else:
-        out.print(text.history_text(dataset_id, entries))
+    _show([e.to_dict() for e in entries], lambda: text.history_text(dataset_id, entries), as_json)
 
 
 @app.command()
 def retire(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    dataset_id: DatasetId,
     reason: Annotated[str, typer.Option(help="why it leaves later selections")],
 ) -> None:
     """Hide a dataset from later selections; it stays in the catalog."""
@@ -322,7 +322,7 @@ def retire(
 
 @app.command()
 def revise(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    dataset_id: DatasetId,
     reason: Annotated[str, typer.Option(help="why the metadata change")],
     label: Annotated[str | None, typer.Option(help="new observable label")] = None,
     condition: Annotated[
@@ -351,14 +351,11 @@ def revise(
 
 
 @app.command()
-def verify(as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False) -> None:
+def verify(as_json: JsonFlag = False) -> None:
     """Recompute every hash and the event chain; exit 1 naming the first problem if any."""
     with _catalog() as catalog:
         result = catalog.verify()
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(text.verify_text(result))
+    _show(result.to_dict(), lambda: text.verify_text(result), as_json)
     if not result.ok:
         raise typer.Exit(1)
 
@@ -371,7 +368,7 @@ def noise(
         str,
         typer.Option(help=", ".join(NOISE_METHODS)),
     ] = "auto",
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Estimate each dataset's noise and store it (with its method) as a new version."""
     if (dataset_id is None) == (not all_):
@@ -386,7 +383,7 @@ def noise(
 
 @app.command()
 def grade(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
+    dataset_id: DatasetId,
     new_grade: Annotated[
         str | None, typer.Argument(metavar="[GRADE]", help="A, B, C, D, or X (kept, never fitted)")
     ] = None,
@@ -401,7 +398,7 @@ def grade(
     accept_suggestion: Annotated[
         bool, typer.Option(help="record the newest grade suggested by `curate consistency`")
     ] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Grade a dataset's trust: directly with a reason, from a checklist, or from a suggestion."""
     with _catalog() as catalog:
@@ -453,10 +450,7 @@ def _ask_checklist(checklist_file: Path | None) -> dict[str, bool | None]:
 
 
 def _print_graded(version: DatasetVersion, as_json: bool) -> None:
-    if as_json:
-        _emit_json(text.graded_data(version))
-    else:
-        out.print(text.graded_text(version))
+    _show(text.graded_data(version), lambda: text.graded_text(version), as_json)
 
 
 @app.command()
@@ -472,7 +466,7 @@ def consistency(
         ),
     ] = None,
     level: Annotated[float, typer.Option(help="significance level of the tests")] = 0.05,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Test each dataset against the others measuring the same thing; suggest grades."""
     at_seconds = None
@@ -485,10 +479,7 @@ def consistency(
         result = catalog.consistency(
             observable=observable, tolerance=tolerance, at=at_seconds, alpha=level
         )
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(text.consistency_text(result))
+    _show(result.to_dict(), lambda: text.consistency_text(result), as_json)
 
 
 @app.command()
@@ -497,15 +488,12 @@ def weights(
     *,
     selection: Selection,
     policy: Policy,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Show each dataset's share of the total weight, its effective sample size and warnings."""
     with _catalog() as catalog:
         summary = catalog.weights(policy=policy, selection=selection)
-    if as_json:
-        _emit_json(summary.to_dict())
-    else:
-        out.print(run_text.weights_text(summary))
+    _show(summary.to_dict(), lambda: run_text.weights_text(summary), as_json)
 
 
 @app.command()
@@ -516,18 +504,13 @@ def export(
     *,
     selection: Selection,
     policy: Policy,
-    force: Annotated[
-        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
-    ] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    force: ForceFlag = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Write the weighted selection for a fitter, with a README and a traceable manifest."""
     with _catalog() as catalog:
         result = catalog.export(fmt, outdir, policy=policy, selection=selection, force=force)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(run_text.export_text(result))
+    _show(result.to_dict(), lambda: run_text.export_text(result), as_json)
 
 
 @app.command()
@@ -540,48 +523,37 @@ def folds(
     *,
     selection: Selection,
     policy: Policy,
-    force: Annotated[
-        bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
-    ] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    force: ForceFlag = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Write holdout folds: one folder per fold with train and test tables and what training lacks."""
     with _catalog() as catalog:
         result = catalog.folds(by, outdir, policy=policy, selection=selection, force=force)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(run_text.folds_text(result))
+    _show(result.to_dict(), lambda: run_text.folds_text(result), as_json)
 
 
 @app.command()
 def trace(
     outdir: Annotated[Path, typer.Argument(help="an export folder (or its manifest.json)")],
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Tell whether the catalog still holds exactly the data an export used (exit 1 if not)."""
     with _catalog() as catalog:
         result = catalog.trace(outdir)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(run_text.trace_text(result))
+    _show(result.to_dict(), lambda: run_text.trace_text(result), as_json)
     if not result.intact:
         raise typer.Exit(1)
 
 
 @app.command()
 def impact(
-    dataset_id: Annotated[str, typer.Argument(metavar="ID", help="dataset id")],
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    dataset_id: DatasetId,
+    as_json: JsonFlag = False,
 ) -> None:
     """List every export that used a version of this dataset that has since changed."""
     with _catalog() as catalog:
         found = catalog.impact(dataset_id)
-    if as_json:
-        _emit_json([f.to_dict() for f in found])
-    else:
-        out.print(run_text.impact_text(dataset_id, found))
+    _show([f.to_dict() for f in found], lambda: run_text.impact_text(dataset_id, found), as_json)
 
 
 @app.command()
@@ -607,7 +579,7 @@ def fit(
             help="scale the covariance by the reduced chi2 (when sigmas are only relative)"
         ),
     ] = False,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Fit a model to the weighted selection: values, standard errors, scale factors, chi2."""
     if starts < 1:
@@ -617,10 +589,7 @@ def fit(
     )
     with _catalog() as catalog:
         result = catalog.fit(model, params, policy=policy, selection=selection, options=options)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(run_text.fit_text(result))
+    _show(result.to_dict(), lambda: run_text.fit_text(result), as_json)
 
 
 @app.command()
@@ -658,7 +627,7 @@ def sensitivity(
     selection: Selection,
     policy: Policy,
     starts: Annotated[int, typer.Option(help="starts of the full fit")] = 1,
-    as_json: Annotated[bool, typer.Option("--json", help="print JSON")] = False,
+    as_json: JsonFlag = False,
 ) -> None:
     """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
     count = workers if workers > 0 else (os.cpu_count() or 1)
@@ -672,12 +641,9 @@ def sensitivity(
         )  # fmt: skip
     if report_file is not None:
         write_sensitivity_report(result, report_file)
-    if as_json:
-        _emit_json(result.to_dict())
-    else:
-        out.print(run_text.sensitivity_text(result))
-        if report_file is not None:
-            out.print(text.written_text("report", report_file))
+    _show(result.to_dict(), lambda: run_text.sensitivity_text(result), as_json)
+    if report_file is not None and not as_json:
+        out.print(text.written_text("report", report_file))
 
 
 @app.command("report")

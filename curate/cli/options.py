@@ -20,7 +20,20 @@ import typer
 from curate.errors import InputError
 from curate.weighting import Policy, Selection, load_policy
 
-__all__ = ["parse_conditions", "parse_pins", "selection_options"]
+__all__ = [
+    "DatasetId",
+    "ForceFlag",
+    "JsonFlag",
+    "parse_conditions",
+    "parse_pins",
+    "selection_options",
+]
+
+JsonFlag = Annotated[bool, typer.Option("--json", help="print JSON")]
+ForceFlag = Annotated[
+    bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
+]
+DatasetId = Annotated[str, typer.Argument(metavar="ID", help="dataset id")]
 
 _KEY = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 

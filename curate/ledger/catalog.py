@@ -174,9 +174,10 @@ class _ActionContext:
         self.ids: set[str] = set()
         self.next_number: dict[str, int] = {}
         for row in store.latest_versions():
-            self._remember(version_from_row(row))
+            self.remember(version_from_row(row))
 
-    def _remember(self, version: DatasetVersion) -> None:
+    def remember(self, version: DatasetVersion) -> None:
+        """Add a version written during this action to the indexes."""
         rec = version.record
         conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
         magnitude = float(rec.annotations.get("typical_magnitude", 0.0))
@@ -409,7 +410,7 @@ class Ledger:
             plan.dataset_id, 1, plan.record, kind="add", payload=payload, arrays=plan.draft.arrays
         )
         if context is not None:
-            context._remember(version)
+            context.remember(version)
         return AddResult(
             id=plan.dataset_id,
             version=1,
