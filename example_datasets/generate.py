@@ -9,7 +9,7 @@ lumatrope doses and temperatures. The ground truth is model.TRUTH. Planted on pu
 - marrowby_velarin_37C_10uM is quietly wrong: its readout saturates at a detector ceiling,
   and it claims a small uncertainty;
 - the Marrowby Group documents poorly (no method, instrument, date or contact);
-- quillfen_velarin_37C_10uM is sampled unevenly; Quillfen reports SEM with n;
+- quillfen_velarin_37C_10uM is sampled unevenly; Quillfen reports means of 4 with their SEM;
 - Glint from Harrow Point comes as an XLSX workbook in wide form (one column per replicate).
 
 The RNG is seeded: running this again gives the same numbers.
@@ -134,13 +134,16 @@ def _series(spec: Spec, rng: np.random.Generator) -> dict[str, np.ndarray]:
     times = np.repeat(np.asarray(spec.times, dtype=float), spec.replicates)
     replicate = np.tile(np.arange(1, spec.replicates + 1), len(spec.times))
     mean = velarin(TRUTH, spec.dose_uM * 1000.0, spec.temperature_C, times)
+    # a lab reporting SEM with n = 4 reports means of 4 measurements: each value scatters by
+    # the SEM, sd / sqrt(4), while sd stays the single-measurement noise
+    averaged = 2.0 if spec.report_sd == "sem" else 1.0
     if spec.observable == "glint":
         signal = GLINT_SCALE[spec.lab] * mean  # no offset: a pure scale
         sd = _glint_sd(signal)
-        value = signal + rng.normal(0.0, sd)
+        value = signal + rng.normal(0.0, sd / averaged)
     else:
         sd = _velarin_sd(mean)
-        value = mean + rng.normal(0.0, sd)
+        value = mean + rng.normal(0.0, sd / averaged)
         if spec.saturate_at is not None:
             value = np.minimum(value, spec.saturate_at + rng.normal(0.0, 0.15, len(value)))
             value = np.maximum(value, 0.0)

@@ -108,9 +108,12 @@ def test_reported_conversions():
     np.testing.assert_allclose(
         noise.reported_to_sd(np.array([1.959964]), kind="ci", level=0.95), [1.0], rtol=1e-6
     )
-    # with n = 10, the t quantile t_{9, 0.975} = 2.262157 (statistical tables)
+    # with n = 10 the interval is of a mean: half-width = t_{9, 0.975} SEM, t_{9, 0.975} = 2.262157
+    # (statistical tables), so SEM = 1 and the single-measurement SD = SEM * sqrt(10)
     np.testing.assert_allclose(
-        noise.reported_to_sd(np.array([2.262157]), kind="ci", level=0.95, n=10), [1.0], rtol=1e-6
+        noise.reported_to_sd(np.array([2.262157]), kind="ci", level=0.95, n=10),
+        [np.sqrt(10.0)],
+        rtol=1e-6,
     )
     np.testing.assert_allclose(
         noise.reported_to_sd(np.array([10.0]), kind="percent", value=np.array([-40.0])), [4.0]

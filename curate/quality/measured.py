@@ -1,7 +1,15 @@
 """The measured uncertainty of a dataset version, as an SD per point on the linear scale.
 
-Pure: a version and its arrays in, an array out. Used wherever a measured SD is needed
-(consistency, weights, the report's bands), never trust-inflated.
+Pure: a version and its arrays in, an array out. Two quantities, kept apart:
+
+- the noise of one measurement (:func:`reported_sd`): what noise estimates speak of; an SEM
+  with n becomes SEM * sqrt(n), a confidence interval its half-width over t (or z);
+- the uncertainty of each reported value (:func:`measured_sd`): what weights, consistency and
+  the report's bands use. A value that is the mean of n measurements (an n column, or n in the
+  sidecar) is uncertain by the single-measurement SD / sqrt(n): its SEM. So a lab's mean ± SEM
+  enters a fit with sigma = SEM, and mean ± SD with n with sigma = SD / sqrt(n).
+
+Never trust-inflated: the policy's grades act later, on the weights.
 """
 
 from __future__ import annotations
@@ -28,15 +36,19 @@ def reported_sd(version: DatasetVersion, arrays: SeriesArrays) -> np.ndarray | N
 
 
 def measured_sd(version: DatasetVersion, arrays: SeriesArrays) -> np.ndarray:
-    """Give the measured SD of every point on the linear scale (never trust-inflated).
+    """Give the SD of every reported value on the linear scale (never trust-inflated).
 
-    The reported uncertainty where the lab gave one (an SD on a log scale becomes
+    The reported uncertainty where the lab gave one, as the uncertainty of the value (a mean of
+    n: the single-measurement SD / sqrt(n)); an SD on a log scale becomes
     |y| * sd_ln, or |y| * ln(10) * sd_log10), else the stored noise estimate; InputError if
     neither exists.
     """
     record = version.record
     sd = reported_sd(version, arrays)
     if sd is not None and record.uncertainty is not None:
+        n = arrays.n if arrays.n is not None else record.uncertainty.n
+        if n is not None:  # each value is a mean of n: its uncertainty is the SEM
+            sd = sd / np.sqrt(np.asarray(n, dtype=float))
         if record.uncertainty.scale is UncertaintyScale.LN:
             sd = np.abs(arrays.value) * sd
         elif record.uncertainty.scale is UncertaintyScale.LOG10:

@@ -218,8 +218,9 @@ def reported_to_sd(
 ) -> np.ndarray:
     """Give reported uncertainties as SDs of single measurements.
 
-    sd: as is; sem: sem * sqrt(n); ci: half-width / t_{n-1}((1+level)/2) with n, else
-    / z((1+level)/2); percent: pct / 100 * |value|; estimated, assumed: as is.
+    sd: as is; sem: sem * sqrt(n); ci of a mean of n: half-width / t_{n-1}((1+level)/2) is its
+    SEM, so the SD is that * sqrt(n); ci without n: half-width / z((1+level)/2); percent:
+    pct / 100 * |value|; estimated, assumed: as is.
     """
     u = np.asarray(uncertainty, dtype=float)
     if kind in ("sd", "estimated", "assumed"):
@@ -234,7 +235,8 @@ def reported_to_sd(
         q = (1.0 + level) / 2.0
         if n is None:
             return np.asarray(u / stats.norm.ppf(q), dtype=float)
-        return np.asarray(u / stats.t.ppf(q, np.asarray(n, dtype=float) - 1.0), dtype=float)
+        count = np.asarray(n, dtype=float)
+        return np.asarray(u / stats.t.ppf(q, count - 1.0) * np.sqrt(count), dtype=float)
     if kind == "percent":
         if value is None:
             raise InputError("a percentage uncertainty converts to an SD only with the values")
