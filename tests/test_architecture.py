@@ -32,7 +32,16 @@ def test_selection_options_are_one_group_in_every_command_that_selects():
 
     from curate.cli import app
 
-    wanted = {"--policy", "--observable", "--lab", "--condition", "--grade", "--id", "--version", "--retired"}
+    wanted = {
+        "--policy",
+        "--observable",
+        "--lab",
+        "--condition",
+        "--grade",
+        "--id",
+        "--version",
+        "--retired",
+    }
     group = typer.main.get_command(app)
     for name in ("weights", "export", "folds", "fit", "sensitivity"):
         command = group.commands[name]  # type: ignore[attr-defined]

@@ -7,8 +7,9 @@ import os
 import subprocess
 import sys
 
+import numpy as np
 import pytest
-from conftest import LONG_CSV, ROOT, write
+from conftest import DATA, EXAMPLES, LONG_CSV, ROOT, write
 
 from curate.cli import app
 
@@ -162,3 +163,91 @@ def test_public_api_is_exactly_this():
         "load_policy",
         "open_catalog",
     }
+
+
+def strict_json(text):
+    # RFC 8259 section 6: NaN and Infinity are not JSON; json.loads accepts them unless told
+    def refuse(name):
+        raise ValueError(f"not JSON: {name}")
+
+    return json.loads(text, parse_constant=refuse)
+
+
+def json_commands():
+    import typer.main
+
+    commands = typer.main.get_command(app).commands
+    return sorted(
+        name
+        for name, command in commands.items()
+        if any("--json" in getattr(p, "opts", ()) for p in command.params)
+    )
+
+
+def test_every_json_output_is_strict_json(cli, tmp_path):
+    # a demo-like catalog: the example data, noise, checklist grades, consistency, a fit, and a
+    # dataset whose error model sits on a bound (b = 0: its standard error is not a number)
+    import shutil
+
+    import curate
+
+    inbox = tmp_path / "inbox"
+    shutil.copytree(EXAMPLES, inbox)
+    checklists = ROOT / "example_datasets" / "checklists"
+    model = ["--model", f"{ROOT / 'example_datasets' / 'model.py'}:predict"]
+    params = ["--params", ROOT / "example_datasets" / "params.toml"]
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        catalog.intake(inbox)
+        catalog.estimate_noise()
+        by_file = {v.record.source.raw_file_name.split(".")[0]: v.id for v in catalog.list()}
+        for path in sorted(checklists.glob("*.toml")):
+            catalog.grade_from_checklist(by_file[path.stem], answers_file=path, accept=True)
+        time = np.repeat(np.arange(6.0), 3)
+        draft = catalog.draft(time, 10 * (time + 1) + np.tile([-1.0, 0.0, 1.0], 6),
+                              observable="additive", unit="nM", time_unit="min", lab="Lab P",
+                              replicate=np.tile([1, 2, 3], 6))  # fmt: skip
+        additive = catalog.add_drafts([draft])[0].id
+    first = sorted(by_file.values())[0]
+    data = write(tmp_path / "new.csv", LONG_CSV)
+    runs = {
+        "add": ["add", data, "--observable", "extra", *ADD[2:]],  # not in the fitted observables
+        "intake": ["intake", inbox],
+        "noise": ["noise", additive, "--method", "error-model"],
+        "grade": ["grade", first, "B", "--reason", "looked at the raw files"],
+        "consistency": ["consistency"],
+        "list": ["list"],
+        "show": ["show", additive, "--points"],
+        "history": ["history", additive],
+        "verify": ["verify"],
+        "weights": ["weights"],
+        "export": ["export", "table", tmp_path / "table"],
+        "folds": ["folds", tmp_path / "folds", "--by", "lab"],
+        "trace": ["trace", tmp_path / "table"],
+        "fit": ["fit", *model, *params, "--observable", "velarin_conc", "--observable", "glint"],
+        "sensitivity": [
+            "sensitivity",
+            *model,
+            *params,
+            "--observable",
+            "velarin_conc",
+            "--observable",
+            "glint",
+            "--by",
+            "lab",
+            "--method",
+            "one-step",
+        ],
+        "impact": ["impact", first],
+        "import-petab": [
+            "import-petab",
+            DATA / "petab" / "Fujita_SciSignal2010" / "Fujita_SciSignal2010.yaml",
+        ],
+    }
+    assert sorted(runs) == json_commands(), "every command with --json needs a run here"
+    for name, args in runs.items():
+        run = cli(*args, "--json")
+        assert run.code in (0, 1), f"{name}: {run.err}"
+        strict_json(run.out)
+    # the error model's b sits on its bound: its standard error is null, not NaN
+    noise = strict_json(cli(*runs["noise"], "--json").out)
+    assert noise[0]["parameters"]["b"] == 0.0 and noise[0]["parameters"]["b_stderr"] is None
