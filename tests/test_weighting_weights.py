@@ -195,3 +195,19 @@ def test_default_policy():
 def test_bad_policies(tmp_path, body, message):
     with pytest.raises(InputError, match=message.replace("(", r"\(").replace(")", r"\)")):
         policy_file(tmp_path, body)
+
+
+def test_two_labs_capped_at_half_split_evenly_and_no_dataset_is_called_dominant(tmp_path):
+    # README: the warning names a dataset carrying "more than half" of its observable's weight.
+    # A cap of 0.5 over two labs gives 0.5 and 0.5000000000000001 in floating point: not more.
+    points = frame([("a", "v", "L1", "A", 1.0, 0.1)] * 7 + [("b", "v", "L2", "B", 1.0, 0.1)] * 3)
+    _, summary = weights.apply_policy(
+        points, policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.5\n")
+    )
+    assert summary.lab_shares["v"]["L1"] == pytest.approx(0.5, abs=1e-12)
+    assert summary.lab_shares["v"]["L2"] == pytest.approx(0.5, abs=1e-12)
+    assert not any("mostly this one dataset" in w for w in summary.warnings)
+    # just above half still warns
+    points = frame([("a", "v", "L1", "A", 1.0, 0.1)] * 51 + [("b", "v", "L2", "A", 1.0, 0.1)] * 49)
+    _, summary = weights.apply_policy(points, policy_file(tmp_path, BASE, "q.toml"))
+    assert any("dataset a carries 51% of the v weight" in w for w in summary.warnings)

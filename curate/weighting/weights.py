@@ -31,6 +31,9 @@ __all__ = [
     "kish_n_eff",
 ]
 
+# shares are sums of floating-point weights: differences below this are rounding, not weight
+_SHARE_TOLERANCE = 1e-9
+
 
 def kish_n_eff(weights: np.ndarray) -> float:
     """Give Kish's effective sample size (sum w)^2 / sum w^2."""
@@ -226,7 +229,11 @@ def _summarise(
     }
     warnings = []
     for row in rows:
-        if row.share > 0.5 and sum(r.observable == row.observable for r in rows) > 1:
+        # "more than half": an even split computes as 0.5000000000000001, which is not more
+        if (
+            row.share > 0.5 + _SHARE_TOLERANCE
+            and sum(r.observable == row.observable for r in rows) > 1
+        ):
             warnings.append(
                 f"dataset {row.id} carries {100 * row.share:.0f}% of the {row.observable} weight: "
                 "the fit of that observable is mostly this one dataset"
