@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 
@@ -62,6 +63,27 @@ def test_show_text_mentions_units_and_trust(cli, tmp_path):
     assert run.code == 0
     assert "given as 'nM'" in run.out and "dose = 10 uM" in run.out
     assert "B: calibrated" in run.out
+
+
+@pytest.mark.parametrize(
+    ("options", "header"),
+    [
+        (["--sd-type", "sd"], "sd (nM)"),
+        (["--sd-type", "sem"], "sem (nM)"),
+        (["--sd-type", "ci", "--ci-level", "0.95"], "ci95 (nM)"),
+        (["--sd-type", "ci", "--ci-level", "0.9"], "ci90 (nM)"),
+        (["--sd-type", "percent"], "sd (% of value)"),
+        (["--sd-type", "estimated"], "estimated sd (nM)"),
+        (["--sd-type", "sd", "--sd-scale", "ln"], "sd (ln scale)"),
+        (["--sd-type", "sem", "--sd-scale", "log10"], "sem (log10 scale)"),
+    ],
+)
+def test_show_labels_the_uncertainty_column_by_its_type(cli, tmp_path, options, header):
+    data = write(tmp_path / "a.csv", "time,value,sd,n\n0,1.0,0.1,3\n10,2.0,0.2,3\n")
+    assert cli("add", data, *ADD, *options).code == 0
+    lines = cli("show", "harrow_velarin_conc_01").out.splitlines()
+    columns = next(line for line in lines if line.strip().startswith("time (s)"))
+    assert re.split(r"\s{2,}", columns.strip()) == ["time (s)", "value (nM)", header, "n"]
 
 
 def test_history_and_retire_cli(cli, tmp_path):

@@ -157,6 +157,24 @@ def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str
     return lines
 
 
+def _uncertainty_header(version: DatasetVersion) -> str:
+    """Give the header of the stored uncertainty column: what it holds, in which unit."""
+    u = version.record.uncertainty
+    unit = short_unit(version.record.observable.unit)
+    if u is None:
+        return f"sd ({unit})"
+    kind = u.type.value
+    if kind == "ci":
+        kind = f"ci{100 * (u.level or 0):g}"  # the half-width of the interval
+    elif kind in ("estimated", "assumed"):
+        kind = f"{kind} sd"
+    elif kind == "percent":
+        return "sd (% of value)"
+    if u.scale.value != "linear":
+        return f"{kind} ({u.scale.value} scale)"
+    return f"{kind} ({unit})"
+
+
 def show_text(
     version: DatasetVersion, total_versions: int, points: pd.DataFrame, *, all_points: bool
 ) -> Group:
@@ -169,12 +187,9 @@ def show_text(
     for warning in version.record.warnings:
         parts.append(Text(f"! {warning.code}: {warning.message}"))
     limit = len(points) if all_points else 12
-    headers = [
-        f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
-        if column in ("time", "value", "sd")
-        else str(column)
-        for column in points.columns
-    ]
+    unit = short_unit(version.record.observable.unit)
+    labels = {"time": "time (s)", "value": f"value ({unit})", "sd": _uncertainty_header(version)}
+    headers = [labels.get(str(column), str(column)) for column in points.columns]
     table = plain_table(headers, right=headers)
     for row in points.head(limit).itertuples(index=False):
         table.add_row(*[f"{x:.6g}" if isinstance(x, float) else str(x) for x in row])
