@@ -165,7 +165,13 @@ def test_cli_noise_grade_consistency(cli, tmp_path):
     )  # ungraded counts as B
     text = cli("consistency", "--observable", "velarin_conc")
     assert "left out of the consensus" in text.out and "Birge R" in text.out
-    assert cli("consistency", "--at", "60 min").code == 0
+    at = cli("consistency", "--at", "30 min", "--observable", "velarin_conc")
+    assert at.code == 0 and "levels at 30 min: weighted mean" in at.out
+    assert "late levels" not in at.out
+    assert json.loads(cli("consistency", "--at", "1.5 h", "--json").out)["summary_of"] == (
+        "levels at 90 min"
+    )
+    assert "late levels: weighted mean" in text.out
     bad = cli("consistency", "--at", "60 um")
     assert bad.code == 2 and "expected a time with its unit" in bad.err
     assert cli("noise").code == 2

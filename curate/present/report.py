@@ -239,7 +239,7 @@ def _consistency(catalog: Ledger) -> str:
         )
         if group.summary is not None:
             s = group.summary
-            parts.append(f'<p class="note">Late levels: Q = {s.q:.1f} on {s.dof} dof (p = {s.q_p_value:.2g}), I² = {100 * s.i2:.0f}%, '
+            parts.append(f'<p class="note">{html.escape(result.summary_of.capitalize())}: Q = {s.q:.1f} on {s.dof} dof (p = {s.q_p_value:.2g}), I² = {100 * s.i2:.0f}%, '
                          f"tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}, PDG S = {s.pdg_scale:.2f}.</p>")  # fmt: skip
     if result.labs:
         parts.append("<h3>Labs against the consensus</h3>")

@@ -354,7 +354,7 @@ def consistency_text(result: ConsistencyReport) -> Group:
             s = group.summary
             parts.append(
                 Text(
-                    f"  late levels: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
+                    f"  {result.summary_of}: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
                     f"(p = {s.q_p_value:.2g}); I² = {100 * s.i2:.0f}%; tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}; "
                     f"PDG S = {s.pdg_scale:.2f}"
                 )

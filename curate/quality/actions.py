@@ -236,17 +236,33 @@ class ConsistencyReport:
     single: list[str] = field(default_factory=list)  # datasets with nothing to compare to
     tolerance: float = 0.01
     alpha: float = 0.05
+    at: float | None = None  # the time (s) of the summary values; None: the late level
+
+    @property
+    def summary_of(self) -> str:
+        """Give what the per-group summary compares: "late levels" or "levels at 30 min"."""
+        return "late levels" if self.at is None else f"levels at {_time_text(self.at)}"
 
     def to_dict(self) -> dict[str, Any]:
         """Give the report as plain data."""
         return {
             "tolerance": self.tolerance,
             "alpha": self.alpha,
+            "at": self.at,
+            "summary_of": self.summary_of,
             "groups": [g.to_dict() for g in self.groups],
             "labs": [lab.to_dict() for lab in self.labs],
             "suggestions": [s.to_dict() for s in self.suggestions],
             "unmatched": self.single,
         }
+
+
+def _time_text(seconds: float) -> str:
+    """Give a time in the largest of h, min, s that shows it as a whole number (else in s)."""
+    for unit, size in (("h", 3600.0), ("min", 60.0)):
+        if seconds and seconds % size == 0:
+            return f"{seconds / size:g} {unit}"
+    return f"{seconds:g} s"
 
 
 def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
@@ -285,7 +301,7 @@ def check_consistency(
         (v.id, v.record.observable.id, {k: c.value for k, c in v.record.conditions.items()})
         for v in versions
     ]
-    report = ConsistencyReport(tolerance=tolerance, alpha=alpha)
+    report = ConsistencyReport(tolerance=tolerance, alpha=alpha, at=at)
     lab_chi2: dict[str, list[float]] = {}
     for members in consistency.match_groups(items, tolerance=tolerance):
         if len(members) < 2:
