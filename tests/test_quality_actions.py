@@ -45,6 +45,31 @@ def test_noise_auto_choices_are_recorded(logged):
     assert logged.verify().ok
 
 
+def test_noise_rerun_with_the_same_result_writes_nothing(logged, cli):
+    harrow = by_file(logged, "harrow_velarin_37C_10uM")
+    first = logged.estimate_noise([harrow])[0]
+    assert first.changed and first.version.version == 2
+    events = len(logged.events())
+    again = logged.estimate_noise([harrow])[0]
+    # same method, sd, dof, parameters and scale: no new version, no event
+    assert not again.changed and again.version.version == 2 and len(logged.events()) == events
+    assert again.version.record.noise.made_at == first.version.record.noise.made_at
+    other = logged.estimate_noise([harrow], method="mad")[0]
+    assert other.changed and other.version.version == 3
+    # an error model whose b sits on its bound has a NaN standard error (stored as null): a
+    # rerun is still recognised as the same estimate
+    time = np.repeat(np.arange(6.0), 3)
+    draft = logged.draft(time, 10 * (time + 1) + np.tile([-1.0, 0.0, 1.0], 6), observable="additive",
+                         unit="nM", time_unit="min", lab="Lab P", replicate=np.tile([1, 2, 3], 6))  # fmt: skip
+    additive = logged.add_drafts([draft])[0].id
+    assert logged.estimate_noise([additive], method="error-model")[0].changed
+    assert not logged.estimate_noise([additive], method="error-model")[0].changed
+    run = cli("noise", additive, "--method", "error-model", catalog_path=logged.path)
+    assert run.code == 0 and "unchanged" in run.out and logged.show(additive).version == 2
+    run = cli("noise", additive, "--method", "error-model", "--json", catalog_path=logged.path)
+    assert json.loads(run.out)[0]["changed"] is False
+
+
 def test_noise_with_too_few_points_changes_nothing(catalog, tmp_path):
     data = write(tmp_path / "short.csv", "time,value\n0,1\n1,2\n2,2.5\n")
     result = catalog.add(

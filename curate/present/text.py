@@ -15,9 +15,8 @@ from rich.text import Text
 from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
 from curate.present.tables import field_table
 from curate.present.tables import table as plain_table
-from curate.quality.actions import ConsistencyReport
+from curate.quality.actions import ConsistencyReport, NoiseOutcome
 from curate.quality.grading import GradeSuggestion
-from curate.quality.noise import NoiseResult
 from curate.records import ConditionValue, DatasetVersion
 from curate.units import condition_text, short_unit
 
@@ -274,12 +273,16 @@ def _num(value: float | None, spec: str = ".3g") -> str:
     return "-" if value is None else format(value, spec)
 
 
-def noise_table(written: list[tuple[DatasetVersion, NoiseResult]]) -> Table:
-    """Give what ``curate noise`` prints."""
+def noise_table(written: list[NoiseOutcome]) -> Table:
+    """Give what ``curate noise`` prints (an unchanged estimate says so: nothing was written)."""
     table = plain_table(
         ("id", "v", "method", "sd", "unit", "dof", "why", "notes"), right=("v", "sd", "dof")
     )
-    for version, result in written:
+    for outcome in written:
+        version, result = outcome.version, outcome.result
+        notes = list(result.warnings)
+        if not outcome.changed:
+            notes.insert(0, f"unchanged: the same estimate is already in version {version.version}")
         table.add_row(
             version.id,
             str(version.version),
@@ -288,7 +291,7 @@ def noise_table(written: list[tuple[DatasetVersion, NoiseResult]]) -> Table:
             short_unit(version.record.observable.unit),
             str(result.dof),
             str(result.parameters.get("choice", "")),
-            "; ".join(result.warnings),
+            "; ".join(notes),
         )
     return table
 

@@ -9,6 +9,7 @@ events.
 from __future__ import annotations
 
 import datetime as dt
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -30,6 +31,7 @@ __all__ = [
     "ConsistencyGroup",
     "ConsistencyReport",
     "LabDispersion",
+    "NoiseOutcome",
     "Suggestion",
     "accept_suggestion",
     "check_consistency",
@@ -47,14 +49,53 @@ _LAB_OVERDISPERSED = 2.0
 _LAB_UNDERGRADED = 1.2
 
 
+@dataclass(frozen=True)
+class NoiseOutcome:
+    """One dataset's noise estimate and the version holding it; ``changed`` if newly written.
+
+    Unpacks as ``(version, result)``.
+    """
+
+    version: DatasetVersion
+    result: noise.NoiseResult
+    changed: bool
+
+    def __iter__(self) -> Iterator[Any]:
+        yield self.version
+        yield self.result
+
+
+def _plain(value: Any) -> Any:
+    """Give plain data with non-finite numbers as None (how the catalog stores them)."""
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, (float, np.floating)):
+        return float(value) if np.isfinite(value) else None
+    if isinstance(value, np.integer):
+        return int(value)
+    return value
+
+
+def _same_noise(stored: NoiseEstimate | None, estimate: NoiseEstimate) -> bool:
+    """Tell whether a stored estimate says what a new one says (method, sd, dof, parameters,
+    scale); when it was made and by whom do not count."""
+    if stored is None:
+        return False
+    fields = ("method", "sd", "dof", "scale", "parameters")
+    return all(_plain(getattr(stored, name)) == _plain(getattr(estimate, name)) for name in fields)
+
+
 def estimate_noise(
     catalog: Ledger, dataset_ids: list[str], *, method: str = "auto"
-) -> list[tuple[DatasetVersion, noise.NoiseResult]]:
+) -> list[NoiseOutcome]:
     """Estimate and store the noise of each dataset (new versions, one transaction for all).
 
-    Every estimate is made before anything is written: one failure changes nothing.
+    Every estimate is made before anything is written: one failure changes nothing. An
+    estimate equal to the stored one (method, sd, dof, parameters, scale) writes nothing.
     """
-    planned: list[tuple[str, NoiseEstimate, noise.NoiseResult]] = []
+    planned: list[tuple[DatasetVersion, NoiseEstimate, noise.NoiseResult]] = []
     now = dt.datetime.now(dt.UTC)
     for dataset_id in dataset_ids:
         version = catalog.show(dataset_id)
@@ -82,18 +123,21 @@ def estimate_noise(
             made_at=now,
             made_by=catalog.actor,
         )
-        planned.append((dataset_id, estimate, result))
-    written = []
+        planned.append((version, estimate, result))
+    outcomes = []
     with catalog.transaction():
-        for dataset_id, estimate, result in planned:
-            version = catalog.new_version(
-                dataset_id,
+        for version, estimate, result in planned:
+            if _same_noise(version.record.noise, estimate):
+                outcomes.append(NoiseOutcome(version, result, changed=False))
+                continue
+            written = catalog.new_version(
+                version.id,
                 kind="noise",
                 reason=f"noise estimated by {estimate.method}",
                 update={"noise": estimate},
             )
-            written.append((version, result))
-    return written
+            outcomes.append(NoiseOutcome(written, result, changed=True))
+    return outcomes
 
 
 def set_grade(
