@@ -10,7 +10,16 @@ import sys
 
 import numpy as np
 import pytest
-from conftest import DATA, EXAMPLES, LONG_CSV, ROOT, write
+from conftest import (
+    DATA,
+    EXAMPLES,
+    LONG_CSV,
+    MIXED_SCALE,
+    ROOT,
+    add_mixed_observable,
+    saturating_model,
+    write,
+)
 
 from curate.cli import app
 
@@ -273,3 +282,26 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
     # the error model's b sits on its bound: its standard error is null, not NaN
     noise = strict_json(cli(*runs["noise"], "--json").out)
     assert noise[0]["parameters"]["b"] == 0.0 and noise[0]["parameters"]["b_stderr"] is None
+
+
+def test_consistency_and_fit_give_one_scale_factor_by_calibration_group(cli, tmp_path):
+    # one convention everywhere: data = s x model (consistency: data = s x consensus), named
+    # by the calibration group, as PEtab's scale_blot_7 parameter
+    import curate
+
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        _, relative = add_mixed_observable(catalog)
+    run = cli("consistency", "--json")
+    row = next(
+        r for g in json.loads(run.out)["groups"] for r in g["datasets"] if r["id"] == relative
+    )
+    assert row["scale"] == pytest.approx(MIXED_SCALE, rel=1e-6)
+    assert row["calibration_group"] == "blot_7"
+    assert "scale 1000 (blot_7)" in cli("consistency").out
+    model, params = saturating_model(tmp_path)
+    run = cli("fit", "--model", f"{model}:predict", "--params", params, "--json")
+    fitted = json.loads(run.out)
+    assert fitted["scale_factors"] == {"blot_7": pytest.approx(MIXED_SCALE, rel=1e-6)}
+    assert fitted["parameters"]["top"]["value"] == pytest.approx(20.0, rel=1e-6)
+    text = cli("fit", "--model", f"{model}:predict", "--params", params).out
+    assert "scale factors by calibration group (data = s x model): blot_7 1000" in text

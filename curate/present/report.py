@@ -290,9 +290,14 @@ def _fit_overlay(catalog: Ledger, policy: Policy) -> tuple[str, dict[str, Any] |
             for column in rows.columns:
                 if column != "time":
                     grid[column] = first[column]
-            curve = np.asarray(backend.predict(values, grid), dtype=float) * float(
-                scales.get(str(dataset_id), 1.0)
+            # scale factors go by calibration group (data = s x model); fits recorded before
+            # that were keyed by dataset id
+            scale = (
+                scales.get(str(first["calibration_group"]), scales.get(str(dataset_id), 1.0))
+                if bool(first["relative"])
+                else 1.0
             )
+            curve = np.asarray(backend.predict(values, grid), dtype=float) * float(scale)
             predictions[str(dataset_id)] = {
                 "minutes": (grid["time"] / 60.0).tolist(),
                 "value": curve.tolist(),

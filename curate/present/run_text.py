@@ -276,7 +276,7 @@ def fit_text(result: FitResult) -> Group:
     if result.scale_factors:
         parts.append(
             Text(
-                "scale factors: "
+                "scale factors by calibration group (data = s x model): "
                 + ", ".join(f"{k} {v:.4g}" for k, v in result.scale_factors.items())
             )
         )

@@ -340,8 +340,9 @@ def consistency_text(result: ConsistencyReport) -> Group:
                 note = (note + "; " if note else "") + "disagrees with the others"
             if not row.in_consensus:
                 note = (note + "; " if note else "") + "left out of the consensus"
-            if row.scale is not None:
-                note = (note + "; " if note else "") + f"scale {row.scale:.3g}"
+            if row.scale is not None:  # data = s x consensus, named by its calibration group
+                named = f" ({row.calibration_group})" if row.calibration_group else ""
+                note = (note + "; " if note else "") + f"scale {row.scale:.4g}{named}"
             table.add_row(
                 row.id,
                 row.lab,

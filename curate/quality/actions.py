@@ -318,6 +318,7 @@ def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
         value=arrays.value,
         sd=measured_sd(version, arrays),
         relative=version.record.observable.relative,
+        calibration_group=version.record.protocol.calibration_group or version.id,
     )
 
 
