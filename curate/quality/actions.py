@@ -9,6 +9,7 @@ events.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -25,6 +26,8 @@ from curate.records import (
     NoiseEstimate,
     TrustAssessment,
     UncertaintyScale,
+    canonical_json,
+    jsonable,
 )
 
 __all__ = [
@@ -35,6 +38,7 @@ __all__ = [
     "Suggestion",
     "accept_suggestion",
     "check_consistency",
+    "consistency_inputs",
     "estimate_noise",
     "grade_from_checklist",
     "set_grade",
@@ -65,26 +69,15 @@ class NoiseOutcome:
         yield self.result
 
 
-def _plain(value: Any) -> Any:
-    """Give plain data with non-finite numbers as None (how the catalog stores them)."""
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, (float, np.floating)):
-        return float(value) if np.isfinite(value) else None
-    if isinstance(value, np.integer):
-        return int(value)
-    return value
-
-
 def _same_noise(stored: NoiseEstimate | None, estimate: NoiseEstimate) -> bool:
     """Tell whether a stored estimate says what a new one says (method, sd, dof, parameters,
     scale); when it was made and by whom do not count."""
     if stored is None:
         return False
     fields = ("method", "sd", "dof", "scale", "parameters")
-    return all(_plain(getattr(stored, name)) == _plain(getattr(estimate, name)) for name in fields)
+    return all(
+        jsonable(getattr(stored, name)) == jsonable(getattr(estimate, name)) for name in fields
+    )
 
 
 def estimate_noise(
@@ -322,6 +315,42 @@ def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
     )
 
 
+def consistency_inputs(version: DatasetVersion) -> str:
+    """Give the sha256 of what a consistency check reads from a version.
+
+    Its data (content hash), observable and relative flag, reported uncertainty, noise
+    estimate (not when or by whom it was made), conditions, and whether it takes part (retired,
+    excluded). A new version that changes none of these (a grade, a label, a reference) leaves
+    the check, and the suggestions made from it, as they were.
+    """
+    record = version.record
+    noise_estimate = (
+        record.noise.model_dump(mode="json", exclude={"made_at", "made_by", "warnings"})
+        if record.noise
+        else None
+    )
+    read = {
+        "content_hash": record.content_hash,
+        "observable": record.observable.id,
+        "relative": record.observable.relative,
+        "uncertainty": record.uncertainty.model_dump(mode="json") if record.uncertainty else None,
+        "noise": noise_estimate,
+        "conditions": {k: c.model_dump(mode="json") for k, c in record.conditions.items()},
+        "takes_part": not record.retired and version.grade != "X",
+    }
+    return hashlib.sha256(canonical_json(jsonable(read)).encode()).hexdigest()
+
+
+def _input_entry(version: DatasetVersion) -> dict[str, Any]:
+    return {
+        "id": version.id,
+        "version": version.version,
+        "content_hash": version.record.content_hash,
+        "record_hash": version.record_hash,
+        "inputs_sha256": consistency_inputs(version),
+    }
+
+
 def check_consistency(
     catalog: Ledger,
     *,
@@ -348,10 +377,14 @@ def check_consistency(
     ]
     report = ConsistencyReport(tolerance=tolerance, alpha=alpha, at=at)
     lab_chi2: dict[str, list[float]] = {}
+    inputs: dict[str, list[dict[str, Any]]] = {}  # dataset id -> its comparison group's versions
     for members in consistency.match_groups(items, tolerance=tolerance):
         if len(members) < 2:
             report.single.extend(members)
             continue
+        group_inputs = [_input_entry(by_id[m]) for m in members]
+        for m in members:
+            inputs[m] = group_inputs
         series = [_series(catalog, by_id[m]) for m in members]
         results = consistency.against_consensus(series, alpha=alpha)
         summary = lab_summary = None
@@ -418,22 +451,98 @@ def check_consistency(
         elif ratio <= _LAB_UNDERGRADED and grades and all(g in ("C", "D") for g in grades):
             flag = "its data agree with the others better than its grades suggest"
         report.labs.append(LabDispersion(lab, chi2, int(dof), ratio, grades, flag))
-    if record and report.suggestions:
+    if record:
+        # each suggestion names the versions it was computed from; the run names every dataset
+        # it compared, so that a later run that no longer suggests a grade withdraws the old one
+        settings = {"tolerance": tolerance, "alpha": alpha, "at": at}
         with catalog.transaction():
             for suggestion in report.suggestions:
                 catalog.record_event(
-                    "grade_suggestion", suggestion.to_dict(), dataset_id=suggestion.dataset_id
+                    "grade_suggestion",
+                    {**suggestion.to_dict(), **settings, "inputs": inputs[suggestion.dataset_id]},
+                    dataset_id=suggestion.dataset_id,
+                )
+            if inputs:
+                catalog.record_event(
+                    "consistency",
+                    {
+                        **settings,
+                        "observable": observable,
+                        "compared": [_input_entry(by_id[i]) for i in inputs],
+                        "suggested": [s.dataset_id for s in report.suggestions],
+                    },
                 )
     return report
 
 
+def _stale_because(catalog: Ledger, dataset_id: str, event: dict[str, Any]) -> str | None:
+    """Give why a recorded grade suggestion no longer holds, or None if it still does."""
+    payload = event["payload"]
+    seq = event["seq"]
+    if "inputs" not in payload:
+        return (
+            f"the suggestion of event {seq} does not name the dataset versions it was computed "
+            "from (it predates that record)"
+        )
+    for later in catalog.events():
+        if later["seq"] <= seq or later["kind"] != "consistency":
+            continue
+        compared = {entry["id"] for entry in later["payload"].get("compared", [])}
+        if dataset_id in compared and dataset_id not in later["payload"].get("suggested", []):
+            return (
+                f"the suggestion of event {seq} was withdrawn by the newer consistency run of "
+                f"event {later['seq']}, which suggests no grade for it; nothing graded (to "
+                "change it anyway, give the grade and its reason)"
+            )
+    current = catalog.show(dataset_id)
+    if current.grade != payload.get("current"):
+        return (
+            f"the suggestion of event {seq} was computed from grade "
+            f"{payload.get('current') or 'none'}, it is {current.grade or 'none'} now"
+        )
+    recorded = {entry["id"]: entry for entry in payload["inputs"]}
+    for ident, entry in recorded.items():
+        now = catalog.show(ident)
+        if now.version != entry["version"] and consistency_inputs(now) != entry["inputs_sha256"]:
+            return (
+                f"the suggestion of event {seq} is stale: {ident} changed since "
+                f"(version {entry['version']} -> {now.version})"
+            )
+    # a dataset that now matches its observable and conditions would have changed the consensus
+    versions = [v for v in catalog.list(observable=current.record.observable.id) if v.grade != "X"]
+    items = [
+        (v.id, v.record.observable.id, {k: c.value for k, c in v.record.conditions.items()})
+        for v in versions
+    ]
+    tolerance = float(payload.get("tolerance", 0.01))
+    for members in consistency.match_groups(items, tolerance=tolerance):
+        if dataset_id in members:
+            joined = sorted(set(members) - set(recorded))
+            if joined:
+                return (
+                    f"the suggestion of event {seq} is stale: {', '.join(joined)} joined its "
+                    "comparison group since"
+                )
+    return None
+
+
 def accept_suggestion(catalog: Ledger, dataset_id: str) -> DatasetVersion:
-    """Record the newest grade suggestion for a dataset as its grade (a person's decision)."""
+    """Record the newest grade suggestion for a dataset as its grade (a person's decision).
+
+    Refused when the suggestion no longer holds: a newer consistency run covering the dataset
+    did not suggest it, the dataset's grade changed, a dataset it was compared with changed
+    what the check reads (see :func:`consistency_inputs`), or a dataset joined its group.
+    """
     event = catalog.latest_event(dataset_id, "grade_suggestion")
     if event is None:
         raise InputError(
             f"dataset {dataset_id}: no grade suggestion to accept; run `curate consistency` first"
         )
+    stale = _stale_because(catalog, dataset_id, event)
+    if stale is not None:
+        if "nothing graded" not in stale:
+            stale += "; nothing graded: run `curate consistency` again for a current suggestion"
+        raise InputError(f"dataset {dataset_id}: {stale}")
     payload = event["payload"]
     return set_grade(
         catalog,
