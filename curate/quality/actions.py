@@ -475,14 +475,20 @@ def check_consistency(
     return report
 
 
-def _stale_because(catalog: Ledger, dataset_id: str, event: dict[str, Any]) -> str | None:
-    """Give why a recorded grade suggestion no longer holds, or None if it still does."""
+_RERUN = "run `curate consistency` again for a current suggestion"
+
+
+def _stale_because(
+    catalog: Ledger, dataset_id: str, event: dict[str, Any]
+) -> tuple[str, str] | None:
+    """Give (why, remedy) when a recorded grade suggestion no longer holds, else None."""
     payload = event["payload"]
     seq = event["seq"]
     if "inputs" not in payload:
         return (
             f"the suggestion of event {seq} does not name the dataset versions it was computed "
-            "from (it predates that record)"
+            "from (it predates that record)",
+            _RERUN,
         )
     for later in catalog.events():
         if later["seq"] <= seq or later["kind"] != "consistency":
@@ -491,14 +497,15 @@ def _stale_because(catalog: Ledger, dataset_id: str, event: dict[str, Any]) -> s
         if dataset_id in compared and dataset_id not in later["payload"].get("suggested", []):
             return (
                 f"the suggestion of event {seq} was withdrawn by the newer consistency run of "
-                f"event {later['seq']}, which suggests no grade for it; nothing graded (to "
-                "change it anyway, give the grade and its reason)"
+                f"event {later['seq']}, which suggests no grade for it",
+                "to change the grade anyway, give it with its reason",
             )
     current = catalog.show(dataset_id)
     if current.grade != payload.get("current"):
         return (
             f"the suggestion of event {seq} was computed from grade "
-            f"{payload.get('current') or 'none'}, it is {current.grade or 'none'} now"
+            f"{payload.get('current') or 'none'}, it is {current.grade or 'none'} now",
+            _RERUN,
         )
     recorded = {entry["id"]: entry for entry in payload["inputs"]}
     for ident, entry in recorded.items():
@@ -506,7 +513,8 @@ def _stale_because(catalog: Ledger, dataset_id: str, event: dict[str, Any]) -> s
         if now.version != entry["version"] and consistency_inputs(now) != entry["inputs_sha256"]:
             return (
                 f"the suggestion of event {seq} is stale: {ident} changed since "
-                f"(version {entry['version']} -> {now.version})"
+                f"(version {entry['version']} -> {now.version})",
+                _RERUN,
             )
     # a dataset that now matches its observable and conditions would have changed the consensus
     versions = [v for v in catalog.list(observable=current.record.observable.id) if v.grade != "X"]
@@ -521,7 +529,8 @@ def _stale_because(catalog: Ledger, dataset_id: str, event: dict[str, Any]) -> s
             if joined:
                 return (
                     f"the suggestion of event {seq} is stale: {', '.join(joined)} joined its "
-                    "comparison group since"
+                    "comparison group since",
+                    _RERUN,
                 )
     return None
 
@@ -540,9 +549,8 @@ def accept_suggestion(catalog: Ledger, dataset_id: str) -> DatasetVersion:
         )
     stale = _stale_because(catalog, dataset_id, event)
     if stale is not None:
-        if "nothing graded" not in stale:
-            stale += "; nothing graded: run `curate consistency` again for a current suggestion"
-        raise InputError(f"dataset {dataset_id}: {stale}")
+        why, remedy = stale
+        raise InputError(f"dataset {dataset_id}: {why}; nothing graded: {remedy}")
     payload = event["payload"]
     return set_grade(
         catalog,
