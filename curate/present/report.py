@@ -202,7 +202,9 @@ def _weights(catalog: Ledger, policy: Policy) -> str:
     warnings = "".join(f"<li>{html.escape(w)}</li>" for w in summary.warnings)
     return (
         f'<section id="weights"><h2>Share of the total weight</h2><p class="note">Policy {html.escape(summary.policy.name)} '
-        f"(sha256 {summary.policy.sha256[:16]}…). Shares are within each observable.</p>"
+        f"(sha256 {summary.policy.sha256[:16]}…). Shares are within each observable, relative-unit data "
+        "on the absolute data's scale (their consensus scale factor), or on their own median's where "
+        "an observable has only relative data.</p>"
         + figure_tag(figure, "share of the total weight per dataset")
         + table
         + (f"<ul>{warnings}</ul>" if warnings else "")

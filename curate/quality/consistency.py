@@ -37,6 +37,7 @@ __all__ = [
     "SummaryConsistency",
     "against_consensus",
     "collapse_replicates",
+    "consensus_at",
     "largest_consistent_subset",
     "match_groups",
     "pdg_scale_factor",
@@ -111,6 +112,19 @@ def _consensus(
     consensus = np.where(covered, weighted / np.where(covered, weight_sum, 1.0), np.nan)
     variance = np.where(covered, 1.0 / np.where(covered, weight_sum, 1.0), np.nan)
     return consensus, variance, covered
+
+
+def consensus_at(
+    times: np.ndarray, others: Sequence[Series]
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Give (consensus, variance, covered) of ``others`` at ``times``.
+
+    Each other series (replicates collapsed) is interpolated linearly inside its own time range
+    only; the consensus is their inverse-variance weighted mean where at least one covers the
+    time (NaN elsewhere, ``covered`` False).
+    """
+    collapsed = [collapse_replicates(o) for o in others]
+    return _consensus(np.asarray(times, dtype=float), collapsed, [1.0] * len(collapsed))
 
 
 def _fit_scale(series: Series, consensus: np.ndarray, variance: np.ndarray, start: float) -> float:
