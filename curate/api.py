@@ -32,7 +32,6 @@ from curate.ledger import (
 from curate.present.report import write_report
 from curate.quality import actions as quality
 from curate.quality.grading import GradeSuggestion
-from curate.quality.noise import NoiseResult
 from curate.records import DatasetVersion
 from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_policy, weighted_table
 
@@ -67,8 +66,12 @@ class Catalog(Ledger):
 
     def estimate_noise(
         self, dataset_ids: builtins.list[str] | None = None, *, method: str = "auto"
-    ) -> builtins.list[tuple[DatasetVersion, NoiseResult]]:
-        """Estimate and store the noise of the named datasets (all current ones if None)."""
+    ) -> builtins.list[quality.NoiseOutcome]:
+        """Estimate and store the noise of the named datasets (all current ones if None).
+
+        Each outcome unpacks as (version, result); ``changed`` is False where the same
+        estimate was already stored (then nothing is written).
+        """
         ids = dataset_ids if dataset_ids is not None else [v.id for v in self.list()]
         return quality.estimate_noise(self, ids, method=method)
 

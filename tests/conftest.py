@@ -92,3 +92,68 @@ time,value,sd
 20,3.5,0.2
 30,4.0,0.3
 """
+
+
+MIXED_SCALE = 1000.0  # the relative dataset reads MIXED_SCALE x the absolute concentration
+
+
+def mixed_truth(minutes):
+    """Give the true concentration (nM) of the mixed observable at times in minutes."""
+    import numpy as np
+
+    return 20.0 * (1.0 - np.exp(-np.asarray(minutes, dtype=float) / 15.0))
+
+
+def add_mixed_observable(catalog):
+    """Log one observable measured in absolute and in relative units; give (absolute, relative) ids.
+
+    Absolute: 60 points in nM, sd 0.5 nM, grade A. Relative: 10 of those times in a.u. with
+    exactly MIXED_SCALE x the truth, sd MIXED_SCALE x 1 nM, grade C, calibration group blot_7.
+    """
+    import numpy as np
+
+    minutes = np.arange(60.0)
+    rows = np.arange(0, 60, 6)
+    conditions = {"dose": "10 uM"}
+    absolute = catalog.draft(minutes, mixed_truth(minutes), observable="velarin_conc", unit="nM",
+                             time_unit="min", lab="Harrow Point Lab", sd=np.full(60, 0.5),
+                             conditions=conditions, uncertainty={"type": "sd"},
+                             trust={"grade": "A", "rationale": "calibrated"})  # fmt: skip
+    relative = catalog.draft(minutes[rows], MIXED_SCALE * mixed_truth(minutes[rows]),
+                             observable="velarin_conc", unit="a.u.", time_unit="min",
+                             lab="Quillfen Institute", sd=np.full(10, MIXED_SCALE * 1.0),
+                             conditions=conditions, uncertainty={"type": "sd"},
+                             protocol={"calibration_group": "blot_7"},
+                             trust={"grade": "C", "rationale": "uncalibrated blot"})  # fmt: skip
+    added = catalog.add_drafts([absolute, relative])
+    return added[0].id, added[1].id
+
+
+SATURATING_MODEL = """
+import numpy as np
+
+
+def predict(params, points):
+    return params["top"] * (1.0 - np.exp(-points["time"].to_numpy() / 60.0 / params["tau"]))
+"""
+SATURATING_PARAMS = """
+[parameters.top]
+start = 10.0
+lower = 0.1
+upper = 1000
+log = true
+
+[parameters.tau]
+start = 5.0
+lower = 0.1
+upper = 100
+log = true
+"""
+
+
+def saturating_model(folder):
+    """Write the model top * (1 - exp(-t / tau)) and its spec; give (model.py, params.toml)."""
+    return (
+        write(folder / "saturating.py", SATURATING_MODEL),
+        write(folder / "saturating.toml", SATURATING_PARAMS),
+    )

@@ -4,11 +4,22 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import subprocess
 import sys
 
+import numpy as np
 import pytest
-from conftest import LONG_CSV, ROOT, write
+from conftest import (
+    DATA,
+    EXAMPLES,
+    LONG_CSV,
+    MIXED_SCALE,
+    ROOT,
+    add_mixed_observable,
+    saturating_model,
+    write,
+)
 
 from curate.cli import app
 
@@ -61,6 +72,27 @@ def test_show_text_mentions_units_and_trust(cli, tmp_path):
     assert run.code == 0
     assert "given as 'nM'" in run.out and "dose = 10 uM" in run.out
     assert "B: calibrated" in run.out
+
+
+@pytest.mark.parametrize(
+    ("options", "header"),
+    [
+        (["--sd-type", "sd"], "sd (nM)"),
+        (["--sd-type", "sem"], "sem (nM)"),
+        (["--sd-type", "ci", "--ci-level", "0.95"], "ci95 (nM)"),
+        (["--sd-type", "ci", "--ci-level", "0.9"], "ci90 (nM)"),
+        (["--sd-type", "percent"], "sd (% of value)"),
+        (["--sd-type", "estimated"], "estimated sd (nM)"),
+        (["--sd-type", "sd", "--sd-scale", "ln"], "sd (ln scale)"),
+        (["--sd-type", "sem", "--sd-scale", "log10"], "sem (log10 scale)"),
+    ],
+)
+def test_show_labels_the_uncertainty_column_by_its_type(cli, tmp_path, options, header):
+    data = write(tmp_path / "a.csv", "time,value,sd,n\n0,1.0,0.1,3\n10,2.0,0.2,3\n")
+    assert cli("add", data, *ADD, *options).code == 0
+    lines = cli("show", "harrow_velarin_conc_01").out.splitlines()
+    columns = next(line for line in lines if line.strip().startswith("time (s)"))
+    assert re.split(r"\s{2,}", columns.strip()) == ["time (s)", "value (nM)", header, "n"]
 
 
 def test_history_and_retire_cli(cli, tmp_path):
@@ -162,3 +194,114 @@ def test_public_api_is_exactly_this():
         "load_policy",
         "open_catalog",
     }
+
+
+def strict_json(text):
+    # RFC 8259 section 6: NaN and Infinity are not JSON; json.loads accepts them unless told
+    def refuse(name):
+        raise ValueError(f"not JSON: {name}")
+
+    return json.loads(text, parse_constant=refuse)
+
+
+def json_commands():
+    import typer.main
+
+    commands = typer.main.get_command(app).commands
+    return sorted(
+        name
+        for name, command in commands.items()
+        if any("--json" in getattr(p, "opts", ()) for p in command.params)
+    )
+
+
+def test_every_json_output_is_strict_json(cli, tmp_path):
+    # a demo-like catalog: the example data, noise, checklist grades, consistency, a fit, and a
+    # dataset whose error model sits on a bound (b = 0: its standard error is not a number)
+    import shutil
+
+    import curate
+
+    inbox = tmp_path / "inbox"
+    shutil.copytree(EXAMPLES, inbox)
+    checklists = ROOT / "example_datasets" / "checklists"
+    model = ["--model", f"{ROOT / 'example_datasets' / 'model.py'}:predict"]
+    params = ["--params", ROOT / "example_datasets" / "params.toml"]
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        catalog.intake(inbox)
+        catalog.estimate_noise()
+        by_file = {v.record.source.raw_file_name.split(".")[0]: v.id for v in catalog.list()}
+        for path in sorted(checklists.glob("*.toml")):
+            catalog.grade_from_checklist(by_file[path.stem], answers_file=path, accept=True)
+        time = np.repeat(np.arange(6.0), 3)
+        draft = catalog.draft(time, 10 * (time + 1) + np.tile([-1.0, 0.0, 1.0], 6),
+                              observable="additive", unit="nM", time_unit="min", lab="Lab P",
+                              replicate=np.tile([1, 2, 3], 6))  # fmt: skip
+        additive = catalog.add_drafts([draft])[0].id
+    first = sorted(by_file.values())[0]
+    data = write(tmp_path / "new.csv", LONG_CSV)
+    runs = {
+        "add": ["add", data, "--observable", "extra", *ADD[2:]],  # not in the fitted observables
+        "intake": ["intake", inbox],
+        "noise": ["noise", additive, "--method", "error-model"],
+        "grade": ["grade", first, "B", "--reason", "looked at the raw files"],
+        "consistency": ["consistency"],
+        "list": ["list"],
+        "show": ["show", additive, "--points"],
+        "history": ["history", additive],
+        "verify": ["verify"],
+        "weights": ["weights"],
+        "export": ["export", "table", tmp_path / "table"],
+        "folds": ["folds", tmp_path / "folds", "--by", "lab"],
+        "trace": ["trace", tmp_path / "table"],
+        "fit": ["fit", *model, *params, "--observable", "velarin_conc", "--observable", "glint"],
+        "sensitivity": [
+            "sensitivity",
+            *model,
+            *params,
+            "--observable",
+            "velarin_conc",
+            "--observable",
+            "glint",
+            "--by",
+            "lab",
+            "--method",
+            "one-step",
+        ],
+        "impact": ["impact", first],
+        "import-petab": [
+            "import-petab",
+            DATA / "petab" / "Fujita_SciSignal2010" / "Fujita_SciSignal2010.yaml",
+        ],
+    }
+    assert sorted(runs) == json_commands(), "every command with --json needs a run here"
+    for name, args in runs.items():
+        run = cli(*args, "--json")
+        assert run.code in (0, 1), f"{name}: {run.err}"
+        strict_json(run.out)
+    # the error model's b sits on its bound: its standard error is null, not NaN
+    noise = strict_json(cli(*runs["noise"], "--json").out)
+    assert noise[0]["parameters"]["b"] == 0.0 and noise[0]["parameters"]["b_stderr"] is None
+
+
+def test_consistency_and_fit_give_one_scale_factor_by_calibration_group(cli, tmp_path):
+    # one convention everywhere: data = s x model (consistency: data = s x consensus), named
+    # by the calibration group, as PEtab's scale_blot_7 parameter
+    import curate
+
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        _, relative = add_mixed_observable(catalog)
+    run = cli("consistency", "--json")
+    row = next(
+        r for g in json.loads(run.out)["groups"] for r in g["datasets"] if r["id"] == relative
+    )
+    assert row["scale"] == pytest.approx(MIXED_SCALE, rel=1e-6)
+    assert row["calibration_group"] == "blot_7"
+    assert "scale 1000 (blot_7)" in cli("consistency").out
+    model, params = saturating_model(tmp_path)
+    run = cli("fit", "--model", f"{model}:predict", "--params", params, "--json")
+    fitted = json.loads(run.out)
+    assert fitted["scale_factors"] == {"blot_7": pytest.approx(MIXED_SCALE, rel=1e-6)}
+    assert fitted["parameters"]["top"]["value"] == pytest.approx(20.0, rel=1e-6)
+    text = cli("fit", "--model", f"{model}:predict", "--params", params).out
+    assert "scale factors by calibration group (data = s x model): blot_7 1000" in text

@@ -8,7 +8,7 @@ import logging
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import DATA, ROOT, write
+from conftest import DATA, ROOT, add_mixed_observable, write
 
 from curate.errors import InputError
 from curate.weighting import Selection
@@ -141,6 +141,33 @@ def test_petab_export_passes_the_petab_validator(prepared, tmp_path):
     relative = measurements[measurements.observableId == "glint"]
     assert relative["observableParameters"].str.startswith("scale_").all()
     assert measurements["simulationConditionId"].nunique() == 13  # one condition per dataset
+
+
+def test_petab_export_of_an_observable_mixing_absolute_and_relative_data_lints(catalog, tmp_path):
+    # one observable formula with an observableParameter placeholder: relative rows name their
+    # calibration group's scale parameter, absolute rows the numeric override 1 (PEtab v1:
+    # each row's observableParameters must fill every placeholder; checked by petab's linter)
+    pytest.importorskip("petab.v1")
+    absolute, relative = add_mixed_observable(catalog)
+    catalog.export("petab", tmp_path / "p")
+    assert lint(tmp_path / "p" / "problem.yaml") is False
+    stand_in_model(tmp_path / "p" / "model.xml", ["velarin_conc_model"], ["dose"])
+    import yaml
+
+    problem = yaml.safe_load((tmp_path / "p" / "problem.yaml").read_text())
+    problem["problems"][0]["sbml_files"] = ["model.xml"]
+    (tmp_path / "p" / "problem.yaml").write_text(yaml.safe_dump(problem))
+    assert lint(tmp_path / "p" / "problem.yaml") is False
+    observables = pd.read_csv(tmp_path / "p" / "observables.tsv", sep="\t")
+    assert observables["observableFormula"].tolist() == [
+        "observableParameter1_velarin_conc * velarin_conc_model"
+    ]
+    measurements = pd.read_csv(tmp_path / "p" / "measurements.tsv", sep="\t", dtype=str)
+    by_dataset = measurements.groupby("datasetId")["observableParameters"].unique()
+    assert by_dataset[absolute].tolist() == ["1"]
+    assert by_dataset[relative].tolist() == ["scale_blot_7"]
+    parameters = pd.read_csv(tmp_path / "p" / "parameters.tsv", sep="\t")
+    assert parameters["parameterId"].tolist() == ["scale_blot_7"]
 
 
 def test_petab_round_trip_of_a_published_problem(catalog, tmp_path):

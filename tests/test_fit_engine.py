@@ -116,7 +116,8 @@ def test_closed_form_scale_factor_of_relative_data():
     spec = fitting.spec_from_dict({"parameters": {"k": {"start": 0.3, "lower": 0.0, "log": True}}})
     result = fitting.fit(fitting.FitProblem(points, decay, spec))
     assert result.parameters["k"]["value"] == pytest.approx(0.8, rel=0.02)
-    assert result.scale_factors == {"glint_1": pytest.approx(7.0, rel=0.02)}
+    # keyed by calibration group, in the convention data = s x model (as PEtab's scale_run)
+    assert result.scale_factors == {"run": pytest.approx(7.0, rel=0.02)}
     assert result.dof == 40 - 1 - 1  # the scale factor costs a degree of freedom
 
 

@@ -45,6 +45,31 @@ def test_noise_auto_choices_are_recorded(logged):
     assert logged.verify().ok
 
 
+def test_noise_rerun_with_the_same_result_writes_nothing(logged, cli):
+    harrow = by_file(logged, "harrow_velarin_37C_10uM")
+    first = logged.estimate_noise([harrow])[0]
+    assert first.changed and first.version.version == 2
+    events = len(logged.events())
+    again = logged.estimate_noise([harrow])[0]
+    # same method, sd, dof, parameters and scale: no new version, no event
+    assert not again.changed and again.version.version == 2 and len(logged.events()) == events
+    assert again.version.record.noise.made_at == first.version.record.noise.made_at
+    other = logged.estimate_noise([harrow], method="mad")[0]
+    assert other.changed and other.version.version == 3
+    # an error model whose b sits on its bound has a NaN standard error (stored as null): a
+    # rerun is still recognised as the same estimate
+    time = np.repeat(np.arange(6.0), 3)
+    draft = logged.draft(time, 10 * (time + 1) + np.tile([-1.0, 0.0, 1.0], 6), observable="additive",
+                         unit="nM", time_unit="min", lab="Lab P", replicate=np.tile([1, 2, 3], 6))  # fmt: skip
+    additive = logged.add_drafts([draft])[0].id
+    assert logged.estimate_noise([additive], method="error-model")[0].changed
+    assert not logged.estimate_noise([additive], method="error-model")[0].changed
+    run = cli("noise", additive, "--method", "error-model", catalog_path=logged.path)
+    assert run.code == 0 and "unchanged" in run.out and logged.show(additive).version == 2
+    run = cli("noise", additive, "--method", "error-model", "--json", catalog_path=logged.path)
+    assert json.loads(run.out)[0]["changed"] is False
+
+
 def test_noise_with_too_few_points_changes_nothing(catalog, tmp_path):
     data = write(tmp_path / "short.csv", "time,value\n0,1\n1,2\n2,2.5\n")
     result = catalog.add(
@@ -165,7 +190,13 @@ def test_cli_noise_grade_consistency(cli, tmp_path):
     )  # ungraded counts as B
     text = cli("consistency", "--observable", "velarin_conc")
     assert "left out of the consensus" in text.out and "Birge R" in text.out
-    assert cli("consistency", "--at", "60 min").code == 0
+    at = cli("consistency", "--at", "30 min", "--observable", "velarin_conc")
+    assert at.code == 0 and "levels at 30 min: weighted mean" in at.out
+    assert "late levels" not in at.out
+    assert json.loads(cli("consistency", "--at", "1.5 h", "--json").out)["summary_of"] == (
+        "levels at 90 min"
+    )
+    assert "late levels: weighted mean" in text.out
     bad = cli("consistency", "--at", "60 um")
     assert bad.code == 2 and "expected a time with its unit" in bad.err
     assert cli("noise").code == 2
@@ -181,3 +212,92 @@ def test_event_chain_holds_after_judgement(logged):
     assert kinds.count("add") == 13 and kinds.count("noise") == 13 and "grade_suggestion" in kinds
     assert logged.verify().ok
     assert np.isfinite(logged.show(by_file(logged, "harrow_glint_37C_10uM")).record.noise.sd)
+
+
+def temperature_mixup(catalog):
+    """Log a dataset recorded at 37 degC that was measured at 30 degC (it disagrees with the
+    37 degC ones, and agrees with the 30 degC one once its condition is corrected)."""
+    rng = np.random.default_rng(5)
+    minutes = np.linspace(0, 60, 13)
+
+    def logged(lab, temperature, top):
+        value = top * (1 - np.exp(-minutes / 15)) + rng.normal(0, 0.3, len(minutes))
+        draft = catalog.draft(minutes, value, observable="conc", unit="nM", time_unit="min",
+                              lab=lab, sd=np.full(len(minutes), 0.3), uncertainty={"type": "sd"},
+                              conditions={"temperature": temperature})  # fmt: skip
+        return catalog.add_drafts([draft])[0].id
+
+    ids = {
+        "a1": logged("Lab A", "37 degC", 20.0),
+        "a2": logged("Lab B", "37 degC", 20.0),
+        "mixed_up": logged("Lab C", "37 degC", 21.5),
+        "c": logged("Lab D", "30 degC", 21.5),
+    }
+    catalog.grade(ids["mixed_up"], "B", reason="looked fine")
+    report = catalog.consistency()
+    assert [s.dataset_id for s in report.suggestions] == [ids["mixed_up"]]
+    return ids
+
+
+def test_suggestion_records_the_versions_it_was_computed_from(catalog):
+    ids = temperature_mixup(catalog)
+    payload = catalog.latest_event(ids["mixed_up"], "grade_suggestion")["payload"]
+    inputs = {entry["id"]: entry for entry in payload["inputs"]}
+    assert set(inputs) == {ids["a1"], ids["a2"], ids["mixed_up"]}
+    for ident, entry in inputs.items():
+        current = catalog.show(ident)
+        assert entry["version"] == current.version
+        assert entry["content_hash"] == current.record.content_hash
+        assert entry["record_hash"] == current.record_hash
+
+
+def test_suggestion_withdrawn_by_a_newer_run_is_refused(catalog, cli):
+    ids = temperature_mixup(catalog)
+    catalog.revise(ids["mixed_up"], reason="incubator log", conditions={"temperature": "30 degC"})
+    assert catalog.consistency().suggestions == []  # now consistent with its 30 degC partner
+    with pytest.raises(InputError, match="withdrawn by the newer consistency run"):
+        catalog.accept_suggestion(ids["mixed_up"])
+    run = cli("grade", ids["mixed_up"], "--accept-suggestion", catalog_path=catalog.path)
+    assert run.code == 2 and run.err.count("\n") == 1 and "withdrawn" in run.err
+    assert catalog.show(ids["mixed_up"]).grade == "B"
+
+
+def test_suggestion_whose_inputs_changed_is_refused(catalog):
+    ids = temperature_mixup(catalog)
+    catalog.revise(ids["a2"], reason="incubator log", conditions={"temperature": "36 degC"})
+    with pytest.raises(InputError, match=f"{ids['a2']} changed since .version 1 -> 2"):
+        catalog.accept_suggestion(ids["mixed_up"])
+    assert catalog.show(ids["mixed_up"]).grade == "B"
+
+
+def test_suggestion_is_refused_when_a_dataset_joined_its_group(catalog):
+    ids = temperature_mixup(catalog)
+    minutes = np.linspace(0, 60, 13)
+    draft = catalog.draft(minutes, 20 * (1 - np.exp(-minutes / 15)), observable="conc", unit="nM",
+                          time_unit="min", lab="Lab E", sd=np.full(13, 0.3),
+                          uncertainty={"type": "sd"}, conditions={"temperature": "37 degC"})  # fmt: skip
+    joined = catalog.add_drafts([draft])[0].id
+    with pytest.raises(InputError, match=f"{joined} joined its comparison group"):
+        catalog.accept_suggestion(ids["mixed_up"])
+
+
+def test_suggestion_is_refused_when_its_grade_changed(catalog):
+    ids = temperature_mixup(catalog)
+    catalog.grade(ids["mixed_up"], "A", reason="second look")
+    with pytest.raises(InputError, match="computed from grade B, it is A now"):
+        catalog.accept_suggestion(ids["mixed_up"])
+
+
+def test_suggestion_survives_changes_that_do_not_touch_its_inputs(catalog):
+    ids = temperature_mixup(catalog)
+    catalog.grade(ids["a1"], "A", reason="calibrated")  # a new version, same data and noise
+    accepted = catalog.accept_suggestion(ids["mixed_up"])
+    assert accepted.grade == "D" and "accepted suggestion" in accepted.record.trust.rationale
+
+
+def test_suggestion_recorded_without_its_inputs_is_refused(catalog):
+    ids = temperature_mixup(catalog)
+    catalog.record_event("grade_suggestion", {"id": ids["mixed_up"], "current": "B",
+                         "suggested": "D", "reason": "old style"}, dataset_id=ids["mixed_up"])  # fmt: skip
+    with pytest.raises(InputError, match="does not name the dataset versions"):
+        catalog.accept_suggestion(ids["mixed_up"])

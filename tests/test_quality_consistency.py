@@ -133,7 +133,22 @@ def test_relative_dataset_is_compared_after_its_scale_fit():
     results = cons.against_consensus(series)
     assert all(r.dof == r.n_overlap - 1 for r in results)  # the scale costs one dof
     assert all(r.p_value > 0.001 for r in results)
-    assert results[1].scale / results[2].scale == pytest.approx(7.0 / 40.0, rel=0.05)
+    # data = s x reference: the dataset measured 40x gets the larger scale factor
+    assert results[1].scale / results[2].scale == pytest.approx(40.0 / 7.0, rel=0.05)
+
+
+def test_scale_factor_of_relative_data_against_absolute_ones_is_data_over_reference():
+    # one convention everywhere: data = s x reference (the fit's data = s x model)
+    rng = np.random.default_rng(11)
+    times = np.linspace(0, 1200, 30)
+    series = [make(str(k), f"lab{k}", times, rng) for k in range(2)]
+    series.append(make("blot", "labR", times, rng, scale=0.25, relative=True))
+    series[2] = cons.Series(*[getattr(series[2], f) for f in ("id", "lab", "time", "value", "sd")],
+                            relative=True, calibration_group="blot_3")  # fmt: skip
+    results = {r.id: r for r in cons.against_consensus(series)}
+    assert results["blot"].scale == pytest.approx(0.25, rel=0.02)
+    assert results["blot"].calibration_group == "blot_3"
+    assert results["0"].scale is None
 
 
 def test_interpolation_only_inside_the_overlap():

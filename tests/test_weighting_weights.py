@@ -195,3 +195,135 @@ def test_default_policy():
 def test_bad_policies(tmp_path, body, message):
     with pytest.raises(InputError, match=message.replace("(", r"\(").replace(")", r"\)")):
         policy_file(tmp_path, body)
+
+
+def test_two_labs_capped_at_half_split_evenly_and_no_dataset_is_called_dominant(tmp_path):
+    # README: the warning names a dataset carrying "more than half" of its observable's weight.
+    # A cap of 0.5 over two labs gives 0.5 and 0.5000000000000001 in floating point: not more.
+    points = frame([("a", "v", "L1", "A", 1.0, 0.1)] * 7 + [("b", "v", "L2", "B", 1.0, 0.1)] * 3)
+    _, summary = weights.apply_policy(
+        points, policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.5\n")
+    )
+    assert summary.lab_shares["v"]["L1"] == pytest.approx(0.5, abs=1e-12)
+    assert summary.lab_shares["v"]["L2"] == pytest.approx(0.5, abs=1e-12)
+    assert not any("mostly this one dataset" in w for w in summary.warnings)
+    # just above half still warns
+    points = frame([("a", "v", "L1", "A", 1.0, 0.1)] * 51 + [("b", "v", "L2", "A", 1.0, 0.1)] * 49)
+    _, summary = weights.apply_policy(points, policy_file(tmp_path, BASE, "q.toml"))
+    assert any("dataset a carries 51% of the v weight" in w for w in summary.warnings)
+
+
+def mixed(scale=1000.0, relative_times=None, relative_values=None):
+    """Give one observable with an absolute dataset (60 points, sd 0.5, grade A, lab L1) and a
+    relative one (10 points reading ``scale`` x the truth, sd ``scale`` x 1, grade C, lab L2)."""
+    minutes = np.arange(60.0)
+    truth = 20.0 * (1 - np.exp(-minutes / 15.0))
+    times = minutes[::6] if relative_times is None else relative_times
+    values = (
+        scale * 20.0 * (1 - np.exp(-times / 15.0)) if relative_values is None else relative_values
+    )
+    rows = [("abs", "v", "L1", "A", y, 0.5, t, False) for t, y in zip(minutes, truth, strict=True)]
+    rows += [
+        ("rel", "v", "L2", "C", y, scale * 1.0, t, True) for t, y in zip(times, values, strict=True)
+    ]
+    return pd.DataFrame(
+        rows,
+        columns=["dataset_id", "observable", "lab", "grade", "value", "sd", "time", "relative"],
+    )
+
+
+@pytest.mark.parametrize("scale", [1e-3, 1.0, 1000.0])
+def test_relative_data_share_weight_on_the_absolute_scale(tmp_path, scale):
+    # the relative dataset put on the absolute scale with its consensus scale factor
+    # s = sum w y h / sum w h^2 (h: the absolute data at its times) weighs 1 / (sd/s)^2 / v_C
+    # = 1 / (1^2 * 4) per point; the absolute one 1 / (0.5^2 * 1) = 4 per point
+    _, summary = weights.apply_policy(mixed(scale), policy_file(tmp_path, BASE))
+    rows = {d.id: d for d in summary.datasets}
+    assert rows["rel"].scale == pytest.approx(scale, rel=1e-12)
+    assert rows["rel"].footing == "consensus" and rows["abs"].footing == "absolute"
+    assert rows["abs"].scale is None
+    assert rows["rel"].share == pytest.approx(10 * 0.25 / (60 * 4 + 10 * 0.25), rel=1e-12)
+    assert summary.lab_shares["v"]["L1"] == pytest.approx(240 / 242.5, rel=1e-12)
+    assert any("dataset abs carries 99%" in w for w in summary.warnings)
+
+
+def test_lab_cap_acts_on_the_same_footing(tmp_path):
+    # capped at 0.5, the absolute lab comes down to the relative lab's 2.5 units: 50/50
+    weighted, summary = weights.apply_policy(
+        mixed(), policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.5\n")
+    )
+    assert summary.lab_shares["v"] == {
+        "L1": pytest.approx(0.5, abs=1e-12),
+        "L2": pytest.approx(0.5, abs=1e-12),
+    }
+    balance = weighted.groupby("dataset_id")["balance"].first()
+    assert balance["abs"] == pytest.approx(2.5 / 240, rel=1e-12)
+    assert balance["rel"] == pytest.approx(1.0, rel=1e-12)
+
+
+def test_relative_data_without_time_overlap_use_the_ratio_of_medians(tmp_path):
+    late = np.arange(100.0, 110.0)
+    frame_ = mixed(relative_times=late, relative_values=np.full(10, 5000.0))
+    _, summary = weights.apply_policy(frame_, policy_file(tmp_path, BASE))
+    rel = next(d for d in summary.datasets if d.id == "rel")
+    absolute = frame_.loc[frame_["dataset_id"] == "abs", "value"]
+    assert rel.footing == "median ratio"
+    assert rel.scale == pytest.approx(5000.0 / np.median(np.abs(absolute)), rel=1e-12)
+
+
+def test_relative_data_use_the_absolute_data_under_their_own_conditions(tmp_path):
+    # dose 1 reads half the dose 10 level; the relative dataset at dose 1 is scaled against
+    # the dose 1 absolute data only
+    frame_ = mixed()
+    frame_["dose"] = 1.0
+    other = frame_[frame_["dataset_id"] == "abs"].assign(dataset_id="abs10", lab="L3", dose=10.0)
+    other["value"] = 2 * other["value"]
+    frame_ = pd.concat([frame_, other], ignore_index=True)
+    _, summary = weights.apply_policy(frame_, policy_file(tmp_path, BASE), conditions=["dose"])
+    rel = next(d for d in summary.datasets if d.id == "rel")
+    assert rel.scale == pytest.approx(1000.0, rel=1e-12)
+
+
+def test_relative_only_observable_keeps_the_scale_free_footing(tmp_path):
+    # two relative datasets in units 1000x apart, same relative noise: equal shares
+    times = np.arange(10.0)
+    rows = [("r1", "g", "L1", "A", 1.0 + t, 0.1 * (1.0 + t), t, True) for t in times]
+    rows += [("r2", "g", "L2", "A", 1000 * (1.0 + t), 100 * (1.0 + t), t, True) for t in times]
+    points = pd.DataFrame(
+        rows,
+        columns=["dataset_id", "observable", "lab", "grade", "value", "sd", "time", "relative"],
+    )
+    _, summary = weights.apply_policy(points, policy_file(tmp_path, BASE))
+    assert [d.footing for d in summary.datasets] == ["scale-free", "scale-free"]
+    assert [d.share for d in summary.datasets] == [pytest.approx(0.5), pytest.approx(0.5)]
+
+
+def test_catalog_weights_of_a_mixed_observable(catalog):
+    from conftest import MIXED_SCALE, add_mixed_observable
+
+    absolute, relative = add_mixed_observable(catalog)
+    summary = catalog.weights()
+    rows = {d.id: d for d in summary.datasets}
+    # default policy: A inflates by 1, C by 4; sd floors (1% of |y|) stay below both sds
+    assert rows[relative].share == pytest.approx(2.5 / 242.5, rel=1e-9)
+    assert rows[relative].scale == pytest.approx(MIXED_SCALE, rel=1e-9)
+    assert rows[absolute].share == pytest.approx(240 / 242.5, rel=1e-9)
+
+
+def test_consensus_scale_factor_is_the_weighted_regression_through_the_origin(tmp_path):
+    # reference: statsmodels WLS of the relative values on the absolute data at their times,
+    # without an intercept, weights 1/sd^2: its one coefficient is s = sum w y h / sum w h^2
+    sm = pytest.importorskip("statsmodels.api")
+    rng = np.random.default_rng(21)
+    times = np.arange(0.0, 60.0, 6.0)
+    truth = 20.0 * (1 - np.exp(-times / 15.0))
+    values = 300.0 * truth + rng.normal(0, 300.0, len(times))
+    points = mixed(scale=300.0, relative_values=values)
+    weighted, summary = weights.apply_policy(points, policy_file(tmp_path, BASE))
+    rel = weighted[weighted["dataset_id"] == "rel"]
+    # the absolute data sit exactly on the truth at these times (no interpolation needed)
+    reference = sm.WLS(rel["value"].to_numpy(), truth, weights=1 / rel["sd"].to_numpy() ** 2)
+    expected = reference.fit().params[0]
+    assert next(d for d in summary.datasets if d.id == "rel").scale == pytest.approx(
+        expected, rel=1e-12
+    )

@@ -376,7 +376,13 @@ def noise(
     with _catalog() as catalog:
         written = catalog.estimate_noise(None if all_ else [dataset_id or ""], method=method)
     if as_json:
-        _emit_json([{"id": v.id, "version": v.version, **r.to_dict()} for v, r in written])
+        _emit_json(
+            [
+                {"id": o.version.id, "version": o.version.version, **o.result.to_dict(),
+                 "changed": o.changed}
+                for o in written
+            ]
+        )  # fmt: skip
         return
     out.print(text.noise_table(written))
 

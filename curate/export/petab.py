@@ -3,7 +3,8 @@
 Each point's effective sigma goes into ``noiseParameters`` with ``noiseFormula =
 noiseParameter1_<observableId>``. Relative-unit data get one scale parameter per calibration
 group (``observableParameter1_<observableId> * ...`` in the formula, the parameter id per row
-in ``observableParameters``). Every dataset has its own condition id, so scale parameters never
+in ``observableParameters``; data = s x model). An observable mixing absolute and relative
+data keeps that one formula, and its absolute rows give the placeholder the number 1. Every dataset has its own condition id, so scale parameters never
 become time-point-specific overrides. Grades, weights and versions ride along as annotation
 columns, which PEtab ignores. Time is in seconds (curate's canonical unit).
 
@@ -53,17 +54,26 @@ def petab_tables(
     rows = []
     scale_parameters: dict[str, str] = {}
     observables: dict[str, dict[str, str]] = {}
-    for dataset_id, group in points.groupby("dataset_id", sort=False):
+    # an observable with any relative-unit dataset gets the scale placeholder in its formula;
+    # its absolute datasets then fill it with the number 1 (PEtab v1 wants every placeholder
+    # filled on every row of the observable)
+    scaled = {
+        str(observable)
+        for observable, ids in points.groupby("observable", sort=False, observed=True)["dataset_id"]
+        if any(datasets[str(i)]["relative"] for i in ids.unique())
+    }
+    for dataset_id, group in points.groupby("dataset_id", sort=False, observed=True):
         facts = datasets[str(dataset_id)]
         observable = str(group["observable"].iloc[0])
         original = facts.get("petab") or {}
         original_rows = facts.get("petab_rows")
+        own_formula = ((original.get("observable") or {}).get("observableFormula") or "").strip()
         if observable not in observables:
             observable_row = original.get("observable") or {}
             formula = observable_row.get("observableFormula", "").strip()
             if not formula:
                 formula = f"{observable}_model"
-                if facts["relative"]:
+                if observable in scaled:
                     formula = f"observableParameter1_{observable} * {formula}"
             observables[observable] = {
                 "observableId": observable,
@@ -87,6 +97,8 @@ def petab_tables(
                 parameter = _parameter_id(facts["calibration_group"] or str(dataset_id))
                 scale_parameters[parameter] = parameter
                 observable_parameters = [parameter] * len(group)
+        elif observable in scaled and not own_formula:
+            observable_parameters = ["1"] * len(group)  # absolute data: the scale is 1
         else:
             observable_parameters = [""] * len(group)
         condition_id = f"c_{dataset_id}"

@@ -1,6 +1,8 @@
 """Weighted least squares on the weighted long table. Pure computation (no catalog, no files).
 
 Residual of point i:  r_i = sqrt(w_i) * (y_i - s_g * f_i(theta)),  objective sum r_i^2.
+Scale factors s_g (one per calibration group of relative-unit data) mean data = s x model, and
+are reported by calibration group.
 
 - The model is any :class:`~curate.fit.backends.ModelBackend` (one prediction per row), the
   parameters a :class:`~curate.fit.spec.ParameterSpec`, the residual with its projected scale
@@ -205,20 +207,15 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
     for p in problem.spec.parameters:
         if p.fixed:
             parameters[p.name] = {"value": p.start, "stderr": None}
+    # one per calibration group that has rows, by its name: data = s x model (PEtab's
+    # scale_<group> parameters are the same numbers)
     scale_factors: dict[str, float] = {}
     if problem.scale_groups:
-        prediction = problem.predict(theta, rows)
-        scales = problem.scales(prediction, rows)
-        frame = problem.points if rows is None else problem.points.iloc[rows]
-        groups = problem.group_index(rows)
-        ids = (
-            frame["dataset_id"].astype(str).to_numpy()
-            if "dataset_id" in frame
-            else np.array(problem.scale_groups)
-        )
-        for ident, group in zip(ids, groups, strict=True):
-            if group >= 0:
-                scale_factors[str(ident)] = float(scales[group])
+        scales = problem.scales(problem.predict(theta, rows), rows)
+        present = set(problem.group_index(rows).tolist())
+        scale_factors = {
+            name: float(scales[k]) for k, name in enumerate(problem.scale_groups) if k in present
+        }
     return FitResult(
         parameters=parameters, scale_factors=scale_factors, chi2=chi2, dof=dof, n_points=n_points,
         converged=converged, starts=starts, covariance=covariance, internal_covariance=internal, theta=theta,

@@ -202,7 +202,9 @@ def _weights(catalog: Ledger, policy: Policy) -> str:
     warnings = "".join(f"<li>{html.escape(w)}</li>" for w in summary.warnings)
     return (
         f'<section id="weights"><h2>Share of the total weight</h2><p class="note">Policy {html.escape(summary.policy.name)} '
-        f"(sha256 {summary.policy.sha256[:16]}…). Shares are within each observable.</p>"
+        f"(sha256 {summary.policy.sha256[:16]}…). Shares are within each observable, relative-unit data "
+        "on the absolute data's scale (their consensus scale factor), or on their own median's where "
+        "an observable has only relative data.</p>"
         + figure_tag(figure, "share of the total weight per dataset")
         + table
         + (f"<ul>{warnings}</ul>" if warnings else "")
@@ -239,7 +241,7 @@ def _consistency(catalog: Ledger) -> str:
         )
         if group.summary is not None:
             s = group.summary
-            parts.append(f'<p class="note">Late levels: Q = {s.q:.1f} on {s.dof} dof (p = {s.q_p_value:.2g}), I² = {100 * s.i2:.0f}%, '
+            parts.append(f'<p class="note">{html.escape(result.summary_of.capitalize())}: Q = {s.q:.1f} on {s.dof} dof (p = {s.q_p_value:.2g}), I² = {100 * s.i2:.0f}%, '
                          f"tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}, PDG S = {s.pdg_scale:.2f}.</p>")  # fmt: skip
     if result.labs:
         parts.append("<h3>Labs against the consensus</h3>")
@@ -290,9 +292,14 @@ def _fit_overlay(catalog: Ledger, policy: Policy) -> tuple[str, dict[str, Any] |
             for column in rows.columns:
                 if column != "time":
                     grid[column] = first[column]
-            curve = np.asarray(backend.predict(values, grid), dtype=float) * float(
-                scales.get(str(dataset_id), 1.0)
+            # scale factors go by calibration group (data = s x model); fits recorded before
+            # that were keyed by dataset id
+            scale = (
+                scales.get(str(first["calibration_group"]), scales.get(str(dataset_id), 1.0))
+                if bool(first["relative"])
+                else 1.0
             )
+            curve = np.asarray(backend.predict(values, grid), dtype=float) * float(scale)
             predictions[str(dataset_id)] = {
                 "minutes": (grid["time"] / 60.0).tolist(),
                 "value": curve.tolist(),

@@ -205,10 +205,20 @@ def weights_text(summary: WeightSummary) -> Group:
         )
     parts.append(
         Text(
-            "shares are within each observable (weights of different units do not add up); for relative units "
-            "they compare w x median|y|², which does not depend on each dataset's arbitrary scale"
+            "shares, balancing and lab caps are within each observable (weights of different units do not add "
+            "up), on one footing: relative-unit data put on the absolute data's scale by their consensus scale "
+            "factor s (data = s x reference, weight x s²), or, where an observable has only relative data, "
+            "on the scale of each dataset's median |y|"
         )
     )
+    scaled = [r for r in summary.datasets if r.footing in ("consensus", "median ratio")]
+    if scaled:
+        parts.append(
+            Text(
+                "relative data: "
+                + ", ".join(f"{r.id} s = {r.scale:.4g} ({r.footing})" for r in scaled)
+            )
+        )
     parts += [Text(f"warning: {w}") for w in summary.warnings]
     return Group(*parts)
 
@@ -276,7 +286,7 @@ def fit_text(result: FitResult) -> Group:
     if result.scale_factors:
         parts.append(
             Text(
-                "scale factors: "
+                "scale factors by calibration group (data = s x model): "
                 + ", ".join(f"{k} {v:.4g}" for k, v in result.scale_factors.items())
             )
         )

@@ -15,9 +15,8 @@ from rich.text import Text
 from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
 from curate.present.tables import field_table
 from curate.present.tables import table as plain_table
-from curate.quality.actions import ConsistencyReport
+from curate.quality.actions import ConsistencyReport, NoiseOutcome
 from curate.quality.grading import GradeSuggestion
-from curate.quality.noise import NoiseResult
 from curate.records import ConditionValue, DatasetVersion
 from curate.units import condition_text, short_unit
 
@@ -157,6 +156,24 @@ def _field_lines(version: DatasetVersion, total_versions: int) -> list[tuple[str
     return lines
 
 
+def _uncertainty_header(version: DatasetVersion) -> str:
+    """Give the header of the stored uncertainty column: what it holds, in which unit."""
+    u = version.record.uncertainty
+    unit = short_unit(version.record.observable.unit)
+    if u is None:
+        return f"sd ({unit})"
+    kind = u.type.value
+    if kind == "ci":
+        kind = f"ci{100 * (u.level or 0):g}"  # the half-width of the interval
+    elif kind in ("estimated", "assumed"):
+        kind = f"{kind} sd"
+    elif kind == "percent":
+        return "sd (% of value)"
+    if u.scale.value != "linear":
+        return f"{kind} ({u.scale.value} scale)"
+    return f"{kind} ({unit})"
+
+
 def show_text(
     version: DatasetVersion, total_versions: int, points: pd.DataFrame, *, all_points: bool
 ) -> Group:
@@ -169,12 +186,9 @@ def show_text(
     for warning in version.record.warnings:
         parts.append(Text(f"! {warning.code}: {warning.message}"))
     limit = len(points) if all_points else 12
-    headers = [
-        f"{column} ({'s' if column == 'time' else short_unit(version.record.observable.unit)})"
-        if column in ("time", "value", "sd")
-        else str(column)
-        for column in points.columns
-    ]
+    unit = short_unit(version.record.observable.unit)
+    labels = {"time": "time (s)", "value": f"value ({unit})", "sd": _uncertainty_header(version)}
+    headers = [labels.get(str(column), str(column)) for column in points.columns]
     table = plain_table(headers, right=headers)
     for row in points.head(limit).itertuples(index=False):
         table.add_row(*[f"{x:.6g}" if isinstance(x, float) else str(x) for x in row])
@@ -259,12 +273,16 @@ def _num(value: float | None, spec: str = ".3g") -> str:
     return "-" if value is None else format(value, spec)
 
 
-def noise_table(written: list[tuple[DatasetVersion, NoiseResult]]) -> Table:
-    """Give what ``curate noise`` prints."""
+def noise_table(written: list[NoiseOutcome]) -> Table:
+    """Give what ``curate noise`` prints (an unchanged estimate says so: nothing was written)."""
     table = plain_table(
         ("id", "v", "method", "sd", "unit", "dof", "why", "notes"), right=("v", "sd", "dof")
     )
-    for version, result in written:
+    for outcome in written:
+        version, result = outcome.version, outcome.result
+        notes = list(result.warnings)
+        if not outcome.changed:
+            notes.insert(0, f"unchanged: the same estimate is already in version {version.version}")
         table.add_row(
             version.id,
             str(version.version),
@@ -273,7 +291,7 @@ def noise_table(written: list[tuple[DatasetVersion, NoiseResult]]) -> Table:
             short_unit(version.record.observable.unit),
             str(result.dof),
             str(result.parameters.get("choice", "")),
-            "; ".join(result.warnings),
+            "; ".join(notes),
         )
     return table
 
@@ -322,8 +340,9 @@ def consistency_text(result: ConsistencyReport) -> Group:
                 note = (note + "; " if note else "") + "disagrees with the others"
             if not row.in_consensus:
                 note = (note + "; " if note else "") + "left out of the consensus"
-            if row.scale is not None:
-                note = (note + "; " if note else "") + f"scale {row.scale:.3g}"
+            if row.scale is not None:  # data = s x consensus, named by its calibration group
+                named = f" ({row.calibration_group})" if row.calibration_group else ""
+                note = (note + "; " if note else "") + f"scale {row.scale:.4g}{named}"
             table.add_row(
                 row.id,
                 row.lab,
@@ -339,7 +358,7 @@ def consistency_text(result: ConsistencyReport) -> Group:
             s = group.summary
             parts.append(
                 Text(
-                    f"  late levels: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
+                    f"  {result.summary_of}: weighted mean {s.weighted_mean:.4g} ± {s.mean_stderr:.2g}; Q = {s.q:.1f} on {s.dof} dof "
                     f"(p = {s.q_p_value:.2g}); I² = {100 * s.i2:.0f}%; tau² DL {s.tau2_dl:.3g}, PM {s.tau2_pm:.3g}; "
                     f"PDG S = {s.pdg_scale:.2f}"
                 )

@@ -9,6 +9,8 @@ events.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -24,15 +26,19 @@ from curate.records import (
     NoiseEstimate,
     TrustAssessment,
     UncertaintyScale,
+    canonical_json,
+    jsonable,
 )
 
 __all__ = [
     "ConsistencyGroup",
     "ConsistencyReport",
     "LabDispersion",
+    "NoiseOutcome",
     "Suggestion",
     "accept_suggestion",
     "check_consistency",
+    "consistency_inputs",
     "estimate_noise",
     "grade_from_checklist",
     "set_grade",
@@ -47,14 +53,42 @@ _LAB_OVERDISPERSED = 2.0
 _LAB_UNDERGRADED = 1.2
 
 
+@dataclass(frozen=True)
+class NoiseOutcome:
+    """One dataset's noise estimate and the version holding it; ``changed`` if newly written.
+
+    Unpacks as ``(version, result)``.
+    """
+
+    version: DatasetVersion
+    result: noise.NoiseResult
+    changed: bool
+
+    def __iter__(self) -> Iterator[Any]:
+        yield self.version
+        yield self.result
+
+
+def _same_noise(stored: NoiseEstimate | None, estimate: NoiseEstimate) -> bool:
+    """Tell whether a stored estimate says what a new one says (method, sd, dof, parameters,
+    scale); when it was made and by whom do not count."""
+    if stored is None:
+        return False
+    fields = ("method", "sd", "dof", "scale", "parameters")
+    return all(
+        jsonable(getattr(stored, name)) == jsonable(getattr(estimate, name)) for name in fields
+    )
+
+
 def estimate_noise(
     catalog: Ledger, dataset_ids: list[str], *, method: str = "auto"
-) -> list[tuple[DatasetVersion, noise.NoiseResult]]:
+) -> list[NoiseOutcome]:
     """Estimate and store the noise of each dataset (new versions, one transaction for all).
 
-    Every estimate is made before anything is written: one failure changes nothing.
+    Every estimate is made before anything is written: one failure changes nothing. An
+    estimate equal to the stored one (method, sd, dof, parameters, scale) writes nothing.
     """
-    planned: list[tuple[str, NoiseEstimate, noise.NoiseResult]] = []
+    planned: list[tuple[DatasetVersion, NoiseEstimate, noise.NoiseResult]] = []
     now = dt.datetime.now(dt.UTC)
     for dataset_id in dataset_ids:
         version = catalog.show(dataset_id)
@@ -82,18 +116,21 @@ def estimate_noise(
             made_at=now,
             made_by=catalog.actor,
         )
-        planned.append((dataset_id, estimate, result))
-    written = []
+        planned.append((version, estimate, result))
+    outcomes = []
     with catalog.transaction():
-        for dataset_id, estimate, result in planned:
-            version = catalog.new_version(
-                dataset_id,
+        for version, estimate, result in planned:
+            if _same_noise(version.record.noise, estimate):
+                outcomes.append(NoiseOutcome(version, result, changed=False))
+                continue
+            written = catalog.new_version(
+                version.id,
                 kind="noise",
                 reason=f"noise estimated by {estimate.method}",
                 update={"noise": estimate},
             )
-            written.append((version, result))
-    return written
+            outcomes.append(NoiseOutcome(written, result, changed=True))
+    return outcomes
 
 
 def set_grade(
@@ -236,17 +273,33 @@ class ConsistencyReport:
     single: list[str] = field(default_factory=list)  # datasets with nothing to compare to
     tolerance: float = 0.01
     alpha: float = 0.05
+    at: float | None = None  # the time (s) of the summary values; None: the late level
+
+    @property
+    def summary_of(self) -> str:
+        """Give what the per-group summary compares: "late levels" or "levels at 30 min"."""
+        return "late levels" if self.at is None else f"levels at {_time_text(self.at)}"
 
     def to_dict(self) -> dict[str, Any]:
         """Give the report as plain data."""
         return {
             "tolerance": self.tolerance,
             "alpha": self.alpha,
+            "at": self.at,
+            "summary_of": self.summary_of,
             "groups": [g.to_dict() for g in self.groups],
             "labs": [lab.to_dict() for lab in self.labs],
             "suggestions": [s.to_dict() for s in self.suggestions],
             "unmatched": self.single,
         }
+
+
+def _time_text(seconds: float) -> str:
+    """Give a time in the largest of h, min, s that shows it as a whole number (else in s)."""
+    for unit, size in (("h", 3600.0), ("min", 60.0)):
+        if seconds and seconds % size == 0:
+            return f"{seconds / size:g} {unit}"
+    return f"{seconds:g} s"
 
 
 def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
@@ -258,7 +311,44 @@ def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
         value=arrays.value,
         sd=measured_sd(version, arrays),
         relative=version.record.observable.relative,
+        calibration_group=version.record.protocol.calibration_group or version.id,
     )
+
+
+def consistency_inputs(version: DatasetVersion) -> str:
+    """Give the sha256 of what a consistency check reads from a version.
+
+    Its data (content hash), observable and relative flag, reported uncertainty, noise
+    estimate (not when or by whom it was made), conditions, and whether it takes part (retired,
+    excluded). A new version that changes none of these (a grade, a label, a reference) leaves
+    the check, and the suggestions made from it, as they were.
+    """
+    record = version.record
+    noise_estimate = (
+        record.noise.model_dump(mode="json", exclude={"made_at", "made_by", "warnings"})
+        if record.noise
+        else None
+    )
+    read = {
+        "content_hash": record.content_hash,
+        "observable": record.observable.id,
+        "relative": record.observable.relative,
+        "uncertainty": record.uncertainty.model_dump(mode="json") if record.uncertainty else None,
+        "noise": noise_estimate,
+        "conditions": {k: c.model_dump(mode="json") for k, c in record.conditions.items()},
+        "takes_part": not record.retired and version.grade != "X",
+    }
+    return hashlib.sha256(canonical_json(jsonable(read)).encode()).hexdigest()
+
+
+def _input_entry(version: DatasetVersion) -> dict[str, Any]:
+    return {
+        "id": version.id,
+        "version": version.version,
+        "content_hash": version.record.content_hash,
+        "record_hash": version.record_hash,
+        "inputs_sha256": consistency_inputs(version),
+    }
 
 
 def check_consistency(
@@ -285,12 +375,16 @@ def check_consistency(
         (v.id, v.record.observable.id, {k: c.value for k, c in v.record.conditions.items()})
         for v in versions
     ]
-    report = ConsistencyReport(tolerance=tolerance, alpha=alpha)
+    report = ConsistencyReport(tolerance=tolerance, alpha=alpha, at=at)
     lab_chi2: dict[str, list[float]] = {}
+    inputs: dict[str, list[dict[str, Any]]] = {}  # dataset id -> its comparison group's versions
     for members in consistency.match_groups(items, tolerance=tolerance):
         if len(members) < 2:
             report.single.extend(members)
             continue
+        group_inputs = [_input_entry(by_id[m]) for m in members]
+        for m in members:
+            inputs[m] = group_inputs
         series = [_series(catalog, by_id[m]) for m in members]
         results = consistency.against_consensus(series, alpha=alpha)
         summary = lab_summary = None
@@ -357,22 +451,106 @@ def check_consistency(
         elif ratio <= _LAB_UNDERGRADED and grades and all(g in ("C", "D") for g in grades):
             flag = "its data agree with the others better than its grades suggest"
         report.labs.append(LabDispersion(lab, chi2, int(dof), ratio, grades, flag))
-    if record and report.suggestions:
+    if record:
+        # each suggestion names the versions it was computed from; the run names every dataset
+        # it compared, so that a later run that no longer suggests a grade withdraws the old one
+        settings = {"tolerance": tolerance, "alpha": alpha, "at": at}
         with catalog.transaction():
             for suggestion in report.suggestions:
                 catalog.record_event(
-                    "grade_suggestion", suggestion.to_dict(), dataset_id=suggestion.dataset_id
+                    "grade_suggestion",
+                    {**suggestion.to_dict(), **settings, "inputs": inputs[suggestion.dataset_id]},
+                    dataset_id=suggestion.dataset_id,
+                )
+            if inputs:
+                catalog.record_event(
+                    "consistency",
+                    {
+                        **settings,
+                        "observable": observable,
+                        "compared": [_input_entry(by_id[i]) for i in inputs],
+                        "suggested": [s.dataset_id for s in report.suggestions],
+                    },
                 )
     return report
 
 
+_RERUN = "run `curate consistency` again for a current suggestion"
+
+
+def _stale_because(
+    catalog: Ledger, dataset_id: str, event: dict[str, Any]
+) -> tuple[str, str] | None:
+    """Give (why, remedy) when a recorded grade suggestion no longer holds, else None."""
+    payload = event["payload"]
+    seq = event["seq"]
+    if "inputs" not in payload:
+        return (
+            f"the suggestion of event {seq} does not name the dataset versions it was computed "
+            "from (it predates that record)",
+            _RERUN,
+        )
+    for later in catalog.events():
+        if later["seq"] <= seq or later["kind"] != "consistency":
+            continue
+        compared = {entry["id"] for entry in later["payload"].get("compared", [])}
+        if dataset_id in compared and dataset_id not in later["payload"].get("suggested", []):
+            return (
+                f"the suggestion of event {seq} was withdrawn by the newer consistency run of "
+                f"event {later['seq']}, which suggests no grade for it",
+                "to change the grade anyway, give it with its reason",
+            )
+    current = catalog.show(dataset_id)
+    if current.grade != payload.get("current"):
+        return (
+            f"the suggestion of event {seq} was computed from grade "
+            f"{payload.get('current') or 'none'}, it is {current.grade or 'none'} now",
+            _RERUN,
+        )
+    recorded = {entry["id"]: entry for entry in payload["inputs"]}
+    for ident, entry in recorded.items():
+        now = catalog.show(ident)
+        if now.version != entry["version"] and consistency_inputs(now) != entry["inputs_sha256"]:
+            return (
+                f"the suggestion of event {seq} is stale: {ident} changed since "
+                f"(version {entry['version']} -> {now.version})",
+                _RERUN,
+            )
+    # a dataset that now matches its observable and conditions would have changed the consensus
+    versions = [v for v in catalog.list(observable=current.record.observable.id) if v.grade != "X"]
+    items = [
+        (v.id, v.record.observable.id, {k: c.value for k, c in v.record.conditions.items()})
+        for v in versions
+    ]
+    tolerance = float(payload.get("tolerance", 0.01))
+    for members in consistency.match_groups(items, tolerance=tolerance):
+        if dataset_id in members:
+            joined = sorted(set(members) - set(recorded))
+            if joined:
+                return (
+                    f"the suggestion of event {seq} is stale: {', '.join(joined)} joined its "
+                    "comparison group since",
+                    _RERUN,
+                )
+    return None
+
+
 def accept_suggestion(catalog: Ledger, dataset_id: str) -> DatasetVersion:
-    """Record the newest grade suggestion for a dataset as its grade (a person's decision)."""
+    """Record the newest grade suggestion for a dataset as its grade (a person's decision).
+
+    Refused when the suggestion no longer holds: a newer consistency run covering the dataset
+    did not suggest it, the dataset's grade changed, a dataset it was compared with changed
+    what the check reads (see :func:`consistency_inputs`), or a dataset joined its group.
+    """
     event = catalog.latest_event(dataset_id, "grade_suggestion")
     if event is None:
         raise InputError(
             f"dataset {dataset_id}: no grade suggestion to accept; run `curate consistency` first"
         )
+    stale = _stale_because(catalog, dataset_id, event)
+    if stale is not None:
+        why, remedy = stale
+        raise InputError(f"dataset {dataset_id}: {why}; nothing graded: {remedy}")
     payload = event["payload"]
     return set_grade(
         catalog,

@@ -7,6 +7,11 @@ make a bad dataset look consistent).
   points (linear interpolation inside each other dataset's range only; relative-unit data put
   on one scale first, and the dataset's own scale factor fitted in closed form, costing one
   degree of freedom): chi2, dof, Birge ratio R = sqrt(chi2/dof), p-value.
+
+Scale factors follow the convention of the whole tool, data = s x reference (the fit's
+data = s x model, PEtab's ``observableParameter1 * model``): a relative dataset's reported
+``scale`` is s with y ~ s c, c the consensus of the others on the absolute scale (or, in a
+group of relative data only, on a common scale of typical level 1).
 - :func:`summary_consistency`: per-dataset summary values with uncertainties: weighted mean,
   Cochran's Q, I^2 and H (Higgins & Thompson 2002), DerSimonian-Laird and Paule-Mandel tau^2
   with random-effects means, the Particle Data Group scale factor, and the largest consistent
@@ -32,6 +37,7 @@ __all__ = [
     "SummaryConsistency",
     "against_consensus",
     "collapse_replicates",
+    "consensus_at",
     "largest_consistent_subset",
     "match_groups",
     "pdg_scale_factor",
@@ -50,6 +56,7 @@ class Series:
     value: np.ndarray
     sd: np.ndarray
     relative: bool = False
+    calibration_group: str | None = None  # the name its scale factor goes by (None: its id)
 
 
 def collapse_replicates(series: Series) -> Series:
@@ -62,7 +69,9 @@ def collapse_replicates(series: Series) -> Series:
         return series
     means = np.bincount(inverse, weights=series.value) / counts
     sd = np.sqrt(np.bincount(inverse, weights=series.sd**2)) / counts
-    return Series(series.id, series.lab, times, means, sd, series.relative)
+    return Series(
+        series.id, series.lab, times, means, sd, series.relative, series.calibration_group
+    )
 
 
 def _interpolate(other: Series, times: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -105,6 +114,19 @@ def _consensus(
     return consensus, variance, covered
 
 
+def consensus_at(
+    times: np.ndarray, others: Sequence[Series]
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Give (consensus, variance, covered) of ``others`` at ``times``.
+
+    Each other series (replicates collapsed) is interpolated linearly inside its own time range
+    only; the consensus is their inverse-variance weighted mean where at least one covers the
+    time (NaN elsewhere, ``covered`` False).
+    """
+    collapsed = [collapse_replicates(o) for o in others]
+    return _consensus(np.asarray(times, dtype=float), collapsed, [1.0] * len(collapsed))
+
+
 def _fit_scale(series: Series, consensus: np.ndarray, variance: np.ndarray, start: float) -> float:
     """Give s minimising sum (s y - c)^2 / (s^2 sd^2 + var_c): closed form, weights iterated."""
     scale = start
@@ -133,9 +155,10 @@ class ConsensusResult:
     dof: int | None
     birge_ratio: float | None
     p_value: float | None
-    scale: float | None  # the dataset's fitted scale (relative units), else None
+    scale: float | None  # relative units: s in data = s x consensus; absolute: None
     note: str = ""
     in_consensus: bool = True  # part of the consensus pool others are judged against
+    calibration_group: str | None = None  # the name of its scale factor (relative units)
 
     def to_dict(self) -> dict[str, Any]:
         """Give the result as plain data."""
@@ -150,6 +173,7 @@ class ConsensusResult:
             "scale": self.scale,
             "note": self.note,
             "in_consensus": self.in_consensus,
+            "calibration_group": self.calibration_group,
         }
 
 
@@ -196,6 +220,7 @@ def _evaluate(
         consensus, variance, covered = _consensus(s.time, others, other_scales)
         n = int(covered.sum())
         in_pool = k in pool
+        group = (s.calibration_group or s.id) if s.relative else None
         if n == 0:
             results.append(
                 ConsensusResult(
@@ -209,6 +234,7 @@ def _evaluate(
                     None,
                     note="no time overlap with the others",
                     in_consensus=in_pool,
+                    calibration_group=group,
                 )
             )
             continue
@@ -221,7 +247,9 @@ def _evaluate(
         residual = scale * y - consensus[covered]
         chi2 = float(np.sum(residual**2 / (scale**2 * sd**2 + variance[covered])))
         dof = n - lost
-        relative_scale = scale if s.relative else None
+        # the fit above puts the data on the consensus (scale * y ~ c); reported is its
+        # inverse, s in y ~ s c, the tool's one convention
+        relative_scale = 1.0 / scale if s.relative else None
         if dof <= 0:
             results.append(
                 ConsensusResult(
@@ -235,6 +263,7 @@ def _evaluate(
                     relative_scale,
                     note="too few overlapping points after the scale fit",
                     in_consensus=in_pool,
+                    calibration_group=group,
                 )
             )
             continue
@@ -249,6 +278,7 @@ def _evaluate(
                 float(stats.chi2.sf(chi2, dof)),
                 relative_scale,
                 in_consensus=in_pool,
+                calibration_group=group,
             )
         )
     return results

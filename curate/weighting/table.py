@@ -158,7 +158,7 @@ def weighted_table(catalog: Ledger, policy: Policy, selection: Selection) -> Wei
     """Give the weighted long table (one row per point), the weight summary and the versions used."""
     versions = select(catalog, selection, policy)
     points = points_table(catalog, versions, policy)
-    weighted, summary = apply_policy(points, policy)
-    condition_columns = [c for c in weighted.columns if c not in STANDARD_COLUMNS]
+    condition_columns = [c for c in points.columns if c not in STANDARD_COLUMNS]
+    weighted, summary = apply_policy(points, policy, conditions=condition_columns)
     ordered = [c for c in STANDARD_COLUMNS if c in weighted.columns] + sorted(condition_columns)
     return WeightedTable(weighted[ordered], summary, versions, policy, selection)

@@ -11,10 +11,28 @@ log-likelihood (up to constants) whose per-dataset variances the grades inflate;
 balancing or lab cap makes it a weighted criterion that is no longer a likelihood.
 
 Kish's effective sample size n_eff = (sum w)^2 / sum w^2 (Kish 1965, Survey Sampling).
+
+Shares, balancing and lab caps are computed within each observable, on one footing that does
+not depend on any dataset's arbitrary units:
+
+- absolute data as they are;
+- relative-unit data of an observable that also has absolute data on the absolute scale: with
+  the consensus scale factor s = sum w y h / sum w h^2 (data = s x reference; h the inverse-
+  variance mean of the absolute datasets under the same conditions, else of all absolute
+  datasets of the observable, interpolated linearly at the dataset's times inside their
+  range; the fit's closed form), sd/s is the sd on the absolute scale, so the dataset weighs
+  w s^2. This is also the information a point gives the model in a fit of s x f (d(s f)/df
+  = s). Without time overlap s is the ratio of the medians of |y|;
+- an observable of relative data only: each dataset on the scale of its own median |y| = m
+  (w m^2, i.e. 1/CV^2), the scale-free footing.
+
+The weights themselves are never changed by the footing; only balancing factors computed on
+it are.
 """
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -22,6 +40,7 @@ import numpy as np
 import pandas as pd
 
 from curate.errors import InputError
+from curate.quality.consistency import Series, consensus_at
 from curate.weighting.policy import Policy
 
 __all__ = [
@@ -30,6 +49,9 @@ __all__ = [
     "apply_policy",
     "kish_n_eff",
 ]
+
+# shares are sums of floating-point weights: differences below this are rounding, not weight
+_SHARE_TOLERANCE = 1e-9
 
 
 def kish_n_eff(weights: np.ndarray) -> float:
@@ -50,8 +72,10 @@ class DatasetWeight:
     n_points: int
     inflation: float
     balance: float
-    share: float  # of its observable's total weight (relative units: scale-free, w * median|y|^2)
+    share: float  # of its observable's total weight, on the footing below
     n_eff: float
+    scale: float | None = None  # relative units: s in data = s x the footing's scale
+    footing: str = "absolute"  # absolute | consensus | median ratio | scale-free
 
     def to_dict(self) -> dict[str, Any]:
         """Give the row as plain data."""
@@ -89,11 +113,15 @@ class WeightSummary:
         }
 
 
-def apply_policy(points: pd.DataFrame, policy: Policy) -> tuple[pd.DataFrame, WeightSummary]:
+def apply_policy(
+    points: pd.DataFrame, policy: Policy, *, conditions: Sequence[str] = ()
+) -> tuple[pd.DataFrame, WeightSummary]:
     """Give the points with sd (floored), inflation, balance, sigma and weight columns, and a summary.
 
-    ``points`` needs columns dataset_id, observable, lab, grade (None for ungraded), value, sd. Rows of
-    excluded grades must already be gone (the selection removes them).
+    ``points`` needs columns dataset_id, observable, lab, grade (None for ungraded), value, sd;
+    with relative-unit data also time and relative, and ``conditions`` names the condition
+    columns whose values a relative dataset's absolute references must share. Rows of excluded
+    grades must already be gone (the selection removes them).
     """
     frame = points.copy()
     if frame.empty:
@@ -131,25 +159,108 @@ def apply_policy(points: pd.DataFrame, policy: Policy) -> tuple[pd.DataFrame, We
     observable_of = (
         frame.groupby("dataset_id")["observable"].first().reindex(unique_ids).astype(str).to_numpy()
     )
+    footing = _footing(frame, base, inverse, observable_of, conditions)
+    # balancing and caps act within each observable (weights of different units do not add
+    # up), on the footing: a relative dataset's arbitrary units must not buy or cost weight
+    footed = totals * footing.multiplier
     factors = np.ones(len(unique_ids))
-    # balancing and caps act within each observable: weights of different units do not add up
     for observable in np.unique(observable_of):
         part = observable_of == observable
         if policy.balance == "equal":
-            factors[part] = totals[part].mean() / totals[part]
+            factors[part] = footed[part].mean() / footed[part]
         elif policy.balance == "sqrt":
             target = np.sqrt(sizes[part])
-            factors[part] = target / totals[part] * (totals[part].sum() / target.sum())
+            factors[part] = target / footed[part] * (footed[part].sum() / target.sum())
         if policy.lab_cap > 0 and len(np.unique(labs[part])) > 1:
             factors[part] = (
-                _cap_labs(totals[part] * factors[part], labs[part], policy.lab_cap) / totals[part]
+                _cap_labs(footed[part] * factors[part], labs[part], policy.lab_cap) / footed[part]
             )
     frame["balance"] = factors[inverse]
     weight = base * frame["balance"].to_numpy()
     frame["weight"] = weight
     frame["sigma"] = 1.0 / np.sqrt(weight)
-    summary = _summarise(frame, policy, unique_ids, inverse, labs)
+    summary = _summarise(frame, policy, unique_ids, inverse, labs, footing)
     return frame, summary
+
+
+@dataclass(frozen=True)
+class _Footing:
+    """Per dataset: the factor putting its weights on its observable's footing, and why."""
+
+    multiplier: np.ndarray
+    scale: list[float | None]
+    kind: list[str]
+
+
+def _condition_key(frame: pd.DataFrame, row: int, columns: Sequence[str]) -> tuple[Any, ...]:
+    """Give a row's condition values as a hashable key (numbers to 12 significant digits)."""
+    key: list[Any] = []
+    for column in columns:
+        value = frame[column].iat[row]
+        if value is None or (isinstance(value, float) and np.isnan(value)):
+            key.append(None)
+        elif isinstance(value, float | np.floating):
+            key.append(float(f"{float(value):.12g}"))
+        else:
+            key.append(value)
+    return tuple(key)
+
+
+def _footing(
+    frame: pd.DataFrame,
+    base: np.ndarray,
+    inverse: np.ndarray,
+    observable_of: np.ndarray,
+    conditions: Sequence[str],
+) -> _Footing:
+    """Give each dataset's footing (see the module docstring): 1 for absolute data, s^2 for
+    relative data with scale factor s against the absolute data, m^2 without them."""
+    count = len(observable_of)
+    multiplier = np.ones(count)
+    scale: list[float | None] = [None] * count
+    kind = ["absolute"] * count
+    if "relative" not in frame.columns or not frame["relative"].any():
+        return _Footing(multiplier, scale, kind)
+    order = np.argsort(inverse, kind="stable")
+    rows_of = np.split(order, np.cumsum(np.bincount(inverse, minlength=count))[:-1])
+    relative = frame["relative"].to_numpy(dtype=bool)
+    value = frame["value"].to_numpy(dtype=float)
+    sd = frame["sd"].to_numpy(dtype=float)
+    time = frame["time"].to_numpy(dtype=float) if "time" in frame.columns else None
+    is_relative = np.array([bool(relative[rows[0]]) for rows in rows_of])
+    columns = [c for c in conditions if c in frame.columns]
+    condition_of = [_condition_key(frame, int(rows[0]), columns) for rows in rows_of]
+
+    def series(k: int, times: np.ndarray) -> Series:
+        rows = rows_of[k][np.argsort(times[rows_of[k]], kind="stable")]
+        return Series(str(k), "", times[rows], value[rows], sd[rows])
+
+    for observable in np.unique(observable_of):
+        members = np.flatnonzero(observable_of == observable)
+        absolute = [int(k) for k in members if not is_relative[k]]
+        for k in (k for k in members if is_relative[k]):
+            rows = rows_of[k]
+            magnitude = float(np.median(np.abs(value[rows])))
+            if not absolute:
+                s = magnitude if magnitude > 0 else 1.0
+                multiplier[k], scale[k], kind[k] = s * s, s, "scale-free"
+                continue
+            references = [a for a in absolute if condition_of[a] == condition_of[k]] or absolute
+            s = float("nan")
+            if time is not None:
+                h, _, covered = consensus_at(time[rows], [series(a, time) for a in references])
+                w, y, h = base[rows][covered], value[rows][covered], h[covered]
+                denominator = float(np.sum(w * h * h))
+                if denominator > 0:
+                    s = float(np.sum(w * y * h)) / denominator
+            if np.isfinite(s) and s > 0:
+                multiplier[k], scale[k], kind[k] = s * s, s, "consensus"
+                continue
+            pooled = np.concatenate([value[rows_of[a]] for a in references])
+            reference = float(np.median(np.abs(pooled)))
+            s = magnitude / reference if magnitude > 0 and reference > 0 else 1.0
+            multiplier[k], scale[k], kind[k] = s * s, s, "median ratio"
+    return _Footing(multiplier, scale, kind)
 
 
 def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
@@ -177,17 +288,15 @@ def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
 
 
 def _summarise(
-    frame: pd.DataFrame, policy: Policy, ids: np.ndarray, inverse: np.ndarray, labs: np.ndarray
+    frame: pd.DataFrame,
+    policy: Policy,
+    ids: np.ndarray,
+    inverse: np.ndarray,
+    labs: np.ndarray,
+    footing: _Footing,
 ) -> WeightSummary:
-    weight = frame["weight"].to_numpy()
-    if "relative" in frame.columns and frame["relative"].any():
-        # a relative-unit dataset carries its own scale factor, so its raw weights depend on
-        # its arbitrary units: compare w * m^2 (m = the dataset's median |y|), i.e. 1/CV^2
-        magnitude = (
-            frame["value"].abs().groupby(frame["dataset_id"]).transform("median").replace(0.0, 1.0)
-        )
-        relative = frame["relative"].to_numpy(dtype=bool)
-        weight = np.where(relative, weight * magnitude.to_numpy() ** 2, weight)
+    # every share, n_eff and span on the observable's one footing (module docstring)
+    weight = frame["weight"].to_numpy() * footing.multiplier[inverse]
     per_dataset = np.bincount(inverse, weights=weight)
     per_dataset_sq = np.bincount(inverse, weights=weight**2)
     first = frame.groupby("dataset_id").first().reindex(ids)
@@ -211,6 +320,8 @@ def _summarise(
             balance=float(balance_of[k]),
             share=float(per_dataset[k] / totals[observable_of[k]]),
             n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
+            scale=footing.scale[k],
+            footing=footing.kind[k],
         )
         for k, ident in enumerate(ids)
     ]
@@ -226,7 +337,11 @@ def _summarise(
     }
     warnings = []
     for row in rows:
-        if row.share > 0.5 and sum(r.observable == row.observable for r in rows) > 1:
+        # "more than half": an even split computes as 0.5000000000000001, which is not more
+        if (
+            row.share > 0.5 + _SHARE_TOLERANCE
+            and sum(r.observable == row.observable for r in rows) > 1
+        ):
             warnings.append(
                 f"dataset {row.id} carries {100 * row.share:.0f}% of the {row.observable} weight: "
                 "the fit of that observable is mostly this one dataset"
