@@ -211,3 +211,24 @@ def test_summary_values_late_level_and_at_time():
     late = cons.summary_values([s, t])  # points at t >= 300: a has 3 and 4, b has 4
     assert late[0][2] == pytest.approx(3.5) and late[0][3] == pytest.approx(0.5 / np.sqrt(2))
     assert late[1][2] == pytest.approx(4.0)
+
+
+def test_an_overconfident_outlier_with_p_zero_leaves_the_consensus():
+    # three labs agree on a plateau of 50 (sd 1-1.5); a fourth claims sd 0.3 at 1.4x the level.
+    # Its p-value underflows to exactly 0; it must still be the one taken out of the consensus
+    # (a p of 0 is the strongest disagreement, not a missing value).
+    rng = np.random.default_rng(21)
+    times = np.linspace(0, 3600, 13)
+    level = 50.0 * (1 - np.exp(-times / 600))
+    series = [
+        cons.Series(
+            name, name, times, level + rng.normal(0, sd, len(times)), np.full(len(times), sd)
+        )
+        for name, sd in (("good_a", 1.0), ("good_b", 1.5), ("good_c", 1.2))
+    ]
+    series.append(cons.Series("bad", "bad", times, 1.4 * level, np.full(len(times), 0.3)))
+    results = {r.id: r for r in cons.against_consensus(series)}
+    assert results["bad"].p_value == 0.0
+    assert not results["bad"].in_consensus
+    assert all(results[k].in_consensus for k in ("good_a", "good_b", "good_c"))
+    assert all(results[k].p_value > 1e-3 for k in ("good_a", "good_b", "good_c"))

@@ -322,7 +322,8 @@ def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[
             raise InputError(
                 "no dataset overlaps another in time: a consensus needs a shared time range"
             )
-        failing = [i for i in pool if (results[i].p_value or 1.0) < alpha]
+        # p may underflow to exactly 0: the strongest disagreement, never "no test"
+        failing = [i for i in pool if results[i].p_value is not None and results[i].p_value < alpha]
         if not failing or len(pool) <= 2:
             return results
         worst = max(failing, key=lambda i: results[i].birge_ratio or 0.0)
