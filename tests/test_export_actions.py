@@ -311,3 +311,15 @@ def test_export_cli(cli, tmp_path, examples):
     assert run.code == 1 and "retired" in run.out
     run = cli("impact", target, "--json")
     assert run.code == 0 and json.loads(run.out)[0]["retired"] is True
+
+
+# -- what a manifest names about the catalog, and the chain head it anchors ----------------
+
+
+def test_manifest_names_the_catalog_by_id_and_file_name_only(prepared, tmp_path):
+    prepared.export("table", tmp_path / "t")
+    text = (tmp_path / "t" / "manifest.json").read_text()
+    manifest = json.loads(text)
+    assert manifest["catalog_file"] == "test.db" and "catalog_path" not in manifest
+    assert str(tmp_path) not in text  # no folder of this machine travels with the export
+    assert prepared.trace(tmp_path / "t").intact

@@ -1,9 +1,10 @@
 """The manifest every export and run carries, the README beside it, and the run's sealed event.
 
-A manifest names the tool version, the catalog and its event-chain head, the policy and its
-hash, the selection, every dataset version with its content and record hashes, and each file's
-sha256; ``manifest_sha256`` seals the rest. :func:`record_run` stores the policy, writes the
-manifest and appends the run's event in one transaction: what ``trace`` and ``impact`` read.
+A manifest names the tool version, the catalog (its id and file name, never the folder it
+sits in) and its event-chain head, the policy and its hash, the selection, every dataset
+version with its content and record hashes, and each file's sha256; ``manifest_sha256`` seals
+the rest. :func:`record_run` stores the policy, writes the manifest and appends the run's event
+in one transaction: what ``trace`` and ``impact`` read.
 """
 
 from __future__ import annotations
@@ -67,9 +68,7 @@ def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selecti
         "format": fmt,
         "created_at": now_utc(),
         "catalog_id": catalog.catalog_id,
-        "catalog_path": str(Path(catalog.path).resolve())
-        if catalog.path != ":memory:"
-        else ":memory:",
+        "catalog_file": Path(catalog.path).name if catalog.path != ":memory:" else ":memory:",
         "event_chain_head": {"seq": seq, "hash": head},
         "policy": {
             "name": policy.name,
