@@ -11,6 +11,7 @@ from conftest import LONG_CSV, write
 
 import curate
 from curate.errors import InputError, NotFoundError
+from curate.weighting import Selection
 
 OPTIONS = {
     "observable": {"id": "velarin_conc", "unit": "nM"},
@@ -256,3 +257,62 @@ def test_verify_exit_code_on_cli(cli, tmp_path):
     run = cli("verify")
     assert run.code == 1
     assert "NOT intact" in run.out and "event 1 was altered" in run.out
+
+
+# -- policies are sealed by the chain -------------------------------------------------------
+
+WITH_SD = Selection(ids=("harrow_velarin_conc_01",))  # the one dataset with reported sd
+
+
+def _export(catalog, folder, **options):
+    return catalog.export("table", folder, selection=WITH_SD, **options)
+
+
+def test_verify_detects_edited_policy_text(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    assert filled.verify().ok and filled.verify().policies == 1
+    conn = _raw(filled)
+    (sha, text) = conn.execute("SELECT sha256, text FROM policies").fetchone()
+    assert "A = 1.0" in text
+    conn.execute("UPDATE policies SET text = ?", [text.replace("A = 1.0", "A = 0.1")])
+    conn.close()
+    assert filled.verify().problems == [
+        f"policy 'curate default' ({sha[:12]}): its stored text no longer matches the hash "
+        "sealed in event 4 (edited in the file)"
+    ]
+
+
+def test_verify_detects_a_policy_missing_from_the_file(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    sha = filled.store.db.execute("SELECT sha256 FROM policies").fetchone()[0]
+    conn = _raw(filled)
+    conn.execute("DELETE FROM policies")
+    conn.close()
+    assert filled.verify().problems == [
+        f"event 4 (export) names policy {sha[:12]}, which the catalog no longer holds "
+        "(deleted from the file?)"
+    ]
+
+
+def test_verify_detects_a_policy_whose_key_was_changed(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    sha = filled.store.db.execute("SELECT sha256 FROM policies").fetchone()[0]
+    conn = _raw(filled)
+    conn.execute("UPDATE policies SET sha256 = ?", ["f" * 64])
+    conn.close()
+    assert filled.verify().problems == [
+        f"event 4 (export) names policy {sha[:12]}, which the catalog no longer holds "
+        "(deleted from the file?)",
+        "policy 'curate default' (ffffffffffff): stored, but no event names it (inserted in the file?)",
+    ]
+
+
+def test_a_second_run_seals_the_text_stored_by_the_first(filled, tmp_path):
+    # same settings, other comments: the catalog keeps the first text, and both events seal it
+    first = _export(filled, tmp_path / "t").manifest["policy"]["sha256"]
+    other = tmp_path / "same.toml"
+    default = filled.store.policy_text(first)
+    other.write_text("# my copy\n" + default, encoding="utf-8")
+    assert _export(filled, tmp_path / "u", policy=other).manifest["policy"]["sha256"] == first
+    sealed = [e["payload"]["policy_text_sha256"] for e in filled.events() if e["kind"] == "export"]
+    assert len(set(sealed)) == 1 and filled.verify().ok

@@ -106,15 +106,19 @@ def readme_text(catalog: Ledger, policy: Policy, outdir: Path) -> str:
 def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[DatasetVersion],
                manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
-    in one transaction: what ``trace`` and ``impact`` later read."""
+    in one transaction: what ``trace`` and ``impact`` later read.
+
+    The event names the manifest, the policy's settings hash and the sha256 of the policy text
+    the catalog holds (which ``verify`` recomputes).
+    """
     with catalog.transaction():
-        catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
+        text_sha256 = catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
         if folder is not None:
             write_text(folder / MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n")
         catalog.record_event(kind, {
             "format": manifest["format"], "outdir": str(folder.resolve()) if folder is not None else "",
             "manifest_sha256": manifest["manifest_sha256"], "policy_sha256": policy.sha256,
-            "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
+            "policy_text_sha256": text_sha256, "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
         })  # fmt: skip
 
 

@@ -14,7 +14,7 @@ from typing import Any
 
 from curate.records import canonical_json
 
-__all__ = ["GENESIS", "ChainProblem", "Event", "event_hash", "verify_chain"]
+__all__ = ["GENESIS", "ChainProblem", "Event", "event_hash", "text_sha256", "verify_chain"]
 
 GENESIS = "0" * 64
 
@@ -113,3 +113,8 @@ def verify_chain(events: list[Event]) -> ChainProblem | None:
             return ChainProblem(event.seq, f"event {event.seq} was altered after it was written")
         expected_prev = event.hash
     return None
+
+
+def text_sha256(text: str) -> str:
+    """Give the sha256 hex digest of a text's exact UTF-8 bytes (comments and layout count)."""
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

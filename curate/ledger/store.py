@@ -38,7 +38,7 @@ from curate.errors import CatalogError
 from curate.ledger.provenance import GENESIS, Event, event_hash
 from curate.records import SeriesArrays, array_bytes, canonical_json
 
-__all__ = ["Store", "VersionRow"]
+__all__ = ["PolicyRow", "Store", "VersionRow"]
 
 _BUSY_TIMEOUT_S = 120.0
 
@@ -57,6 +57,15 @@ class VersionRow:
     lab: str
     grade: str | None
     retired: bool
+
+
+@dataclass(frozen=True)
+class PolicyRow:
+    """A row of the policies table."""
+
+    sha256: str
+    name: str
+    text: str
 
 
 def _initial_schema(db: sqlite_utils.Database) -> None:
@@ -413,6 +422,11 @@ class Store:
         """Give the stored text of a policy, or None."""
         row = self.db.execute("SELECT text FROM policies WHERE sha256 = ?", [sha256]).fetchone()
         return None if row is None else str(row[0])
+
+    def policies(self) -> list[PolicyRow]:
+        """Give every stored policy, ordered by hash."""
+        rows = self.db.execute("SELECT sha256, name, text FROM policies ORDER BY sha256")
+        return [PolicyRow(str(r[0]), str(r[1]), str(r[2])) for r in rows]
 
     def backup_to(self, destination: Path) -> None:
         """Copy the whole catalog into a new SQLite file with SQLite's online backup.

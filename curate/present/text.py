@@ -202,16 +202,23 @@ def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
 
 def verify_text(result: VerifyReport) -> Text:
     """Give what ``curate verify`` prints."""
+    policies = f"{result.policies} polic{'y' if result.policies == 1 else 'ies'}"
     counts = (
         f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
-        f"{result.events} events"
+        f"{result.events} events, {policies}"
     )
     if result.ok:
-        return Text(f"intact: {counts} recomputed, every hash and link holds")
-    lines = [f"NOT intact ({counts} checked)"]
-    if result.sqlite != "ok":
-        lines.append(f"  sqlite integrity check: {result.sqlite}")
-    lines += [f"  {problem}" for problem in result.problems]
+        lines = [f"intact: {counts} recomputed, every hash and link holds"]
+    else:
+        lines = [f"NOT intact ({counts} checked)"]
+        if result.sqlite != "ok":
+            lines.append(f"  sqlite integrity check: {result.sqlite}")
+        lines += [f"  {problem}" for problem in result.problems]
+    if result.unsealed_policies:
+        lines.append(
+            "  text not sealed (stored by an older curate), not checked: policy "
+            + ", ".join(f"'{name}'" for name in result.unsealed_policies)
+        )
     return Text("\n".join(lines))
 
 
