@@ -7,7 +7,7 @@ import sqlite3
 
 import numpy as np
 import pytest
-from conftest import LONG_CSV, write
+from conftest import LONG_CSV, cut_event_tail, write
 
 import curate
 from curate.errors import InputError, NotFoundError
@@ -316,3 +316,58 @@ def test_a_second_run_seals_the_text_stored_by_the_first(filled, tmp_path):
     assert _export(filled, tmp_path / "u", policy=other).manifest["policy"]["sha256"] == first
     sealed = [e["payload"]["policy_text_sha256"] for e in filled.events() if e["kind"] == "export"]
     assert len(set(sealed)) == 1 and filled.verify().ok
+
+
+# -- the chain head: a cut tail is seen only against a head kept elsewhere ------------------
+
+
+def _cut_tail(catalog, after_seq):
+    cut_event_tail(catalog.path, after_seq)
+
+
+def test_verify_reports_the_chain_head(filled):
+    report = filled.verify()
+    seq, digest = filled.head()
+    assert (report.head_seq, report.head_hash) == (3, digest) and seq == 3
+    assert report.to_dict()["head"] == {"seq": 3, "hash": digest}
+    assert filled.verify(head=(3, digest)).ok
+    assert filled.verify(head=(1, filled.events()[0]["hash"])).ok  # an older head: extended
+
+
+def test_verify_detects_a_cut_tail_against_a_kept_head(filled):
+    filled.retire("quillfen_glint_01", reason="saturated detector")
+    anchor = filled.head()
+    assert anchor[0] == 4
+    _cut_tail(filled, 3)  # the retirement is silently undone: version 2 and event 4 are gone
+    assert not filled.show("quillfen_glint_01").record.retired
+    assert filled.verify().ok  # a hash chain alone cannot see a cut tail
+    report = filled.verify(head=anchor)
+    assert not report.ok
+    assert report.problems == [
+        f"the catalog no longer extends head 4:{anchor[1][:12]}: it ends at event 3 "
+        "(events were cut off, or an older copy was put back)"
+    ]
+
+
+def test_verify_detects_a_rewritten_tail_against_a_kept_head(filled):
+    filled.retire("quillfen_glint_01", reason="saturated detector")
+    anchor = filled.head()
+    _cut_tail(filled, 3)
+    filled.record_event("note", {"text": "something else"})
+    now = filled.head()
+    assert now[0] == 4 and now[1] != anchor[1] and filled.verify().ok
+    assert filled.verify(head=anchor).problems == [
+        f"the catalog no longer extends head 4:{anchor[1][:12]}: its event 4 has hash "
+        f"{now[1][:12]} (the log was rewritten from there)"
+    ]
+
+
+def test_parse_head_refuses_what_is_not_seq_colon_hash():
+    from curate.ledger.provenance import parse_head
+
+    digest = "ab" * 32
+    parsed = parse_head(f" 12:{digest.upper()} ")
+    assert (parsed.seq, parsed.hash) == (12, digest)
+    for bad in ("12", f"x:{digest}", f"-1:{digest}", "12:abc", f"12:{'g' * 64}", ""):
+        with pytest.raises(InputError, match="expected SEQ:HASH"):
+            parse_head(bad)

@@ -108,8 +108,8 @@ def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[Datase
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
     in one transaction: what ``trace`` and ``impact`` later read.
 
-    The event names the manifest, the policy's settings hash and the sha256 of the policy text
-    the catalog holds (which ``verify`` recomputes).
+    The event names the manifest, the chain head the manifest records, the policy's settings
+    hash and the sha256 of the policy text the catalog holds (which ``verify`` recomputes).
     """
     with catalog.transaction():
         text_sha256 = catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
@@ -117,8 +117,9 @@ def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[Datase
             write_text(folder / MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n")
         catalog.record_event(kind, {
             "format": manifest["format"], "outdir": str(folder.resolve()) if folder is not None else "",
-            "manifest_sha256": manifest["manifest_sha256"], "policy_sha256": policy.sha256,
-            "policy_text_sha256": text_sha256, "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
+            "manifest_sha256": manifest["manifest_sha256"], "event_chain_head": manifest["event_chain_head"],
+            "policy_sha256": policy.sha256, "policy_text_sha256": text_sha256,
+            "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
         })  # fmt: skip
 
 

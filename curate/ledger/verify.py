@@ -1,7 +1,9 @@
 """Verification: recompute every content hash, record hash, policy text and the event chain.
 
 Tells an edited point, edited metadata, a deleted, reordered or edited event, a deleted version
-and an edited or missing policy apart, and names the first broken link of each kind.
+and an edited or missing policy apart, and names the first broken link of each kind. Given a
+head kept outside the catalog (``verify --head``/``--against``), it also tells a cut tail,
+which no chain can see from the inside.
 
 Policies: a policy's own sha256 covers its normalised settings (what it does), so it cannot
 tell an edited text whose settings still parse the same, and recomputing it would need the
@@ -19,7 +21,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from curate.ledger.provenance import Event, text_sha256, verify_chain
+from curate.ledger.provenance import (
+    GENESIS,
+    ChainHead,
+    Event,
+    head_problem,
+    text_sha256,
+    verify_chain,
+)
 from curate.ledger.store import Store
 from curate.records import DatasetRecord, content_hash, record_hash
 
@@ -37,6 +46,9 @@ class VerifyReport:
     policies: int = 0
     sqlite: str = "ok"
     problems: list[str] = field(default_factory=list)
+    head_seq: int = 0
+    head_hash: str = ""
+    anchor: ChainHead | None = None  # the head kept elsewhere that was checked, if any
     unsealed_policies: list[str] = field(default_factory=list)
 
     @property
@@ -56,13 +68,15 @@ class VerifyReport:
             "problems": self.problems,
             "policies": self.policies,
             "unsealed_policies": self.unsealed_policies,
+            "head": {"seq": self.head_seq, "hash": self.head_hash},
+            "anchor": None if self.anchor is None else self.anchor.to_dict(),
         }
 
 
-def verify_store(store: Store) -> VerifyReport:
+def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
     """Give the result of recomputing every content hash, record hash, policy text and the
-    event chain."""
-    report = VerifyReport(sqlite=store.integrity_check())
+    event chain; with ``head``, also whether the catalog still extends that head."""
+    report = VerifyReport(sqlite=store.integrity_check(), anchor=head)
     rows = store.all_versions()
     report.versions = len(rows)
     report.datasets = len({r.dataset_id for r in rows})
@@ -110,6 +124,10 @@ def verify_store(store: Store) -> VerifyReport:
     report.series = len({k[0] for k in checked})
     events = store.events()
     report.events = len(events)
+    # from the events read, not a second query: a writer may append in between
+    report.head_seq, report.head_hash = (
+        (events[-1].seq, events[-1].hash) if events else (0, GENESIS)
+    )
     problem = verify_chain(events)
     if problem is not None:
         report.problems.append(f"event log: {problem.message}")
@@ -133,6 +151,10 @@ def verify_store(store: Store) -> VerifyReport:
                 "but missing from the file (deleted?)"
             )
     _verify_policies(store, events, report)
+    if head is not None:
+        cut = head_problem(events, head)
+        if cut is not None:
+            report.problems.append(cut)
     return report
 
 
