@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 
 from curate import export as exporting
+from curate.errors import InputError
 from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
@@ -29,6 +30,7 @@ from curate.ledger import (
     backup_catalog,
     intake_folder,
 )
+from curate.ledger.provenance import ChainHead
 from curate.present.report import write_report
 from curate.quality import actions as quality
 from curate.quality.grading import GradeSuggestion
@@ -121,6 +123,17 @@ class Catalog(Ledger):
         """Write holdout folds (one folder per fold) with a manifest."""
         return exporting.write_folds(self, by, outdir, policy=resolve_policy(policy),
                                      selection=selection or Selection(), force=force)  # fmt: skip
+
+    def verify(self, head: ChainHead | tuple[int, str] | None = None, *,
+               against: str | Path | None = None) -> VerifyReport:  # fmt: skip
+        """Recompute every hash, policy text and the event chain; with ``head`` (SEQ, HASH) or
+        ``against`` (an export folder, its manifest.json, or a backup file), also tell whether
+        the catalog still extends the chain head kept there."""
+        if head is not None and against is not None:
+            raise InputError("verify: give a head or a file to check against, not both")
+        if against is not None:
+            head = exporting.recorded_head(self, against)
+        return super().verify(head)
 
     def trace(self, outdir: str | Path) -> exporting.TraceReport:
         """Tell whether the catalog still holds exactly the data an export used."""

@@ -157,3 +157,25 @@ def saturating_model(folder):
         write(folder / "saturating.py", SATURATING_MODEL),
         write(folder / "saturating.toml", SATURATING_PARAMS),
     )
+
+
+def cut_event_tail(catalog_file: Path | str, after_seq: int) -> None:
+    """Delete every event after ``after_seq``, the versions they wrote and the policies only they
+    named, straight in the file (a catalog cut back, or an older copy put back)."""
+    import sqlite3
+
+    conn = sqlite3.connect(catalog_file, isolation_level=None)
+    cut = conn.execute(
+        "SELECT dataset_id, version FROM events WHERE seq > ? AND version IS NOT NULL",
+        [after_seq],
+    ).fetchall()
+    for dataset_id, version in cut:
+        conn.execute(
+            "DELETE FROM versions WHERE dataset_id = ? AND version = ?", [dataset_id, version]
+        )
+    conn.execute("DELETE FROM events WHERE seq > ?", [after_seq])
+    conn.execute(
+        "DELETE FROM policies WHERE sha256 NOT IN (SELECT json_extract(payload, '$.policy_sha256')"
+        " FROM events WHERE json_extract(payload, '$.policy_sha256') IS NOT NULL)"
+    )
+    conn.close()

@@ -17,6 +17,7 @@ from conftest import (
     MIXED_SCALE,
     ROOT,
     add_mixed_observable,
+    cut_event_tail,
     saturating_model,
     write,
 )
@@ -305,3 +306,84 @@ def test_consistency_and_fit_give_one_scale_factor_by_calibration_group(cli, tmp
     assert fitted["parameters"]["top"]["value"] == pytest.approx(20.0, rel=1e-6)
     text = cli("fit", "--model", f"{model}:predict", "--params", params).out
     assert "scale factors by calibration group (data = s x model): blot_7 1000" in text
+
+
+def test_verify_prints_the_chain_head_and_checks_a_kept_one(cli, tmp_path):
+    data = write(tmp_path / "a.csv", LONG_CSV)
+    assert cli("add", data, *ADD).code == 0
+    assert cli("retire", "harrow_velarin_conc_01", "--reason", "saturated").code == 0
+    report = json.loads(cli("verify", "--json").out)
+    for key in ("ok", "datasets", "versions", "events", "series", "sqlite", "problems"):
+        assert key in report  # the fields scripts already read stay
+    head = report["head"]
+    assert head["seq"] == 2 and len(head["hash"]) == 64 and report["anchor"] is None
+    run = cli("verify")
+    assert run.code == 0 and f"chain head: 2:{head['hash']}" in run.out
+    kept = f"2:{head['hash']}"
+    run = cli("verify", "--head", kept)
+    assert run.code == 0 and f"(extends head 2:{head['hash'][:12]})" in run.out
+    backup = tmp_path / "b.db"
+    run = cli("backup", backup)
+    assert run.code == 0 and f"chain head: 2:{head['hash']}" in run.out
+    assert f"curate verify --against {backup}" in run.out
+    assert cli("verify", "--against", backup).code == 0
+    cut_event_tail(cli.catalog, 1)  # the retirement silently undone
+    assert cli("verify").code == 0  # the chain alone cannot tell
+    for option, value, where in (
+        ("--head", kept, ""),
+        ("--against", backup, f" (from backup {backup})"),
+    ):
+        run = cli("verify", option, value)
+        assert run.code == 1
+        problem = (
+            f"  the catalog no longer extends head 2:{head['hash'][:12]}{where}: it ends at "
+            "event 1 (events were cut off, or an older copy was put back)"
+        )
+        assert run.out.splitlines().count(problem) == 1, run.out
+        assert json.loads(cli("verify", option, value, "--json").out)["problems"] == [problem[2:]]
+
+
+@pytest.mark.parametrize(
+    "value", ["12", "x:" + "a" * 64, "-1:" + "a" * 64, "3:abc", "3:" + "g" * 64]
+)
+def test_verify_refuses_a_head_that_is_not_seq_colon_hash(cli, value):
+    run = cli("verify", "--head", value)
+    assert run.code == 2 and run.err.count("\n") == 1
+    assert f"--head '{value}': expected SEQ:HASH" in run.err
+
+
+def test_verify_refuses_head_and_against_together_and_a_missing_file(cli, tmp_path):
+    run = cli("verify", "--head", "0:" + "0" * 64, "--against", tmp_path)
+    assert run.code == 2 and "not both" in run.err
+    run = cli("verify", "--against", tmp_path / "nowhere")
+    assert run.code == 2 and "no such export folder, manifest or backup file" in run.err
+    assert cli("verify", "--head", "0:" + "0" * 64).code == 0  # the empty log extends genesis
+
+
+def test_verify_against_a_tampered_backup_is_refused(cli, tmp_path):
+    import sqlite3
+
+    data = write(tmp_path / "a.csv", LONG_CSV)
+    assert cli("add", data, *ADD).code == 0
+    assert cli("backup", tmp_path / "b.db").code == 0
+    conn = sqlite3.connect(tmp_path / "b.db", isolation_level=None)
+    conn.execute("UPDATE events SET actor = 'someone else'")
+    conn.close()
+    run = cli("verify", "--against", tmp_path / "b.db")
+    assert run.code == 2 and "the backup's own event log does not hold" in run.err
+
+
+def test_trace_exits_1_for_a_catalog_rolled_back_behind_the_export(cli, tmp_path):
+    data = write(tmp_path / "a.csv", LONG_CSV)
+    assert cli("add", data, *ADD).code == 0
+    other = write(tmp_path / "b.csv", "time,value,sd\n0,1,0.1\n1,2,0.1\n")
+    assert cli("add", other, *ADD).code == 0
+    assert cli("retire", "harrow_velarin_conc_02", "--reason", "rerun").code == 0
+    assert cli("export", "table", tmp_path / "t").code == 0
+    assert cli("trace", tmp_path / "t").code == 0
+    cut_event_tail(cli.catalog, 2)
+    run = cli("trace", tmp_path / "t")
+    assert run.code == 1 and "the catalog no longer extends head 3:" in run.out
+    assert json.loads(cli("trace", tmp_path / "t", "--json").out)["chain_changed"][0].startswith(
+        "the catalog no longer extends head 3:"
+    )

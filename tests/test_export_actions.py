@@ -8,10 +8,12 @@ import logging
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import DATA, ROOT, add_mixed_observable, write
+from conftest import DATA, ROOT, add_mixed_observable, cut_event_tail, write
 
 from curate.errors import InputError
-from curate.weighting import Selection
+from curate.fit.runs import run_sensitivity
+from curate.fit.spec import load_spec
+from curate.weighting import Selection, load_policy
 
 CHECKLISTS = ROOT / "example_datasets" / "checklists"
 
@@ -338,3 +340,110 @@ def test_export_cli(cli, tmp_path, examples):
     assert run.code == 1 and "retired" in run.out
     run = cli("impact", target, "--json")
     assert run.code == 0 and json.loads(run.out)[0]["retired"] is True
+
+
+# -- what a manifest names about the catalog, and the chain head it anchors ----------------
+
+
+def test_manifest_names_the_catalog_by_id_and_file_name_only(prepared, tmp_path):
+    prepared.export("table", tmp_path / "t")
+    text = (tmp_path / "t" / "manifest.json").read_text()
+    manifest = json.loads(text)
+    assert manifest["catalog_file"] == "test.db" and "catalog_path" not in manifest
+    assert str(tmp_path) not in text  # no folder of this machine travels with the export
+    assert prepared.trace(tmp_path / "t").intact
+
+
+def _cut_behind_the_export(catalog, tmp_path):
+    """Retire a dataset, export, then cut the catalog back before the retirement."""
+    target = catalog.list()[0].id
+    catalog.retire(target, reason="saturated detector")
+    head = catalog.head()
+    catalog.export("table", tmp_path / "t")
+    assert json.loads((tmp_path / "t" / "manifest.json").read_text())["event_chain_head"] == {
+        "seq": head[0],
+        "hash": head[1],
+    }
+    cut_event_tail(catalog.path, head[0] - 1)
+    assert not catalog.show(target).record.retired and catalog.verify().ok
+    return head
+
+
+def test_trace_tells_a_catalog_rolled_back_behind_the_export(prepared, tmp_path):
+    head = _cut_behind_the_export(prepared, tmp_path)
+    report = prepared.trace(tmp_path / "t")
+    assert report.changed == [] and report.files_changed == []  # every dataset it used is there
+    assert not report.intact
+    assert report.chain_changed == [
+        f"the catalog no longer extends head {head[0]}:{head[1][:12]} (from this export): "
+        f"it ends at event {head[0] - 1} (events were cut off, or an older copy was put back)"
+    ]
+    assert report.to_dict()["chain_changed"] == report.chain_changed
+
+
+def test_trace_tells_an_export_whose_own_event_was_cut_off(prepared, tmp_path):
+    prepared.export("table", tmp_path / "t")
+    seq = prepared.head()[0]
+    cut_event_tail(prepared.path, seq - 1)  # only the export's own event goes
+    assert prepared.trace(tmp_path / "t").chain_changed == [
+        "the catalog holds no event of this export (cut off, or an older copy was put back)"
+    ]
+
+
+def test_verify_against_an_export(prepared, tmp_path):
+    head = _cut_behind_the_export(prepared, tmp_path)
+    for source in (tmp_path / "t", tmp_path / "t" / "manifest.json"):
+        report = prepared.verify(against=source)
+        assert not report.ok and report.anchor.seq == head[0]
+        assert report.problems == [
+            f"the catalog no longer extends head {head[0]}:{head[1][:12]} (from export "
+            f"manifest {tmp_path / 't' / 'manifest.json'}): it ends at event {head[0] - 1} "
+            "(events were cut off, or an older copy was put back)"
+        ]
+    with pytest.raises(InputError, match="no such export folder, manifest or backup file"):
+        prepared.verify(against=tmp_path / "nowhere")
+    with pytest.raises(InputError, match="not both"):
+        prepared.verify(head, against=tmp_path / "t")
+
+
+def test_verify_against_an_export_of_another_catalog_is_refused(prepared, tmp_path):
+    import curate
+
+    with curate.open_catalog(tmp_path / "other.db") as other:
+        data = write(tmp_path / "o.csv", "time,value,sd\n0,1,0.1\n1,2,0.1\n")
+        other.add(data, options={"observable": {"id": "x", "unit": "nM"}, "time": {"unit": "s"},
+                                 "source": {"lab": "Elsewhere"}})  # fmt: skip
+        other.export("table", tmp_path / "o")
+    with pytest.raises(InputError, match=r"o: exported from catalog [0-9a-f-]+, not .*test\.db"):
+        prepared.verify(against=tmp_path / "o")
+
+
+def _line(params, points):
+    return params["a"] + params["b"] * points["time"].to_numpy()
+
+
+def test_every_run_records_the_chain_head_it_was_made_at(catalog, tmp_path):
+    import curate
+
+    for k in range(3):
+        data = write(
+            tmp_path / f"d{k}.csv", f"time,value,sd\n0,{k},0.1\n1,{k + 1},0.1\n2,{k + 2.1},0.1\n"
+        )
+        catalog.add(data, options={"observable": {"id": "x", "unit": "nM"}, "time": {"unit": "s"},
+                                   "source": {"lab": f"Lab {k}"}})  # fmt: skip
+    spec = write(tmp_path / "p.toml", "[parameters.a]\nstart = 0\n[parameters.b]\nstart = 0\n")
+    before = catalog.head()
+    folds = catalog.folds("lab", tmp_path / "f")
+    assert folds.manifest["event_chain_head"] == {"seq": before[0], "hash": before[1]}
+    assert json.loads((tmp_path / "f" / "manifest.json").read_text()) == folds.manifest
+    backend = curate.PythonFunction(_line)
+    catalog.fit(backend, spec)
+    run_sensitivity(catalog, backend, load_spec(spec), by="lab", policy=load_policy(),
+                    selection=Selection())  # fmt: skip
+    runs = [e for e in catalog.events() if e["kind"] in ("export", "fit", "sensitivity")]
+    assert [e["kind"] for e in runs] == ["export", "fit", "sensitivity"]
+    for event in runs:
+        assert event["payload"]["event_chain_head"] == {
+            "seq": event["seq"] - 1,
+            "hash": event["prev_hash"],
+        }

@@ -7,10 +7,12 @@ import sqlite3
 
 import numpy as np
 import pytest
-from conftest import LONG_CSV, write
+from conftest import LONG_CSV, cut_event_tail, write
 
 import curate
 from curate.errors import InputError, NotFoundError
+from curate.present.text import verify_text
+from curate.weighting import Selection
 
 OPTIONS = {
     "observable": {"id": "velarin_conc", "unit": "nM"},
@@ -256,3 +258,130 @@ def test_verify_exit_code_on_cli(cli, tmp_path):
     run = cli("verify")
     assert run.code == 1
     assert "NOT intact" in run.out and "event 1 was altered" in run.out
+
+
+# -- policies are sealed by the chain -------------------------------------------------------
+
+WITH_SD = Selection(ids=("harrow_velarin_conc_01",))  # the one dataset with reported sd
+
+
+def _export(catalog, folder, **options):
+    return catalog.export("table", folder, selection=WITH_SD, **options)
+
+
+def test_verify_detects_edited_policy_text(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    assert filled.verify().ok and filled.verify().policies == 1
+    conn = _raw(filled)
+    (sha, text) = conn.execute("SELECT sha256, text FROM policies").fetchone()
+    assert "A = 1.0" in text
+    conn.execute("UPDATE policies SET text = ?", [text.replace("A = 1.0", "A = 0.1")])
+    conn.close()
+    assert filled.verify().problems == [
+        f"policy 'curate default' ({sha[:12]}): its stored text no longer matches the hash "
+        "sealed in event 4 (edited in the file)"
+    ]
+
+
+def test_verify_detects_a_policy_missing_from_the_file(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    sha = filled.store.db.execute("SELECT sha256 FROM policies").fetchone()[0]
+    conn = _raw(filled)
+    conn.execute("DELETE FROM policies")
+    conn.close()
+    assert filled.verify().problems == [
+        f"event 4 (export) names policy {sha[:12]}, which the catalog no longer holds "
+        "(deleted from the file?)"
+    ]
+
+
+def test_verify_detects_a_policy_whose_key_was_changed(filled, tmp_path):
+    _export(filled, tmp_path / "t")
+    sha = filled.store.db.execute("SELECT sha256 FROM policies").fetchone()[0]
+    conn = _raw(filled)
+    conn.execute("UPDATE policies SET sha256 = ?", ["f" * 64])
+    conn.close()
+    assert filled.verify().problems == [
+        f"event 4 (export) names policy {sha[:12]}, which the catalog no longer holds "
+        "(deleted from the file?)",
+        "policy 'curate default' (ffffffffffff): stored, but no event names it (inserted in the file?)",
+    ]
+
+
+def test_a_second_run_seals_the_text_stored_by_the_first(filled, tmp_path):
+    # same settings, other comments: the catalog keeps the first text, and both events seal it
+    first = _export(filled, tmp_path / "t").manifest["policy"]["sha256"]
+    other = tmp_path / "same.toml"
+    default = filled.store.policy_text(first)
+    other.write_text("# my copy\n" + default, encoding="utf-8")
+    assert _export(filled, tmp_path / "u", policy=other).manifest["policy"]["sha256"] == first
+    sealed = [e["payload"]["policy_text_sha256"] for e in filled.events() if e["kind"] == "export"]
+    assert len(set(sealed)) == 1 and filled.verify().ok
+
+
+def test_a_policy_named_only_by_events_from_before_text_sealing_is_listed_not_failed(filled):
+    # an event written by an older curate names the policy's settings hash only
+    with filled.transaction():
+        filled.store.put_policy("e" * 64, "old lab policy", "lab.toml", "[inflation]\nA = 1.0\n")
+        filled.record_event("export", {"format": "table", "policy_sha256": "e" * 64})
+    report = filled.verify()
+    assert report.ok and report.unsealed_policies == ["old lab policy"]
+    assert (
+        "text not sealed (stored by an older curate), not checked: policy 'old lab policy'"
+        in str(verify_text(report))
+    )
+
+
+# -- the chain head: a cut tail is seen only against a head kept elsewhere ------------------
+
+
+def _cut_tail(catalog, after_seq):
+    cut_event_tail(catalog.path, after_seq)
+
+
+def test_verify_reports_the_chain_head(filled):
+    report = filled.verify()
+    seq, digest = filled.head()
+    assert (report.head_seq, report.head_hash) == (3, digest) and seq == 3
+    assert report.to_dict()["head"] == {"seq": 3, "hash": digest}
+    assert filled.verify(head=(3, digest)).ok
+    assert filled.verify(head=(1, filled.events()[0]["hash"])).ok  # an older head: extended
+
+
+def test_verify_detects_a_cut_tail_against_a_kept_head(filled):
+    filled.retire("quillfen_glint_01", reason="saturated detector")
+    anchor = filled.head()
+    assert anchor[0] == 4
+    _cut_tail(filled, 3)  # the retirement is silently undone: version 2 and event 4 are gone
+    assert not filled.show("quillfen_glint_01").record.retired
+    assert filled.verify().ok  # a hash chain alone cannot see a cut tail
+    report = filled.verify(head=anchor)
+    assert not report.ok
+    assert report.problems == [
+        f"the catalog no longer extends head 4:{anchor[1][:12]}: it ends at event 3 "
+        "(events were cut off, or an older copy was put back)"
+    ]
+
+
+def test_verify_detects_a_rewritten_tail_against_a_kept_head(filled):
+    filled.retire("quillfen_glint_01", reason="saturated detector")
+    anchor = filled.head()
+    _cut_tail(filled, 3)
+    filled.record_event("note", {"text": "something else"})
+    now = filled.head()
+    assert now[0] == 4 and now[1] != anchor[1] and filled.verify().ok
+    assert filled.verify(head=anchor).problems == [
+        f"the catalog no longer extends head 4:{anchor[1][:12]}: its event 4 has hash "
+        f"{now[1][:12]} (the log was rewritten from there)"
+    ]
+
+
+def test_parse_head_refuses_what_is_not_seq_colon_hash():
+    from curate.ledger.provenance import parse_head
+
+    digest = "ab" * 32
+    parsed = parse_head(f" 12:{digest.upper()} ")
+    assert (parsed.seq, parsed.hash) == (12, digest)
+    for bad in ("12", f"x:{digest}", f"-1:{digest}", "12:abc", f"12:{'g' * 64}", ""):
+        with pytest.raises(InputError, match="expected SEQ:HASH"):
+            parse_head(bad)

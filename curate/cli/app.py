@@ -23,6 +23,7 @@ from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
 from curate.ingest import build_draft
 from curate.ledger import AddPlan, default_actor, restore_catalog
+from curate.ledger.provenance import parse_head
 from curate.present import run_text, text
 from curate.present.html import write_sensitivity_report
 from curate.present.jsondata import to_json
@@ -351,10 +352,30 @@ def revise(
 
 
 @app.command()
-def verify(as_json: JsonFlag = False) -> None:
-    """Recompute every hash and the event chain; exit 1 naming the first problem if any."""
+def verify(
+    head: Annotated[
+        str | None,
+        typer.Option(
+            metavar="SEQ:HASH",
+            help="a chain head kept earlier (as verify prints it): exit 1 if the catalog "
+            "no longer extends it",
+        ),
+    ] = None,
+    against: Annotated[
+        Path | None,
+        typer.Option(
+            metavar="EXPORT_OR_BACKUP",
+            help="an export folder, its manifest.json, or a backup file: exit 1 if the "
+            "catalog no longer extends the chain head recorded there",
+        ),
+    ] = None,
+    as_json: JsonFlag = False,
+) -> None:
+    """Recompute every hash, policy and the event chain, print the chain head; exit 1 naming
+    the first problem if any (or if the catalog no longer extends --head / --against)."""
+    anchor = parse_head(head) if head is not None else None
     with _catalog() as catalog:
-        result = catalog.verify()
+        result = catalog.verify(anchor, against=against)
     _show(result.to_dict(), lambda: text.verify_text(result), as_json)
     if not result.ok:
         raise typer.Exit(1)

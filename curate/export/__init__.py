@@ -10,7 +10,7 @@ from __future__ import annotations
 
 from curate.export.actions import ExportResult, FoldSet, export, write_folds
 from curate.export.formats import FORMATS
-from curate.export.trace import ImpactEntry, TraceReport, impact, trace
+from curate.export.trace import ImpactEntry, TraceReport, impact, recorded_head, trace
 
 __all__ = [
     "FORMATS",
@@ -20,6 +20,7 @@ __all__ = [
     "TraceReport",
     "export",
     "impact",
+    "recorded_head",
     "trace",
     "write_folds",
 ]

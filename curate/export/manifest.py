@@ -1,9 +1,10 @@
 """The manifest every export and run carries, the README beside it, and the run's sealed event.
 
-A manifest names the tool version, the catalog and its event-chain head, the policy and its
-hash, the selection, every dataset version with its content and record hashes, and each file's
-sha256; ``manifest_sha256`` seals the rest. :func:`record_run` stores the policy, writes the
-manifest and appends the run's event in one transaction: what ``trace`` and ``impact`` read.
+A manifest names the tool version, the catalog (its id and file name, never the folder it
+sits in) and its event-chain head, the policy and its hash, the selection, every dataset
+version with its content and record hashes, and each file's sha256; ``manifest_sha256`` seals
+the rest. :func:`record_run` stores the policy, writes the manifest and appends the run's event
+in one transaction: what ``trace`` and ``impact`` read.
 """
 
 from __future__ import annotations
@@ -67,9 +68,7 @@ def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selecti
         "format": fmt,
         "created_at": now_utc(),
         "catalog_id": catalog.catalog_id,
-        "catalog_path": str(Path(catalog.path).resolve())
-        if catalog.path != ":memory:"
-        else ":memory:",
+        "catalog_file": Path(catalog.path).name if catalog.path != ":memory:" else ":memory:",
         "event_chain_head": {"seq": seq, "hash": head},
         "policy": {
             "name": policy.name,
@@ -107,14 +106,19 @@ def readme_text(catalog: Ledger, policy: Policy, outdir: Path) -> str:
 def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[DatasetVersion],
                manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
-    in one transaction: what ``trace`` and ``impact`` later read."""
+    in one transaction: what ``trace`` and ``impact`` later read.
+
+    The event names the manifest, the chain head the manifest records, the policy's settings
+    hash and the sha256 of the policy text the catalog holds (which ``verify`` recomputes).
+    """
     with catalog.transaction():
-        catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
+        text_sha256 = catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
         if folder is not None:
             write_text(folder / MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n")
         catalog.record_event(kind, {
             "format": manifest["format"], "outdir": str(folder.resolve()) if folder is not None else "",
-            "manifest_sha256": manifest["manifest_sha256"], "policy_sha256": policy.sha256,
+            "manifest_sha256": manifest["manifest_sha256"], "event_chain_head": manifest["event_chain_head"],
+            "policy_sha256": policy.sha256, "policy_text_sha256": text_sha256,
             "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
         })  # fmt: skip
 

@@ -1,4 +1,9 @@
-"""Does an export still match the catalog (``trace``), and which runs did a correction touch (``impact``)."""
+"""Does an export still match the catalog (``trace``), and which runs did a correction touch (``impact``).
+
+An export's manifest records the event-chain head it was made at; ``trace`` also tells a
+catalog that no longer extends that head (cut back, or replaced by an older copy), and
+:func:`recorded_head` gives that head (or a backup's) to ``verify --against``.
+"""
 
 from __future__ import annotations
 
@@ -8,10 +13,12 @@ from typing import Any
 
 from curate.errors import InputError, NotFoundError
 from curate.export.files import sha256_file
-from curate.export.manifest import read_manifest
+from curate.export.manifest import MANIFEST, read_manifest
 from curate.ledger import Ledger
+from curate.ledger.backup import backup_head, is_catalog_file
+from curate.ledger.provenance import ChainHead
 
-__all__ = ["ImpactEntry", "TraceReport", "impact", "trace"]
+__all__ = ["ImpactEntry", "TraceReport", "impact", "recorded_head", "trace"]
 
 
 @dataclass
@@ -24,29 +31,73 @@ class TraceReport:
     same: list[str] = field(default_factory=list)
     changed: list[str] = field(default_factory=list)
     files_changed: list[str] = field(default_factory=list)
+    # the catalog went back behind the export: it no longer extends the head the export recorded
+    chain_changed: list[str] = field(default_factory=list)
 
     @property
     def intact(self) -> bool:
-        """Tell whether every dataset version and file is exactly as exported."""
-        return not self.changed and not self.files_changed
+        """Tell whether every dataset version and file is exactly as exported, and the catalog
+        still extends the chain head the export recorded."""
+        return not self.changed and not self.files_changed and not self.chain_changed
 
     def to_dict(self) -> dict[str, Any]:
         """Give the report as plain data."""
         return {"outdir": self.outdir, "format": self.format, "created_at": self.created_at, "intact": self.intact,
-                "same": self.same, "changed": self.changed, "files_changed": self.files_changed}  # fmt: skip
+                "same": self.same, "changed": self.changed, "files_changed": self.files_changed,
+                "chain_changed": self.chain_changed}  # fmt: skip
+
+
+def _manifest_head(manifest: dict[str, Any], path: Path, source: str) -> ChainHead:
+    recorded: Any = manifest.get("event_chain_head")
+    try:
+        return ChainHead(int(recorded["seq"]), str(recorded["hash"]), source=source)
+    except (TypeError, KeyError, ValueError):
+        raise InputError(f"{path}: the manifest records no event-chain head") from None
+
+
+def _same_catalog(catalog: Ledger, path: Path, catalog_id: str, what: str) -> None:
+    if catalog_id != catalog.catalog_id:
+        raise InputError(
+            f"{path}: {what} {catalog_id}, not {catalog.path} ({catalog.catalog_id}); open the right one with --catalog"
+        )
+
+
+def recorded_head(catalog: Ledger, source: str | Path) -> ChainHead:
+    """Give the chain head an export (its folder or manifest.json) or a backup file recorded.
+
+    The export or backup must come from this catalog (InputError otherwise).
+    """
+    path = Path(source)
+    if not path.exists():
+        raise InputError(f"{path}: no such export folder, manifest or backup file")
+    if is_catalog_file(path):
+        catalog_id, head = backup_head(path)
+        _same_catalog(catalog, path, catalog_id, "a backup of catalog")
+        return head
+    manifest = read_manifest(path)
+    _same_catalog(catalog, path, manifest["catalog_id"], "exported from catalog")
+    where = path / MANIFEST if path.is_dir() else path
+    return _manifest_head(manifest, where, f"export manifest {where}")
 
 
 def trace(catalog: Ledger, outdir: str | Path) -> TraceReport:
     """Re-read an export's manifest and compare every dataset version and file with the catalog."""
     folder = Path(outdir)
     manifest = read_manifest(folder)
-    if manifest["catalog_id"] != catalog.catalog_id:
-        raise InputError(
-            f"{folder}: exported from catalog {manifest['catalog_id']}, not from {catalog.path} ({catalog.catalog_id}); open the right one with --catalog"
-        )
+    _same_catalog(catalog, folder, manifest["catalog_id"], "exported from catalog")
     report = TraceReport(
         outdir=str(folder), format=manifest["format"], created_at=manifest["created_at"]
     )
+    head = _manifest_head(manifest, folder, "this export")
+    behind = catalog.head_problem(head)
+    if behind is not None:
+        report.chain_changed.append(behind)
+    elif not any(
+        e["payload"].get("manifest_sha256") == manifest["manifest_sha256"] for e in catalog.events()
+    ):
+        report.chain_changed.append(
+            "the catalog holds no event of this export (cut off, or an older copy was put back)"
+        )
     base = folder if folder.is_dir() else folder.parent
     for name, digest in manifest["files"].items():
         path = base / name

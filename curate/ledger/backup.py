@@ -3,6 +3,10 @@
 ``backup`` uses SQLite's online backup (other processes may keep writing) and verifies the copy
 before it takes the final name; ``restore`` verifies the backup first and keeps the catalog it
 replaces beside it. Nothing is ever deleted.
+
+A backup records the chain head it was taken at (its own newest event, printed by ``backup``);
+:func:`backup_head` reads it back without writing to the file, so ``verify --against BACKUP``
+tells whether the catalog still extends it.
 """
 
 from __future__ import annotations
@@ -14,9 +18,44 @@ from pathlib import Path
 
 from curate.errors import InputError, IntegrityError
 from curate.ledger.catalog import DEFAULT_CATALOG, Ledger
+from curate.ledger.provenance import GENESIS, ChainHead, verify_chain
+from curate.ledger.store import read_chain
 from curate.ledger.verify import VerifyReport
 
-__all__ = ["backup_catalog", "restore_catalog"]
+__all__ = ["backup_catalog", "backup_head", "is_catalog_file", "restore_catalog"]
+
+_SQLITE_MAGIC = b"SQLite format 3\x00"
+
+
+def is_catalog_file(path: str | Path) -> bool:
+    """Tell whether ``path`` is an SQLite file (a catalog or a backup of one)."""
+    file = Path(path)
+    if not file.is_file():
+        return False
+    with file.open("rb") as handle:
+        return handle.read(len(_SQLITE_MAGIC)) == _SQLITE_MAGIC
+
+
+def backup_head(path: str | Path) -> tuple[str, ChainHead]:
+    """Give (catalog id, chain head) a backup was taken at, read without writing to it.
+
+    The backup's own event chain must hold, or its head vouches for nothing (IntegrityError).
+    """
+    file = Path(path)
+    if not is_catalog_file(file):
+        raise InputError(f"{file}: not a backup made by `curate backup` (not an SQLite file)")
+    catalog_id, events = read_chain(file)
+    problem = verify_chain(events)
+    if problem is not None:
+        raise IntegrityError(
+            f"{file}: the backup's own event log does not hold ({problem.message}); "
+            "it cannot vouch for a head"
+        )
+    last = events[-1] if events else None
+    head = ChainHead(
+        last.seq if last else 0, last.hash if last else GENESIS, source=f"backup {file}"
+    )
+    return catalog_id, head
 
 
 def _first_problem(report: VerifyReport) -> str:

@@ -28,6 +28,7 @@ from curate.errors import InputError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.petab import read_petab_problem
 from curate.ingest.plausibility import Neighbour, check_against_others, typical_magnitude
+from curate.ledger.provenance import ChainHead, head_problem, text_sha256
 from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
@@ -252,17 +253,29 @@ class Ledger:
         """Give the event chain's head: (sequence number, hash) of the newest event."""
         return self._store.head()
 
-    def store_policy(self, sha256: str, name: str, origin: str, text: str) -> None:
-        """Keep a weighting policy's text under its hash (once), so runs can name it."""
+    def store_policy(self, sha256: str, name: str, origin: str, text: str) -> str:
+        """Keep a weighting policy's text under its hash (once), so runs can name it; give the
+        sha256 of the exact text the catalog holds for it, for the run's event to seal.
+
+        The first text stored under a hash stays: a later copy with other comments has the
+        same settings hash, and its run seals the text already held.
+        """
         self._store.put_policy(sha256, name, origin, text)
+        held = self._store.policy_text(sha256)
+        return text_sha256(text if held is None else held)
 
     def series_many(self, content_hashes: builtins.list[str]) -> dict[str, SeriesArrays]:
         """Give the arrays of many content hashes in one read."""
         return self._store.series_many(content_hashes)
 
-    def verify(self) -> VerifyReport:
-        """Give the result of recomputing every content hash, record hash and the event chain."""
-        return verify_store(self._store)
+    def verify(self, head: ChainHead | tuple[int, str] | None = None) -> VerifyReport:
+        """Give the result of recomputing every content hash, record hash, policy text and the
+        event chain; with ``head`` (kept outside the catalog), also whether it still extends it."""
+        return verify_store(self._store, None if head is None else _chain_head(head))
+
+    def head_problem(self, head: ChainHead | tuple[int, str]) -> str | None:
+        """Give why the catalog no longer extends a head kept elsewhere, or None if it does."""
+        return head_problem(self._store.events(), _chain_head(head))
 
     # -- logging ---------------------------------------------------------------------------
 
@@ -660,6 +673,10 @@ class Ledger:
     def events(self) -> builtins.list[dict[str, Any]]:
         """Give the whole event log as plain dicts, oldest first."""
         return [e.to_dict() for e in self._store.events()]
+
+
+def _chain_head(head: ChainHead | tuple[int, str]) -> ChainHead:
+    return head if isinstance(head, ChainHead) else ChainHead(int(head[0]), str(head[1]))
 
 
 def condition_matches(stored: Any, wanted: Any) -> bool:

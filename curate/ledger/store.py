@@ -38,7 +38,7 @@ from curate.errors import CatalogError
 from curate.ledger.provenance import GENESIS, Event, event_hash
 from curate.records import SeriesArrays, array_bytes, canonical_json
 
-__all__ = ["Store", "VersionRow"]
+__all__ = ["PolicyRow", "Store", "VersionRow", "read_chain"]
 
 _BUSY_TIMEOUT_S = 120.0
 
@@ -57,6 +57,15 @@ class VersionRow:
     lab: str
     grade: str | None
     retired: bool
+
+
+@dataclass(frozen=True)
+class PolicyRow:
+    """A row of the policies table."""
+
+    sha256: str
+    name: str
+    text: str
 
 
 def _initial_schema(db: sqlite_utils.Database) -> None:
@@ -267,18 +276,7 @@ class Store:
 
     def events(self, dataset_id: str | None = None) -> list[Event]:
         """Give the events in order, all or those of one dataset."""
-        sql = (
-            "SELECT seq, at, actor, kind, dataset_id, version, payload, prev_hash, hash FROM events"
-        )
-        args: list[Any] = []
-        if dataset_id is not None:
-            sql += " WHERE dataset_id = ?"
-            args.append(dataset_id)
-        rows = self.db.execute(sql + " ORDER BY seq", args).fetchall()
-        return [
-            Event(int(r[0]), r[1], r[2], r[3], r[4], r[5], json.loads(r[6]), r[7], r[8])
-            for r in rows
-        ]
+        return _read_events(self.db.conn, dataset_id)
 
     # -- series ----------------------------------------------------------------------------
 
@@ -414,6 +412,11 @@ class Store:
         row = self.db.execute("SELECT text FROM policies WHERE sha256 = ?", [sha256]).fetchone()
         return None if row is None else str(row[0])
 
+    def policies(self) -> list[PolicyRow]:
+        """Give every stored policy, ordered by hash."""
+        rows = self.db.execute("SELECT sha256, name, text FROM policies ORDER BY sha256")
+        return [PolicyRow(str(r[0]), str(r[1]), str(r[2])) for r in rows]
+
     def backup_to(self, destination: Path) -> None:
         """Copy the whole catalog into a new SQLite file with SQLite's online backup.
 
@@ -433,6 +436,39 @@ class Store:
     def integrity_check(self) -> str:
         """Give SQLite's own ``PRAGMA integrity_check`` answer ('ok' when sound)."""
         return str(self.db.execute("PRAGMA integrity_check").fetchone()[0])
+
+
+def _read_events(conn: sqlite3.Connection, dataset_id: str | None = None) -> list[Event]:
+    sql = "SELECT seq, at, actor, kind, dataset_id, version, payload, prev_hash, hash FROM events"
+    args: list[Any] = []
+    if dataset_id is not None:
+        sql += " WHERE dataset_id = ?"
+        args.append(dataset_id)
+    rows = conn.execute(sql + " ORDER BY seq", args).fetchall()
+    return [
+        Event(int(r[0]), r[1], r[2], r[3], r[4], r[5], json.loads(r[6]), r[7], r[8]) for r in rows
+    ]
+
+
+def read_chain(path: str | Path) -> tuple[str, list[Event]]:
+    """Give (catalog id, events) of a catalog file opened read-only (a backup: nothing written).
+
+    Opening it as a :class:`Store` would migrate it and switch it to WAL mode.
+    """
+    file = Path(path)
+    try:
+        conn = sqlite3.connect(file.resolve().as_uri() + "?mode=ro", uri=True)
+    except sqlite3.DatabaseError as err:
+        raise CatalogError(f"{file}: not a usable catalog file ({err})") from None
+    try:
+        row = conn.execute("SELECT value FROM meta WHERE key = 'catalog_id'").fetchone()
+        if row is None:
+            raise CatalogError(f"{file}: catalog fact 'catalog_id' is missing")
+        return str(row[0]), _read_events(conn)
+    except (sqlite3.DatabaseError, json.JSONDecodeError) as err:
+        raise CatalogError(f"{file}: not a usable catalog file ({err})") from None
+    finally:
+        conn.close()
 
 
 def _decode_series(row: Any) -> SeriesArrays:

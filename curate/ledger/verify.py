@@ -1,7 +1,19 @@
-"""Verification: recompute every content hash, record hash and the event chain.
+"""Verification: recompute every content hash, record hash, policy text and the event chain.
 
-Tells an edited point, edited metadata, a deleted, reordered or edited event and a deleted
-version apart, and names the first broken link of each kind.
+Tells an edited point, edited metadata, a deleted, reordered or edited event, a deleted version
+and an edited or missing policy apart, and names the first broken link of each kind. Given a
+head kept outside the catalog (``verify --head``/``--against``), it also tells a cut tail,
+which no chain can see from the inside.
+
+Policies: a policy's own sha256 covers its normalised settings (what it does), so it cannot
+tell an edited text whose settings still parse the same, and recomputing it would need the
+weighting rules, which sit above the ledger (and may change between releases). Instead every
+run event that names a policy also seals ``policy_text_sha256``, the sha256 of the exact text
+the catalog keeps for it (:func:`curate.ledger.provenance.text_sha256`); verify recomputes
+that hash of each stored text and names the policy whose text no longer matches, a run event
+naming a policy the catalog no longer holds, and a stored policy no event names. Events
+written before the text was sealed name only ``policy_sha256``; a policy named only by such
+events is counted in ``unsealed_policies`` (its presence is still checked, its text cannot be).
 """
 
 from __future__ import annotations
@@ -9,7 +21,14 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from curate.ledger.provenance import verify_chain
+from curate.ledger.provenance import (
+    GENESIS,
+    ChainHead,
+    Event,
+    head_problem,
+    text_sha256,
+    verify_chain,
+)
 from curate.ledger.store import Store
 from curate.records import DatasetRecord, content_hash, record_hash
 
@@ -24,8 +43,13 @@ class VerifyReport:
     versions: int = 0
     events: int = 0
     series: int = 0
+    policies: int = 0
     sqlite: str = "ok"
     problems: list[str] = field(default_factory=list)
+    head_seq: int = 0
+    head_hash: str = ""
+    anchor: ChainHead | None = None  # the head kept elsewhere that was checked, if any
+    unsealed_policies: list[str] = field(default_factory=list)
 
     @property
     def ok(self) -> bool:
@@ -42,12 +66,17 @@ class VerifyReport:
             "series": self.series,
             "sqlite": self.sqlite,
             "problems": self.problems,
+            "policies": self.policies,
+            "unsealed_policies": self.unsealed_policies,
+            "head": {"seq": self.head_seq, "hash": self.head_hash},
+            "anchor": None if self.anchor is None else self.anchor.to_dict(),
         }
 
 
-def verify_store(store: Store) -> VerifyReport:
-    """Give the result of recomputing every content hash, record hash and the event chain."""
-    report = VerifyReport(sqlite=store.integrity_check())
+def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
+    """Give the result of recomputing every content hash, record hash, policy text and the
+    event chain; with ``head``, also whether the catalog still extends that head."""
+    report = VerifyReport(sqlite=store.integrity_check(), anchor=head)
     rows = store.all_versions()
     report.versions = len(rows)
     report.datasets = len({r.dataset_id for r in rows})
@@ -95,6 +124,10 @@ def verify_store(store: Store) -> VerifyReport:
     report.series = len({k[0] for k in checked})
     events = store.events()
     report.events = len(events)
+    # from the events read, not a second query: a writer may append in between
+    report.head_seq, report.head_hash = (
+        (events[-1].seq, events[-1].hash) if events else (0, GENESIS)
+    )
     problem = verify_chain(events)
     if problem is not None:
         report.problems.append(f"event log: {problem.message}")
@@ -117,4 +150,43 @@ def verify_store(store: Store) -> VerifyReport:
                 f"dataset {logged_key[0]} version {logged_key[1]}: logged as written "
                 "but missing from the file (deleted?)"
             )
+    _verify_policies(store, events, report)
+    if head is not None:
+        cut = head_problem(events, head)
+        if cut is not None:
+            report.problems.append(cut)
     return report
+
+
+def _verify_policies(store: Store, events: list[Event], report: VerifyReport) -> None:
+    stored = store.policies()
+    report.policies = len(stored)
+    held = {p.sha256 for p in stored}
+    naming: dict[str, list[Event]] = {}
+    for event in events:
+        named = event.payload.get("policy_sha256")
+        if isinstance(named, str):
+            naming.setdefault(named, []).append(event)
+    for named, by in naming.items():
+        if named not in held:
+            report.problems.append(
+                f"event {by[0].seq} ({by[0].kind}) names policy {named[:12]}, which the "
+                "catalog no longer holds (deleted from the file?)"
+            )
+    for policy in stored:
+        name = f"policy '{policy.name}' ({policy.sha256[:12]})"
+        by = naming.get(policy.sha256, [])
+        if not by:
+            report.problems.append(f"{name}: stored, but no event names it (inserted in the file?)")
+            continue
+        sealed = [e for e in by if "policy_text_sha256" in e.payload]
+        if not sealed:
+            report.unsealed_policies.append(policy.name)
+            continue
+        actual = text_sha256(policy.text)
+        broken = next((e for e in sealed if e.payload["policy_text_sha256"] != actual), None)
+        if broken is not None:
+            report.problems.append(
+                f"{name}: its stored text no longer matches the hash sealed in event "
+                f"{broken.seq} (edited in the file)"
+            )

@@ -168,7 +168,8 @@ def demo_text(result: DemoFindings) -> Group:
             text += ")"
         parts.append(Text(text))
     if result.verify is not None:
-        parts.append(Text("9. " + str(verify_text(result.verify))))
+        first, *rest = str(verify_text(result.verify)).splitlines()
+        parts.append(Text("\n".join(["9. " + first, *("   " + line for line in rest)])))
     if result.report is not None:
         parts.append(Text(f"report (open it in a browser): {result.report}"))
     parts.append(
@@ -254,7 +255,9 @@ def trace_text(result: TraceReport) -> Group:
         return Group(Text(f"intact: the catalog still holds exactly the {len(result.same)} dataset versions "
                           f"this {result.format} export ({result.created_at}) used, and its files are unchanged"))  # fmt: skip
     parts: list[Any] = [Text(f"changed since the {result.format} export of {result.created_at}:")]
-    parts += [Text(f"  {line}") for line in result.changed + result.files_changed]
+    parts += [
+        Text(f"  {line}") for line in result.chain_changed + result.changed + result.files_changed
+    ]
     parts.append(Text(f"{len(result.same)} dataset versions are unchanged"))
     return Group(*parts)
 

@@ -215,17 +215,29 @@ def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
 
 
 def verify_text(result: VerifyReport) -> Text:
-    """Give what ``curate verify`` prints."""
+    """Give what ``curate verify`` prints: intact or the problems, then the chain head."""
+    policies = f"{result.policies} polic{'y' if result.policies == 1 else 'ies'}"
     counts = (
         f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
-        f"{result.events} events"
+        f"{result.events} events, {policies}"
     )
     if result.ok:
-        return Text(f"intact: {counts} recomputed, every hash and link holds")
-    lines = [f"NOT intact ({counts} checked)"]
-    if result.sqlite != "ok":
-        lines.append(f"  sqlite integrity check: {result.sqlite}")
-    lines += [f"  {problem}" for problem in result.problems]
+        lines = [f"intact: {counts} recomputed, every hash and link holds"]
+    else:
+        lines = [f"NOT intact ({counts} checked)"]
+        if result.sqlite != "ok":
+            lines.append(f"  sqlite integrity check: {result.sqlite}")
+        lines += [f"  {problem}" for problem in result.problems]
+    if result.unsealed_policies:
+        lines.append(
+            "  text not sealed (stored by an older curate), not checked: policy "
+            + ", ".join(f"'{name}'" for name in result.unsealed_policies)
+        )
+    head = f"chain head: {result.head_seq}:{result.head_hash}"
+    if result.anchor is not None and result.ok:
+        where = f" from {result.anchor.source}" if result.anchor.source else ""
+        head += f" (extends head {result.anchor.seq}:{result.anchor.hash[:12]}{where})"
+    lines.append(head)
     return Text("\n".join(lines))
 
 
@@ -464,5 +476,9 @@ def written_text(what: str, path: Path) -> Text:
 
 
 def backup_text(destination: Path, result: VerifyReport) -> Text:
-    """Give what ``curate backup`` prints."""
-    return Text(f"backup written to {destination}; {verify_text(result)}")
+    """Give what ``curate backup`` prints: the copy's verification and the head it records."""
+    return Text(
+        f"backup written to {destination}; {verify_text(result)}\n"
+        f"later, `curate verify --against {destination}` tells whether the catalog still "
+        "extends this head"
+    )

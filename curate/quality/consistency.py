@@ -323,7 +323,8 @@ def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[
                 "no dataset overlaps another in time: a consensus needs a shared time range"
             )
         # p may underflow to exactly 0: the strongest disagreement, never "no test"
-        failing = [i for i in pool if results[i].p_value is not None and results[i].p_value < alpha]
+        p_values = {i: results[i].p_value for i in pool}
+        failing = [i for i, p in p_values.items() if p is not None and p < alpha]
         if not failing or len(pool) <= 2:
             return results
         worst = max(failing, key=lambda i: results[i].birge_ratio or 0.0)
