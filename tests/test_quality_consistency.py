@@ -232,3 +232,11 @@ def test_an_overconfident_outlier_with_p_zero_leaves_the_consensus():
     assert not results["bad"].in_consensus
     assert all(results[k].in_consensus for k in ("good_a", "good_b", "good_c"))
     assert all(results[k].p_value > 1e-3 for k in ("good_a", "good_b", "good_c"))
+
+
+def test_a_reported_sd_of_zero_is_named_by_its_time_not_sent_to_noise():
+    times = np.linspace(0, 600, 5)
+    good = cons.Series("a", "A", times, np.ones(5), np.full(5, 0.1))
+    zero = cons.Series("b", "B", times, np.ones(5), np.array([0.0, 0.1, 0.1, 0.1, 0.1]))
+    with pytest.raises(InputError, match=r"dataset b: sd 0 at time 0 s; .*grade it X"):
+        cons.against_consensus([good, zero])

@@ -85,6 +85,18 @@ def test_zero_sd_without_floor_is_refused(tmp_path):
         weights.apply_policy(frame([("a", "v", "L", "A", 1.0, 0.0)]), policy)
 
 
+def test_zero_sd_at_a_zero_value_names_the_point_and_the_floor_that_helps():
+    # the shipped relative floor (1% of |y|) is 0 where y = 0: only an absolute floor helps there
+    points = frame([("a", "v", "L", "A", 0.0, 0.0), ("a", "v", "L", "A", 5.0, 0.5)])
+    points["time"] = [0.0, 60.0]
+    points["unit"] = "nanomolar"
+    with pytest.raises(InputError) as caught:
+        weights.apply_policy(points, load_policy())
+    message = str(caught.value)
+    assert "sd 0 at time 0 s" in message and "its value is 0" in message
+    assert "set floors.absolute (in nM)" in message
+
+
 def test_equal_and_sqrt_balancing(tmp_path):
     points = frame([("a", "v", "L1", "A", 1.0, 1.0)] * 4 + [("b", "v", "L2", "A", 1.0, 1.0)] * 16)
     equal, summary = weights.apply_policy(
@@ -168,6 +180,17 @@ def test_policy_hash_ignores_comments_and_layout(tmp_path):
     )
     three = policy_file(tmp_path, BASE.replace("B = 2.0", "B = 3.0"), "three.toml")
     assert one.sha256 == two.sha256 != three.sha256
+
+
+def test_a_policy_leaving_out_floors_keeps_the_shipped_ones(tmp_path):
+    # a copy of the shipped policy that changes one line must not lose the shipped noise floor
+    shipped = load_policy()
+    partial = policy_file(tmp_path, 'ungraded = "D"\n[inflation]\nA = 1\nB = 2\nC = 4\nD = 10\n')
+    assert shipped.relative_floor == 0.01
+    assert partial.relative_floor == shipped.relative_floor
+    assert partial.absolute_floor == shipped.absolute_floor
+    assert partial.unknown_noise == shipped.unknown_noise
+    assert (partial.balance, partial.lab_cap) == (shipped.balance, shipped.lab_cap)
 
 
 def test_default_policy():

@@ -303,9 +303,15 @@ def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[
         )
     collapsed = [collapse_replicates(s) for s in series]
     for s in collapsed:
-        if not np.all(np.isfinite(s.sd)) or np.any(s.sd <= 0):
+        if not np.all(np.isfinite(s.sd)):
             raise InputError(
                 f"dataset {s.id}: every point needs a positive, finite sd; run `curate noise {s.id}` first"
+            )
+        if np.any(s.sd <= 0):
+            times = ", ".join(f"{t:g}" for t in s.time[s.sd <= 0][:5])
+            raise InputError(
+                f"dataset {s.id}: sd 0 at time {times} s; a consistency test needs positive sds: "
+                "log the data again with the sd corrected, or grade it X to leave it out"
             )
     pool = set(range(len(collapsed)))
     while True:

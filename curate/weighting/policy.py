@@ -7,6 +7,7 @@ and run record. Load a policy once per action (:func:`resolve_policy`) and pass 
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import tomllib
 from dataclasses import dataclass
@@ -78,6 +79,19 @@ def _number(
     return float(value)
 
 
+@functools.cache
+def _shipped_settings() -> dict[str, Any]:
+    """Give the floors, unknown-noise and balance tables of the policy that ships with curate.
+
+    A policy file that leaves one of these keys out takes the shipped value, so a copy that
+    changes one line keeps the shipped floors (inflation factors are never filled in: every
+    fitted grade needs its own, or a place in ``exclude``).
+    """
+    text = resources.files("curate").joinpath("data/policy.toml").read_text(encoding="utf-8")
+    content = tomllib.loads(text)
+    return {key: dict(content[key]) for key in ("floors", "unknown_noise", "balance")}
+
+
 def load_policy(path: str | Path | None = None) -> Policy:
     """Give the policy in ``path`` (TOML), or the default that ships with curate."""
     if path is None:
@@ -128,6 +142,7 @@ def load_policy(path: str | Path | None = None) -> Policy:
     floors = content.get("floors", {})
     unknown = content.get("unknown_noise", {})
     balance = content.get("balance", {})
+    shipped = _shipped_settings()
     allowed = {"floors": {"absolute", "relative"}, "unknown_noise": {"action", "default_relative_sd"},
                "balance": {"mode", "lab_cap"}}  # fmt: skip
     for table, name in ((floors, "floors"), (unknown, "unknown_noise"), (balance, "balance")):
@@ -138,15 +153,17 @@ def load_policy(path: str | Path | None = None) -> Policy:
                 raise InputError(
                     f"{origin}, field '{name}.{key}': unknown; expected one of {', '.join(sorted(allowed[name]))}"
                 )
-    action = unknown.get("action", "estimate")
+    action = unknown.get("action", shipped["unknown_noise"]["action"])
     if action not in ("estimate", "refuse", "default"):
         raise InputError(
             f"{origin}, field 'unknown_noise.action': '{action}'; expected estimate, refuse or default"
         )
-    mode = balance.get("mode", "none")
+    mode = balance.get("mode", shipped["balance"]["mode"])
     if mode not in ("none", "equal", "sqrt"):
         raise InputError(f"{origin}, field 'balance.mode': '{mode}'; expected none, equal or sqrt")
-    lab_cap = _number(origin, "balance.lab_cap", balance.get("lab_cap", 0.0))
+    lab_cap = _number(
+        origin, "balance.lab_cap", balance.get("lab_cap", shipped["balance"]["lab_cap"])
+    )
     if lab_cap >= 1.0:
         raise InputError(
             f"{origin}, field 'balance.lab_cap': {lab_cap}; expected 0 (no cap) or a share below 1"
@@ -155,11 +172,11 @@ def load_policy(path: str | Path | None = None) -> Policy:
         "inflation": inflation,
         "exclude": sorted(exclude),
         "ungraded": ungraded,
-        "floors": {"absolute": _number(origin, "floors.absolute", floors.get("absolute", 0.0)),
-                   "relative": _number(origin, "floors.relative", floors.get("relative", 0.0))},
+        "floors": {"absolute": _number(origin, "floors.absolute", floors.get("absolute", shipped["floors"]["absolute"])),
+                   "relative": _number(origin, "floors.relative", floors.get("relative", shipped["floors"]["relative"]))},
         "unknown_noise": {"action": action,
                           "default_relative_sd": _number(origin, "unknown_noise.default_relative_sd",
-                                                         unknown.get("default_relative_sd", 0.1), strict=True)},
+                                                         unknown.get("default_relative_sd", shipped["unknown_noise"]["default_relative_sd"]), strict=True)},
         "balance": {"mode": mode, "lab_cap": lab_cap},
     }  # fmt: skip
     # the hash covers what the policy does, not its comments or layout

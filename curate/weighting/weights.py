@@ -40,6 +40,7 @@ import numpy as np
 import pandas as pd
 
 from curate.errors import InputError
+from curate.units import short_unit
 from curate.quality.consistency import Series, consensus_at
 from curate.weighting.policy import Policy
 
@@ -143,11 +144,7 @@ def apply_policy(
         floored, policy.relative_floor * np.abs(frame["value"].to_numpy(dtype=float))
     )
     if np.any(floored <= 0):
-        bad = frame.loc[floored <= 0, "dataset_id"].iloc[0]
-        raise InputError(
-            f"dataset {bad}: an sd of 0 with no noise floor would give an infinite weight; "
-            "set floors.absolute or floors.relative in the policy"
-        )
+        raise InputError(_zero_sd_message(frame[floored <= 0], policy))
     frame["sd"] = floored
     base = 1.0 / (floored**2 * frame["inflation"].to_numpy())
     codes, uniques = pd.factorize(frame["dataset_id"], sort=True)  # hashing: no sort of every row
@@ -261,6 +258,25 @@ def _footing(
             s = magnitude / reference if magnitude > 0 and reference > 0 else 1.0
             multiplier[k], scale[k], kind[k] = s * s, s, "median ratio"
     return _Footing(multiplier, scale, kind)
+
+
+def _zero_sd_message(rows: pd.DataFrame, policy: Policy) -> str:
+    """Say which points would get an infinite weight, and which floor can prevent it."""
+    first = rows.iloc[0]
+    dataset = first["dataset_id"]
+    mine = rows[rows["dataset_id"] == dataset]
+    times = ", ".join(f"{t:g}" for t in mine["time"].head(5)) if "time" in mine else "?"
+    unit = f" {short_unit(str(first['unit']))}" if "unit" in rows and first["unit"] else ""
+    at_zero = bool(np.all(mine["value"].to_numpy(dtype=float) == 0.0))
+    why = (
+        f"its value is 0, so the relative floor ({policy.relative_floor:g} of |y|) gives 0 there"
+        if at_zero and policy.relative_floor > 0
+        else "the policy sets no floor that lifts it"
+    )
+    return (
+        f"dataset {dataset}: sd 0 at time {times} s would give an infinite weight ({why}); "
+        f"set floors.absolute (in{unit or ' the observable unit'}) in your policy, or correct the sd"
+    )
 
 
 def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
