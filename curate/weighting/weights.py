@@ -40,8 +40,8 @@ import numpy as np
 import pandas as pd
 
 from curate.errors import InputError
-from curate.units import short_unit
 from curate.quality.consistency import Series, consensus_at
+from curate.units import short_unit
 from curate.weighting.policy import Policy
 
 __all__ = [
