@@ -149,6 +149,8 @@ def parse_condition(key: str, raw: Any, *, origin: str) -> ConditionValue:
             return parse_condition(key, raw.value, origin=origin)
         unit = units.canonical_unit(raw.unit, role=f"condition '{key}'")
         value = units.convert_scalar(float(raw.value), unit)
+        if unit.canonical == "dimensionless" and unit.original in {"", "1"}:
+            return ConditionValue(value=value)  # a plain number, as '5' on its own
         return ConditionValue(value=value, unit=unit.canonical, unit_original=unit.original)
     if isinstance(raw, bool):
         return ConditionValue(value=raw)
