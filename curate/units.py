@@ -231,6 +231,7 @@ def canonical_unit(
 # the rounding is the same on every machine (no log10, whose last bit varies by platform).
 SIGNIFICANT_DIGITS = 15
 _EXACT_POWERS = np.array([10.0**n for n in range(23)])  # 10^0 .. 10^22 are exact doubles
+_DECADES = np.array([float(f"1e{n}") for n in range(-7, 23)])  # the decade edges we round in
 
 
 def round_significant(values: np.ndarray) -> np.ndarray:
@@ -242,34 +243,30 @@ def round_significant(values: np.ndarray) -> np.ndarray:
     value goes through the text form itself.
     """
     data = np.asarray(values, dtype=np.float64)
-    out = data.copy()
     magnitude = np.abs(data)
-    usable = np.isfinite(data) & (magnitude >= 1e-7) & (magnitude < 1e22)
-    # the decimal exponent e with 10^e <= |x| < 10^(e+1), found by exact comparisons
-    exponent = np.searchsorted(_EXACT_POWERS, np.where(usable, magnitude, 1.0), side="right") - 1
-    small = usable & (magnitude < 1.0)
-    if small.any():
-        inverse = np.searchsorted(_EXACT_POWERS, 1.0 / magnitude[small], side="left")
-        # 1/|x| in (10^(m-1), 10^m] means |x| in [10^-m, 10^-(m-1)): e = -m, checked exactly below
-        exponent[small] = -inverse
+    # the decimal exponent e with 10^e <= |x| < 10^(e+1), by comparisons (an e off by one is
+    # caught below: the rounded integer would not have 15 digits)
+    exponent = np.searchsorted(_DECADES, magnitude, side="right") - 8
+    usable = (magnitude >= 1e-7) & (magnitude < 1e22)  # False for NaN and infinities
     shift = (SIGNIFICANT_DIGITS - 1) - exponent  # x * 10^shift has 15 digits before the point
-    up = usable & (shift >= 0) & (shift <= 22)
-    down = usable & (shift < 0) & (-shift <= 22)
-    scaled = np.zeros_like(data)
-    scaled[up] = data[up] * _EXACT_POWERS[shift[up]]
-    scaled[down] = data[down] / _EXACT_POWERS[-shift[down]]
-    whole = np.rint(scaled)
-    fraction = np.abs(scaled - np.floor(scaled) - 0.5)
-    # |scaled| < 2^50, so it is off by at most 1/16 from the exact product: a margin of 0.1
-    # from a half decides the rounding; 15 digits exactly (10^14 <= |scaled| < 10^15) as well
-    digits_ok = (np.abs(whole) >= 1e14) & (np.abs(whole) < 1e15)
-    safe = (up | down) & (fraction > 0.1) & digits_ok
-    out[safe & up] = whole[safe & up] / _EXACT_POWERS[shift[safe & up]]
-    out[safe & down] = whole[safe & down] * _EXACT_POWERS[-shift[safe & down]]
-    rest = np.flatnonzero(np.isfinite(data) & (data != 0) & ~safe)
-    for index in rest:
+    up = shift >= 0
+    power = _EXACT_POWERS[np.clip(np.abs(shift), 0, 22)]
+    with np.errstate(invalid="ignore", over="ignore"):
+        scaled = np.where(up, data * power, data / power)
+        whole = np.rint(scaled)
+        rounded = np.where(up, whole / power, whole * power)
+        # |scaled| < 2^50, so it is off by at most 1/16 from the exact product: a margin of 0.1
+        # from a half decides the rounding as the exact product would
+        safe = (
+            usable
+            & (np.abs(scaled - np.floor(scaled) - 0.5) > 0.1)
+            & (np.abs(whole) >= 1e14)
+            & (np.abs(whole) < 1e15)
+        )
+    out = np.where(safe, rounded, data)
+    for index in np.flatnonzero(~safe & np.isfinite(data) & (data != 0)):
         out[index] = float(f"{data[index]:.{SIGNIFICANT_DIGITS}g}")
-    return out + 0.0  # -0.0 stays a zero
+    return out + 0.0  # -0.0 becomes 0.0, as the content hash counts it
 
 
 def convert(values: np.ndarray, unit: CanonicalUnit, *, rounded: bool = True) -> np.ndarray:
