@@ -324,7 +324,7 @@ def minutes(catalog, tmp_path):
     """A dataset logged in minutes and uM: every converted number has a short decimal form."""
     data = write(tmp_path / "minutes.csv", MINUTES_CSV)
     options = {"observable": {"id": "velarin_conc", "unit": "uM"}, "time": {"unit": "min"},
-               "source": {"lab": "Harrow Point Lab"}, "conditions": {"dose": "2.01 uM"},
+               "source": {"lab": "Harrow Point Lab"}, "conditions": {"dose": "2.01 uM", "passage": 5},
                "trust": {"grade": "B", "rationale": "one run"}}  # fmt: skip
     catalog.add(data, options=options)
     return catalog
@@ -359,6 +359,11 @@ def test_minutes_come_back_as_decimal_seconds_in_every_export(minutes, tmp_path)
         import frictionless
 
         assert frictionless.validate(str(tmp_path / "datapackage" / "datapackage.json")).valid
+    descriptor = json.loads((tmp_path / "datapackage" / "datapackage.json").read_text())
+    fields = {f["name"]: f for f in descriptor["resources"][1]["schema"]["fields"]}
+    assert fields["dose"]["unitCode"] == "nmol/L" and fields["passage"]["unitCode"] == "1"
+    described = json.loads((tmp_path / "petab" / "units.json").read_text())["conditions"]
+    assert described["passage"] == {"column": "passage", "unit": "1", "ucum": "1"}
 
 
 def test_exports_name_units_by_symbol_and_give_every_condition_its_unit(prepared, tmp_path):

@@ -120,7 +120,7 @@ def test_bad_problem_file(cli, tmp_path):
     assert run.code == 2 and "no such PEtab problem file" in run.err
 
 
-def curate_export(tmp_path, *, grades=("B", "B"), units_json=None):
+def curate_export(tmp_path, *, grades=("B", "B"), units_json=None, unit="nM", relative="false"):
     """Write a small problem shaped like curate's own PEtab export."""
     from conftest import write
 
@@ -136,7 +136,7 @@ def curate_export(tmp_path, *, grades=("B", "B"), units_json=None):
     header = ("observableId\tsimulationConditionId\tmeasurement\ttime\tnoiseParameters\tdatasetId\t"
               "curateVersion\ttrustGrade\tcurateSd\tcurateGrade\tcurateUnit\tcurateRelative\n")  # fmt: skip
     rows = "".join(
-        f"velarin_conc\tc_lab_01\t{value}\t{time}\t{2 * sd}\tlab_01\t3\tB\t{sd}\t{grade}\tnM\tfalse\n"
+        f"velarin_conc\tc_lab_01\t{value}\t{time}\t{2 * sd}\tlab_01\t3\tB\t{sd}\t{grade}\t{unit}\t{relative}\n"
         for (time, value, sd), grade in zip(
             ((0.0, 1.5, 0.1), (60.0, 2.5, 0.2)), grades, strict=True
         )
@@ -184,3 +184,12 @@ def test_unreadable_units_file_is_refused(catalog, tmp_path):
     problem = curate_export(tmp_path, units_json="{not json")
     with pytest.raises(InputError, match="units.json: not readable JSON"):
         catalog.import_petab(problem)
+
+
+def test_curate_relative_flag_wins_over_the_formula(catalog, tmp_path):
+    # percent of peak exported as relative data in '1': the formula alone (no scale
+    # parameter, another dataset's) would make it absolute
+    problem = curate_export(tmp_path, unit="1", relative="true")
+    (result,) = catalog.import_petab(problem, unit="nM")
+    observable = catalog.show(result.id).record.observable
+    assert observable.relative and observable.unit == "dimensionless"  # curateUnit wins too

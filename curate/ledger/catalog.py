@@ -181,6 +181,11 @@ def _kind_text(kind: str) -> str:
     return f"a quantity in {units.short_unit(kind)} ({units.dimension_of(kind)})"
 
 
+def _kind_example(kind: str) -> str:
+    examples = {"text": "text", "true/false": "true or false", "number": "a plain number"}
+    return examples.get(kind, f"a value with a unit such as '10 {units.short_unit(kind)}'")
+
+
 def _unit_text(unit: str) -> str:
     return f"{units.short_unit(unit)} ({units.dimension_of(unit)})"
 
@@ -259,8 +264,8 @@ class _ActionContext:
                         f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
                         f"{_kind_text(kind)}, but other datasets hold '{key}' as "
                         f"{_kind_text(other)}, e.g. {holders[0]}; a condition key keeps one "
-                        f"kind across the catalog: give '{key}' as {_kind_text(other)}, or "
-                        "use another key"
+                        f"kind across the catalog: give {_kind_example(other)}, or use "
+                        "another key"
                     )
 
     def level(self, observable: str, unit: str) -> float | None:
