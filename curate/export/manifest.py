@@ -131,7 +131,7 @@ Columns (one row per measured point; time in seconds, values in the unit column)
 All uncertainties are on the linear scale of the values.
 
 Units: time is in seconds. In points.csv the unit column holds the symbol of each row's unit
-(nM, um/s, a.u., 1) and unit_ucum its UCUM code; value, sd and sigma are in that unit, weight
+(nM, µm/s, a.u., 1) and unit_ucum its UCUM code; value, sd and sigma are in that unit, weight
 in its inverse square. units.json names the unit of every column, conditions included
 ("conditions": {{key: {{"column", "unit", "ucum"}}}}; null for text). In the PEtab tables the
 measurement's unit is the row's curateUnit, conditions.tsv columns have the units in
