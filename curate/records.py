@@ -52,6 +52,7 @@ __all__ = [
     "canonical_json",
     "content_hash",
     "jsonable",
+    "normalise_grade",
     "record_hash",
 ]
 
@@ -62,6 +63,21 @@ Identifier = Annotated[str, StringConstraints(pattern=IDENTIFIER_PATTERN, max_le
 # Our trust scale: A (best) to D, and X = kept in the catalog, never fitted.
 GRADES = ("A", "B", "C", "D", "X")
 EXCLUSION_GRADE = "X"
+
+
+def normalise_grade(text: Any) -> Any:
+    """Give a grade as the scale writes it: ' b ' -> 'B'; 'none' (any case) -> 'none'.
+
+    Anything that is not a grade comes back unchanged, for the caller's error to quote it.
+    """
+    if not isinstance(text, str):
+        return text
+    cleaned = text.strip()
+    if cleaned.upper() in GRADES:
+        return cleaned.upper()
+    if cleaned.lower() == "none":
+        return "none"
+    return text
 
 
 class _Record(BaseModel):

@@ -27,10 +27,13 @@ __all__ = [
     "canonical_unit",
     "condition_text",
     "convert",
+    "convert_difference",
     "convert_scalar",
+    "dimension_of",
     "is_relative_unit",
     "parse_quantity",
     "registry",
+    "round_significant",
     "scale_factor",
     "short_unit",
     "to_unit",
@@ -64,7 +67,7 @@ _RELATIVE_ALIASES = {
     "rel",
     "rel.",
 }
-_DIMENSIONLESS_ALIASES = {"", "1", "-", "dimensionless", "none", "unitless"}
+_DIMENSIONLESS_ALIASES = {"", "1", "-", "dimensionless", "none", "unitless", "fraction"}
 
 # Canonical unit per dimensionality (pint's dimensionality string). A dimension not listed
 # keeps SI base units.
@@ -223,20 +226,84 @@ def canonical_unit(
     )
 
 
-def convert(values: np.ndarray, unit: CanonicalUnit) -> np.ndarray:
+# Converted values keep 15 significant digits, what a float64 carries exactly: 0.41 min is
+# then 24.6 s, not the product's 24.599999999999998. Exact powers of ten below, so that
+# the rounding is the same on every machine (no log10, whose last bit varies by platform).
+SIGNIFICANT_DIGITS = 15
+_EXACT_POWERS = np.array([10.0**n for n in range(23)])  # 10^0 .. 10^22 are exact doubles
+_DECADES = np.array([float(f"1e{n}") for n in range(-7, 23)])  # the decade edges we round in
+
+
+def round_significant(values: np.ndarray) -> np.ndarray:
+    """Give ``values`` rounded to 15 significant digits, as ``float(f"{x:.15g}")`` would.
+
+    Vectorised: x * 10^k is rounded to an integer r and r / 10^k (both exact) is the nearest
+    double to the decimal, which is what parsing the 15-digit text gives. Where that shortcut
+    could round differently (a product within 0.1 of a half, or |x| outside 1e-7 .. 1e22), the
+    value goes through the text form itself.
+    """
+    data = np.asarray(values, dtype=np.float64)
+    magnitude = np.abs(data)
+    # the decimal exponent e with 10^e <= |x| < 10^(e+1), by comparisons (an e off by one is
+    # caught below: the rounded integer would not have 15 digits)
+    exponent = np.searchsorted(_DECADES, magnitude, side="right") - 8
+    usable = (magnitude >= 1e-7) & (magnitude < 1e22)  # False for NaN and infinities
+    shift = (SIGNIFICANT_DIGITS - 1) - exponent  # x * 10^shift has 15 digits before the point
+    up = shift >= 0
+    power = _EXACT_POWERS[np.clip(np.abs(shift), 0, 22)]
+    with np.errstate(invalid="ignore", over="ignore"):
+        scaled = np.where(up, data * power, data / power)
+        whole = np.rint(scaled)
+        rounded = np.where(up, whole / power, whole * power)
+        # |scaled| < 2^50, so it is off by at most 1/16 from the exact product: a margin of 0.1
+        # from a half decides the rounding as the exact product would
+        safe = (
+            usable
+            & (np.abs(scaled - np.floor(scaled) - 0.5) > 0.1)
+            & (np.abs(whole) >= 1e14)
+            & (np.abs(whole) < 1e15)
+        )
+    out = np.where(safe, rounded, data)
+    for index in np.flatnonzero(~safe & np.isfinite(data) & (data != 0)):
+        out[index] = float(f"{data[index]:.{SIGNIFICANT_DIGITS}g}")
+    return out + 0.0  # -0.0 becomes 0.0, as the content hash counts it
+
+
+def convert(values: np.ndarray, unit: CanonicalUnit, *, rounded: bool = True) -> np.ndarray:
     """Give ``values`` (in ``unit.original``) converted to ``unit.canonical`` as float64.
 
     The factor is worked out once by pint and applied with numpy; offset units (degC, degF)
-    go through pint itself so that their offsets stay exact.
+    go through pint itself so that their offsets stay exact. A converted value is rounded to
+    15 significant digits (see :func:`round_significant`) unless ``rounded`` is False (the
+    form stored before that rule, kept to recognise data logged earlier); values already in
+    the canonical unit are kept exactly as given.
     """
     data = np.asarray(values, dtype=np.float64)
     factor, offset = _conversion(unit.original, unit.canonical)
     if (factor, offset) == (1.0, 0.0):
         return data.copy()
     if offset == 0.0:
-        return data * factor
-    q = registry().Quantity(data, _parse_cached(unit.original))
-    return np.asarray(q.m_as(_parse_cached(unit.canonical)), dtype=np.float64)
+        converted = data * factor
+    else:
+        q = registry().Quantity(data, _parse_cached(unit.original))
+        converted = np.asarray(q.m_as(_parse_cached(unit.canonical)), dtype=np.float64)
+    return round_significant(converted) if rounded else converted
+
+
+def convert_difference(
+    values: np.ndarray, unit: CanonicalUnit, *, rounded: bool = True
+) -> np.ndarray:
+    """Give differences such as an sd (in ``unit.original``) in ``unit.canonical``.
+
+    Offset units convert differences by their scale alone (an sd of 1 K is 1 °C); rounded as
+    :func:`convert` rounds.
+    """
+    data = np.asarray(values, dtype=np.float64)
+    factor = scale_factor(unit)
+    if factor == 1.0:
+        return data.copy()
+    converted = data * factor
+    return round_significant(converted) if rounded else converted
 
 
 def scale_factor(unit: CanonicalUnit) -> float:
@@ -246,6 +313,11 @@ def scale_factor(unit: CanonicalUnit) -> float:
     """
     # two points, so that offset units (K -> degC) give the size of a degree, not a temperature
     return _conversion(unit.original, unit.canonical)[0]
+
+
+def dimension_of(canonical: str) -> str:
+    """Give the pint dimensionality of a canonical unit name, e.g. '[time]'."""
+    return str(registry().get_dimensionality(_parse_cached(canonical)))
 
 
 def to_unit(value: float, unit: str, target: str) -> float:
@@ -286,26 +358,40 @@ def convert_scalar(value: float, unit: CanonicalUnit) -> float:
     return float(f"{converted:.15g}")
 
 
+# The symbol of each canonical unit: what exports write in their unit column and what a
+# person reads. Each one parses back to its canonical unit (tests/test_units.py checks it).
 _UNIT_SHORT = {
     "second": "s",
+    "1 / second": "1/s",
     "micrometer": "µm",
-    "nanomolar": "nM",
+    "micrometer ** 2": "µm^2",
+    "micrometer ** 3": "µm^3",
     "micrometer / second": "µm/s",
+    "micrometer ** 2 / second": "µm^2/s",
+    "nanomolar": "nM",
+    "nanomole": "nmol",
+    "nanogram / milliliter": "ng/mL",
+    "piconewton": "pN",
+    "degree_Celsius": "°C",
+    "millivolt": "mV",
+    "kilodalton": "kDa",
     "dimensionless": "1",
     "arbitrary_unit": "a.u.",
-    "degree_Celsius": "°C",
-    "piconewton": "pN",
-    "1 / second": "1/s",
-    "nanogram / milliliter": "ng/mL",
-    "millivolt": "mV",
+    "nanomolar / second": "nM/s",
 }
 
 
 def short_unit(unit: str | None) -> str:
-    """Give a compact label for a canonical unit."""
+    """Give the symbol of a canonical unit ('nanomolar' -> 'nM'); pint's own symbol otherwise."""
     if unit is None:
         return ""
-    return _UNIT_SHORT.get(unit, unit)
+    known = _UNIT_SHORT.get(unit)
+    if known is not None:
+        return known
+    try:
+        return format(_parse_cached(unit), "~P") or unit
+    except UnitError:
+        return unit
 
 
 def condition_text(value: ConditionValue) -> str:

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import json
 import sqlite3
 from pathlib import Path
 
+import pandas as pd
 import pytest
 from conftest import LONG_CSV, SIDECAR, write
 
@@ -249,3 +251,113 @@ def test_file_that_is_not_a_catalog(cli, tmp_path):
     fake.write_text("this is not sqlite" * 100)
     run = cli("list", catalog_path=fake)
     assert run.code == 2 and "not a usable catalog file" in run.err
+
+
+NM = ["--observable", "velarin_conc", "--unit", "nM", "--time-unit", "min", "--lab", "L"]
+
+
+@pytest.fixture
+def concentrations(cli, tmp_path):
+    """A CLI runner whose catalog holds one nM dataset with a dose condition."""
+    good = write(tmp_path / "conc.csv", LONG_CSV)
+    assert cli("add", good, *NM, "--condition", "dose=10uM").code == 0
+    return cli
+
+
+def refused(cli, args, expected):
+    before = dump(cli.catalog)
+    run = cli(*args)
+    assert run.code == 2, run
+    lines = run.err.strip().splitlines()
+    assert len(lines) == 1, run.err
+    assert expected in lines[0], lines[0]
+    assert "Traceback" not in run.err and "Error" not in lines[0].split(":")[0]
+    assert dump(cli.catalog) == before
+    return lines[0]
+
+
+def test_unit_of_another_dimension_is_refused(concentrations, tmp_path):
+    data = write(tmp_path / "far.csv", "time,value\n0,1\n1,5\n2,8\n")
+    line = refused(
+        concentrations,
+        ["add", data, *NM[:2], "--unit", "furlongs", *NM[4:]],
+        "unit 'furlongs' ([length]) does not fit observable 'velarin_conc', whose datasets "
+        "are in nM ([substance] / [length] ** 3), e.g. l_velarin_conc_01",
+    )
+    assert "far.csv" in line
+
+
+def test_percent_of_peak_joins_a_concentration_observable(concentrations, tmp_path):
+    data = write(tmp_path / "pct.csv", "time,value\n0,0\n5,40\n10,100\n20,70\n")
+    run = concentrations("add", data, *NM[:2], "--unit", "%", *NM[4:], "--normalisation", "peak",
+                         "--condition", "dose=10uM", "--json")  # fmt: skip
+    assert run.code == 0, run.err
+    shown = json.loads(concentrations("show", json.loads(run.out)["id"], "--json").out)
+    assert shown["relative"] is True and shown["unit"] == "dimensionless"
+
+
+def test_condition_of_another_kind_is_refused(concentrations, tmp_path):
+    data = write(tmp_path / "abc.csv", "time,value\n0,1\n1,5\n2,8\n")
+    refused(
+        concentrations,
+        ["add", data, *NM, "--condition", "dose=abc"],
+        "condition 'dose': 'abc' is text, but other datasets hold 'dose' as a quantity in nM",
+    )
+    other = write(tmp_path / "other.csv", "time,value\n0,2\n1,6\n2,9\n")
+    assert concentrations("add", other, *NM, "--condition", "dose=1uM").code == 0
+    refused(
+        concentrations,
+        ["revise", "l_velarin_conc_01", "--reason", "r", "--condition", "dose=abc"],
+        "condition 'dose': 'abc' is text, but other datasets hold 'dose' as a quantity in nM "
+        "([substance] / [length] ** 3), e.g. l_velarin_conc_02",
+    )
+
+
+def test_condition_key_given_twice_is_refused(concentrations, tmp_path):
+    data = write(tmp_path / "twice.csv", "time,value\n0,1\n1,5\n2,8\n")
+    twice = ["--condition", "dose=10uM", "--condition", "dose=20uM"]
+    expected = "--condition 'dose=20uM': key 'dose' is given twice (also 'dose=10uM')"
+    refused(concentrations, ["add", data, *NM, *twice], expected)
+    refused(concentrations, ["revise", "l_velarin_conc_01", "--reason", "r", *twice], expected)
+    refused(concentrations, ["list", *twice], expected)
+
+
+def test_import_petab_of_another_dimension_is_refused(cli):
+    from conftest import DATA
+
+    problem = DATA / "petab" / "Boehm_JProteomeRes2014" / "Boehm_JProteomeRes2014.yaml"
+    assert cli("import-petab", problem, "--unit", "nM").code == 0
+    refused(cli, ["import-petab", problem, "--unit", "s"], "unit 's' ([time]) does not fit")
+
+
+def test_intake_quarantines_a_unit_of_another_dimension(concentrations, tmp_path):
+    inbox = tmp_path / "inbox"
+    write(inbox / "far.csv", "time,value\n0,1\n1,5\n2,8\n")
+    write(inbox / "far.toml", 'observable.id = "velarin_conc"\nobservable.unit = "furlongs"\n'
+          'time.unit = "min"\nsource.lab = "L"\n')  # fmt: skip
+    run = concentrations("intake", inbox)
+    assert run.code == 1
+    reason = (inbox / "quarantine" / "far.csv.reason.txt").read_text()
+    assert "does not fit observable 'velarin_conc'" in reason
+
+
+def test_lowercase_grade_is_accepted_everywhere(concentrations, tmp_path):
+    data = write(tmp_path / "g.csv", "time,value\n0,1\n1,5\n2,8\n3,9\n")
+    run = concentrations("add", data, *NM, "--grade", "b", "--reason", "one run", "--json")
+    assert run.code == 0, run.err
+    new_id = json.loads(run.out)["id"]
+    assert json.loads(concentrations("show", new_id, "--json").out)["grade"] == "B"
+    assert concentrations("grade", "l_velarin_conc_01", "c", "--reason", "noisy").code == 0
+    listed = json.loads(concentrations("list", "--grade", "c", "--json").out)
+    assert [d["id"] for d in listed] == ["l_velarin_conc_01"]
+    out = tmp_path / "t"
+    assert concentrations("export", "table", out, "--grade", "b").code == 0
+    assert set(pd.read_csv(out / "points.csv")["dataset_id"]) == {new_id}
+    write(tmp_path / "s.csv", "time,value\n0,2\n1,6\n2,9\n")
+    write(tmp_path / "s.toml", 'observable.id = "velarin_conc"\nobservable.unit = "nM"\n'
+          'time.unit = "min"\nsource.lab = "L"\n[trust]\ngrade = "a"\nrationale = "calibrated"\n')  # fmt: skip
+    run = concentrations("add", tmp_path / "s.csv", "--json")
+    assert run.code == 0, run.err
+    assert (
+        json.loads(concentrations("show", json.loads(run.out)["id"], "--json").out)["grade"] == "A"
+    )

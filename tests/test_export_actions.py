@@ -2,14 +2,17 @@
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import logging
+import math
 
 import numpy as np
 import pandas as pd
 import pytest
 from conftest import DATA, ROOT, add_mixed_observable, cut_event_tail, write
 
+import curate
 from curate.errors import InputError
 from curate.fit.runs import run_sensitivity
 from curate.fit.spec import load_spec
@@ -82,7 +85,7 @@ def test_manifest_names_every_dataset_version(prepared, tmp_path):
     )
     assert manifest["policy"]["sha256"] == prepared.weights().policy.sha256
     assert manifest["event_chain_head"]["seq"] > 0
-    assert set(manifest["files"]) == {"points.csv", "points.parquet", "README.txt"}
+    assert set(manifest["files"]) == {"points.csv", "points.parquet", "units.json", "README.txt"}
     assert prepared.store.policy_text(manifest["policy"]["sha256"]) is not None
 
 
@@ -447,3 +450,131 @@ def test_every_run_records_the_chain_head_it_was_made_at(catalog, tmp_path):
             "seq": event["seq"] - 1,
             "hash": event["prev_hash"],
         }
+
+
+MINUTES_CSV = "time,value,sd\n0,2.01,0.06\n0.06,2.03,0.07\n0.41,4.1,0.41\n1.1,3.6,0.1\n"
+
+
+@pytest.fixture
+def minutes(catalog, tmp_path):
+    """A dataset logged in minutes and uM: every converted number has a short decimal form."""
+    data = write(tmp_path / "minutes.csv", MINUTES_CSV)
+    options = {"observable": {"id": "velarin_conc", "unit": "uM"}, "time": {"unit": "min"},
+               "source": {"lab": "Harrow Point Lab"}, "conditions": {"dose": "2.01 uM", "passage": 5},
+               "trust": {"grade": "B", "rationale": "one run"}}  # fmt: skip
+    catalog.add(data, options=options)
+    return catalog
+
+
+def test_minutes_come_back_as_decimal_seconds_in_every_export(minutes, tmp_path):
+    # 0.41 min = 24.6 s, 0.06 min = 3.6 s, 1.1 min = 66 s (SI Brochure, Table 8); 2.01 uM =
+    # 2010 nM (IUPAC Green Book 2.10); the plain float products end in ...9999998
+    for fmt in ("table", "petab", "datapackage"):
+        minutes.export(fmt, tmp_path / fmt)
+    texts = {
+        path.name: path.read_text()
+        for path in (tmp_path / "table" / "points.csv", tmp_path / "petab" / "measurements.tsv",
+                     tmp_path / "datapackage" / "points.csv")
+    }  # fmt: skip
+    for name, text in texts.items():
+        assert "99999" not in text and "00000000" not in text, (name, text)
+    table = pd.read_csv(tmp_path / "table" / "points.csv")
+    assert table["time"].tolist() == [0.0, 3.6, 24.6, 66.0]
+    assert table["value"].tolist() == [2010.0, 2030.0, 4100.0, 3600.0]
+    assert table["sd"].tolist() == [60.0, 70.0, 410.0, 100.0]
+    parquet = pd.read_parquet(tmp_path / "table" / "points.parquet")
+    assert parquet["time"].tolist() == [0.0, 3.6, 24.6, 66.0]
+    assert parquet["dose"].tolist() == [2010.0] * 4
+    measurements = pd.read_csv(tmp_path / "petab" / "measurements.tsv", sep="\t", dtype=str)
+    assert measurements["time"].tolist() == ["0.0", "3.6", "24.6", "66.0"]
+    assert measurements["measurement"].tolist() == ["2010.0", "2030.0", "4100.0", "3600.0"]
+    # and the outside validators still accept them
+    if importlib.util.find_spec("petab") is not None:
+        assert lint(tmp_path / "petab" / "problem.yaml") is False
+    if importlib.util.find_spec("frictionless") is not None:
+        import frictionless
+
+        assert frictionless.validate(str(tmp_path / "datapackage" / "datapackage.json")).valid
+    descriptor = json.loads((tmp_path / "datapackage" / "datapackage.json").read_text())
+    fields = {f["name"]: f for f in descriptor["resources"][1]["schema"]["fields"]}
+    assert fields["dose"]["unitCode"] == "nmol/L" and fields["passage"]["unitCode"] == "1"
+    described = json.loads((tmp_path / "petab" / "units.json").read_text())["conditions"]
+    assert described["passage"] == {"column": "passage", "unit": "1", "ucum": "1"}
+
+
+def test_exports_name_units_by_symbol_and_give_every_condition_its_unit(prepared, tmp_path):
+    ucum = pytest.importorskip("ucumvert")
+    prepared.export("table", tmp_path / "t")
+    points = pd.read_csv(tmp_path / "t" / "points.csv")
+    assert set(points["unit"]) == {"nM", "a.u."}  # the symbol, not pint's 'nanomolar'
+    assert set(points["unit_ucum"]) == {"nmol/L", "[arb'U]"}
+    described = json.loads((tmp_path / "t" / "units.json").read_text())
+    assert described["time"] == {"column": "time", "unit": "s", "ucum": "s"}
+    conditions = described["conditions"]
+    assert conditions["dose"] == {"column": "dose", "unit": "nM", "ucum": "nmol/L"}
+    assert conditions["temperature"] == {"column": "temperature", "unit": "°C", "ucum": "Cel"}
+    assert conditions["cell_line"] == {"column": "cell_line", "unit": None, "ucum": None}
+    # the symbol and the UCUM code name one magnitude: pint (our registry) against ucumvert's
+    # UCUM registry, an outside reading of UCUM
+    registry = ucum.PintUcumRegistry()
+    one = registry.from_ucum("nmol/L").to(registry.Quantity(1, "nM").units).m
+    assert math.isclose(one, 1.0, rel_tol=1e-12)
+    prepared.export("datapackage", tmp_path / "d")
+    assert set(pd.read_csv(tmp_path / "d" / "points.csv")["unit"]) == {"nM", "a.u."}
+    assert set(pd.read_csv(tmp_path / "d" / "datasets.csv")["unit"]) == {"nM", "a.u."}
+    readme = (tmp_path / "t" / "README.txt").read_text()
+    assert "units.json names the unit of every column" in readme
+
+
+def test_petab_export_carries_units_and_reads_back_into_a_fresh_catalog(prepared, tmp_path):
+    pytest.importorskip("petab.v1")
+    prepared.grade(prepared.list(observable="glint")[0].id, "c", reason="relative, one blot")
+    prepared.export("petab", tmp_path / "p")
+    assert lint(tmp_path / "p" / "problem.yaml") is False  # the new columns pass the linter
+    exported = prepared.weighted_table()
+    with curate.open_catalog(tmp_path / "fresh.db", actor="tester") as fresh:
+        results = fresh.import_petab(tmp_path / "p" / "problem.yaml", lab="Harrow Point Lab")
+        assert len(results) == 13 and all(r.added for r in results)
+        for version in prepared.list():
+            back = fresh.show(version.id)  # datasetId is the dataset id
+            original, copy = version.record, back.record
+            assert copy.observable.unit == original.observable.unit
+            assert copy.observable.relative == original.observable.relative
+            assert back.grade == version.grade
+            numeric = {k: (c.value, c.unit) for k, c in original.conditions.items()
+                       if isinstance(c.value, float)}  # fmt: skip
+            assert {k: (c.value, c.unit) for k, c in copy.conditions.items()} == numeric
+            points, expected = fresh.points(version.id), prepared.points(version.id)
+            np.testing.assert_array_equal(points["time"], expected["time"])
+            np.testing.assert_array_equal(points["value"], expected["value"])
+            rows = exported[exported["dataset_id"] == version.id]
+            np.testing.assert_array_equal(points["sd"], rows["sd"].to_numpy())  # not sigma
+
+
+def test_petab_export_refuses_times_before_zero(catalog, tmp_path):
+    # PEtab 1 has no simulation start time other than 0 (SBML's initial time; PEtab issue
+    # #420 asks for one), so a pre-stimulus baseline cannot be placed: refused, nothing written
+    data = write(tmp_path / "b.csv", "time,value\n-10,1.0\n-5,1.1\n0,1.0\n5,2\n10,3\n20,3.5\n")
+    options = {"observable": {"id": "velarin_conc", "unit": "nM"}, "time": {"unit": "min"},
+               "source": {"lab": "Harrow Point Lab"}}  # fmt: skip
+    dataset = catalog.add(data, options=options).id
+    with pytest.raises(InputError) as err:
+        catalog.export("petab", tmp_path / "p")
+    assert str(err.value).startswith(
+        f"petab export: dataset {dataset} has 2 time(s) before t = 0 (t = -10, -5 min)"
+    )
+    assert not (tmp_path / "p").exists()
+    catalog.export("table", tmp_path / "t")  # the table keeps them
+    assert pd.read_csv(tmp_path / "t" / "points.csv")["time"].tolist()[:2] == [-600.0, -300.0]
+
+
+def test_repeated_times_without_replicates_pass_the_petab_linter(catalog, tmp_path):
+    pytest.importorskip("petab.v1")
+    data = write(tmp_path / "r.csv", "time,value\n0,1.0\n0,1.1\n5,2\n5,2.2\n10,3\n10,3.3\n")
+    options = {"observable": {"id": "velarin_conc", "unit": "nM"}, "time": {"unit": "min"},
+               "source": {"lab": "Harrow Point Lab"}}  # fmt: skip
+    catalog.add(data, options=options)
+    catalog.export("petab", tmp_path / "p")
+    assert lint(tmp_path / "p" / "problem.yaml") is False
+    measurements = pd.read_csv(tmp_path / "p" / "measurements.tsv", sep="\t")
+    assert measurements["time"].tolist() == [0.0, 0.0, 300.0, 300.0, 600.0, 600.0]

@@ -241,3 +241,94 @@ def test_api_arrays_draft(memory_catalog):
     assert memory_catalog.points(result.id)["sd"].tolist() == [0.1, 0.1, 0.2]
     with pytest.raises(InputError, match="equal lengths"):
         memory_catalog.draft([0, 1], [1.0], observable="v", unit="nM", time_unit="s", lab="L")
+
+
+PERCENT_CSV = "time,value\n0,0\n5,40\n10,100\n20,70\n30,55\n"
+
+
+@pytest.mark.parametrize("kind", ["peak", "reference_time", "reference_condition"])
+@pytest.mark.parametrize("unit", ["%", "fraction", "1"])
+def test_percent_of_a_reference_is_relative(catalog, tmp_path, kind, unit):
+    data = write(tmp_path / "pct.csv", PERCENT_CSV)
+    write(
+        tmp_path / "pct.toml",
+        f'observable.id = "velarin_conc"\nobservable.unit = "{unit}"\ntime.unit = "min"\n'
+        f'source.lab = "Corvane Biophysics"\nprotocol.normalisation = {{ kind = "{kind}" }}\n',
+    )
+    observable = catalog.show(catalog.add(data).id).record.observable
+    assert observable.relative  # a fit needs a scale factor for it
+    assert observable.unit == "dimensionless" and observable.unit_original == unit
+
+
+def test_percent_without_a_reference_stays_absolute(catalog, tmp_path):
+    # "% of cells" with no normalisation is an absolute dimensionless number
+    data = write(tmp_path / "cells.csv", PERCENT_CSV)
+    options = {**OPTIONS, "observable": {"id": "responding", "unit": "%"}}
+    result = catalog.add(data, options=options)
+    assert not catalog.show(result.id).record.observable.relative
+    assert catalog.points(result.id)["value"].tolist() == [0.0, 0.4, 1.0, 0.7, 0.55]
+    # and an explicit choice wins over the rule
+    peak = {**options, "protocol": {"normalisation": {"kind": "peak"}}}
+    peak["observable"] = {"id": "responding2", "unit": "%", "relative": False}
+    assert not catalog.show(catalog.add(data, options=peak).id).record.observable.relative
+
+
+def test_times_in_minutes_are_stored_as_the_decimal_seconds(catalog, tmp_path):
+    # 0.41 min is 24.6 s (SI Brochure, Table 8: 1 min = 60 s); 0.41 * 60 in float64 is not
+    # and an sd of 2.01 uM is 2010 nM (1 uM = 1000 nM), not 2009.9999999999998
+    data = write(tmp_path / "m.csv", "time,value,sd\n0,1,2.01\n0.41,2,0.2\n0.06,3,0.1\n")
+    options = {**OPTIONS, "observable": {"id": "velarin_conc", "unit": "uM"}}
+    frame = catalog.points(catalog.add(data, options=options).id)
+    assert frame["time"].tolist() == [0.0, 3.6, 24.6]
+    assert frame["sd"].tolist() == [2010.0, 100.0, 200.0]
+    assert frame["value"].tolist() == [1000.0, 3000.0, 2000.0]
+
+
+def test_file_logged_before_rounding_is_still_recognised(catalog, tmp_path):
+    # a catalog written before converted values were rounded holds the plain products; the
+    # same file logged again must be recognised, not logged twice
+    from dataclasses import replace
+
+    from curate.records import content_hash
+
+    data = write(tmp_path / "m.csv", "time,value\n0,1\n0.41,2\n0.06,3\n")
+    options = {**OPTIONS, "observable": {"id": "front_speed", "unit": "um/s"}}
+    draft = catalog.read_file(data, options=options)
+    assert draft.legacy_hash is not None and draft.legacy_hash != draft.record.content_hash
+    old_arrays = replace(draft.arrays, time=draft.arrays.time.copy())
+    old_arrays.time[1:] = [0.06 * 60, 0.41 * 60]  # the unrounded products
+    old_hash = content_hash(old_arrays, value_unit=draft.record.observable.unit)
+    assert old_hash == draft.legacy_hash
+    old = replace(
+        draft,
+        arrays=old_arrays,
+        record=draft.record.model_copy(update={"content_hash": old_hash}),
+        legacy_hash=None,
+    )
+    first = catalog.add_drafts([old])[0]
+    again = catalog.add(data, options=options)
+    assert not again.added and again.duplicate_of == first.id
+    assert catalog.verify().ok  # stored data keep their hashes
+
+
+def test_negative_and_repeated_times_are_kept_with_a_warning(catalog, tmp_path):
+    # a pre-stimulus baseline and unlabelled replicates are legitimate data
+    data = write(
+        tmp_path / "b.csv", "time,value\n-10,1.0\n-5,1.1\n0,1.0\n5,2\n5,2.2\n10,3\n10,3.1\n"
+    )
+    result = catalog.add(data, options=OPTIONS)
+    record = catalog.show(result.id).record
+    assert record.n_points == 7
+    assert catalog.points(result.id)["time"].tolist()[:2] == [-600.0, -300.0]
+    messages = {w.code: w.message for w in record.warnings}
+    assert "2 point(s) before t = 0 (t = -10, -5 min)" in messages["negative_times"]
+    assert (
+        "2 time(s) occur more than once without a replicate column (t = 5, 10 min)"
+        in (messages["repeated_times"])
+    )
+
+
+def test_repeated_times_with_a_replicate_column_need_no_warning(catalog, tmp_path):
+    data = write(tmp_path / "r.csv", "time,value,replicate\n0,1,a\n0,1.1,b\n5,2,a\n5,2.2,b\n")
+    record = catalog.show(catalog.add(data, options=OPTIONS).id).record
+    assert [w.code for w in record.warnings] == []

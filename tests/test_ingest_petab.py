@@ -14,6 +14,8 @@ import pandas as pd
 import pytest
 from conftest import DATA
 
+from curate.errors import InputError
+
 petab_v1 = pytest.importorskip("petab.v1")
 
 PROBLEMS = {
@@ -116,3 +118,78 @@ def test_bad_problem_file(cli, tmp_path):
     assert run.code == 2 and "this reader takes PEtab 1" in run.err
     run = cli("import-petab", tmp_path / "missing.yaml")
     assert run.code == 2 and "no such PEtab problem file" in run.err
+
+
+def curate_export(tmp_path, *, grades=("B", "B"), units_json=None, unit="nM", relative="false"):
+    """Write a small problem shaped like curate's own PEtab export."""
+    from conftest import write
+
+    write(tmp_path / "problem.yaml", "format_version: 1\nparameter_file: parameters.tsv\n"
+          "problems:\n- sbml_files: []\n  condition_files: [conditions.tsv]\n"
+          "  measurement_files: [measurements.tsv]\n  observable_files: [observables.tsv]\n")  # fmt: skip
+    write(tmp_path / "parameters.tsv", "parameterId\tparameterScale\tlowerBound\tupperBound\t"
+          "nominalValue\testimate\n")  # fmt: skip
+    write(tmp_path / "observables.tsv", "observableId\tobservableFormula\tnoiseFormula\n"
+          "velarin_conc\tvelarin_conc_model\tnoiseParameter1_velarin_conc\n")  # fmt: skip
+    write(tmp_path / "conditions.tsv", "conditionId\tconditionName\tdose\ttemperature\n"
+          "c_lab_01\tdose=10 uM\t10000.0\t37.0\n")  # fmt: skip
+    header = ("observableId\tsimulationConditionId\tmeasurement\ttime\tnoiseParameters\tdatasetId\t"
+              "curateVersion\ttrustGrade\tcurateSd\tcurateGrade\tcurateUnit\tcurateRelative\n")  # fmt: skip
+    rows = "".join(
+        f"velarin_conc\tc_lab_01\t{value}\t{time}\t{2 * sd}\tlab_01\t3\tB\t{sd}\t{grade}\t{unit}\t{relative}\n"
+        for (time, value, sd), grade in zip(
+            ((0.0, 1.5, 0.1), (60.0, 2.5, 0.2)), grades, strict=True
+        )
+    )
+    write(tmp_path / "measurements.tsv", header + rows)
+    if units_json is not None:
+        write(tmp_path / "units.json", units_json)
+    return tmp_path / "problem.yaml"
+
+
+UNITS_JSON = (
+    '{"time": {"column": "time", "unit": "s", "ucum": "s"}, "conditions": {'
+    '"dose": {"column": "dose", "unit": "nM", "ucum": "nmol/L"},'
+    '"temperature": {"column": "temperature", "unit": "°C", "ucum": "Cel"}}}'
+)
+
+
+def test_curate_annotation_columns_are_read_back(catalog, tmp_path):
+    problem = curate_export(tmp_path, units_json=UNITS_JSON)
+    (result,) = catalog.import_petab(problem, lab="Harrow Point Lab")
+    version = catalog.show(result.id)
+    record = version.record
+    assert result.id == "lab_01"
+    assert record.observable.unit == "nanomolar" and not record.observable.relative
+    assert version.grade == "B"
+    assert "curate PEtab export" in record.trust.rationale
+    assert (
+        record.conditions["dose"].value == 10000.0 and record.conditions["dose"].unit == "nanomolar"
+    )
+    assert record.conditions["temperature"].unit == "degree_Celsius"
+    # the sd before trust inflation, not the exported sigma (noiseParameters)
+    assert catalog.points(result.id)["sd"].tolist() == [0.1, 0.2]
+
+
+def test_curate_annotations_that_disagree_within_a_dataset_are_refused(catalog, tmp_path):
+    problem = curate_export(tmp_path, grades=("B", "C"))
+    with pytest.raises(
+        InputError, match="column 'curateGrade': 'C' differs from 'B' in the same dataset"
+    ):
+        catalog.import_petab(problem)
+    assert catalog.list() == []
+
+
+def test_unreadable_units_file_is_refused(catalog, tmp_path):
+    problem = curate_export(tmp_path, units_json="{not json")
+    with pytest.raises(InputError, match="units.json: not readable JSON"):
+        catalog.import_petab(problem)
+
+
+def test_curate_relative_flag_wins_over_the_formula(catalog, tmp_path):
+    # percent of peak exported as relative data in '1': the formula alone (no scale
+    # parameter, another dataset's) would make it absolute
+    problem = curate_export(tmp_path, unit="1", relative="true")
+    (result,) = catalog.import_petab(problem, unit="nM")
+    observable = catalog.show(result.id).record.observable
+    assert observable.relative and observable.unit == "dimensionless"  # curateUnit wins too

@@ -141,3 +141,41 @@ def test_extreme_magnitudes_give_no_numeric_warnings():
             magnitude=mine,
             others=[neighbour("a", theirs)],
         )
+
+
+def test_near_zero_baseline_at_time_zero_is_not_a_unit_slip():
+    # a reporter that starts at (almost) nothing: the first point is 10^3 below the rest on a
+    # log scale, which says nothing; it was flagged as "point(s) 1 are about 10^3 times the rest"
+    value = np.array([0.002, 1.9, 3.1, 3.9, 4.4, 4.8, 5.0, 5.1])
+    assert check_series(value, None, uncertainty=None, nonnegative=True) == []
+    sd = np.array([0.04, 0.06, 0.05, 0.07, 0.05, 0.06, 0.04, 0.05])
+    assert check_series(value, sd, uncertainty=UncertaintyType.SD, nonnegative=True) == []
+
+
+def test_baseline_noise_around_zero_is_not_a_unit_slip():
+    value = np.array([0.004, -0.003, 0.001, 2.0, 3.1, 3.5, 3.9, 4.0])
+    assert codes(check_series(value, None, uncertainty=None, nonnegative=True)) == []
+
+
+def test_warnings_name_points_by_their_time():
+    time = np.linspace(0, 55, 12)
+    value = smooth()
+    value[7:10] *= 1000
+    warnings = check_series(value, None, uncertainty=None, nonnegative=True, time=time,
+                            time_unit="min")  # fmt: skip
+    assert warnings[0].message.startswith("point(s) at t = 35, 40, 45 min are about 10^3 times")
+    sd = np.array([0.5, 0.0, 0.5, 0.5, 0.5, 0.5])
+    zero = check_series(smooth(6), sd, uncertainty=UncertaintyType.SD, nonnegative=True,
+                        time=np.array([0.0, 2.5, 5, 7.5, 10, 12.5]), time_unit="h")  # fmt: skip
+    assert "uncertainty exactly 0 at 1 point(s) (t = 2.5 h)" in zero[0].message
+
+
+def test_block_far_below_the_rest_is_a_slip_when_its_sd_shows_it_is_not_zero():
+    # three points entered in uM among nM values: a reported sd says they are well above zero
+    value = smooth() * 10
+    value[3:6] /= 1000
+    sd = np.abs(value) * 0.05
+    warnings = check_series(value, sd, uncertainty=UncertaintyType.SD, nonnegative=True,
+                            time=np.arange(12.0) * 5, time_unit="min")  # fmt: skip
+    assert codes(warnings) == ["unit_slip"]
+    assert "t = 15, 20, 25 min are about 10^3 times smaller than the rest" in warnings[0].message

@@ -385,3 +385,75 @@ def test_parse_head_refuses_what_is_not_seq_colon_hash():
     for bad in ("12", f"x:{digest}", f"-1:{digest}", "12:abc", f"12:{'g' * 64}", ""):
         with pytest.raises(InputError, match="expected SEQ:HASH"):
             parse_head(bad)
+
+
+def test_an_observable_keeps_one_dimension(filled, tmp_path):
+    # velarin_conc holds nM data: a length is refused, naming both units and a dataset
+    before = len(filled.events())
+    with pytest.raises(InputError) as err:
+        add(filled, tmp_path, "d", observable={"id": "velarin_conc", "unit": "furlongs"})
+    message = str(err.value)
+    assert "unit 'furlongs' ([length]) does not fit observable 'velarin_conc'" in message
+    assert (
+        "whose datasets are in nM ([substance] / [length] ** 3), e.g. harrow_velarin_conc_01"
+        in message
+    )
+    assert len(filled.events()) == before
+    # another concentration unit joins (it converts), and so do relative data
+    assert add(filled, tmp_path, "e", observable={"id": "velarin_conc", "unit": "uM"}).added
+    assert add(filled, tmp_path, "f", observable={"id": "velarin_conc", "unit": "a.u."}).added
+    pct = {"id": "velarin_conc", "unit": "%"}
+    peak = {"normalisation": {"kind": "peak"}}
+    assert add(filled, tmp_path, "g", observable=pct, protocol=peak).added
+    with pytest.raises(InputError, match=r"unit '%' \(dimensionless\) does not fit"):
+        # percent of nothing (no reference): absolute, refused
+        add(filled, tmp_path, "h", observable=pct, values="time,value\n0,10\n1,20\n")
+
+
+def test_one_batch_never_mixes_dimensions(memory_catalog):
+    # within one action too (add_drafts, import-petab): the second draft sees the first
+    first = memory_catalog.draft([0, 1], [1, 2], observable="v", unit="nM", time_unit="s", lab="L")
+    second = memory_catalog.draft([0, 1], [1, 3], observable="v", unit="s", time_unit="s", lab="L")
+    with pytest.raises(InputError, match=r"unit 's' \(\[time\]\) does not fit observable 'v'"):
+        memory_catalog.add_drafts([first, second])
+    assert memory_catalog.list() == [] and memory_catalog.events() == []
+
+
+def test_a_condition_key_keeps_one_kind(filled, tmp_path):
+    before = len(filled.events())
+    with pytest.raises(InputError) as err:
+        add(filled, tmp_path, "d", conditions={"dose": "abc"})
+    message = str(err.value)
+    assert (
+        "condition 'dose': 'abc' is text, but other datasets hold 'dose' as a quantity in nM"
+        in message
+    )
+    assert "e.g. harrow_velarin_conc_01" in message
+    with pytest.raises(InputError, match="'5 s' is a quantity in s .*as a quantity in nM"):
+        add(filled, tmp_path, "e", conditions={"dose": "5 s"})
+    assert len(filled.events()) == before
+    # the same kind in another unit of its dimension joins
+    assert add(filled, tmp_path, "f", conditions={"dose": "0.5 mM"}).added
+    # and revise keeps the rule (the dataset's own old value does not count)
+    with pytest.raises(InputError, match="condition 'dose': 'high' is text"):
+        filled.revise("harrow_velarin_conc_01", reason="typo", conditions={"dose": "high"})
+    only = add(filled, tmp_path, "g", conditions={"genotype": "wt"})
+    assert filled.revise(only.id, reason="relabel", conditions={"genotype": "KO"}).version == 2
+
+
+def test_one_batch_never_mixes_condition_kinds(memory_catalog):
+    drafts = [
+        memory_catalog.draft([0, 1], [1, 2], observable="v", unit="nM", time_unit="s", lab="L",
+                             conditions={"dose": dose})
+        for dose in ("10 uM", "abc")
+    ]  # fmt: skip
+    with pytest.raises(InputError, match="condition 'dose': 'abc' is text"):
+        memory_catalog.add_drafts(drafts)
+    assert memory_catalog.list() == []
+
+
+def test_lowercase_grades_are_the_grades(filled):
+    version = filled.grade("harrow_velarin_conc_01", "b", reason="one replicate")
+    assert version.grade == "B"
+    assert [v.id for v in filled.list(grade="b")] == ["harrow_velarin_conc_01"]
+    assert [v.id for v in filled.list(grade="NONE")] == ["quillfen_glint_01"]

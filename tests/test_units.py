@@ -101,3 +101,60 @@ def test_ucum_codes_convert_like_pint():
         assert math.isclose(
             quantity.to(registry.Quantity(1, canonical).units).m, 1.0, rel_tol=1e-9
         ), (canonical, code)
+
+
+# Values a lab writes with a few digits, converted by exact factors (SI Brochure, Table 8:
+# 1 min = 60 s, 1 h = 3600 s; 1 uM = 1000 nM): the plain products carry binary noise
+# (0.41 * 60 = 24.599999999999998 in float64), the stored values must be the decimals.
+EXACT_DECIMALS = [
+    ("min", 0.41, 24.6),
+    ("min", 0.06, 3.6),
+    ("h", 1.1, 3960.0),
+    ("h", 0.07, 252.0),
+    ("uM", 2.01, 2010.0),
+]
+
+
+@pytest.mark.parametrize(("given", "value", "expected"), EXACT_DECIMALS)
+def test_converted_values_are_the_decimals_the_lab_meant(given, value, expected):
+    unit = units.canonical_unit(given)
+    raw = value * units.scale_factor(unit)
+    assert raw != expected  # the plain product is off in its last bits
+    assert units.convert(np.array([value]), unit)[0] == expected
+    assert units.convert(np.array([value]), unit, rounded=False)[0] == raw
+    assert units.convert_difference(np.array([value]), unit)[0] == expected
+
+
+def test_rounding_equals_the_fifteen_digit_text_form():
+    # the vectorised rounding gives exactly what Python's own "%.15g" formatting gives
+    # (correctly rounded decimal conversion), over measured-like and full-precision values
+    rng = np.random.default_rng(7)
+    values = np.concatenate([
+        rng.uniform(0, 100, 20_000).round(3) * 60,
+        rng.uniform(0, 500, 20_000).round(2) / 60,
+        np.exp(rng.uniform(-50, 60, 20_000)) * rng.choice([-1.0, 1.0], 20_000),
+        [0.0, 5e-324, 1e-7, 9.999999999999999e-8, 0.1, 1e22, 999999999999999.9, 1.7e308],
+    ])  # fmt: skip
+    expected = np.array([float(f"{x:.15g}") for x in values])
+    np.testing.assert_array_equal(units.round_significant(values), expected)
+    assert np.isnan(units.round_significant(np.array([np.nan]))[0])
+
+
+def test_values_in_the_canonical_unit_are_kept_as_given():
+    full = np.array([0.1 + 0.2, 1 / 3])  # 17 significant digits each
+    np.testing.assert_array_equal(units.convert(full, units.canonical_unit("s")), full)
+
+
+def test_every_canonical_unit_has_a_symbol_that_parses_back():
+    # exports write the symbol (nM, µm/s, °C), never pint's long name (nanomolar)
+    for canonical in units._CANONICAL_BY_DIMENSION.values():
+        symbol = units.short_unit(canonical)
+        assert symbol != canonical or canonical in ("dimensionless",), canonical
+        assert units.canonical_unit(symbol).canonical == canonical, (canonical, symbol)
+    assert units.short_unit("nanomolar") == "nM"
+
+
+def test_fraction_and_percent_are_dimensionless():
+    assert units.canonical_unit("fraction").canonical == "dimensionless"
+    assert units.canonical_unit("%").canonical == "dimensionless"
+    assert units.convert(np.array([41.0]), units.canonical_unit("%"))[0] == 0.41

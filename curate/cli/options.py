@@ -18,6 +18,7 @@ from typing import Annotated, Any, TypeVar
 import typer
 
 from curate.errors import InputError
+from curate.records import normalise_grade
 from curate.weighting import Policy, Selection, load_policy
 
 __all__ = [
@@ -41,8 +42,9 @@ Command = TypeVar("Command", bound=Callable[..., Any])
 
 
 def parse_conditions(pairs: list[str] | None) -> dict[str, str]:
-    """Give {key: value} of repeated ``--condition KEY=VALUE`` options (keys checked)."""
+    """Give {key: value} of repeated ``--condition KEY=VALUE`` options (keys checked, each once)."""
     result: dict[str, str] = {}
+    given: dict[str, str] = {}
     for pair in pairs or []:
         key, sep, value = pair.partition("=")
         key = key.strip()
@@ -53,6 +55,12 @@ def parse_conditions(pairs: list[str] | None) -> dict[str, str]:
                 f"--condition '{pair}': key '{key}' is not a valid identifier; use "
                 "letters, digits and '_', not starting with a digit"
             )
+        if key in given:
+            raise InputError(
+                f"--condition '{pair}': key '{key}' is given twice (also '{given[key]}'); "
+                "give each condition key once"
+            )
+        given[key] = pair
         result[key] = value.strip()
     return result
 
@@ -86,7 +94,7 @@ def _selection(values: dict[str, Any]) -> Selection:
         observables=tuple(values["observable"] or ()),
         labs=tuple(values["lab"] or ()),
         conditions=tuple(parse_conditions(values["condition"]).items()),
-        grades=tuple(values["grade"] or ()),
+        grades=tuple(normalise_grade(g) for g in values["grade"] or ()),
         ids=tuple(values["ids"] or ()),
         versions=parse_pins(values["versions"]),
         include_retired=values["retired"],

@@ -14,7 +14,7 @@ from typing import Any
 
 from curate.errors import InputError
 from curate.export.files import prepare_folder, write_text
-from curate.export.formats import FORMATS, ExportInput
+from curate.export.formats import CHECKS, FORMATS, ExportInput
 from curate.export.manifest import build_manifest, readme_text, record_run
 from curate.export.table import write_table
 from curate.ledger import Ledger
@@ -50,6 +50,8 @@ def export(catalog: Ledger, fmt: str, outdir: str | Path, *, policy: Policy, sel
         raise InputError(f"unknown export format '{fmt}'; expected one of {', '.join(FORMATS)}")
     folder = Path(outdir)
     weighted = weighted_table(catalog, policy, selection)
+    if fmt in CHECKS:
+        CHECKS[fmt](weighted)
     prepare_folder(folder, force=force)
     readme = {"README.txt": write_text(folder / "README.txt", readme_text(catalog, policy, folder))}
     written = writer(ExportInput(catalog, weighted, fmt, dict(readme)), folder)

@@ -9,7 +9,7 @@ from typing import Any
 import pandas as pd
 
 from curate.export.files import write_text
-from curate.export.table import table_bytes
+from curate.export.table import table_bytes, unit_symbols
 
 __all__ = ["datapackage_descriptor", "write_datapackage"]
 
@@ -19,7 +19,7 @@ _DESCRIPTIONS = {
     "dataset_id": "dataset id in the curate catalog",
     "version": "dataset version the point comes from",
     "observable": "observable id",
-    "unit": "canonical unit of value, sd and sigma",
+    "unit": "symbol of the canonical unit of value, sd and sigma (weight is in its inverse square)",
     "unit_ucum": "UCUM code of the unit",
     "relative": "relative units: a fit needs a scale factor",
     "lab": "source lab",
@@ -110,6 +110,7 @@ def write_datapackage(points: pd.DataFrame, datasets: pd.DataFrame, outdir: Path
     """Write points.csv, datasets.csv and datapackage.json; give file name -> sha256."""
     from curate.export.files import write_bytes
 
+    points, datasets = unit_symbols(points), unit_symbols(datasets)
     written = {
         "points.csv": write_bytes(outdir / "points.csv", table_bytes(points, "csv")),
         "datasets.csv": write_bytes(outdir / "datasets.csv", table_bytes(datasets, "csv")),

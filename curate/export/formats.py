@@ -16,19 +16,20 @@ from typing import Any
 
 import pandas as pd
 
+from curate.errors import InputError
 from curate.export.datapackage import write_datapackage
 from curate.export.manifest import build_manifest
 from curate.export.petab import write_petab
 from curate.export.prov import write_prov
-from curate.export.table import write_table
+from curate.export.table import write_table, write_units
 from curate.ledger import Ledger
 from curate.records import DatasetVersion
-from curate.units import condition_text, ucum_code
+from curate.units import condition_text, short_unit, to_unit, ucum_code
 from curate.version import __version__
 from curate.weighting import WeightedTable
 from curate.weighting.table import condition_column
 
-__all__ = ["FORMATS", "ExportInput", "Writer"]
+__all__ = ["CHECKS", "FORMATS", "ExportInput", "Writer", "units_description"]
 
 
 @dataclass(frozen=True)
@@ -65,6 +66,9 @@ def _dataset_facts(versions: list[DatasetVersion]) -> dict[str, dict[str, Any]]:
             ),
             "label": record.observable.label,
             "relative": record.observable.relative,
+            "unit": short_unit(record.observable.unit),
+            "grade": version.grade,
+            "time_unit": record.time_unit_original,
             "calibration_group": record.protocol.calibration_group,
             "petab": record.annotations.get("petab"),
             "petab_rows": record.annotations.get("petab_rows"),
@@ -88,12 +92,68 @@ def _version_facts(catalog: Ledger, versions: list[DatasetVersion]) -> list[dict
     ]  # fmt: skip
 
 
+def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[str, Any]:
+    """Give what ``units.json`` says: the unit of time, of the values, of each condition column.
+
+    A condition key has one kind across the catalog (see the ledger), so its column has one
+    canonical unit; a text or true/false column has none (null).
+    """
+    found: dict[str, set[str]] = {}
+    for version in versions:
+        for key, condition in version.record.conditions.items():
+            kinds = found.setdefault(key, set())
+            text = isinstance(condition.value, bool | str)
+            kinds.add("" if text else condition.unit or "dimensionless")
+    conditions = {}
+    for key in sorted(found):
+        only = next(iter(found[key])) if len(found[key]) == 1 else ""
+        conditions[key] = {
+            "column": key if petab else condition_column(key),
+            "unit": short_unit(only) if only else None,
+            "ucum": ucum_code(only) if only else None,
+        }
+    values = (
+        "measurement, noiseParameters, curateSd: in the unit named by the row's curateUnit"
+        if petab
+        else "value, sd, sigma: in the unit named by the row's unit (symbol) and unit_ucum "
+        "columns; weight in its inverse square"
+    )
+    return {
+        "about": "the unit of every column; a symbol (as pint reads it) and a UCUM code",
+        "time": {"column": "time", "unit": "s", "ucum": "s"},
+        "values": values,
+        "conditions": conditions,
+    }
+
+
 def _table(given: ExportInput, folder: Path) -> dict[str, str]:
-    return write_table(given.table, folder)
+    written = write_table(given.table, folder)
+    return {**written, **write_units(folder, units_description(given.versions, petab=False))}
 
 
 def _petab(given: ExportInput, folder: Path) -> dict[str, str]:
-    return write_petab(given.table, _dataset_facts(given.versions), folder)
+    written = write_petab(given.table, _dataset_facts(given.versions), folder)
+    return {**written, **write_units(folder, units_description(given.versions, petab=True))}
+
+
+def _check_petab(weighted: WeightedTable) -> None:
+    """Refuse points before t = 0: a PEtab 1 simulation starts at 0 (the initial time of SBML
+    models; PEtab 1 has no way to name another), so a fitter cannot place them."""
+    early = weighted.table[weighted.table["time"] < 0]
+    if early.empty:
+        return
+    dataset_id = str(early["dataset_id"].iloc[0])
+    version = next(v for v in weighted.versions if v.id == dataset_id)
+    unit = version.record.time_unit_original
+    times = early.loc[early["dataset_id"] == dataset_id, "time"].unique()
+    shown = ", ".join(f"{to_unit(float(t), 'second', unit):.6g}" for t in times[:5])
+    more = f" and {len(times) - 5} more" if len(times) > 5 else ""
+    raise InputError(
+        f"petab export: dataset {dataset_id} has {len(times)} time(s) before t = 0 "
+        f"(t = {shown}{more} {unit}), but a PEtab 1 simulation starts at t = 0; leave the "
+        "dataset out of the selection (--id for the others, or --lab), or export table or "
+        "datapackage, which keep them"
+    )
 
 
 def _datapackage(given: ExportInput, folder: Path) -> dict[str, str]:
@@ -103,12 +163,8 @@ def _datapackage(given: ExportInput, folder: Path) -> dict[str, str]:
          "grade": v.grade or "", "content_hash": v.record.content_hash}
         for v in given.versions
     ])  # fmt: skip
-    condition_units = {
-        condition_column(key): ucum_code(c.unit)
-        for v in given.versions
-        for key, c in v.record.conditions.items()
-        if c.unit
-    }
+    described = units_description(given.versions, petab=False)["conditions"]
+    condition_units = {entry["column"]: entry["ucum"] for entry in described.values()}
     return write_datapackage(
         given.table, datasets, folder, name="curate-export", condition_units=condition_units
     )
@@ -122,6 +178,9 @@ def _prov(given: ExportInput, folder: Path) -> dict[str, str]:
         draft, _version_facts(given.catalog, given.versions), folder, tool_version=__version__
     )
 
+
+# checks that run before anything is written: a refused export leaves no files behind
+CHECKS: dict[str, Callable[[WeightedTable], None]] = {"petab": _check_petab}
 
 FORMATS: dict[str, Writer] = {
     "table": _table,

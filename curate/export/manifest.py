@@ -134,6 +134,13 @@ Columns (one row per measured point; time in seconds, values in the unit column)
   weight  1 / sigma^2, the weight of the point in sum(weight * (y - f)^2)
 All uncertainties are on the linear scale of the values.
 
+Units: time is in seconds. In points.csv the unit column holds the symbol of each row's unit
+(nM, µm/s, a.u., 1) and unit_ucum its UCUM code; value, sd and sigma are in that unit, weight
+in its inverse square. units.json names the unit of every column, conditions included
+("conditions": {{key: {{"column", "unit", "ucum"}}}}; null for text). In the PEtab tables the
+measurement's unit is the row's curateUnit, conditions.tsv columns have the units in
+units.json; in the Data Package every field with a unit carries it as unitCode (UCUM).
+
 Handing the data to a fitter:
   scipy.optimize.curve_fit(f, t, y, sigma=sigma, absolute_sigma=True)
   scipy.optimize.least_squares(lambda p: (y - f(t, p)) / sigma, p0)

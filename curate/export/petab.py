@@ -4,9 +4,15 @@ Each point's effective sigma goes into ``noiseParameters`` with ``noiseFormula =
 noiseParameter1_<observableId>``. Relative-unit data get one scale parameter per calibration
 group (``observableParameter1_<observableId> * ...`` in the formula, the parameter id per row
 in ``observableParameters``; data = s x model). An observable mixing absolute and relative
-data keeps that one formula, and its absolute rows give the placeholder the number 1. Every dataset has its own condition id, so scale parameters never
-become time-point-specific overrides. Grades, weights and versions ride along as annotation
-columns, which PEtab ignores. Time is in seconds (curate's canonical unit).
+data keeps that one formula, and its absolute rows give the placeholder the number 1. Every
+dataset has its own condition id, so scale parameters never become time-point-specific
+overrides. Grades, weights, versions, units and the relative flag
+ride along as annotation columns, which PEtab ignores and ``curate import-petab`` reads back:
+``curateVersion``, ``trustGrade`` (the grade the policy applied), ``curateGrade`` (the
+dataset's own grade, empty if ungraded), ``curateSd`` (sd before trust inflation),
+``curateWeight``, ``curateUnit`` (the symbol of the measurement's unit) and ``curateRelative``.
+Time is in seconds (curate's canonical unit); ``units.json`` beside the tables names the unit of
+every condition column.
 
 No model is written: ``observableFormula`` names a placeholder ``<observableId>_model`` for
 absolute data, which the modeller replaces with their model's expression; data imported from
@@ -117,6 +123,9 @@ def petab_tables(
                 "trustGrade": str(row["grade_used"]),
                 "curateSd": _number_text(row["sd"]),
                 "curateWeight": _number_text(row["weight"]),
+                "curateGrade": "" if pd.isna(row.get("grade")) else str(row["grade"]),
+                "curateUnit": facts["unit"],
+                "curateRelative": "true" if facts["relative"] else "false",
             })  # fmt: skip
     measurements = pd.DataFrame(rows)
     numeric_keys = sorted({k for facts in datasets.values() for k, v in facts["conditions"].items()

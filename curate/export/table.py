@@ -1,15 +1,43 @@
-"""The weighted long table: CSV (pyarrow's writer) and Parquet, one row per point."""
+"""The weighted long table: CSV (pyarrow's writer) and Parquet, one row per point.
+
+The ``unit`` column carries each unit's symbol (``nM``, ``µm/s``), ``unit_ucum`` its UCUM
+code; ``units.json`` beside the table names the unit of every other column (time, conditions).
+"""
 
 from __future__ import annotations
 
 import io
+import json
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 
-from curate.export.files import write_bytes
+from curate.export.files import write_bytes, write_text
+from curate.units import short_unit
 
-__all__ = ["table_bytes", "write_table"]
+__all__ = ["UNITS_FILE", "table_bytes", "unit_symbols", "write_table", "write_units"]
+
+UNITS_FILE = "units.json"
+
+
+def unit_symbols(frame: pd.DataFrame) -> pd.DataFrame:
+    """Give the frame with its ``unit`` column as symbols ('nanomolar' -> 'nM')."""
+    if "unit" not in frame.columns:
+        return frame
+    column = frame["unit"]
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        renamed = [short_unit(str(c)) for c in column.cat.categories]
+        if len(set(renamed)) == len(renamed):
+            return frame.assign(unit=column.cat.rename_categories(renamed))
+    symbols = column.map(lambda u: None if u is None else short_unit(str(u)))
+    return frame.assign(unit=symbols)
+
+
+def write_units(outdir: Path, description: dict[str, Any]) -> dict[str, str]:
+    """Write ``units.json`` (the unit of every column, see :data:`UNITS_FILE`); give its sha256."""
+    text = json.dumps(description, indent=2, ensure_ascii=False) + "\n"
+    return {UNITS_FILE: write_text(outdir / UNITS_FILE, text)}
 
 
 def table_bytes(frame: pd.DataFrame, kind: str) -> bytes:
@@ -31,6 +59,7 @@ def table_bytes(frame: pd.DataFrame, kind: str) -> bytes:
 
 def write_table(frame: pd.DataFrame, outdir: Path, stem: str = "points") -> dict[str, str]:
     """Write ``stem``.csv and ``stem``.parquet into ``outdir``; give file name -> sha256."""
+    frame = unit_symbols(frame)
     return {
         f"{stem}.csv": write_bytes(outdir / f"{stem}.csv", table_bytes(frame, "csv")),
         f"{stem}.parquet": write_bytes(outdir / f"{stem}.parquet", table_bytes(frame, "parquet")),

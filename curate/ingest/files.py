@@ -47,6 +47,9 @@ __all__ = [
 
 # annotations holding one text cell per point, kept in the same (time-sorted) order as the arrays
 _PER_POINT_ANNOTATIONS = ("extra_columns", "petab_rows")
+# normalisations to a reference of the same series or experiment: values in '%' or a fraction
+# of such a reference are relative (a fit needs a scale factor), not absolute dimensionless
+REFERENCE_NORMALISATIONS = ("peak", "reference_time", "reference_condition")
 # dimensions whose quantities cannot be negative (negative values hint at a log transform)
 _NONNEGATIVE = {
     "[substance] / [length] ** 3",
@@ -66,6 +69,9 @@ class Draft:
     arrays: SeriesArrays
     requested_id: str | None
     origin: str  # the file (or "arrays") it came from, for messages
+    # the content hash these data had before converted values were rounded to 15 digits
+    # (None when rounding changed nothing): how a file logged earlier is still recognised
+    legacy_hash: str | None = None
 
     @property
     def magnitude(self) -> float:
@@ -143,6 +149,8 @@ def parse_condition(key: str, raw: Any, *, origin: str) -> ConditionValue:
             return parse_condition(key, raw.value, origin=origin)
         unit = units.canonical_unit(raw.unit, role=f"condition '{key}'")
         value = units.convert_scalar(float(raw.value), unit)
+        if unit.canonical == "dimensionless" and unit.original in {"", "1"}:
+            return ConditionValue(value=value)  # a plain number, as '5' on its own
         return ConditionValue(value=value, unit=unit.canonical, unit_original=unit.original)
     if isinstance(raw, bool):
         return ConditionValue(value=raw)
@@ -430,17 +438,32 @@ def _assemble(
         array = raw_arrays.get(name)
         return None if array is None else np.asarray(array)[order]
 
-    time = units.convert(take("time"), time_unit)  # type: ignore[arg-type]
-    value = units.convert(take("value"), value_unit)  # type: ignore[arg-type]
-    sd = take("sd")
-    if (
-        sd is not None
+    given_time = take("time")
+    assert given_time is not None
+    given_value, given_sd = take("value"), take("sd")
+    sd_in_value_units = (
+        given_sd is not None
         and uncertainty is not None
         and uncertainty.scale is UncertaintyScale.LINEAR
         and uncertainty.type is not UncertaintyType.PERCENT
-    ):
-        sd = sd * units.scale_factor(value_unit)
-    arrays = SeriesArrays(time=time, value=value, sd=sd, replicate=take("replicate"), n=take("n"))
+    )
+
+    def converted(rounded: bool) -> SeriesArrays:
+        sd = given_sd
+        if sd is not None and sd_in_value_units:
+            sd = units.convert_difference(sd, value_unit, rounded=rounded)
+        return SeriesArrays(
+            time=units.convert(given_time, time_unit, rounded=rounded),
+            value=units.convert(given_value, value_unit, rounded=rounded),  # type: ignore[arg-type]
+            sd=sd,
+            replicate=take("replicate"),
+            n=take("n"),
+        )
+
+    arrays = converted(rounded=True)
+    digest = content_hash(arrays, value_unit=value_unit.canonical)
+    legacy = converted(rounded=False)
+    legacy_hash = content_hash(legacy, value_unit=value_unit.canonical)
     extras = dict(extras)
     for per_point in _PER_POINT_ANNOTATIONS:
         if per_point in extras:
@@ -449,7 +472,7 @@ def _assemble(
     conditions = {
         key: parse_condition(key, raw, origin=meta_origin) for key, raw in meta.conditions.items()
     }
-    relative = value_unit.relative if meta.observable.relative is None else meta.observable.relative
+    relative = _is_relative(value_unit, meta)
     observable = Observable(
         id=meta.observable.id,
         label=meta.observable.label,
@@ -493,8 +516,10 @@ def _assemble(
         arrays.sd,
         uncertainty=uncertainty.type if uncertainty else None,
         nonnegative=value_unit.dimensionality in _NONNEGATIVE and not relative,
+        time=given_time,
+        time_unit=time_unit.original,
+        replicates=arrays.replicate is not None,
     )
-    digest = content_hash(arrays, value_unit=value_unit.canonical)
     record = DatasetRecord(
         observable=observable,
         time_unit_original=time_unit.original,
@@ -509,4 +534,24 @@ def _assemble(
         n_points=len(arrays),
         content_hash=digest,
     )
-    return Draft(record=record, arrays=arrays, requested_id=meta.id, origin=origin)
+    return Draft(
+        record=record,
+        arrays=arrays,
+        requested_id=meta.id,
+        origin=origin,
+        legacy_hash=legacy_hash if legacy_hash != digest else None,
+    )
+
+
+def _is_relative(value_unit: units.CanonicalUnit, meta: Sidecar) -> bool:
+    """Tell whether the values are relative: a.u.-like units, or a dimensionless unit ('%',
+    'fraction', '1') normalised to a peak, a reference time or a reference condition; an
+    explicit ``relative`` in the metadata wins."""
+    if meta.observable.relative is not None:
+        return meta.observable.relative
+    if value_unit.relative:
+        return True
+    return (
+        value_unit.dimensionality == "dimensionless"
+        and meta.protocol.normalisation.kind in REFERENCE_NORMALISATIONS
+    )

@@ -6,11 +6,18 @@ datasetId); replicates stay together. Every cell of every measurement row is kep
 rows, so that an export can give back each measurement, time and noise value exactly.
 Files are read as text first; real problems have CRLF line ends, missing final newlines and
 columns we do not interpret.
+
+A problem that curate exported carries its own facts back: where the annotation columns
+``curateUnit``, ``curateRelative``, ``curateGrade`` and ``curateSd`` are present they give each
+dataset its unit, relative flag, grade and sd (before trust inflation), and ``units.json``
+beside the problem gives the condition columns their units.
 """
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
+import json
 from pathlib import Path
 from typing import Any
 
@@ -29,6 +36,31 @@ _GROUP_COLUMNS = (
     "datasetId",
 )
 _SCALE_OF_TRANSFORMATION = {"lin": "linear", "log": "ln", "log10": "log10"}
+UNITS_FILE = "units.json"  # what curate's exports write beside their tables
+_MAX_UNITS_BYTES = 1024 * 1024
+
+
+def _condition_units(base: Path) -> dict[str, str]:
+    """Give {condition column: unit} from a curate export's units.json (empty without one)."""
+    path = base / UNITS_FILE
+    if not path.is_file():
+        return {}
+    if path.stat().st_size > _MAX_UNITS_BYTES:
+        raise InputError(f"{path}: larger than {_MAX_UNITS_BYTES} bytes; expected curate's units")
+    try:
+        content = json.loads(path.read_text(encoding="utf-8"))
+    except (json.JSONDecodeError, UnicodeDecodeError) as err:
+        raise InputError(f"{path}: not readable JSON ({err})") from None
+    conditions = content.get("conditions") if isinstance(content, dict) else None
+    if not isinstance(conditions, dict):
+        raise InputError(f"{path}, field 'conditions': missing; expected curate's units.json")
+    found = {}
+    for key, entry in conditions.items():
+        unit = entry.get("unit") if isinstance(entry, dict) else None
+        column = entry.get("column", key) if isinstance(entry, dict) else key
+        if isinstance(unit, str) and unit:
+            found[str(column)] = unit
+    return found
 
 
 def _load_yaml(path: Path) -> dict[str, Any]:
@@ -78,6 +110,7 @@ def read_petab_problem(
     content = _load_yaml(problem)
     base = problem.parent
     lab = lab or problem.stem
+    condition_units = _condition_units(base)
     drafts: list[Draft] = []
     for part in content["problems"]:
         observables: dict[str, dict[str, str]] = {}
@@ -101,15 +134,13 @@ def read_petab_problem(
                 actor=actor,
                 problem=problem.name,
                 sha256=hashlib.sha256(path.read_bytes()).hexdigest(),
+                condition_units=condition_units,
             )
     if not drafts:
         raise InputError(f"{problem}: the problem lists no measurements")
     ids = [d.requested_id for d in drafts]
     if len(set(ids)) != len(ids):  # a datasetId spanning groups: let the catalog number them
-        drafts = [
-            Draft(record=d.record, arrays=d.arrays, requested_id=None, origin=d.origin)
-            for d in drafts
-        ]
+        drafts = [dataclasses.replace(d, requested_id=None) for d in drafts]
     return drafts
 
 
@@ -124,6 +155,7 @@ def _drafts_from_measurements(
     actor: str,
     problem: str,
     sha256: str,
+    condition_units: dict[str, str],
 ) -> list[Draft]:
     for required in ("observableId", "simulationConditionId", "measurement", "time"):
         if required not in table.columns:
@@ -154,8 +186,11 @@ def _drafts_from_measurements(
                 + f"condition '{condition_id}' is not in the condition table"
             )
         sd = None
-        if "noiseParameters" in table.columns:
-            text = [str(table.cells["noiseParameters"][i]).strip() for i in rows]
+        # curate's own export: curateSd is the sd before trust inflation (noiseParameters is
+        # the inflated sigma, which a second export would inflate again)
+        sd_column = "curateSd" if "curateSd" in table.columns else "noiseParameters"
+        if sd_column in table.columns:
+            text = [str(table.cells[sd_column][i]).strip() for i in rows]
             numbers = np.array([_number_or_nan(t) for t in text])
             if np.isfinite(numbers).any():
                 sd = numbers
@@ -165,9 +200,12 @@ def _drafts_from_measurements(
             if column in ("conditionId", "conditionName") or not cell.strip():
                 continue
             number = _number_or_nan(cell)
-            condition_values[column] = (
-                float(number) if np.isfinite(number) else {"text": cell.strip()}
-            )
+            if not np.isfinite(number):
+                condition_values[column] = {"text": cell.strip()}
+            elif column in condition_units:
+                condition_values[column] = {"value": float(number), "unit": condition_units[column]}
+            else:
+                condition_values[column] = float(number)
         replicate = labels = None
         if "replicateId" in table.columns:
             text_rep = np.array([str(table.cells["replicateId"][i]).strip() for i in rows])
@@ -175,17 +213,33 @@ def _drafts_from_measurements(
                 label_values, codes = np.unique(text_rep, return_inverse=True)
                 labels, replicate = tuple(str(v) for v in label_values), codes
         petab_rows = {c: [str(table.cells[c][i]) for i in rows] for c in table.columns}
+        relative = "observableParameter" in observable_row.get("observableFormula", "")
+        own = {c: _constant(table, rows, c) for c in _OWN_COLUMNS if c in table.columns}
+        if "curateRelative" in own:
+            if own["curateRelative"] not in ("true", "false"):
+                raise InputError(
+                    table.locate(rows[0], "curateRelative")
+                    + f"'{own['curateRelative']}'; expected true or false"
+                )
+            relative = own["curateRelative"] == "true"
         metadata: dict[str, Any] = {
             "observable": {
                 "id": observable_id,
                 "label": observable_row.get("observableName", "").strip(),
-                "unit": unit,
-                "relative": "observableParameter" in observable_row.get("observableFormula", ""),
+                "unit": own.get("curateUnit") or unit,
+                "relative": relative,
             },
             "time": {"unit": time_unit},
             "source": {"lab": lab, "reference": problem},
             "conditions": condition_values,
         }
+        if own.get("curateGrade"):
+            version = own.get("curateVersion", "?")
+            metadata["trust"] = {
+                "grade": own["curateGrade"],
+                "rationale": f"carried over from a curate PEtab export ({problem}): the grade "
+                f"of dataset {dataset_id or '?'} version {version}",
+            }
         if sd is not None:
             metadata["uncertainty"] = {
                 "type": "sd",
@@ -219,15 +273,24 @@ def _drafts_from_measurements(
                 "petab_rows": petab_rows,
             },
         )
-        drafts.append(
-            Draft(
-                record=draft.record,
-                arrays=draft.arrays,
-                requested_id=requested,
-                origin=draft.origin,
-            )
-        )
+        drafts.append(dataclasses.replace(draft, requested_id=requested))
     return drafts
+
+
+# curate's annotation columns that hold one value per dataset
+_OWN_COLUMNS = ("curateUnit", "curateRelative", "curateGrade", "curateVersion")
+
+
+def _constant(table: Table, rows: list[int], column: str) -> str:
+    """Give the one value an annotation column holds for a dataset's rows."""
+    values = [str(table.cells[column][i]).strip() for i in rows]
+    for position, value in enumerate(values):
+        if value != values[0]:
+            raise InputError(
+                table.locate(rows[position], column)
+                + f"'{value}' differs from '{values[0]}' in the same dataset; expected one value"
+            )
+    return values[0]
 
 
 def _number_or_nan(text: str) -> float:

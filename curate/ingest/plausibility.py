@@ -28,10 +28,18 @@ def typical_magnitude(value: np.ndarray) -> float:
     return float(np.median(np.abs(value))) if len(value) else 0.0
 
 
-def _rows(indices: Iterable[int], limit: int = 5) -> str:
-    items = [str(i + 1) for i in indices]
+def _points(indices: Iterable[int], time: np.ndarray | None, unit: str, limit: int = 5) -> str:
+    """Name points by their time ('t = 0, 5 min'), or by number when no times are known."""
+    chosen = list(indices)
+    if time is None:
+        items = [str(i + 1) for i in chosen]
+        prefix, suffix = "points ", ""
+    else:
+        items = [f"{float(time[i]):g}" for i in chosen]
+        prefix, suffix = "t = ", f" {unit}" if unit else ""
     shown = ", ".join(items[:limit])
-    return shown + (f" and {len(items) - limit} more" if len(items) > limit else "")
+    more = f" and {len(items) - limit} more" if len(items) > limit else ""
+    return prefix + shown + suffix + more
 
 
 def _is_round(x: float) -> bool:
@@ -47,13 +55,20 @@ def check_series(
     *,
     uncertainty: UncertaintyType | None,
     nonnegative: bool,
+    time: np.ndarray | None = None,
+    time_unit: str = "",
+    replicates: bool = False,
 ) -> list[PlausibilityWarning]:
-    """Give the warnings about one series on its own (points numbered from 1, time-sorted).
+    """Give the warnings about one series on its own (time-sorted).
 
-    ``nonnegative``: the quantity cannot be below zero (a concentration, a length).
+    ``nonnegative``: the quantity cannot be below zero (a concentration, a length). ``time``
+    (in ``time_unit``, as the lab gave it) names the points in the messages; ``replicates``
+    says whether a replicate column labels repeated times.
     """
     warnings: list[PlausibilityWarning] = []
-    warnings += _unit_slip(value)
+    if time is not None:
+        warnings += _times(time, time_unit, replicates=replicates)
+    warnings += _unit_slip(value, sd, time, time_unit)
     # baseline noise dips a little below zero; a log-transformed or offset series goes well below
     spread = float(np.max(np.abs(value))) if len(value) else 0.0
     if nonnegative and len(value) and (np.mean(value < 0) > 0.25 or (value < -0.1 * spread).any()):
@@ -63,8 +78,7 @@ def check_series(
             PlausibilityWarning(
                 code="negative_values",
                 message=f"{len(negatives)} negative value(s) for a quantity that cannot be negative"
-                " "
-                f"(points {_rows(negatives)})"
+                f" ({_points(negatives, time, time_unit)})"
                 + ("; the values may already be log-transformed" if within_log_range else ""),
             )
         )
@@ -75,8 +89,8 @@ def check_series(
             warnings.append(
                 PlausibilityWarning(
                     code="zero_sd",
-                    message=f"uncertainty exactly 0 at {len(zero)} point(s) (points {_rows(zero)});"
-                    " "
+                    message=f"uncertainty exactly 0 at {len(zero)} point(s)"
+                    f" ({_points(zero, time, time_unit)}); "
                     "a zero sd would give an infinite weight",
                 )
             )
@@ -108,26 +122,83 @@ def check_series(
     return warnings
 
 
-def _unit_slip(value: np.ndarray) -> list[PlausibilityWarning]:
-    positive = np.abs(value) > 0
-    if positive.sum() < 4:
+def _times(time: np.ndarray, unit: str, *, replicates: bool) -> list[PlausibilityWarning]:
+    """Note times before zero (a pre-stimulus baseline) and repeats without replicate labels.
+
+    Both are legitimate and kept; the notes say so, because not every fitter takes them (a
+    PEtab 1 simulation starts at t = 0).
+    """
+    warnings = []
+    before = np.flatnonzero(time < 0)
+    if len(before):
+        warnings.append(
+            PlausibilityWarning(
+                code="negative_times",
+                message=f"{len(before)} point(s) before t = 0 ({_points(before, time, unit)}): "
+                "kept as a baseline before the start; a PEtab export refuses them",
+            )
+        )
+    if not replicates and len(time) > 1:
+        repeated = np.flatnonzero(np.r_[False, time[1:] == time[:-1]])
+        if len(repeated):
+            distinct = np.unique(time[repeated])
+            first = [int(np.searchsorted(time, t)) for t in distinct]
+            warnings.append(
+                PlausibilityWarning(
+                    code="repeated_times",
+                    message=f"{len(distinct)} time(s) occur more than once without a replicate "
+                    f"column ({_points(first, time, unit)}): kept as unlabelled replicates",
+                )
+            )
+    return warnings
+
+
+def _near_zero(value: np.ndarray, sd: np.ndarray | None) -> np.ndarray:
+    """Tell which points cannot be told from zero: within 3 sd of it, or within three times
+    the deepest dip below zero (which shows the baseline noise of a nonnegative signal)."""
+    near = np.zeros(len(value), dtype=bool)
+    if sd is not None:
+        known = np.isfinite(sd)
+        near[known] = np.abs(value[known]) <= 3.0 * sd[known]
+    dips = value[value < 0]
+    if len(dips):
+        near |= np.abs(value) <= 3.0 * float(np.max(np.abs(dips)))
+    return near
+
+
+def _unit_slip(
+    value: np.ndarray, sd: np.ndarray | None, time: np.ndarray | None, time_unit: str
+) -> list[PlausibilityWarning]:
+    """Flag a block of points about 10^3 (or 10^6) times the rest of the series.
+
+    Points that cannot be told from zero are left out: on a log scale a baseline near zero
+    looks like anything. So a block far *below* the rest counts only where a reported sd
+    shows it to be well above zero; without one it is indistinguishable from a baseline.
+    """
+    judged = (np.abs(value) > 0) & ~_near_zero(value, sd)
+    if judged.sum() < 4:
         return []
-    logs = np.log10(np.abs(value[positive]))
-    indices = np.flatnonzero(positive)
+    logs = np.log10(np.abs(value[judged]))
+    indices = np.flatnonzero(judged)
     reference = np.median(logs)
     deviation = np.abs(logs - reference)
+    below = logs < reference
+    has_sd = np.zeros(len(logs), dtype=bool) if sd is None else np.isfinite(sd[indices])
     for decades in _SLIP_DECADES:
-        slipped = np.abs(deviation - decades) < _SLIP_TOLERANCE
+        slipped = (np.abs(deviation - decades) < _SLIP_TOLERANCE) & (~below | has_sd)
         # a block of slipped values, not the whole series (a whole series is judged against
         # other datasets instead) and not a smooth rise through the decades
         if 0 < slipped.sum() < len(logs) / 2:
             rest = ~slipped & (deviation < decades / 3)
             if rest.sum() >= 2:
+                where = _points(indices[slipped], time, time_unit)
+                where = where.removeprefix("points ") if time is None else f"at {where}"
                 return [
                     PlausibilityWarning(
                         code="unit_slip",
-                        message=f"point(s) {_rows(indices[slipped])} are about 10^{decades:g}"
-                        " times "
+                        message=f"point(s) {where} are "
+                        f"about 10^{decades:g} times "
+                        f"{'smaller than ' if below[slipped].all() else ''}"
                         "the rest of the series: a unit slip in part of the data?",
                     )
                 ]

@@ -12,10 +12,17 @@ import tomllib
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, StringConstraints, ValidationError
+from pydantic import (
+    BaseModel,
+    BeforeValidator,
+    ConfigDict,
+    Field,
+    StringConstraints,
+    ValidationError,
+)
 
 from curate.errors import InputError
-from curate.records import Identifier, Normalisation, Uncertainty
+from curate.records import Identifier, Normalisation, Uncertainty, normalise_grade
 
 __all__ = ["Sidecar", "deep_merge", "load_sidecar", "validate_sidecar"]
 
@@ -81,7 +88,7 @@ class SidecarProtocol(_Part):
 
 
 class SidecarTrust(_Part):
-    grade: Literal["A", "B", "C", "D", "X"]
+    grade: Annotated[Literal["A", "B", "C", "D", "X"], BeforeValidator(normalise_grade)]
     rationale: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
 
 

@@ -24,6 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from curate import units
 from curate.errors import InputError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.petab import read_petab_problem
@@ -33,11 +34,13 @@ from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
     GRADES,
+    ConditionValue,
     DatasetRecord,
     DatasetVersion,
     SeriesArrays,
     canonical_json,
     jsonable,
+    normalise_grade,
     record_hash,
 )
 
@@ -161,11 +164,40 @@ def describe_changes(before: dict[str, Any], after: dict[str, Any]) -> tuple[str
     return tuple(lines)
 
 
+def condition_kind(value: ConditionValue) -> str:
+    """Give the kind a condition key keeps across the catalog: 'text', 'true/false', 'number'
+    (no unit, or a dimensionless one) or the canonical unit of a quantity."""
+    if isinstance(value.value, bool):
+        return "true/false"
+    if isinstance(value.value, str):
+        return "text"
+    return value.unit if value.unit not in (None, "dimensionless") else "number"
+
+
+def _kind_text(kind: str) -> str:
+    if kind in ("text", "true/false"):
+        return kind
+    if kind == "number":
+        return "a plain number"
+    return f"a quantity in {units.short_unit(kind)} ({units.dimension_of(kind)})"
+
+
+def _kind_example(kind: str) -> str:
+    examples = {"text": "text", "true/false": "true or false", "number": "a plain number"}
+    return examples.get(kind, f"a value with a unit such as '10 {units.short_unit(kind)}'")
+
+
+def _unit_text(unit: str) -> str:
+    return f"{units.short_unit(unit)} ({units.dimension_of(unit)})"
+
+
 class _ActionContext:
     """What one user action knows about the catalog while it writes (built once per action).
 
     Indexed so that logging N datasets costs O(N log N), not O(N^2): datasets by content hash,
-    ids, and per observable and unit a sorted list of typical values for the median.
+    ids, per observable and unit a sorted list of typical values for the median, the units of
+    each observable's absolute datasets and the kinds of each condition key (with the datasets
+    holding them, so that an action can name one).
     """
 
     def __init__(self, store: Store) -> None:
@@ -174,6 +206,8 @@ class _ActionContext:
         self.levels: dict[tuple[str, str], list[float]] = {}
         self.ids: set[str] = set()
         self.next_number: dict[str, int] = {}
+        self.units: dict[str, dict[str, list[str]]] = {}  # observable -> absolute unit -> ids
+        self.kinds: dict[str, dict[str, list[str]]] = {}  # condition key -> kind -> ids
         for row in store.latest_versions():
             self.remember(version_from_row(row))
 
@@ -193,6 +227,47 @@ class _ActionContext:
             )
         self.by_key[(rec.content_hash, rec.observable.id, conditions, rec.source.lab)] = version
         self.ids.add(version.id)
+        if not rec.observable.relative:
+            held = self.units.setdefault(rec.observable.id, {})
+            held.setdefault(rec.observable.unit, []).append(version.id)
+        for key, value in rec.conditions.items():
+            kinds = self.kinds.setdefault(key, {})
+            kinds.setdefault(condition_kind(value), []).append(version.id)
+
+    def check_unit(self, rec: DatasetRecord, origin: str) -> None:
+        """Refuse absolute data whose unit has another dimension than the observable's
+        absolute datasets (relative data join any observable: a scale factor carries them)."""
+        if rec.observable.relative:
+            return
+        held = self.units.get(rec.observable.id, {})
+        others = [(u, ids) for u, ids in held.items() if u != rec.observable.unit and ids]
+        if others:
+            unit, ids = others[0]
+            raise InputError(
+                f"{origin}: unit '{rec.observable.unit_original}' "
+                f"({units.dimension_of(rec.observable.unit)}) does not fit observable "
+                f"'{rec.observable.id}', whose datasets are in {_unit_text(unit)}, e.g. "
+                f"{ids[0]}; one observable keeps one dimension: give a unit of that dimension, "
+                "mark relative data as relative, or log it under another observable id"
+            )
+
+    def check_conditions(
+        self, conditions: dict[str, ConditionValue], origin: str, *, dataset_id: str | None = None
+    ) -> None:
+        """Refuse a condition whose kind (text, true/false, number, quantity of a dimension)
+        differs from what the catalog's other datasets hold under the same key."""
+        for key, value in conditions.items():
+            kind = condition_kind(value)
+            for other, ids in self.kinds.get(key, {}).items():
+                holders = [i for i in ids if i != dataset_id]
+                if other != kind and holders:
+                    raise InputError(
+                        f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
+                        f"{_kind_text(kind)}, but other datasets hold '{key}' as "
+                        f"{_kind_text(other)}, e.g. {holders[0]}; a condition key keeps one "
+                        f"kind across the catalog: give {_kind_example(other)}, or use "
+                        "another key"
+                    )
 
     def level(self, observable: str, unit: str) -> float | None:
         """Give the median typical value of the datasets of one observable and unit."""
@@ -334,6 +409,14 @@ class Ledger:
         duplicate = context.by_key.get(
             (rec.content_hash, rec.observable.id, conditions, rec.source.lab)
         )
+        if duplicate is None and draft.legacy_hash is not None:
+            # logged before converted values were rounded to 15 digits: the same data
+            duplicate = context.by_key.get(
+                (draft.legacy_hash, rec.observable.id, conditions, rec.source.lab)
+            )
+        if duplicate is None:
+            context.check_unit(rec, draft.origin)
+            context.check_conditions(rec.conditions, draft.origin)
         magnitude = typical_magnitude(draft.arrays.value)
         extra = check_against_others(
             observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
@@ -552,6 +635,11 @@ class Ledger:
                     merged.pop(key, None)
                 else:
                     merged[key] = parse_condition(key, raw, origin=f"dataset {dataset_id}")
+            _ActionContext(self._store).check_conditions(
+                {k: v for k, v in merged.items() if k in conditions},
+                f"dataset {dataset_id}",
+                dataset_id=dataset_id,
+            )
             update["conditions"] = merged
         if lab is not None or reference is not None:
             update["source"] = current.source.model_copy(
@@ -624,6 +712,7 @@ class Ledger:
         include_retired: bool = False,
     ) -> builtins.list[DatasetVersion]:
         """Give the newest version of each dataset that matches every filter given."""
+        grade = normalise_grade(grade)
         if grade is not None and grade not in GRADES and grade != "none":
             raise InputError(
                 f"unknown grade '{grade}'; expected one of {', '.join(GRADES)} or 'none'"

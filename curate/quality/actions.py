@@ -137,7 +137,7 @@ def set_grade(
     catalog: Ledger, dataset_id: str, grade: str, *, reason: str, source: str = "person"
 ) -> DatasetVersion:
     """Record a trust grade with its reason as a new version."""
-    grading.check_grade(grade, origin=f"dataset {dataset_id}")
+    grade = grading.check_grade(grade, origin=f"dataset {dataset_id}")
     if not reason or not reason.strip():
         raise InputError(f"dataset {dataset_id}: a grade needs its reason (--reason)")
     trust = TrustAssessment(

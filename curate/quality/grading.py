@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 
 from curate.errors import InputError
-from curate.records import EXCLUSION_GRADE, GRADES
+from curate.records import EXCLUSION_GRADE, GRADES, normalise_grade
 
 __all__ = [
     "GRADE_MEANING",
@@ -41,7 +41,8 @@ _FITTED_GRADES = ("A", "B", "C", "D")
 
 
 def check_grade(grade: str, *, origin: str = "grade") -> str:
-    """Give the grade if it is on our scale; InputError otherwise."""
+    """Give the grade (any case: 'b' is B) if it is on our scale; InputError otherwise."""
+    grade = normalise_grade(grade)
     if grade not in GRADES:
         raise InputError(
             f"{origin}: '{grade}' is not a grade; expected one of "

@@ -13,7 +13,7 @@ from curate.errors import InputError
 from curate.ingest import parse_condition
 from curate.ledger import Ledger
 from curate.ledger.catalog import condition_matches
-from curate.records import DatasetVersion, canonical_json
+from curate.records import DatasetVersion, canonical_json, normalise_grade
 from curate.weighting.policy import Policy
 
 __all__ = ["Selection", "select"]
@@ -57,6 +57,7 @@ def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[Datase
         key: parse_condition(key, raw, origin="--condition").value
         for key, raw in selection.conditions
     }
+    wanted_grades = {normalise_grade(g) for g in selection.grades}  # 'b' is B
     chosen: list[DatasetVersion] = []
     for version in catalog.list(include_retired=True):
         if selection.ids and version.id not in selection.ids and version.id not in pinned:
@@ -74,9 +75,9 @@ def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[Datase
             continue
         grade = version.grade or policy.ungraded
         if (
-            selection.grades
-            and (version.grade or "none") not in selection.grades
-            and grade not in selection.grades
+            wanted_grades
+            and (version.grade or "none") not in wanted_grades
+            and grade not in wanted_grades
         ):
             continue
         if grade in policy.exclude:
