@@ -16,6 +16,7 @@ from pathlib import Path
 import pandas as pd
 
 from curate import export as exporting
+from curate.errors import CatalogError
 from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
@@ -39,9 +40,23 @@ from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_polic
 __all__ = ["Catalog", "open_catalog"]
 
 
-def open_catalog(path: str | Path | None = None, *, actor: str | None = None) -> Catalog:
-    """Give the catalog at ``path`` ($CURATE_CATALOG, else ./curate.db), creating it if new."""
+def open_catalog(
+    path: str | Path | None = None, *, actor: str | None = None, create: bool = True
+) -> Catalog:
+    """Give the catalog at ``path`` ($CURATE_CATALOG, else ./curate.db).
+
+    By default (``create=True``, the Python API's behaviour) a missing file becomes a new,
+    empty catalog. With ``create=False`` a missing file is refused with a
+    :class:`~curate.errors.CatalogError` naming the path: the command line opens the catalog
+    this way for every command that does not log data, so a mistyped ``--catalog`` is not
+    silently a new, empty catalog.
+    """
     chosen = path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG
+    if not create and str(chosen) != ":memory:" and not Path(chosen).exists():
+        raise CatalogError(
+            f"{chosen}: the catalog file does not exist; check --catalog or $CURATE_CATALOG "
+            "(only add, intake, import-petab, demo and restore create a catalog)"
+        )
     return Catalog(chosen, actor=actor)
 
 

@@ -162,3 +162,23 @@ def test_public_api_is_exactly_this():
         "load_policy",
         "open_catalog",
     }
+
+
+def test_mistyped_command_gets_usage_and_closest_names(cli):
+    run = cli("verfy", catalog_path=None)
+    assert run.code == 2, run
+    lines = run.err.strip().splitlines()
+    assert lines[0].startswith("Usage: curate [OPTIONS] COMMAND")
+    assert lines[-1] == "curate: error: no command 'verfy'; did you mean 'verify' or 'version'?"
+    assert "internal error" not in run.err
+
+
+def test_usage_mistakes_exit_2_with_the_usage_line(cli):
+    missing = cli("show", catalog_path=None)
+    assert missing.code == 2 and missing.err.startswith("Usage: curate show")
+    assert missing.err.strip().splitlines()[-1] == "curate: error: Missing argument 'ID'."
+    bogus = cli("list", "--bogus", catalog_path=None)
+    assert bogus.code == 2 and "No such option: --bogus" in bogus.err
+    assert "internal error" not in missing.err + bogus.err
+    bare = cli(catalog_path=None)
+    assert bare.code == 0 and "Usage: curate" in bare.out

@@ -197,6 +197,10 @@ def test_model_errors(tmp_path):
             return np.full(len(points), np.nan)
         def boom(params, points):
             raise RuntimeError("bad dose")
+        def text(params, points):
+            return ["1.0"] + ["fast"] * (len(points) - 1)
+        def keyed(params, points):
+            return points["dose"]
     """,
     )
     with pytest.raises(InputError, match="defines no function 'absent'"):
@@ -205,7 +209,9 @@ def test_model_errors(tmp_path):
         fitting.load_model("no_colon")
     spec = fitting.spec_from_dict({"parameters": {"a": {"start": 1.0}}})
     for name, message in (("short", "returned 29 values for 30 rows"), ("nan", "returned nan at row 1"),
-                          ("boom", "the model raised RuntimeError: bad dose")):  # fmt: skip
+                          ("boom", r"the model failed: bad dose \(call it"),
+                          ("text", "the model returned '1.0' at row 1, which is not a number"),
+                          ("keyed", "the model failed: no column or parameter 'dose'")):  # fmt: skip
         model = fitting.load_model(f"{model_file}:{name}")
         with pytest.raises(InputError, match=message):
             fitting.fit(fitting.FitProblem(linear_points(), model, spec))

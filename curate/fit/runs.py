@@ -94,6 +94,8 @@ def run_sensitivity(
     progress: Callable[[int, int], None] | None = None,
 ) -> sensitivity.SensitivityResult:
     """Run the leave-one-group-out check (and a policy sweep); record it; give the result."""
+    if workers < 1:
+        raise InputError(f"workers={workers}: expected at least 1 worker process")
     grouping = sensitivity_grouping(by)
     weighted = weighted_table(catalog, policy, selection)
     labels = grouping.labels(weighted.table)

@@ -109,5 +109,17 @@ class ExternalFitter(ModelBackend):
         except FileNotFoundError:
             fold.error = f"the fitter wrote no {out.name} (log: {log})"
         except (json.JSONDecodeError, KeyError, TypeError, ValueError, AttributeError) as err:
-            fold.error = f'the fitter\'s {out.name} is not {{"parameters": {{NAME: value}}}} ({type(err).__name__}: {err})'
+            fold.error = (
+                f"the fitter's {out.name} is not "
+                f'{{"parameters": {{NAME: value}}}} ({_reason(err)})'
+            )
         return fold
+
+
+def _reason(err: Exception) -> str:
+    """Give why a result file could not be read, in words."""
+    if isinstance(err, json.JSONDecodeError):
+        return f"not JSON: {err.msg} at line {err.lineno}, column {err.colno}"
+    if isinstance(err, KeyError):
+        return f"no key {err.args[0]!r}" if err.args else "a key is missing"
+    return str(err) or "unexpected content"
