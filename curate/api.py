@@ -73,10 +73,13 @@ class Catalog(Ledger):
 
     # -- intake ----------------------------------------------------------------------------
 
-    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None,
+    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None, lab: str | None = None,
                progress: Callable[[int, int, str], None] | None = None) -> IntakeReport:  # fmt: skip
-        """Log every data file of a folder; quarantine each bad one with its reason."""
-        return intake_folder(self, folder, quarantine=quarantine, progress=progress)
+        """Log every data file of a folder; quarantine each bad one with its reason.
+
+        ``lab`` is the source lab of files whose sidecar names none.
+        """
+        return intake_folder(self, folder, quarantine=quarantine, lab=lab, progress=progress)
 
     # -- judgement (noise, trust, consistency) --------------------------------------------
 

@@ -241,6 +241,9 @@ def intake(
     quarantine: Annotated[
         Path | None, typer.Option(help="where bad files go (default FOLDER/quarantine)")
     ] = None,
+    lab: Annotated[
+        str | None, typer.Option(help="source lab of files whose sidecar names none")
+    ] = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
@@ -249,7 +252,7 @@ def intake(
         _catalog(create=True) as catalog,
         progress_bar(err_console, "logging", enabled=show_bar) as update,
     ):
-        result = catalog.intake(folder, quarantine=quarantine, progress=update)
+        result = catalog.intake(folder, quarantine=quarantine, lab=lab, progress=update)
     _show(result.to_dict(), lambda: text.intake_text(result), as_json)
     if result.count("quarantined") or result.count("refused"):
         raise typer.Exit(1)
