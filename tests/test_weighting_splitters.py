@@ -91,3 +91,23 @@ def test_training_gaps():
         "observable g is measured only in the held-out data",
         "condition temperature = 25.0 occurs only in the held-out data",
     ]
+
+
+def test_sensitivity_names_only_the_forms_it_accepts():
+    from curate.fit.runs import sensitivity_grouping
+    from curate.weighting.groupings import parse_grouping
+
+    for by in ("color", "condition"):
+        with pytest.raises(InputError) as refused:
+            sensitivity_grouping(by)
+        assert str(refused.value) == f"--by {by}: expected dataset, lab or condition:KEY"
+    with pytest.raises(InputError) as refused:
+        sensitivity_grouping("kfold:3")
+    assert str(refused.value) == (
+        "--by kfold:3: expected dataset, lab or condition:KEY (kfold:K makes holdout folds "
+        "with `curate folds`, not one fold per group)"
+    )
+    # folds accept every form and say so
+    with pytest.raises(InputError, match="expected dataset, lab, condition:KEY or kfold:K$"):
+        parse_grouping("color")
+    assert parse_grouping("kfold:3:7").splitter().get_n_splits() == 3

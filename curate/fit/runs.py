@@ -44,10 +44,7 @@ def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: 
 
 def sensitivity_grouping(by: str) -> Grouping:
     """Give the grouping of a sensitivity check: one that leaves one group out (not k-fold)."""
-    grouping = None if by.startswith("kfold") else parse_grouping(by)
-    if grouping is None or not grouping.leaves_one_out:
-        raise InputError("--by for sensitivity: expected dataset, lab or condition:KEY")
-    return grouping
+    return parse_grouping(by, leave_one_out=True)
 
 
 def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSpec | None,
