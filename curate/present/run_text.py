@@ -249,14 +249,38 @@ def trace_text(result: TraceReport) -> Group:
     return Group(*parts)
 
 
+_IMPACT_WORDS = {
+    "export": "export",
+    "folds": "fold set",
+    "fit": "fit",
+    "sensitivity": "sensitivity run",
+}
+
+
+def _count(n: int, word: str) -> str:
+    """Give '1 fit', '2 fits', or '' for none."""
+    return "" if n == 0 else f"{n} {word}{'' if n == 1 else 's'}"
+
+
 def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
     """Give what ``curate impact`` prints."""
     if not found:
-        return Text(f"no export used an outdated version of {dataset_id}")
-    lines = [f"{len(found)} export(s) used an outdated version of {dataset_id}:"]
+        return Text(
+            f"no export, fold set, fit or sensitivity run used an outdated version of {dataset_id}"
+        )
+    counts = [
+        _count(sum(e.kind == kind for e in found), _IMPACT_WORDS[kind]) for kind in _IMPACT_WORDS
+    ]
+    lines = [f"{', '.join(c for c in counts if c)} used an outdated version of {dataset_id}:"]
     for entry in found:
         state = "retired" if entry.retired else f"now version {entry.current_version}"
-        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {entry.format}  {entry.outdir}: used version "
+        what = _IMPACT_WORDS.get(entry.kind, entry.kind)
+        if entry.kind == "export":
+            what = f"{entry.format} export"
+        elif entry.kind == "folds":
+            what = f"fold set (by {entry.format.partition(':')[2] or '?'})"
+        where = f" {entry.outdir}" if entry.outdir else ""
+        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {what}{where}: used version "
                      f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
     return Text("\n".join(lines))
 
