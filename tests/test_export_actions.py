@@ -256,8 +256,18 @@ def test_selection(prepared, tmp_path):
         selection=Selection(ids=(first.id,), versions=((first.id, 1),))
     )
     assert set(pinned["version"]) == {1}
-    with pytest.raises(InputError, match="the selection matches no dataset"):
+    with pytest.raises(InputError, match="the selection matches no dataset") as refused:
         prepared.weighted_table(selection=Selection(labs=("Nobody",)))
+    assert "{" not in str(refused.value)
+    words = Selection(
+        observables=("glint",), labs=("A", "B"), conditions=(("dose", "10uM"),), grades=("C",),
+        versions=(("x_01", 2),), include_retired=True,
+    ).describe()  # fmt: skip
+    assert words == (
+        "observable glint; lab 'A' or 'B'; condition dose = 10uM; grade C; x_01 at version 2; "
+        "retired ones included"
+    )
+    assert Selection().describe() == "every current dataset"
 
 
 def test_excluded_grade_stays_out(prepared):
@@ -299,7 +309,10 @@ def test_export_cli(cli, tmp_path, examples):
     run = cli("export", "excel", tmp_path / "x")
     assert run.code == 2 and "unknown export format 'excel'" in run.err
     run = cli("export", "table", tmp_path / "n", "--lab", "Nobody")
-    assert run.code == 2 and "the selection matches no dataset" in run.err
+    assert run.code == 2 and run.err.strip() == (
+        "curate: error: the selection matches no dataset that the policy lets into a fit "
+        "(lab 'Nobody'; the policy leaves out grade X); widen it, or see `curate list`"
+    )
     bad_policy = write(tmp_path / "bad.toml", "[inflation]\nA = 1\nB = 2\nC = 4\nD = -1\n")
     run = cli("weights", "--policy", bad_policy)
     assert run.code == 2 and "field 'inflation.D': -1 is not allowed" in run.err
