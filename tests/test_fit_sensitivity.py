@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 import sys
 import textwrap
@@ -181,6 +182,14 @@ def test_sensitivity_on_the_example_flags_the_saturated_dataset(demo_catalog):
     assert record["payload"]["model_sha256"] and len(record["payload"]["datasets"]) == 13
 
 
+def rendered(renderable) -> str:
+    from rich.console import Console
+
+    console = Console(width=400, record=True, file=io.StringIO())
+    console.print(renderable)
+    return console.export_text()
+
+
 def fitter_script(tmp_path, body):
     script = write(tmp_path / "fitter.py", textwrap.dedent(body))
     return f"{sys.executable} {script} {{data}} {{out}}"
@@ -281,3 +290,56 @@ def test_sensitivity_cli_json_and_report(cli, tmp_path):
     assert bad.code == 2 and "no such file" in bad.err
     bad = cli("sensitivity", "--params", PARAMS, catalog_path=catalog)
     assert bad.code == 2 and "either --model with --params, or --fitter-cmd" in bad.err
+
+
+@pytest.mark.parametrize(
+    ("command", "missing"),
+    [("prog {data}", "no {out}"), ("prog {out}", "no {data}"), ("prog", "no {data} and no {out}")],
+)
+def test_fitter_command_without_its_placeholders_is_refused_up_front(
+    demo_catalog, command, missing
+):
+    before = len(demo_catalog.events())
+    with pytest.raises(InputError) as refused:
+        demo_catalog.sensitivity(by="lab", fitter_cmd=command)
+    assert str(refused.value).startswith(f"--fitter-cmd '{command}': {missing} in the command;")
+    assert len(demo_catalog.events()) == before
+
+
+def test_fitter_temp_folders_go_after_success_and_stay_named_after_failure(
+    demo_catalog, tmp_path, monkeypatch
+):
+    import tempfile
+
+    from curate.present.run_text import sensitivity_text
+
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(scratch))
+    good = fitter_script(tmp_path, """
+        import json, sys
+        json.dump({"parameters": {"n": 1.0}, "stderr": {"n": 0.1}}, open(sys.argv[2], "w"))
+    """)  # fmt: skip
+    result = demo_catalog.sensitivity(by="lab", fitter_cmd=good)
+    assert list(scratch.iterdir()) == [] and result.full["workdir"] is None
+    assert "the fitter's files" not in rendered(sensitivity_text(result))
+    failing = write(tmp_path / "failing.py", textwrap.dedent("""
+        import json, sys
+        import pandas as pd
+        if "Marrowby Group" not in set(pd.read_csv(sys.argv[1]).lab):
+            sys.exit(4)
+        json.dump({"parameters": {"n": 1.0}, "stderr": {"n": 0.1}}, open(sys.argv[2], "w"))
+    """))  # fmt: skip
+    result = demo_catalog.sensitivity(
+        by="lab", fitter_cmd=f"{sys.executable} {failing} {{data}} {{out}}"
+    )
+    kept = list(scratch.iterdir())
+    assert len(kept) == 1 and result.full["workdir"] == str(kept[0])
+    error = {g.group: g.error for g in result.groups}["Marrowby Group"]
+    assert f"(log: {kept[0] / 'without_Marrowby_Group' / 'fitter.log'})" in error
+    assert f"the fitter's files (tables, results, logs) are in {kept[0]}" in rendered(
+        sensitivity_text(result)
+    )
+    # an explicit workdir stays, even after a clean run
+    demo_catalog.sensitivity(by="lab", fitter_cmd=good, workdir=tmp_path / "mine")
+    assert (tmp_path / "mine" / "full" / "result.json").is_file()

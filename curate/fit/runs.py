@@ -9,6 +9,7 @@ correction touches.
 
 from __future__ import annotations
 
+import shutil
 import tempfile
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -34,7 +35,9 @@ def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: 
     if (model is None) == (fitter_cmd is None):
         raise InputError("sensitivity: give either --model with --params, or --fitter-cmd")
     if fitter_cmd is not None:
-        return ExternalFitter(fitter_cmd, timeout=timeout), None
+        fitter = ExternalFitter(fitter_cmd, timeout=timeout)
+        fitter.check()
+        return fitter, None
     if params is None:
         raise InputError("sensitivity: --model needs --params SPEC.toml")
     spec = load_spec(params)
@@ -97,10 +100,16 @@ def run_sensitivity(
     weighted = weighted_table(catalog, policy, selection)
     labels = grouping.labels(weighted.table)
     if backend.fits_itself:
+        # a folder of our own is removed after a run in which every fit worked; after a failure
+        # it stays, since the error messages name the logs in it; a --workdir always stays
         folder = Path(workdir) if workdir else Path(tempfile.mkdtemp(prefix="curate-fitter-"))
         result = sensitivity.leave_one_group_out_external(
             backend, weighted.table, labels, by=by, workdir=folder, threshold=threshold, progress=progress
         )  # fmt: skip
+        if workdir is None and all(g.error is None for g in result.groups):
+            shutil.rmtree(folder, ignore_errors=True)
+            assert isinstance(result.full, dict)
+            result.full["workdir"] = None
         _record(catalog, "sensitivity", backend, None, weighted, _summary(result))
         return result
     if spec is None:

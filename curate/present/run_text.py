@@ -351,6 +351,8 @@ def sensitivity_text(result: SensitivityResult) -> Group:
             heldout,
         )
     parts.append(table)
+    if full.get("workdir"):
+        parts.append(Text(f"the fitter's files (tables, results, logs) are in {full['workdir']}"))
     se_table = plain_table(
         ("parameter", "value", "asymptotic SE", "jackknife SE"),
         right=("value", "asymptotic SE", "jackknife SE"),

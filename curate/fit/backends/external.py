@@ -34,6 +34,23 @@ class ExternalFitter(ModelBackend):
         self.command = command
         self.timeout = timeout
 
+    def check(self) -> None:
+        """Refuse, before anything runs, a command that cannot work: unsplittable, empty, or
+        without the ``{data}`` it reads or the ``{out}`` it must write."""
+        try:
+            parts = shlex.split(self.command)
+        except ValueError as err:
+            raise InputError(f"--fitter-cmd: cannot split the command ({err})") from None
+        if not parts:
+            raise InputError("--fitter-cmd: the command is empty")
+        missing = [m for m in ("{data}", "{out}") if not any(m in part for part in parts)]
+        if missing:
+            raise InputError(
+                f"--fitter-cmd '{self.command}': no {' and no '.join(missing)} in the command; "
+                "curate writes the training table to {data} and reads the fitted parameters "
+                "from {out}, e.g. 'julia fit.jl {data} {out}'"
+            )
+
     @classmethod
     def from_description(cls, description: dict[str, Any]) -> ModelBackend:
         """Give the fitter back from its recorded command and timeout."""
