@@ -343,3 +343,71 @@ def test_fitter_temp_folders_go_after_success_and_stay_named_after_failure(
     # an explicit workdir stays, even after a clean run
     demo_catalog.sensitivity(by="lab", fitter_cmd=good, workdir=tmp_path / "mine")
     assert (tmp_path / "mine" / "full" / "result.json").is_file()
+
+
+def dose_response_problem():
+    # two doses of a saturating dose-response: with one dose left, Emax and EC50 are confounded
+    rng = np.random.default_rng(7)
+    t = np.tile(np.linspace(1, 30, 12), 4)
+    dose = np.repeat([10.0, 100.0, 10.0, 100.0], 12)
+    truth = 5.0 * dose / (dose + 30.0) * (1 - np.exp(-0.2 * t))
+    points = pd.DataFrame({"time": t, "value": truth + rng.normal(0, 0.05, len(t)), "weight": 400.0,
+                           "relative": False, "dataset_id": np.repeat(["d1", "d2", "d3", "d4"], 12),
+                           "observable": "signal", "dose": dose})  # fmt: skip
+
+    def model(params, frame):
+        d = frame["dose"].to_numpy()
+        drive = params["Emax"] * d / (d + params["EC50"])
+        return drive * (1 - np.exp(-params["k"] * frame["time"].to_numpy()))
+
+    spec = fitting.spec_from_dict({"parameters": {
+        "Emax": {"start": 4.0, "lower": 0}, "EC50": {"start": 20.0, "lower": 0, "log": True},
+        "k": {"start": 0.1, "lower": 0}}})  # fmt: skip
+    problem = fitting.FitProblem(points, model, spec)
+    return problem, fitting.fit(problem), points
+
+
+@pytest.mark.parametrize("method", ["exact", "one-step"])
+def test_leaving_out_one_of_two_doses_flags_the_dose_response_parameters(method):
+    problem, full, points = dose_response_problem()
+    result = sensitivity.leave_one_group_out(
+        problem, full, points["dose"].map("{:g}".format).to_numpy(), by="condition:dose",
+        method=method,
+    )  # fmt: skip
+    for group in result.groups:
+        kept = "100.0" if group.group == "10" else "10.0"
+        assert group.flags[0] == (
+            f"without condition:dose {group.group} the rest no longer identifies Emax, EC50 "
+            f"(1 combination(s) lost; dose takes one value ({kept}) in training): their shifts "
+            "mean little"
+        )
+        assert all(np.isfinite(p["value"]) for p in group.parameters.values())
+    errors = {g.group: g.error for g in result.groups}
+    # the exact refit without the high dose runs off along the lost direction: said, not crashed
+    ran_off = "the parameters ran off to infinity" if method == "exact" else None
+    assert errors == {"10": None, "100": ran_off}
+    # leaving out a dataset keeps both doses: nothing is lost, nothing flagged as such
+    by_dataset = sensitivity.leave_one_group_out(
+        problem, full, points["dataset_id"].to_numpy(), by="dataset", method=method
+    )
+    assert not any("no longer identifies" in flag for flag in by_dataset.flags())
+
+
+def test_jackknife_over_few_groups_carries_a_caveat():
+    problem, full, points = dose_response_problem()
+    few = sensitivity.leave_one_group_out(
+        problem, full, points["dataset_id"].to_numpy(), by="dataset", method="one-step"
+    )
+    caveat = (
+        "the jackknife standard errors come from only 4 groups: treat them as rough (fewer than "
+        "5 groups; common practice, not a published rule)"
+    )
+    assert few.notes() == [caveat] and few.to_dict()["notes"] == [caveat]
+    from curate.present.html import sensitivity_section
+    from curate.present.run_text import sensitivity_text
+
+    assert caveat in rendered(sensitivity_text(few)).replace("\n", " ")
+    assert caveat in sensitivity_section(few)
+    labels = np.repeat([f"g{k}" for k in range(6)], 8)
+    many = sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="one-step")
+    assert many.notes() == [] and many.to_dict()["notes"] == []

@@ -150,6 +150,7 @@ def sensitivity_section(result: SensitivityResult) -> str:
         se_axis.legend(fontsize=8, frameon=False)
         parts.append("<h3>Standard errors: asymptotic against delete-one-group jackknife</h3>")
         parts.append(figure_tag(se_figure, "asymptotic and jackknife standard errors"))
+        parts += [f'<p class="note">{html.escape(note)}</p>' for note in result.notes()]
     header = [
         f"without {result.by}",
         "points",

@@ -364,6 +364,7 @@ def sensitivity_text(result: SensitivityResult) -> Group:
                          "-" if jack is None else f"{jack:.3g}")  # fmt: skip
     parts.append(Text(""))
     parts.append(se_table)
+    parts += [Text(note) for note in result.notes()]
     for entry in result.policies:
         moved = ", ".join(
             f"{n} {v['shift_se']:+.2f} SE"
