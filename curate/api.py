@@ -148,13 +148,14 @@ class Catalog(Ledger):
     # -- fits and sensitivity ----------------------------------------------------------------
 
     def fit(self, model: str | ModelBackend, params: str | Path, *, policy: PolicyLike = None,
-            selection: Selection | None = None, options: FitOptions | None = None) -> FitResult:  # fmt: skip
+            selection: Selection | None = None, options: FitOptions | None = None,
+            progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
         """Fit a model (module:function, file.py:function or a backend) to the weighted selection."""
         chosen = resolve_policy(policy)
         spec = load_spec(params)
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
-                            options=options)  # fmt: skip
+                            options=options, progress=progress)  # fmt: skip
 
     def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
                     fitter_cmd: str | None = None, method: str = "exact", policy: PolicyLike = None,

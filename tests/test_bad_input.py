@@ -325,3 +325,15 @@ def test_broken_petab_yaml_names_the_line_not_the_parser(cli, tmp_path):
     assert len(run.err.strip().splitlines()) == 1
     assert f"{problem}: not a readable YAML file (line " in run.err
     assert not CLASS_NAME.search(run.err), run.err
+
+
+@pytest.mark.parametrize(
+    ("command", "option"),
+    [("fit", "--max-evaluations"), ("fit", "--generations"), ("sensitivity", "--max-evaluations")],
+)
+def test_budget_below_one_is_refused(seeded, tmp_path, command, option):
+    params = write(tmp_path / "p.toml", "[parameters.a]\nstart = 1\n")
+    model = write(tmp_path / "m.py", "def f(p, points):\n    return p['a'] + 0 * points['time']\n")
+    run = seeded(command, "--model", f"{model}:f", "--params", params, option, "0")
+    assert run.code == 2, run
+    assert run.err.strip() == f"curate: error: {option} 0: expected at least 1"

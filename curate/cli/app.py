@@ -583,6 +583,21 @@ def impact(
     _show([f.to_dict() for f in found], lambda: run_text.impact_text(dataset_id, found), as_json)
 
 
+MaxEvaluations = Annotated[
+    int | None,
+    typer.Option(help="stop after this many model evaluations (the whole fit; each refit apart)"),
+]
+Generations = Annotated[
+    int | None, typer.Option(help="generations of the --global search (default 300)")
+]
+
+
+def _budget(option: str, value: int | None) -> int | None:
+    if value is not None and value < 1:
+        raise InputError(f"{option} {value}: expected at least 1")
+    return value
+
+
 @app.command()
 @selection_options
 def fit(
@@ -606,16 +621,23 @@ def fit(
             help="scale the covariance by the reduced chi2 (when sigmas are only relative)"
         ),
     ] = False,
+    max_evaluations: MaxEvaluations = None,
+    generations: Generations = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Fit a model to the weighted selection: values, standard errors, scale factors, chi2."""
     if starts < 1:
         raise InputError(f"--starts {starts}: expected at least 1")
     options = FitOptions(
-        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance
-    )
-    with _catalog() as catalog:
-        result = catalog.fit(model, params, policy=policy, selection=selection, options=options)
+        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance,
+        max_evaluations=_budget("--max-evaluations", max_evaluations),
+        generations=_budget("--generations", generations),
+    )  # fmt: skip
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "fitting", enabled=show_bar) as update:
+        result = catalog.fit(
+            model, params, policy=policy, selection=selection, options=options, progress=update
+        )
     _show(result.to_dict(), lambda: run_text.fit_text(result), as_json)
 
 
@@ -654,6 +676,7 @@ def sensitivity(
     selection: Selection,
     policy: Policy,
     starts: Annotated[int, typer.Option(help="starts of the full fit")] = 1,
+    max_evaluations: MaxEvaluations = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
@@ -664,7 +687,8 @@ def sensitivity(
     with _catalog() as catalog, progress_bar(err_console, "refitting", enabled=show_bar) as update:
         result = catalog.sensitivity(
             by=by, model=model, params=params, fitter_cmd=fitter_cmd, method=method, policy=policy,
-            selection=selection, options=FitOptions(starts=starts), workers=count, dask=dask,
+            selection=selection, workers=count, dask=dask,
+            options=FitOptions(starts=starts, max_evaluations=_budget("--max-evaluations", max_evaluations)),
             threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,
             progress=update,
         )  # fmt: skip

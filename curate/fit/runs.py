@@ -63,14 +63,15 @@ def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSp
 
 
 def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, policy: Policy, selection: Selection,
-            options: FitOptions | None = None) -> FitResult:  # fmt: skip
+            options: FitOptions | None = None,
+            progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
     """Fit a model to the weighted selection; record the fit; give the result."""
     if backend.fits_itself:
         raise InputError(
             "fit: an external fitter fits by itself; use `curate sensitivity --fitter-cmd`"
         )
     weighted = weighted_table(catalog, policy, selection)
-    result = fit(FitProblem(weighted.table, backend, spec), options)
+    result = fit(FitProblem(weighted.table, backend, spec), options, progress=progress)
     _record(catalog, "fit", backend, spec, weighted,
             {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
     return result
@@ -115,7 +116,7 @@ def run_sensitivity(
     if spec is None:
         raise InputError("sensitivity: --model needs --params SPEC.toml")
     problem = FitProblem(weighted.table, backend, spec)
-    full = fit(problem, options)
+    full = fit(problem, options, progress=(lambda d, t, _: progress(d, t)) if progress else None)
     result = sensitivity.leave_one_group_out(
         problem, full, labels, by=by, method=method, options=options, workers=workers, dask=dask,
         shift_threshold=threshold, progress=progress,
