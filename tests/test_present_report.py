@@ -51,8 +51,8 @@ def test_report_of_a_million_point_dataset_is_small_and_keeps_its_spikes(tmp_pat
     assert out.stat().st_size < 400_000  # plots are PNGs of a bounded number of points
     assert "1 long series (big_velarin_conc_01) are drawn by their smallest and largest" in page
     # item 21: the glance counts current datasets and names the retired one apart
-    assert "1 current datasets (1,200,000 points) from 1 labs" in page
-    assert "1 retired dataset are kept but not counted" in page
+    assert "1 current dataset (1,200,000 points) from 1 lab" in page
+    assert "1 retired dataset is kept but not counted" in page
     # what the panel draws is the min/max envelope: the spikes are in it
     kept = column_extremes(time / 60.0, value, PANEL_PIXELS)
     assert {n // 3, 2 * n // 3} <= set(kept.tolist())
@@ -75,3 +75,15 @@ def test_report_tables_are_bounded_and_say_what_they_left_out(memory_catalog):
     # the glance chart sums the labs beyond the 29 largest into one bar
     labs = Counter({f"Lab {k}": 1 for k in range(MAX_TABLE_ROWS + 25)})
     assert len(_top(labs)) == 30 and _top(labs)["196 others"] == 196
+
+
+def test_glance_counts_current_datasets_and_the_retired_apart(memory_catalog):
+    drafts = [memory_catalog.draft(np.arange(4.0), np.arange(4.0) * k, observable="velarin_conc",
+                                   unit="nM", time_unit="s", lab=lab, sd=np.full(4, 0.2))
+              for k, lab in enumerate(["A Lab", "B Lab", "B Lab"], start=1)]  # fmt: skip
+    added = memory_catalog.add_drafts(drafts)
+    memory_catalog.retire(added[0].id, reason="superseded")
+    memory_catalog.retire(added[1].id, reason="superseded")
+    page = build_report(memory_catalog, load_policy(None))
+    assert "1 current dataset (4 points) from 1 lab" in page
+    assert "2 retired datasets are kept but not counted." in page

@@ -75,6 +75,10 @@ def _top(counts: Counter[str]) -> dict[str, int]:
     return top
 
 
+def _many(n: int, word: str) -> str:
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
 def _overview(catalog: Ledger) -> str:
     everything = catalog.list(include_retired=True)
     versions = [v for v in everything if not v.record.retired]
@@ -104,13 +108,13 @@ def _overview(catalog: Ledger) -> str:
             for v in listed]  # fmt: skip
     points = sum(v.record.n_points for v in versions)
     aside = (
-        f" {retired} retired dataset{'s' if retired != 1 else ''} are kept but not counted."
+        f" {_many(retired, 'retired dataset')} {'is' if retired == 1 else 'are'} kept but not counted."
         if retired
         else ""
     )
     return (
-        f'<section id="overview"><h2>The catalog at a glance</h2><p class="note">{len(versions)} current '
-        f"datasets ({points:,} points) from {len(by_lab)} labs; catalog {html.escape(catalog.catalog_id)}.{aside}</p>"
+        f'<section id="overview"><h2>The catalog at a glance</h2><p class="note">{_many(len(versions), "current dataset")} '
+        f"({points:,} points) from {_many(len(by_lab), 'lab')}; catalog {html.escape(catalog.catalog_id)}.{aside}</p>"
         + figure_tag(figure, "current datasets by observable, lab and grade")
         + table_html(
             [
