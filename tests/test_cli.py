@@ -92,7 +92,11 @@ def test_demo_runs_on_examples(cli, tmp_path):
     assert "suggested marrowby_velarin_conc_01 C -> D (accepted by the demo" in run.out
     assert "worst held-out fit: marrowby_velarin_conc_01" in run.out
     assert "7. fitted the scenario's ODE model" in run.out and "true 0.2" in run.out
-    assert "after review, leave one lab out" in run.out
+    assert (
+        "8. after review, leave one dataset out" in run.out and "\n   leave one lab out" in run.out
+    )
+    steps = [line.split(".")[0] for line in run.out.splitlines() if line[:1].isdigit()]
+    assert steps == [str(k) for k in range(1, 10)]  # each step numbered once, in order
     assert "intact: 13 datasets, 40 versions" in run.out
     assert (tmp_path / "demo" / "report.html").stat().st_size > 100_000
     refused = cli("demo", tmp_path / "demo", catalog_path=None)

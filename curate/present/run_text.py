@@ -153,9 +153,10 @@ def demo_text(result: DemoFindings) -> Group:
             parts.append(
                 Text("   against the values that generated the invented data: " + "; ".join(within))
             )
-    for by, sens in result.sensitivity.items():
+    for number, (by, sens) in enumerate(result.sensitivity.items()):
         measured = [g for g in sens.groups if g.cook_distance is not None]
-        text = f"8. after review, leave one {by} out: {len(sens.flags())} flag(s)"
+        step = "8. after review, leave" if number == 0 else "   leave"  # one step, several checks
+        text = f"{step} one {by} out: {len(sens.flags())} flag(s)"
         if measured:
             worst = max(measured, key=lambda g: g.cook_distance or 0.0)
             moved = max(((n, v["shift_se"]) for n, v in worst.parameters.items() if v["shift_se"] is not None),
