@@ -31,7 +31,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
-from bench.peak import export_peak  # noqa: E402
+from bench.peak import export_peak, report_peak  # noqa: E402
 from curate import fit as fitting  # noqa: E402
 from curate.export.table import table_bytes  # noqa: E402
 from curate.fit import sensitivity  # noqa: E402
@@ -304,6 +304,36 @@ def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
     }  # fmt: skip
 
 
+def case_report(folder: Path, n_points: int) -> dict[str, Any]:
+    """The catalog report of one n-point dataset of pure noise with planted spikes (the hardest
+    case to draw) beside a small one: seconds, and the peak memory of the report's process
+    against the raw arrays (time, value, sd as float64); the baseline is reading the arrays."""
+    path = folder / f"report_{n_points}.db"
+    fresh(folder, path.name)
+    rng = np.random.default_rng(3)
+    value = rng.uniform(0, 1000, n_points)
+    value[n_points // 3], value[2 * n_points // 3] = 9000.0, -4000.0
+    with curate.open_catalog(path, actor="bench") as catalog:
+        catalog.add_drafts([
+            catalog.draft(np.arange(n_points, dtype=float), value, sd=rng.uniform(0, 300, n_points),
+                          observable="velarin_conc", unit="nM", time_unit="s", lab="Big Lab"),
+            catalog.draft(np.arange(10.0), np.arange(10.0) + 500, sd=np.full(10, 5.0),
+                          observable="velarin_conc", unit="nM", time_unit="s", lab="Small Lab"),
+        ])  # fmt: skip
+        ident = catalog.list(lab="Big Lab")[0].id
+        baseline_s, _ = median_time(lambda: catalog.arrays(ident), 3)
+    queue = multiprocessing.get_context("spawn").Queue()
+    child = multiprocessing.get_context("spawn").Process(
+        target=report_peak, args=(str(path), str(folder / "report.html"), queue)
+    )
+    child.start()
+    seconds, peak = queue.get(timeout=1800)
+    child.join()
+    raw = n_points * 3 * 8
+    return {"ratio": peak / raw, "target": 16.0, "ours_s": seconds, "baseline_s": baseline_s, "n": n_points,
+            "peak_bytes": peak, "raw_data_bytes": raw, "html_bytes": (folder / "report.html").stat().st_size}  # fmt: skip
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(prog="python -m bench", description=__doc__.split("\n")[0])
     parser.add_argument(
@@ -334,6 +364,8 @@ def main() -> None:
         )
         if not quick:
             results["scaling_1e7"] = case_scaling(folder, [10000, 100000])
+        results["report"] = case_report(folder, 1_000_000 if quick else 10_000_000)
+        print(f"  report done ({results['report']['ours_s']:.1f} s)", flush=True)
     print()
     print(f"{'case':<22}{'n':>10}{'ours s':>10}{'base s':>10}{'ratio':>9}{'target':>8}  met")
     for case, row in results.items():

@@ -16,7 +16,7 @@ from pathlib import Path
 import pandas as pd
 
 from curate import export as exporting
-from curate.errors import InputError
+from curate.errors import CatalogError, InputError
 from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
@@ -40,9 +40,23 @@ from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_polic
 __all__ = ["Catalog", "open_catalog"]
 
 
-def open_catalog(path: str | Path | None = None, *, actor: str | None = None) -> Catalog:
-    """Give the catalog at ``path`` ($CURATE_CATALOG, else ./curate.db), creating it if new."""
+def open_catalog(
+    path: str | Path | None = None, *, actor: str | None = None, create: bool = True
+) -> Catalog:
+    """Give the catalog at ``path`` ($CURATE_CATALOG, else ./curate.db).
+
+    By default (``create=True``, the Python API's behaviour) a missing file becomes a new,
+    empty catalog. With ``create=False`` a missing file is refused with a
+    :class:`~curate.errors.CatalogError` naming the path: the command line opens the catalog
+    this way for every command that does not log data, so a mistyped ``--catalog`` is not
+    silently a new, empty catalog.
+    """
     chosen = path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG
+    if not create and str(chosen) != ":memory:" and not Path(chosen).exists():
+        raise CatalogError(
+            f"{chosen}: the catalog file does not exist; check --catalog or $CURATE_CATALOG "
+            "(only add, intake, import-petab, demo and restore create a catalog)"
+        )
     return Catalog(chosen, actor=actor)
 
 
@@ -59,10 +73,13 @@ class Catalog(Ledger):
 
     # -- intake ----------------------------------------------------------------------------
 
-    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None,
+    def intake(self, folder: str | Path, *, quarantine: str | Path | None = None, lab: str | None = None,
                progress: Callable[[int, int, str], None] | None = None) -> IntakeReport:  # fmt: skip
-        """Log every data file of a folder; quarantine each bad one with its reason."""
-        return intake_folder(self, folder, quarantine=quarantine, progress=progress)
+        """Log every data file of a folder; quarantine each bad one with its reason.
+
+        ``lab`` is the source lab of files whose sidecar names none.
+        """
+        return intake_folder(self, folder, quarantine=quarantine, lab=lab, progress=progress)
 
     # -- judgement (noise, trust, consistency) --------------------------------------------
 
@@ -146,13 +163,14 @@ class Catalog(Ledger):
     # -- fits and sensitivity ----------------------------------------------------------------
 
     def fit(self, model: str | ModelBackend, params: str | Path, *, policy: PolicyLike = None,
-            selection: Selection | None = None, options: FitOptions | None = None) -> FitResult:  # fmt: skip
+            selection: Selection | None = None, options: FitOptions | None = None,
+            progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
         """Fit a model (module:function, file.py:function or a backend) to the weighted selection."""
         chosen = resolve_policy(policy)
         spec = load_spec(params)
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
-                            options=options)  # fmt: skip
+                            options=options, progress=progress)  # fmt: skip
 
     def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
                     fitter_cmd: str | None = None, method: str = "exact", policy: PolicyLike = None,

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import sqlite3
 from pathlib import Path
 
@@ -11,6 +12,8 @@ import pytest
 from conftest import LONG_CSV, SIDECAR, write
 
 BASE = ["--observable", "front_speed", "--unit", "um/min", "--time-unit", "min", "--lab", "L"]
+# a Python exception class name (ValueError, AssertionError, BadZipFile...) in a user's message
+CLASS_NAME = re.compile(r"\b(?:[A-Z]\w*(?:Error|Exception)|BadZipFile)\b")
 
 
 def dump(catalog: Path) -> list[str]:
@@ -118,6 +121,7 @@ def test_bad_data_file(seeded, tmp_path, name, filename, content, extra, expecte
     assert len(lines) == 1, run.err
     assert expected in lines[0]
     assert "Traceback" not in run.err
+    assert not CLASS_NAME.search(run.err), run.err
     assert dump(seeded.catalog) == before
 
 
@@ -126,6 +130,11 @@ OPTION_CASES = [
         "unknown unit",
         ["--observable", "x", "--unit", "wibbles", "--time-unit", "min", "--lab", "L"],
         "unknown value unit 'wibbles'",
+    ),
+    (
+        "unit ending in a slash",
+        ["--observable", "x", "--unit", "nM/", "--time-unit", "min", "--lab", "L"],
+        "unknown value unit 'nM/': expected a unit such as",
     ),
     (
         "time unit of wrong dimension",
@@ -168,6 +177,7 @@ def test_bad_options(seeded, tmp_path, name, args, expected):
     assert run.code == 2, run
     assert len(run.err.strip().splitlines()) == 1, run.err
     assert expected in run.err
+    assert not CLASS_NAME.search(run.err), run.err
     assert dump(seeded.catalog) == before
 
 
@@ -361,3 +371,81 @@ def test_lowercase_grade_is_accepted_everywhere(concentrations, tmp_path):
     assert (
         json.loads(concentrations("show", json.loads(run.out)["id"], "--json").out)["grade"] == "A"
     )
+
+
+READING_COMMANDS = [
+    ["list"],
+    ["show", "x_01"],
+    ["history", "x_01"],
+    ["verify"],
+    ["weights"],
+    ["export", "table", "out"],
+    ["folds", "out"],
+    ["trace", "out"],
+    ["impact", "x_01"],
+    ["fit", "--model", "m.py:f", "--params", "p.toml"],
+    ["sensitivity", "--model", "m.py:f", "--params", "p.toml"],
+    ["report", "r.html"],
+    ["consistency"],
+    ["noise", "--all"],
+    ["grade", "x_01", "B", "--reason", "r"],
+    ["backup", "b.db"],
+    ["revise", "x_01", "--reason", "r", "--lab", "L"],
+    ["retire", "x_01", "--reason", "r"],
+]
+
+
+@pytest.mark.parametrize("args", READING_COMMANDS, ids=[a[0] for a in READING_COMMANDS])
+def test_mistyped_catalog_is_refused_not_created(cli, tmp_path, monkeypatch, args):
+    monkeypatch.chdir(tmp_path)  # relative output names land here, never in the checkout
+    missing = tmp_path / "typo.db"
+    run = cli(*args, catalog_path=missing)
+    assert run.code == 2, run
+    assert len(run.err.strip().splitlines()) == 1, run.err
+    assert f"{missing}: the catalog file does not exist" in run.err
+    assert not missing.exists()
+
+
+def test_commands_that_log_data_create_the_catalog(cli, tmp_path):
+    fresh = tmp_path / "fresh.db"
+    data = write(tmp_path / "a.csv", LONG_CSV)
+    assert cli("add", data, *BASE, catalog_path=fresh).code == 0
+    assert fresh.exists()
+    inbox = tmp_path / "inbox"
+    write(inbox / "b.csv", LONG_CSV.replace("4.0", "4.5"))
+    write(inbox / "b.toml", SIDECAR)
+    assert cli("intake", inbox, catalog_path=tmp_path / "other.db").code == 0
+    assert (tmp_path / "other.db").exists()
+
+
+def test_negative_workers_are_refused(seeded, tmp_path):
+    before = dump(seeded.catalog)
+    params = write(tmp_path / "p.toml", "[parameters.a]\nstart = 1\n")
+    model = write(tmp_path / "m.py", "def f(p, points):\n    return p['a'] + 0 * points['time']\n")
+    run = seeded("sensitivity", "--model", f"{model}:f", "--params", params, "--workers", "-3")
+    assert run.code == 2, run
+    assert run.err.strip() == (
+        "curate: error: --workers -3: expected 0 (every core) or a number of processes"
+    )
+    assert dump(seeded.catalog) == before
+
+
+def test_broken_petab_yaml_names_the_line_not_the_parser(cli, tmp_path):
+    problem = write(tmp_path / "problem.yaml", "format_version: 1\nproblems: [\n  - a: b\n")
+    run = cli("import-petab", problem)
+    assert run.code == 2, run
+    assert len(run.err.strip().splitlines()) == 1
+    assert f"{problem}: not a readable YAML file (line " in run.err
+    assert not CLASS_NAME.search(run.err), run.err
+
+
+@pytest.mark.parametrize(
+    ("command", "option"),
+    [("fit", "--max-evaluations"), ("fit", "--generations"), ("sensitivity", "--max-evaluations")],
+)
+def test_budget_below_one_is_refused(seeded, tmp_path, command, option):
+    params = write(tmp_path / "p.toml", "[parameters.a]\nstart = 1\n")
+    model = write(tmp_path / "m.py", "def f(p, points):\n    return p['a'] + 0 * points['time']\n")
+    run = seeded(command, "--model", f"{model}:f", "--params", params, option, "0")
+    assert run.code == 2, run
+    assert run.err.strip() == f"curate: error: {option} 0: expected at least 1"

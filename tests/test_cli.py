@@ -125,7 +125,11 @@ def test_demo_runs_on_examples(cli, tmp_path):
     assert "suggested marrowby_velarin_conc_01 C -> D (accepted by the demo" in run.out
     assert "worst held-out fit: marrowby_velarin_conc_01" in run.out
     assert "7. fitted the scenario's ODE model" in run.out and "true 0.2" in run.out
-    assert "after review, leave one lab out" in run.out
+    assert (
+        "8. after review, leave one dataset out" in run.out and "\n   leave one lab out" in run.out
+    )
+    steps = [line.split(".")[0] for line in run.out.splitlines() if line[:1].isdigit()]
+    assert steps == [str(k) for k in range(1, 10)]  # each step numbered once, in order
     assert "intact: 13 datasets, 40 versions" in run.out
     assert (tmp_path / "demo" / "report.html").stat().st_size > 100_000
     refused = cli("demo", tmp_path / "demo", catalog_path=None)
@@ -387,3 +391,23 @@ def test_trace_exits_1_for_a_catalog_rolled_back_behind_the_export(cli, tmp_path
     assert json.loads(cli("trace", tmp_path / "t", "--json").out)["chain_changed"][0].startswith(
         "the catalog no longer extends head 3:"
     )
+
+
+def test_mistyped_command_gets_usage_and_closest_names(cli):
+    run = cli("verfy", catalog_path=None)
+    assert run.code == 2, run
+    lines = run.err.strip().splitlines()
+    assert lines[0].startswith("Usage: curate [OPTIONS] COMMAND")
+    assert lines[-1] == "curate: error: no command 'verfy'; did you mean 'verify' or 'version'?"
+    assert "internal error" not in run.err
+
+
+def test_usage_mistakes_exit_2_with_the_usage_line(cli):
+    missing = cli("show", catalog_path=None)
+    assert missing.code == 2 and missing.err.startswith("Usage: curate show")
+    assert missing.err.strip().splitlines()[-1] == "curate: error: Missing argument 'ID'."
+    bogus = cli("list", "--bogus", catalog_path=None)
+    assert bogus.code == 2 and "No such option: --bogus" in bogus.err
+    assert "internal error" not in missing.err + bogus.err
+    bare = cli(catalog_path=None)
+    assert bare.code == 0 and "Usage: curate" in bare.out

@@ -168,3 +168,50 @@ def test_report_renders_in_a_real_headless_browser(demo, tmp_path):
 
     pixels = matplotlib.image.imread(screenshot)
     assert pixels.shape[0] >= 1000 and float(np.std(pixels[..., :3])) > 0.05  # not blank
+
+
+def readme_output(fragment: str) -> list[str]:
+    """Give the output lines the README shows under the tour command containing ``fragment``
+    (continuation lines of the command skipped, '...' lines dropped)."""
+    lines = (ROOT / "README.md").read_text(encoding="utf-8").splitlines()
+    start = next(k for k, line in enumerate(lines) if line.startswith("$ ") and fragment in line)
+    k = start
+    while lines[k].endswith("\\"):
+        k += 1
+    shown = []
+    for line in lines[k + 1 :]:
+        if line.startswith(("$ ", "```")):
+            break
+        if line.strip() != "...":
+            shown.append(line)
+    return shown
+
+
+def assert_printed(expected: list[str], printed: str) -> None:
+    got = [line.rstrip() for line in printed.splitlines()]
+    for line in expected:
+        if line.endswith("..."):  # the README cuts the line short
+            assert any(g.startswith(line[:-3]) for g in got), (line, got)
+        else:
+            assert line.rstrip() in got, (line, got)
+
+
+def test_readme_fit_example_is_what_fit_prints(demo, cli):
+    # the README's tour runs on the demo's catalog: its numbers must be today's numbers
+    expected = readme_output("fit --model model.py:predict --params params.toml")
+    assert len(expected) >= 3
+    run = cli("fit", "--model", f"{EXAMPLES / 'model.py'}:predict", "--params",
+              EXAMPLES / "params.toml", catalog_path=demo.catalog_path)  # fmt: skip
+    assert run.code == 0, run.err
+    assert_printed(expected, run.out)
+
+
+@pytest.mark.slow
+def test_readme_sensitivity_example_is_what_sensitivity_prints(demo, cli):
+    expected = readme_output("sensitivity --model model.py:predict --params params.toml")
+    assert any(line.startswith("marrowby_velarin_conc_01") for line in expected)
+    run = cli("sensitivity", "--model", f"{EXAMPLES / 'model.py'}:predict", "--params",
+              EXAMPLES / "params.toml", "--by", "dataset", "--workers", "2",
+              catalog_path=demo.catalog_path)  # fmt: skip
+    assert run.code == 0, run.err
+    assert_printed(expected, run.out)

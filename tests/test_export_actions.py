@@ -288,8 +288,18 @@ def test_selection(prepared, tmp_path):
         selection=Selection(ids=(first.id,), versions=((first.id, 1),))
     )
     assert set(pinned["version"]) == {1}
-    with pytest.raises(InputError, match="the selection matches no dataset"):
+    with pytest.raises(InputError, match="the selection matches no dataset") as refused:
         prepared.weighted_table(selection=Selection(labs=("Nobody",)))
+    assert "{" not in str(refused.value)
+    words = Selection(
+        observables=("glint",), labs=("A", "B"), conditions=(("dose", "10uM"),), grades=("C",),
+        versions=(("x_01", 2),), include_retired=True,
+    ).describe()  # fmt: skip
+    assert words == (
+        "observable glint; lab 'A' or 'B'; condition dose = 10uM; grade C; x_01 at version 2; "
+        "retired ones included"
+    )
+    assert Selection().describe() == "every current dataset"
 
 
 def test_excluded_grade_stays_out(prepared):
@@ -331,7 +341,10 @@ def test_export_cli(cli, tmp_path, examples):
     run = cli("export", "excel", tmp_path / "x")
     assert run.code == 2 and "unknown export format 'excel'" in run.err
     run = cli("export", "table", tmp_path / "n", "--lab", "Nobody")
-    assert run.code == 2 and "the selection matches no dataset" in run.err
+    assert run.code == 2 and run.err.strip() == (
+        "curate: error: the selection matches no dataset that the policy lets into a fit "
+        "(lab 'Nobody'; the policy leaves out grade X); widen it, or see `curate list`"
+    )
     bad_policy = write(tmp_path / "bad.toml", "[inflation]\nA = 1\nB = 2\nC = 4\nD = -1\n")
     run = cli("weights", "--policy", bad_policy)
     assert run.code == 2 and "field 'inflation.D': -1 is not allowed" in run.err
@@ -343,6 +356,51 @@ def test_export_cli(cli, tmp_path, examples):
     assert run.code == 1 and "retired" in run.out
     run = cli("impact", target, "--json")
     assert run.code == 0 and json.loads(run.out)[0]["retired"] is True
+    assert [e["kind"] for e in json.loads(run.out)] == ["folds"]
+    text = cli("impact", target).out
+    assert text.startswith(f"1 fold set used an outdated version of {target}:")
+
+
+def test_impact_names_each_kind_of_run(prepared, tmp_path):
+    import curate
+    from curate.present.run_text import impact_text
+
+    target = prepared.list(observable="velarin_conc")[0].id
+    spec = write(tmp_path / "p.toml", "[parameters.level]\nstart = 10\n")
+
+    def flat(params, points):
+        return np.full(len(points), params["level"])
+
+    selection = Selection(observables=("velarin_conc",))
+    prepared.export("table", tmp_path / "t", selection=selection)
+    prepared.folds("lab", tmp_path / "f", selection=selection)
+    prepared.fit(curate.PythonFunction(flat), spec, selection=selection)
+    prepared.sensitivity(
+        model=f"{write(tmp_path / 'm.py', MODEL_FILE)}:flat", params=spec, method="one-step",
+        by="lab", selection=selection,
+    )  # fmt: skip
+    prepared.revise(target, reason="lab corrected the dose", conditions={"dose": "9 uM"})
+    found = prepared.impact(target)
+    assert [e.kind for e in found] == ["export", "folds", "fit", "sensitivity"]
+    assert [e.to_dict()["kind"] for e in found] == ["export", "folds", "fit", "sensitivity"]
+    assert set(found[2].to_dict()) == {"event", "at", "kind", "format", "outdir", "used_version",
+                                       "current_version", "retired", "changes"}  # fmt: skip
+    lines = impact_text(target, found).plain.splitlines()
+    assert lines[0] == (
+        f"1 export, 1 fold set, 1 fit, 1 sensitivity run used an outdated version of {target}:"
+    )
+    assert " table export " in lines[1] and str(tmp_path / "t") in lines[1]
+    assert " fold set (by lab) " in lines[2]
+    assert lines[3].endswith("  fit: used version 3, now version 4 (revise)")
+    assert lines[4].endswith("  sensitivity run: used version 3, now version 4 (revise)")
+
+
+MODEL_FILE = """
+import numpy as np
+
+def flat(params, points):
+    return np.full(len(points), params["level"])
+"""
 
 
 # -- what a manifest names about the catalog, and the chain head it anchors ----------------

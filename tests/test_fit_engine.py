@@ -198,6 +198,10 @@ def test_model_errors(tmp_path):
             return np.full(len(points), np.nan)
         def boom(params, points):
             raise RuntimeError("bad dose")
+        def text(params, points):
+            return ["1.0"] + ["fast"] * (len(points) - 1)
+        def keyed(params, points):
+            return points["dose"]
     """,
     )
     with pytest.raises(InputError, match="defines no function 'absent'"):
@@ -206,7 +210,49 @@ def test_model_errors(tmp_path):
         fitting.load_model("no_colon")
     spec = fitting.spec_from_dict({"parameters": {"a": {"start": 1.0}}})
     for name, message in (("short", "returned 29 values for 30 rows"), ("nan", "returned nan at row 1"),
-                          ("boom", "the model raised RuntimeError: bad dose")):  # fmt: skip
+                          ("boom", r"the model failed: bad dose \(call it"),
+                          ("text", "the model returned '1.0' at row 1, which is not a number"),
+                          ("keyed", "the model failed: no column or parameter 'dose'")):  # fmt: skip
         model = fitting.load_model(f"{model_file}:{name}")
         with pytest.raises(InputError, match=message):
             fitting.fit(fitting.FitProblem(linear_points(), model, spec))
+
+
+def boxbod_bounded():
+    points, function, _spec, _content, _names = nist.problem("BoxBOD", "start1")
+    bounded = fitting.spec_from_dict({"parameters": {"b1": {"start": 1.0, "lower": 1.0, "upper": 1000.0},
+                                                     "b2": {"start": 1.0, "lower": 0.01, "upper": 5.0}}})  # fmt: skip
+    return fitting.FitProblem(points, function, bounded)
+
+
+def test_global_search_reports_progress_and_honours_its_generations():
+    calls = []
+    result = fitting.fit(
+        boxbod_bounded(),
+        fitting.FitOptions(global_search=True, generations=4, starts=2),
+        progress=lambda done, total, stage: calls.append((done, total, stage)),
+    )
+    searched = [c for c in calls if c[2] == "global search"]
+    assert searched == [(k, 4, "global search") for k in range(1, 5)]
+    assert [c for c in calls if c[2] == "local fits"] == [(k, 3, "local fits") for k in range(4)]
+    assert result.options["generations"] == 4 and result.evaluations > 0
+
+
+def test_evaluation_budget_stops_the_whole_fit():
+    # the global search stops after the generation that spends the budget; later starts get
+    # nothing, and the result says it stopped rather than converged
+    result = fitting.fit(
+        boxbod_bounded(), fitting.FitOptions(global_search=True, starts=3, max_evaluations=100)
+    )
+    population = 15 * 2  # scipy's default popsize 15 times the number of free parameters
+    assert 100 <= result.evaluations <= 100 + population
+    assert not result.converged
+    assert result.message.startswith("stopped: the budget of 100 model evaluations is spent")
+    assert [s["message"] for s in result.starts] == [
+        "not run: the budget of 100 model evaluations is spent"
+    ] * 4
+    local = fitting.fit(boxbod_bounded(), fitting.FitOptions(starts=2, max_evaluations=5))
+    assert local.evaluations <= 5 and not local.converged
+    assert local.to_dict()["options"]["max_evaluations"] == 5
+    with pytest.raises(InputError, match="max_evaluations = 0: expected at least 1"):
+        fitting.fit(boxbod_bounded(), fitting.FitOptions(max_evaluations=0))

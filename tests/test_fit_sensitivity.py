@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 import sys
 import textwrap
@@ -181,6 +182,14 @@ def test_sensitivity_on_the_example_flags_the_saturated_dataset(demo_catalog):
     assert record["payload"]["model_sha256"] and len(record["payload"]["datasets"]) == 13
 
 
+def rendered(renderable) -> str:
+    from rich.console import Console
+
+    console = Console(width=400, record=True, file=io.StringIO())
+    console.print(renderable)
+    return console.export_text()
+
+
 def fitter_script(tmp_path, body):
     script = write(tmp_path / "fitter.py", textwrap.dedent(body))
     return f"{sys.executable} {script} {{data}} {{out}}"
@@ -223,16 +232,20 @@ def test_external_fitter_failures_are_reported_per_fold(demo_catalog, tmp_path):
             open(sys.argv[2], "w").write("not json")
             sys.exit(0)
         if "Quillfen Institute" not in labs:
-            time.sleep(300)                  # hangs without Quillfen
+            time.sleep(120)                  # hangs without Quillfen
         json.dump({"parameters": {"n": float(len(frame))}}, open(sys.argv[2], "w"))
     """,
     )
+    # the timeout leaves room for a loaded machine to start Python and import pandas
     result = demo_catalog.sensitivity(
         by="lab", fitter_cmd=command, workdir=tmp_path / "runs", timeout=20
-    )  # long enough for a loaded machine to start Python and pandas in each fold
+    )
     errors = {g.group: g.error for g in result.groups}
     assert "exited with code 3" in errors["Corvane Biophysics"]
-    assert 'is not {"parameters"' in errors["Harrow Point Lab"]
+    assert errors["Harrow Point Lab"].startswith(
+        'the fitter\'s result.json is not {"parameters": {NAME: value}} (not JSON: Expecting value '
+        "at line 1, column 1)"
+    )
     assert "longer than 20 s" in errors["Quillfen Institute"]
     assert errors["Marrowby Group"] is None
     assert result.groups[2].parameters["n"]["value"] == 222.0
@@ -281,3 +294,124 @@ def test_sensitivity_cli_json_and_report(cli, tmp_path):
     assert bad.code == 2 and "no such file" in bad.err
     bad = cli("sensitivity", "--params", PARAMS, catalog_path=catalog)
     assert bad.code == 2 and "either --model with --params, or --fitter-cmd" in bad.err
+
+
+@pytest.mark.parametrize(
+    ("command", "missing"),
+    [("prog {data}", "no {out}"), ("prog {out}", "no {data}"), ("prog", "no {data} and no {out}")],
+)
+def test_fitter_command_without_its_placeholders_is_refused_up_front(
+    demo_catalog, command, missing
+):
+    before = len(demo_catalog.events())
+    with pytest.raises(InputError) as refused:
+        demo_catalog.sensitivity(by="lab", fitter_cmd=command)
+    assert str(refused.value).startswith(f"--fitter-cmd '{command}': {missing} in the command;")
+    assert len(demo_catalog.events()) == before
+
+
+def test_fitter_temp_folders_go_after_success_and_stay_named_after_failure(
+    demo_catalog, tmp_path, monkeypatch
+):
+    import tempfile
+
+    from curate.present.run_text import sensitivity_text
+
+    scratch = tmp_path / "scratch"
+    scratch.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(scratch))
+    good = fitter_script(tmp_path, """
+        import json, sys
+        json.dump({"parameters": {"n": 1.0}, "stderr": {"n": 0.1}}, open(sys.argv[2], "w"))
+    """)  # fmt: skip
+    result = demo_catalog.sensitivity(by="lab", fitter_cmd=good)
+    assert list(scratch.iterdir()) == [] and result.full["workdir"] is None
+    assert "the fitter's files" not in rendered(sensitivity_text(result))
+    failing = write(tmp_path / "failing.py", textwrap.dedent("""
+        import json, sys
+        import pandas as pd
+        if "Marrowby Group" not in set(pd.read_csv(sys.argv[1]).lab):
+            sys.exit(4)
+        json.dump({"parameters": {"n": 1.0}, "stderr": {"n": 0.1}}, open(sys.argv[2], "w"))
+    """))  # fmt: skip
+    result = demo_catalog.sensitivity(
+        by="lab", fitter_cmd=f"{sys.executable} {failing} {{data}} {{out}}"
+    )
+    kept = list(scratch.iterdir())
+    assert len(kept) == 1 and result.full["workdir"] == str(kept[0])
+    error = {g.group: g.error for g in result.groups}["Marrowby Group"]
+    assert f"(log: {kept[0] / 'without_Marrowby_Group' / 'fitter.log'})" in error
+    assert f"the fitter's files (tables, results, logs) are in {kept[0]}" in rendered(
+        sensitivity_text(result)
+    )
+    # an explicit workdir stays, even after a clean run
+    demo_catalog.sensitivity(by="lab", fitter_cmd=good, workdir=tmp_path / "mine")
+    assert (tmp_path / "mine" / "full" / "result.json").is_file()
+
+
+def dose_response_problem():
+    # two doses of a saturating dose-response: with one dose left, Emax and EC50 are confounded
+    rng = np.random.default_rng(7)
+    t = np.tile(np.linspace(1, 30, 12), 4)
+    dose = np.repeat([10.0, 100.0, 10.0, 100.0], 12)
+    truth = 5.0 * dose / (dose + 30.0) * (1 - np.exp(-0.2 * t))
+    points = pd.DataFrame({"time": t, "value": truth + rng.normal(0, 0.05, len(t)), "weight": 400.0,
+                           "relative": False, "dataset_id": np.repeat(["d1", "d2", "d3", "d4"], 12),
+                           "observable": "signal", "dose": dose})  # fmt: skip
+
+    def model(params, frame):
+        d = frame["dose"].to_numpy()
+        drive = params["Emax"] * d / (d + params["EC50"])
+        return drive * (1 - np.exp(-params["k"] * frame["time"].to_numpy()))
+
+    spec = fitting.spec_from_dict({"parameters": {
+        "Emax": {"start": 4.0, "lower": 0}, "EC50": {"start": 20.0, "lower": 0, "log": True},
+        "k": {"start": 0.1, "lower": 0}}})  # fmt: skip
+    problem = fitting.FitProblem(points, model, spec)
+    return problem, fitting.fit(problem), points
+
+
+@pytest.mark.parametrize("method", ["exact", "one-step"])
+def test_leaving_out_one_of_two_doses_flags_the_dose_response_parameters(method):
+    problem, full, points = dose_response_problem()
+    result = sensitivity.leave_one_group_out(
+        problem, full, points["dose"].map("{:g}".format).to_numpy(), by="condition:dose",
+        method=method,
+    )  # fmt: skip
+    for group in result.groups:
+        kept = "100.0" if group.group == "10" else "10.0"
+        assert group.flags[0] == (
+            f"without condition:dose {group.group} the rest no longer identifies Emax, EC50 "
+            f"(1 combination(s) lost; dose takes one value ({kept}) in training): their shifts "
+            "mean little"
+        )
+        assert all(np.isfinite(p["value"]) for p in group.parameters.values())
+    errors = {g.group: g.error for g in result.groups}
+    # the exact refit without the high dose runs off along the lost direction: said, not crashed
+    ran_off = "the parameters ran off to infinity" if method == "exact" else None
+    assert errors == {"10": None, "100": ran_off}
+    # leaving out a dataset keeps both doses: nothing is lost, nothing flagged as such
+    by_dataset = sensitivity.leave_one_group_out(
+        problem, full, points["dataset_id"].to_numpy(), by="dataset", method=method
+    )
+    assert not any("no longer identifies" in flag for flag in by_dataset.flags())
+
+
+def test_jackknife_over_few_groups_carries_a_caveat():
+    problem, full, points = dose_response_problem()
+    few = sensitivity.leave_one_group_out(
+        problem, full, points["dataset_id"].to_numpy(), by="dataset", method="one-step"
+    )
+    caveat = (
+        "the jackknife standard errors come from only 4 groups: treat them as rough (fewer than "
+        "5 groups; common practice, not a published rule)"
+    )
+    assert few.notes() == [caveat] and few.to_dict()["notes"] == [caveat]
+    from curate.present.html import sensitivity_section
+    from curate.present.run_text import sensitivity_text
+
+    assert caveat in rendered(sensitivity_text(few)).replace("\n", " ")
+    assert caveat in sensitivity_section(few)
+    labels = np.repeat([f"g{k}" for k in range(6)], 8)
+    many = sensitivity.leave_one_group_out(problem, full, labels, by="dataset", method="one-step")
+    assert many.notes() == [] and many.to_dict()["notes"] == []

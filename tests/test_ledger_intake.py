@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import os
 
 from conftest import LONG_CSV, SIDECAR, write
@@ -102,3 +103,41 @@ def test_intake_cli_exit_code_and_json(cli, tmp_path):
     run = cli("intake", inbox)
     assert run.code == 1
     assert "1 already present, 1 quarantined" in run.out
+
+
+def test_intake_lab_fills_in_only_where_the_sidecar_names_none(cli, tmp_path):
+    inbox = tmp_path / "inbox"
+    no_lab = SIDECAR.replace('source.lab = "Test Lab"\n', "")
+    write(inbox / "a.csv", LONG_CSV)
+    write(inbox / "a.toml", no_lab)
+    write(inbox / "b.csv", LONG_CSV.replace("4.0", "4.4"))
+    write(inbox / "b.toml", SIDECAR)
+    # without --lab the file is quarantined with a remedy intake now accepts
+    first = cli("intake", inbox, "--json")
+    assert first.code == 1
+    reason = (inbox / "quarantine" / "a.csv.reason.txt").read_text()
+    assert "field 'source': required but missing (or pass --lab)" in reason
+    os.replace(inbox / "quarantine" / "a.csv", inbox / "a.csv")
+    os.replace(inbox / "quarantine" / "a.toml", inbox / "a.toml")
+    run = cli("intake", inbox, "--lab", "Default Lab", "--json")
+    assert run.code == 0, run
+    listed = {d["id"]: d["lab"] for d in json.loads(cli("list", "--json").out)}
+    assert sorted(listed.values()) == ["Default Lab", "Test Lab"]
+
+
+def test_logging_a_fixed_file_resolves_its_old_quarantine_note(catalog, tmp_path):
+    inbox = tmp_path / "inbox"
+    write(inbox / "run.csv", "time,value\n0,1\n1,n.d.\n")
+    write(inbox / "run.toml", SIDECAR)
+    assert catalog.intake(inbox).count("quarantined") == 1
+    jail = inbox / "quarantine"
+    assert (jail / "run.csv.reason.txt").is_file()
+    # the lab sends the fixed file under the same name
+    write(inbox / "run.csv", LONG_CSV)
+    os.replace(jail / "run.toml", inbox / "run.toml")
+    report = catalog.intake(inbox)
+    assert report.count("added") == 1
+    assert sorted(p.name for p in jail.iterdir()) == ["run.csv", "run.csv.resolved.txt"]
+    note = (jail / "run.csv.resolved.txt").read_text().splitlines()
+    assert "'n.d.' is not a number" in note[2]
+    assert note[-1].endswith(f"run.csv was logged later as {report.items[0].id}")

@@ -90,4 +90,51 @@ def test_training_gaps():
     assert gaps == [
         "observable g is measured only in the held-out data",
         "condition temperature = 25.0 occurs only in the held-out data",
+        "condition temperature keeps one value (37.0) in training: how the response depends on "
+        "temperature cannot be identified there",
     ]
+
+
+def test_sensitivity_names_only_the_forms_it_accepts():
+    from curate.fit.runs import sensitivity_grouping
+    from curate.weighting.groupings import parse_grouping
+
+    for by in ("color", "condition"):
+        with pytest.raises(InputError) as refused:
+            sensitivity_grouping(by)
+        assert str(refused.value) == f"--by {by}: expected dataset, lab or condition:KEY"
+    with pytest.raises(InputError) as refused:
+        sensitivity_grouping("kfold:3")
+    assert str(refused.value) == (
+        "--by kfold:3: expected dataset, lab or condition:KEY (kfold:K makes holdout folds "
+        "with `curate folds`, not one fold per group)"
+    )
+    # folds accept every form and say so
+    with pytest.raises(InputError, match="expected dataset, lab, condition:KEY or kfold:K$"):
+        parse_grouping("color")
+    assert parse_grouping("kfold:3:7").splitter().get_n_splits() == 3
+
+
+def test_training_gaps_name_a_held_out_relative_lab_and_a_single_dose():
+    frame = pd.DataFrame({
+        "observable": ["x"] * 6,
+        "relative": [False, False, False, False, True, True],
+        "lab": ["A", "A", "B", "B", "C", "C"],
+        "dose": [10.0, 100.0, 10.0, 100.0, 10.0, 100.0],
+    })  # fmt: skip
+    held = frame["lab"] == "C"
+    gaps = folds.training_gaps(frame[~held], frame[held], condition_columns=["dose"])
+    assert [g.text() for g in gaps] == [
+        "the relative-unit data of x are all held out: their scale factors cannot be learned "
+        "in training"
+    ]
+    one_dose = frame["dose"] == 100.0
+    gaps = folds.training_gaps(frame[~one_dose], frame[one_dose], condition_columns=["dose"])
+    assert [g.text() for g in gaps] == [
+        "condition dose = 100.0 occurs only in the held-out data",
+        "condition dose keeps one value (10.0) in training: how the response depends on dose "
+        "cannot be identified there",
+    ]
+    # a lab that is one of several absolute ones leaves nothing unlearnable
+    lab_a = frame["lab"] == "A"
+    assert folds.training_gaps(frame[~lab_a], frame[lab_a], condition_columns=["dose"]) == []

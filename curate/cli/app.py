@@ -5,6 +5,7 @@ No computation here. Errors a user can fix print one line on stderr and exit wit
 
 from __future__ import annotations
 
+import difflib
 import json
 import os
 import sys
@@ -15,6 +16,7 @@ from typing import Annotated, Any
 import click
 import typer
 from rich.console import Console
+from typer.core import TyperGroup
 
 from curate.api import Catalog, open_catalog
 from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions, selection_options
@@ -35,7 +37,25 @@ from curate.units import parse_quantity
 from curate.version import __version__
 from curate.weighting import Policy, Selection, load_policy
 
+
+class _Commands(TyperGroup):
+    """The command group; a mistyped command name is answered with the closest names."""
+
+    def resolve_command(self, ctx: Any, args: list[str]) -> Any:
+        """Give the command named first in ``args``, or fail naming the closest commands."""
+        if args and not args[0].startswith("-") and self.get_command(ctx, args[0]) is None:
+            known = self.list_commands(ctx)
+            close = difflib.get_close_matches(args[0], known, n=3, cutoff=0.5)
+            hint = (" or ".join(f"'{name}'" for name in close) + "?") if close else ""
+            ctx.fail(
+                f"no command '{args[0]}'"
+                + (f"; did you mean {hint}" if hint else "; `curate --help` lists them")
+            )
+        return super().resolve_command(ctx, args)
+
+
 app = typer.Typer(
+    cls=_Commands,
     add_completion=False,
     no_args_is_help=True,
     pretty_exceptions_enable=False,
@@ -57,8 +77,9 @@ class _State:
 state = _State()
 
 
-def _catalog() -> Catalog:
-    return open_catalog(state.catalog_path, actor=state.actor)
+def _catalog(*, create: bool = False) -> Catalog:
+    """Open the chosen catalog; only commands that log data may ``create`` a missing one."""
+    return open_catalog(state.catalog_path, actor=state.actor, create=create)
 
 
 def _emit_json(value: Any) -> None:
@@ -199,7 +220,7 @@ def add(
         options["conditions"] = parse_conditions(condition)
     # read and validate the file before the catalog is opened: a bad first file creates nothing
     draft = build_draft(file, sidecar=meta, options=options, actor=state.actor or default_actor())
-    with _catalog() as catalog:
+    with _catalog(create=True) as catalog:
         result: Any = catalog.plan_add(draft) if dry_run else catalog.add_drafts([draft])[0]
     if isinstance(result, AddPlan):
         if as_json:
@@ -221,12 +242,18 @@ def intake(
     quarantine: Annotated[
         Path | None, typer.Option(help="where bad files go (default FOLDER/quarantine)")
     ] = None,
+    lab: Annotated[
+        str | None, typer.Option(help="source lab of files whose sidecar names none")
+    ] = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Log every data file in a folder; move each bad one, with a reason, to quarantine."""
     show_bar = not as_json and err_console.is_terminal
-    with _catalog() as catalog, progress_bar(err_console, "logging", enabled=show_bar) as update:
-        result = catalog.intake(folder, quarantine=quarantine, progress=update)
+    with (
+        _catalog(create=True) as catalog,
+        progress_bar(err_console, "logging", enabled=show_bar) as update,
+    ):
+        result = catalog.intake(folder, quarantine=quarantine, lab=lab, progress=update)
     _show(result.to_dict(), lambda: text.intake_text(result), as_json)
     if result.count("quarantined") or result.count("refused"):
         raise typer.Exit(1)
@@ -243,7 +270,7 @@ def import_petab(
     as_json: JsonFlag = False,
 ) -> None:
     """Log a PEtab problem's measurement table, one dataset per observable and condition."""
-    with _catalog() as catalog:
+    with _catalog(create=True) as catalog:
         results = catalog.import_petab(problem, lab=lab, time_unit=time_unit, unit=unit)
     if as_json:
         _emit_json([r.to_dict() for r in results])
@@ -583,6 +610,21 @@ def impact(
     _show([f.to_dict() for f in found], lambda: run_text.impact_text(dataset_id, found), as_json)
 
 
+MaxEvaluations = Annotated[
+    int | None,
+    typer.Option(help="stop after this many model evaluations (the whole fit; each refit apart)"),
+]
+Generations = Annotated[
+    int | None, typer.Option(help="generations of the --global search (default 300)")
+]
+
+
+def _budget(option: str, value: int | None) -> int | None:
+    if value is not None and value < 1:
+        raise InputError(f"{option} {value}: expected at least 1")
+    return value
+
+
 @app.command()
 @selection_options
 def fit(
@@ -606,16 +648,23 @@ def fit(
             help="scale the covariance by the reduced chi2 (when sigmas are only relative)"
         ),
     ] = False,
+    max_evaluations: MaxEvaluations = None,
+    generations: Generations = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Fit a model to the weighted selection: values, standard errors, scale factors, chi2."""
     if starts < 1:
         raise InputError(f"--starts {starts}: expected at least 1")
     options = FitOptions(
-        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance
-    )
-    with _catalog() as catalog:
-        result = catalog.fit(model, params, policy=policy, selection=selection, options=options)
+        starts=starts, seed=seed, global_search=global_search, scale_covariance=scale_covariance,
+        max_evaluations=_budget("--max-evaluations", max_evaluations),
+        generations=_budget("--generations", generations),
+    )  # fmt: skip
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "fitting", enabled=show_bar) as update:
+        result = catalog.fit(
+            model, params, policy=policy, selection=selection, options=options, progress=update
+        )
     _show(result.to_dict(), lambda: run_text.fit_text(result), as_json)
 
 
@@ -654,15 +703,19 @@ def sensitivity(
     selection: Selection,
     policy: Policy,
     starts: Annotated[int, typer.Option(help="starts of the full fit")] = 1,
+    max_evaluations: MaxEvaluations = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
+    if workers < 0:
+        raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
     count = workers if workers > 0 else (os.cpu_count() or 1)
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "refitting", enabled=show_bar) as update:
         result = catalog.sensitivity(
             by=by, model=model, params=params, fitter_cmd=fitter_cmd, method=method, policy=policy,
-            selection=selection, options=FitOptions(starts=starts), workers=count, dask=dask,
+            selection=selection, workers=count, dask=dask,
+            options=FitOptions(starts=starts, max_evaluations=_budget("--max-evaluations", max_evaluations)),
             threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,
             progress=update,
         )  # fmt: skip
@@ -749,18 +802,36 @@ def _spread_multi_value_options(argv: list[str]) -> list[str]:
     return spread
 
 
+# newer typer releases carry their own copy of click: catch the classes of both
+_EXITS = (click.exceptions.Exit, typer.Exit)
+_ABORTS = (click.exceptions.Abort, typer.Abort)
+_USAGE_ERRORS = (click.ClickException, getattr(typer, "TyperException", click.ClickException))
+
+
+def _usage_fail(usage: Exception) -> None:
+    """Print the command's usage line and the help hint, then the one error line; exit 2."""
+    ctx = getattr(usage, "ctx", None)
+    if ctx is not None:
+        err_console.print(ctx.get_usage(), markup=False)
+        err_console.print(f"Try '{ctx.command_path} --help' for help.", markup=False)
+    format_message = getattr(usage, "format_message", None)
+    _fail(format_message() if callable(format_message) else str(usage))
+
+
 def main(argv: list[str] | None = None) -> None:
     """Run the command line; user errors exit 2 with one line on stderr."""
     argv = _spread_multi_value_options(list(sys.argv[1:] if argv is None else argv))
+    if not argv:  # plain `curate`: the help, as `curate --help` gives it
+        argv = ["--help"]
     try:
         code = app(args=argv, prog_name="curate", standalone_mode=False)
     except CurateError as err:
         _fail(str(err))
-    except click.exceptions.Exit as exit_:
+    except _EXITS as exit_:
         sys.exit(exit_.exit_code)
-    except click.ClickException as usage:
-        _fail(usage.format_message(), usage.exit_code)
-    except click.exceptions.Abort:
+    except _USAGE_ERRORS as usage:
+        _usage_fail(usage)
+    except _ABORTS:
         _fail("aborted", 130)
     except KeyboardInterrupt:
         _fail("interrupted", 130)

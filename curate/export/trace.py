@@ -137,22 +137,29 @@ def trace(catalog: Ledger, outdir: str | Path) -> TraceReport:
 
 @dataclass(frozen=True)
 class ImpactEntry:
-    """An export that used a version of a dataset that has since changed."""
+    """An export, fold set, fit or sensitivity run that used a since-changed dataset version."""
 
     seq: int
     at: str
     format: str
-    outdir: str
+    outdir: str  # "" for fits and sensitivity runs: they write no folder
     used_version: int
     current_version: int
     retired: bool
     changes: tuple[str, ...]
+    kind: str = "export"  # export, folds (a fold set), fit or sensitivity
 
     def to_dict(self) -> dict[str, Any]:
         """Give the entry as plain data."""
-        return {"event": self.seq, "at": self.at, "format": self.format, "outdir": self.outdir,
+        return {"event": self.seq, "at": self.at, "kind": self.kind, "format": self.format, "outdir": self.outdir,
                 "used_version": self.used_version, "current_version": self.current_version,
                 "retired": self.retired, "changes": list(self.changes)}  # fmt: skip
+
+
+def _run_kind(event_kind: str, fmt: str) -> str:
+    if event_kind == "export" and fmt.startswith("folds"):
+        return "folds"
+    return event_kind
 
 
 def impact(catalog: Ledger, dataset_id: str) -> list[ImpactEntry]:
@@ -168,8 +175,10 @@ def impact(catalog: Ledger, dataset_id: str) -> list[ImpactEntry]:
         if not used or used[0] >= current.version:
             continue
         kinds = tuple(h.kind for h in history if h.version is not None and h.version > used[0])
+        fmt = event["payload"]["format"]
         found.append(ImpactEntry(
-            seq=event["seq"], at=event["at"], format=event["payload"]["format"], outdir=event["payload"]["outdir"],
+            seq=event["seq"], at=event["at"], format=fmt, outdir=event["payload"]["outdir"],
             used_version=used[0], current_version=current.version, retired=current.record.retired, changes=kinds,
+            kind=_run_kind(event["kind"], fmt),
         ))  # fmt: skip
     return found

@@ -13,11 +13,16 @@ are reported by calibration group.
 - Covariance (J^T J)^-1 from the Jacobian of the projected residual at the optimum, mapped to
   natural parameters (dp = p d ln p for log parameters); optionally scaled by the reduced
   chi2 when the sigmas are only relative.
+- A budget: ``max_evaluations`` caps the model evaluations of the whole fit (global search and
+  every start together; the global search stops after the generation that spends it, later
+  starts get what is left), ``generations`` caps the global search's generations (default
+  300). A fit stopped by its budget is reported as not converged, saying so.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
@@ -48,7 +53,8 @@ class FitOptions:
     global_search: bool = False
     scale_covariance: bool = False
     tolerance: float = 1e-10
-    max_evaluations: int | None = None
+    max_evaluations: int | None = None  # model evaluations of the whole fit (each refit apart)
+    generations: int | None = None  # of the global search (None: 300)
 
 
 @dataclass
@@ -68,6 +74,7 @@ class FitResult:
     free: list[str]
     message: str
     options: dict[str, Any]
+    evaluations: int = 0  # model evaluations the search used (before the final Jacobian)
 
     @property
     def reduced_chi2(self) -> float:
@@ -93,6 +100,7 @@ class FitResult:
             "reduced_chi2": self.reduced_chi2,
             "message": self.message,
             "options": self.options,
+            "evaluations": self.evaluations,
         }
 
 
@@ -126,9 +134,18 @@ def _start_points(problem: FitProblem, options: FitOptions) -> list[np.ndarray]:
 
 
 def least_squares(
-    problem: FitProblem, x0: np.ndarray, options: FitOptions, rows: np.ndarray | None = None
+    problem: FitProblem,
+    x0: np.ndarray,
+    options: FitOptions,
+    rows: np.ndarray | None = None,
+    *,
+    max_evaluations: int | None = None,
 ) -> Any:
-    """Give scipy's least_squares solution from ``x0`` (on the chosen rows)."""
+    """Give scipy's least_squares solution from ``x0`` (on the chosen rows).
+
+    At most ``max_evaluations`` model evaluations (default: the options' budget).
+    """
+    budget = max_evaluations if max_evaluations is not None else options.max_evaluations
     lower, upper = problem.bounds()
     # least_squares wants a start strictly inside finite bounds
     inner_lower = np.where(
@@ -148,7 +165,7 @@ def least_squares(
     return optimize.least_squares(
         lambda theta: problem.residual(theta, rows), x0, bounds=(lower, upper),
         method="lm" if unbounded and len(problem.y) >= len(x0) else "trf", x_scale="jac",
-        ftol=options.tolerance, xtol=options.tolerance, gtol=options.tolerance, max_nfev=options.max_evaluations,
+        ftol=options.tolerance, xtol=options.tolerance, gtol=options.tolerance, max_nfev=budget,
     )  # fmt: skip
 
 
@@ -221,17 +238,32 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
         converged=converged, starts=starts, covariance=covariance, internal_covariance=internal, theta=theta,
         free=[p.name for p in problem.free], message=message,
         options={"starts": options.starts, "seed": options.seed, "global_search": options.global_search,
-                 "scale_covariance": options.scale_covariance, "tolerance": options.tolerance},
+                 "scale_covariance": options.scale_covariance, "tolerance": options.tolerance,
+                 "max_evaluations": options.max_evaluations, "generations": options.generations},
     )  # fmt: skip
 
 
-def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
-    """Give the best weighted least-squares fit over all starts (and the global search if asked)."""
+DEFAULT_GENERATIONS = 300
+
+
+def fit(problem: FitProblem, options: FitOptions | None = None, *,
+        progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
+    """Give the best weighted least-squares fit over all starts (and the global search if asked).
+
+    ``progress(done, total, stage)`` is called after each generation of the global search and
+    after each start.
+    """
     options = options or FitOptions()
+    for name in ("max_evaluations", "generations"):
+        value = getattr(options, name)
+        if value is not None and value < 1:
+            raise InputError(f"{name} = {value}: expected at least 1")
     if len(problem.y) <= len(problem.free):
         raise InputError(
             f"{len(problem.y)} points cannot determine {len(problem.free)} free parameters"
         )
+    budget = options.max_evaluations
+    spent = 0
     candidates = _start_points(problem, options)
     if options.global_search:
         lower, upper = problem.bounds()
@@ -239,16 +271,38 @@ def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
             raise InputError(
                 "the global search needs finite lower and upper bounds for every free parameter"
             )
+        generations = options.generations or DEFAULT_GENERATIONS
+        done = 0
+
+        def objective(theta: np.ndarray) -> float:
+            nonlocal spent
+            spent += 1
+            return float(np.sum(problem.residual(theta) ** 2))
+
+        def generation(_x: np.ndarray, convergence: float = 0.0) -> bool:
+            nonlocal done
+            done += 1
+            if progress is not None:
+                progress(done, generations, "global search")
+            return budget is not None and spent >= budget  # True halts the search
+
         found = optimize.differential_evolution(
-            lambda theta: float(np.sum(problem.residual(theta) ** 2)), list(zip(lower, upper, strict=True)),
-            seed=options.seed, polish=False, tol=1e-8, maxiter=300,
+            objective, list(zip(lower, upper, strict=True)), seed=options.seed, polish=False,
+            tol=1e-8, maxiter=generations, callback=generation,
         )  # fmt: skip
         candidates = [np.asarray(found.x), *candidates]
     starts: list[dict[str, Any]] = []
     best = None
     for number, x0 in enumerate(candidates):
+        if progress is not None:
+            progress(number, len(candidates), "local fits")
+        left = None if budget is None else budget - spent
+        if left is not None and left < 1:
+            starts.append({"start": problem.to_natural(x0), "chi2": None, "converged": False,
+                           "message": f"not run: the budget of {budget} model evaluations is spent"})  # fmt: skip
+            continue
         try:
-            solution = least_squares(problem, x0, options)
+            solution = least_squares(problem, x0, options, max_evaluations=left)
         except InputError as err:
             starts.append(
                 {
@@ -259,13 +313,25 @@ def fit(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
                 }
             )
             continue
+        spent += int(solution.nfev)
         chi2 = float(2 * solution.cost)
         record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
                   "message": str(solution.message), "from": "global search" if options.global_search and number == 0 else "start"}  # fmt: skip
         starts.append(record)
         if best is None or chi2 < 2 * best.cost:
             best = solution
-    if best is None:
+    if progress is not None:
+        progress(len(candidates), len(candidates), "local fits")
+    spent_all = budget is not None and spent >= budget
+    if best is not None:
+        theta, converged, message = np.asarray(best.x), bool(best.success), str(best.message)
+    elif spent_all and options.global_search:  # the search spent it all: its best point stands
+        theta, converged, message = candidates[0], False, "global search only"
+    else:
         raise InputError("no start converged: " + "; ".join(str(s["message"]) for s in starts[:3]))
-    return summarise(problem, best.x, jacobian(problem, best.x), converged=bool(best.success), starts=starts,
-                     message=str(best.message), options=options)  # fmt: skip
+    if spent_all and not converged:
+        message = f"stopped: the budget of {budget} model evaluations is spent ({message})"
+    result = summarise(problem, theta, jacobian(problem, theta), converged=converged, starts=starts,
+                       message=message, options=options)  # fmt: skip
+    result.evaluations = spent
+    return result

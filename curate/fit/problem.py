@@ -113,10 +113,10 @@ class FitProblem:
         except InputError:
             raise
         except Exception as err:
-            raise InputError(f"the model raised {type(err).__name__}: {err}") from None
-        prediction = (
-            np.asarray(output, dtype=float).reshape(-1) if np.ndim(output) else np.array([])
-        )
+            raise InputError(
+                f"the model failed: {_reason(err)} (call it on the points yourself to see where)"
+            ) from None
+        prediction = _as_numbers(output) if np.ndim(output) else np.array([])
         if prediction.shape != (len(frame),):
             raise InputError(
                 f"the model returned {np.size(output)} values for {len(frame)} rows; expected one per row"
@@ -168,3 +168,33 @@ class FitProblem:
         """Give how many scale groups have rows (each costs one degree of freedom)."""
         groups = self._groups if rows is None else self._groups[rows]
         return len(set(groups[groups >= 0].tolist()))
+
+
+def _reason(err: Exception) -> str:
+    """Give an exception's message in words (a missing key says so; never the class name)."""
+    if isinstance(err, KeyError) and err.args:
+        return f"no column or parameter {err.args[0]!r}"
+    return str(err).strip() or "it raised an error without a message"
+
+
+def _as_numbers(output: Any) -> np.ndarray:
+    """Give the model's output as a flat float array; text or other non-numbers are refused."""
+    raw = np.asarray(output)
+    flat = raw.reshape(-1)
+    if raw.dtype.kind in "USO":
+        for row, item in enumerate(flat):
+            if isinstance(item, str | bytes) or not _is_number(item):
+                shown = f"'{item}'" if isinstance(item, str) else repr(item)
+                raise InputError(
+                    f"the model returned {shown} at row {row + 1}, which is not a number; "
+                    "predict must give one float per row (e.g. a numpy float array)"
+                )
+    return np.asarray(flat, dtype=float)
+
+
+def _is_number(item: Any) -> bool:
+    try:
+        float(item)
+    except (TypeError, ValueError):
+        return False
+    return True

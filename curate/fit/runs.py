@@ -9,6 +9,7 @@ correction touches.
 
 from __future__ import annotations
 
+import shutil
 import tempfile
 from collections.abc import Callable, Sequence
 from pathlib import Path
@@ -34,7 +35,9 @@ def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: 
     if (model is None) == (fitter_cmd is None):
         raise InputError("sensitivity: give either --model with --params, or --fitter-cmd")
     if fitter_cmd is not None:
-        return ExternalFitter(fitter_cmd, timeout=timeout), None
+        fitter = ExternalFitter(fitter_cmd, timeout=timeout)
+        fitter.check()
+        return fitter, None
     if params is None:
         raise InputError("sensitivity: --model needs --params SPEC.toml")
     spec = load_spec(params)
@@ -44,10 +47,7 @@ def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: 
 
 def sensitivity_grouping(by: str) -> Grouping:
     """Give the grouping of a sensitivity check: one that leaves one group out (not k-fold)."""
-    grouping = None if by.startswith("kfold") else parse_grouping(by)
-    if grouping is None or not grouping.leaves_one_out:
-        raise InputError("--by for sensitivity: expected dataset, lab or condition:KEY")
-    return grouping
+    return parse_grouping(by, leave_one_out=True)
 
 
 def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSpec | None,
@@ -63,14 +63,15 @@ def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSp
 
 
 def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, policy: Policy, selection: Selection,
-            options: FitOptions | None = None) -> FitResult:  # fmt: skip
+            options: FitOptions | None = None,
+            progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
     """Fit a model to the weighted selection; record the fit; give the result."""
     if backend.fits_itself:
         raise InputError(
             "fit: an external fitter fits by itself; use `curate sensitivity --fitter-cmd`"
         )
     weighted = weighted_table(catalog, policy, selection)
-    result = fit(FitProblem(weighted.table, backend, spec), options)
+    result = fit(FitProblem(weighted.table, backend, spec), options, progress=progress)
     _record(catalog, "fit", backend, spec, weighted,
             {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
     return result
@@ -94,20 +95,28 @@ def run_sensitivity(
     progress: Callable[[int, int], None] | None = None,
 ) -> sensitivity.SensitivityResult:
     """Run the leave-one-group-out check (and a policy sweep); record it; give the result."""
+    if workers < 1:
+        raise InputError(f"workers={workers}: expected at least 1 worker process")
     grouping = sensitivity_grouping(by)
     weighted = weighted_table(catalog, policy, selection)
     labels = grouping.labels(weighted.table)
     if backend.fits_itself:
+        # a folder of our own is removed after a run in which every fit worked; after a failure
+        # it stays, since the error messages name the logs in it; a --workdir always stays
         folder = Path(workdir) if workdir else Path(tempfile.mkdtemp(prefix="curate-fitter-"))
         result = sensitivity.leave_one_group_out_external(
             backend, weighted.table, labels, by=by, workdir=folder, threshold=threshold, progress=progress
         )  # fmt: skip
+        if workdir is None and all(g.error is None for g in result.groups):
+            shutil.rmtree(folder, ignore_errors=True)
+            assert isinstance(result.full, dict)
+            result.full["workdir"] = None
         _record(catalog, "sensitivity", backend, None, weighted, _summary(result))
         return result
     if spec is None:
         raise InputError("sensitivity: --model needs --params SPEC.toml")
     problem = FitProblem(weighted.table, backend, spec)
-    full = fit(problem, options)
+    full = fit(problem, options, progress=(lambda d, t, _: progress(d, t)) if progress else None)
     result = sensitivity.leave_one_group_out(
         problem, full, labels, by=by, method=method, options=options, workers=workers, dask=dask,
         shift_threshold=threshold, progress=progress,

@@ -15,6 +15,12 @@ jackknife standard error sqrt((G-1)/G * sum (theta_g - mean)^2).
 
 Thresholds (common practice, no single source): a shift beyond 2 standard errors, and a Cook
 distance above 1 (the usual rule of thumb for Cook's D), are flagged.
+
+A group whose removal leaves some parameters unidentifiable is flagged too: with no data left
+for a parameter the refit is skipped; where the remaining data determine fewer parameter
+combinations than the full data (the Jacobian at the full optimum loses rank, e.g. one of two
+doses left out of a dose-response model), the refit runs and the flag names the parameters
+whose shifts mean little, with the condition that no longer varies in training.
 """
 
 from __future__ import annotations
@@ -36,10 +42,13 @@ from curate.fit.engine import FitOptions, FitResult, covariance_from_jacobian, l
 from curate.fit.engine import jacobian as fitting_jacobian
 from curate.fit.problem import FitProblem
 from curate.fit.spec import ParameterSpec
+from curate.weighting.splitters import training_gaps
+from curate.weighting.table import STANDARD_COLUMNS
 
 __all__ = [
     "DEFAULT_COOK_THRESHOLD",
     "DEFAULT_SHIFT_THRESHOLD",
+    "MIN_JACKKNIFE_GROUPS",
     "GroupResult",
     "SensitivityResult",
     "jackknife_stderr",
@@ -49,6 +58,14 @@ __all__ = [
 
 DEFAULT_SHIFT_THRESHOLD = 2.0
 DEFAULT_COOK_THRESHOLD = 1.0
+# a delete-one-group jackknife over fewer groups than this gets a caveat beside its standard
+# errors: common practice (the jackknife variance is itself very uncertain with few groups),
+# not a published rule
+MIN_JACKKNIFE_GROUPS = 5
+# a parameter direction counts as lost when its singular value, every column scaled by its
+# full-data norm, falls below this fraction of the largest: finite-difference Jacobians of ODE
+# models carry relative errors of about this size (common practice, no source)
+_RANK_TOLERANCE = 1e-3
 
 
 @dataclass
@@ -120,6 +137,17 @@ class SensitivityResult:
         """Give every plain-words flag."""
         return [flag for g in self.groups for flag in g.flags]
 
+    def notes(self) -> list[str]:
+        """Give the caveats that go with the numbers (e.g. a jackknife over few groups)."""
+        used = sum(1 for g in self.groups if g.error is None)
+        if 2 <= used < MIN_JACKKNIFE_GROUPS:
+            return [
+                f"the jackknife standard errors come from only {used} groups: treat them as "
+                f"rough (fewer than {MIN_JACKKNIFE_GROUPS} groups; common practice, not a "
+                "published rule)"
+            ]
+        return []
+
     def to_dict(self) -> dict[str, Any]:
         """Give the JSON shape scripts rely on."""
         full = self.full.to_dict() if isinstance(self.full, FitResult) else self.full
@@ -133,6 +161,7 @@ class SensitivityResult:
             "cook_threshold": self.cook_threshold,
             "policies": self.policies,
             "executor": self.executor,
+            "notes": self.notes(),
         }
 
 
@@ -188,6 +217,8 @@ def _exact_refit(task: _Task) -> tuple[str, np.ndarray | None, np.ndarray | None
         theta = _polish(problem, np.asarray(solution.x), task.keep)
     except InputError as err:
         return task.group, None, None, False, str(err)
+    except ArithmeticError:  # a log parameter ran off to infinity: exp() overflowed
+        return task.group, None, None, False, "the parameters ran off to infinity"
     return task.group, theta, np.asarray(solution.jac), bool(solution.success), None
 
 
@@ -303,11 +334,30 @@ def leave_one_group_out(
     stderr = {n: full.parameters[n]["stderr"] for n in names}
     inverse_cov = np.linalg.pinv(full.covariance)
     plans: dict[str, tuple[np.ndarray, np.ndarray, str | None]] = {}
+    weak: dict[str, str] = {}  # group -> the flag of parameters the rest no longer identify
+    conditions = [c for c in problem.points.columns if c not in STANDARD_COLUMNS]
+    already_lost = _small_directions(jacobian, np.arange(len(jacobian)))[0]
     for group in unique:
         held = labels == group
         keep = np.flatnonzero(~held)
         gap = _unidentified(jacobian, keep, names)
         plans[group] = (keep, np.flatnonzero(held), gap)
+        if gap is None:
+            lost, weights = _small_directions(jacobian, keep)
+            if lost > already_lost:
+                involved = [
+                    n
+                    for n, w in zip(names, weights[: lost - already_lost].sum(axis=0), strict=True)
+                    if w > 0.1
+                ]
+                why = [f"{gap.name} takes one value ({gap.value}) in training" for gap in training_gaps(
+                    problem.points.iloc[keep], problem.points.iloc[held], condition_columns=conditions,
+                ) if gap.kind == "single"]  # fmt: skip
+                weak[group] = (
+                    f"without {by} {group} the rest no longer identifies {', '.join(involved)} "
+                    f"({lost - already_lost} combination(s) lost" + "".join(f"; {w}" for w in why)
+                    + "): their shifts mean little"
+                )  # fmt: skip
     refits: dict[str, tuple[np.ndarray | None, bool, str | None]] = {}
     executor = "no refits"
     if method == "exact":
@@ -324,7 +374,10 @@ def leave_one_group_out(
         for done, (group, (keep, _, gap)) in enumerate(plans.items()):
             if gap is None:
                 j, r = jacobian[keep], residual[keep]
-                step = -covariance_from_jacobian(j) @ (j.T @ r)
+                if group in weak:  # step only along the directions the rest still determines
+                    step = -_determined_step(j, r)
+                else:
+                    step = -covariance_from_jacobian(j) @ (j.T @ r)
                 refits[group] = (theta + step, True, None)
             if progress:
                 progress(done + 1, len(plans))
@@ -337,11 +390,12 @@ def leave_one_group_out(
             continue
         new_theta, converged, error = refits[group]
         if new_theta is None:
-            groups.append(
-                GroupResult.failed(
-                    group, len(held), f"refit without {by} {group} failed: {error}", error
-                )
+            failed = GroupResult.failed(
+                group, len(held), f"refit without {by} {group} failed: {error}", error
             )
+            if group in weak:
+                failed.flags.insert(0, weak[group])
+            groups.append(failed)
             continue
         natural = problem.to_natural(new_theta)
         delta = np.array([natural[n] - natural_full[n] for n in names])
@@ -358,6 +412,8 @@ def leave_one_group_out(
             flags.append(
                 f"the fit as a whole depends on {by} {group}: Cook distance {cook:.2f} (> {cook_threshold:g})"
             )
+        if group in weak:
+            flags.insert(0, weak[group])
         held_residual = problem.residual(new_theta, held)
         heldout_chi2 = float(held_residual @ held_residual)
         heldout_dof = len(held) - problem.n_scale_factors(held)
@@ -373,6 +429,28 @@ def leave_one_group_out(
         full=full, by=by, method=method, groups=groups, jackknife_stderr=jackknife_stderr(good, names),  # type: ignore[arg-type]
         shift_threshold=shift_threshold, cook_threshold=cook_threshold, executor=executor,
     )  # fmt: skip
+
+
+def _determined_step(j: np.ndarray, r: np.ndarray) -> np.ndarray:
+    """Give the least-squares step (J^T J)^+ J^T r restricted to the directions J determines
+    (singular values above the rank tolerance, columns scaled), so a lost direction adds none."""
+    norm = np.linalg.norm(j, axis=0)
+    norm = np.where(norm > 0, norm, 1.0)
+    u, singular, vt = np.linalg.svd(j / norm, full_matrices=False)
+    keep = singular >= _RANK_TOLERANCE * singular[0]
+    scaled_step = vt[keep].T @ ((u[:, keep].T @ r) / singular[keep])
+    return np.asarray(scaled_step / norm, dtype=float)
+
+
+def _small_directions(jacobian: np.ndarray, keep: np.ndarray) -> tuple[int, np.ndarray]:
+    """Give (how many parameter directions the kept rows barely determine, each parameter's
+    squared share in them, one row per direction, smallest first)."""
+    norm = np.linalg.norm(jacobian, axis=0)
+    scaled = jacobian[keep] / np.where(norm > 0, norm, 1.0)
+    _, singular, vt = np.linalg.svd(scaled, full_matrices=False)
+    small = singular < _RANK_TOLERANCE * (singular[0] if len(singular) else 0.0)
+    count = int(small.sum()) + max(0, jacobian.shape[1] - len(singular))
+    return count, (vt[::-1] ** 2)
 
 
 def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str]) -> str | None:

@@ -70,8 +70,13 @@ def _load_yaml(path: Path) -> dict[str, Any]:
         raise InputError(f"{path}: no such PEtab problem file")
     try:
         content = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except (yaml.YAMLError, UnicodeDecodeError) as err:
-        raise InputError(f"{path}: not a readable YAML file ({type(err).__name__})") from None
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a readable YAML file (not UTF-8 text)") from None
+    except yaml.YAMLError as err:
+        mark = getattr(err, "problem_mark", None)
+        problem = getattr(err, "problem", None) or "invalid YAML"
+        at = f"line {mark.line + 1}: " if mark is not None else ""
+        raise InputError(f"{path}: not a readable YAML file ({at}{problem})") from None
     if not isinstance(content, dict) or "problems" not in content:
         raise InputError(f"{path}: not a PEtab problem file (no 'problems' list)")
     version = str(content.get("format_version", ""))

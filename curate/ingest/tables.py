@@ -165,8 +165,11 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str
 
     try:
         book = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True)
-    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError) as err:
-        raise InputError(f"{path}: not a readable XLSX workbook ({type(err).__name__})") from None
+    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
+        raise InputError(
+            f"{path}: not a readable XLSX workbook (damaged, or another format with an .xlsx "
+            "name); save it again as .xlsx, or as .csv"
+        ) from None
     try:
         if sheet is None:
             worksheet = book.worksheets[0]

@@ -4,12 +4,18 @@ Each file is its own transaction, so a killed intake leaves every file either fu
 still waiting in the folder, and a rerun logs the rest (already logged data are recognised by
 their content hash and not added twice). A bad file is moved, with its sidecar and a
 ``.reason.txt`` beside it, into the quarantine folder: nothing is deleted.
+
+When a file of the same name is logged later (the fixed version, put back into the folder),
+the old quarantine entry's ``NAME.reason.txt`` is renamed ``NAME.resolved.txt`` with a last
+line saying which dataset it became and when, so the quarantine shows only what still waits
+for a person; the quarantined copy of the bad file stays, as everything does.
 """
 
 from __future__ import annotations
 
 import datetime as dt
 import os
+import re
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -100,14 +106,48 @@ def _quarantine(files: list[Path], reason: str, quarantine: Path) -> None:
             os.replace(path, _free_name(quarantine / path.name))
 
 
+def _resolve_quarantined(name: str, dataset_id: str, quarantine: Path) -> None:
+    """Rename the reason notes of an earlier bad ``name`` to ``.resolved.txt``, saying why."""
+    if not quarantine.is_dir():
+        return
+    pattern = re.compile(re.escape(name) + r"\.reason(?:\.\d+)?\.txt")
+    stamp = dt.datetime.now(dt.UTC).isoformat(timespec="seconds")
+    for note in sorted(quarantine.iterdir()):
+        if not pattern.fullmatch(note.name) or not note.is_file():
+            continue
+        resolved = _free_name(quarantine / f"{name}.resolved.txt")
+        with note.open("a", encoding="utf-8") as stream:
+            stream.write(f"resolved {stamp}: {name} was logged later as {dataset_id}\n")
+        os.replace(note, resolved)
+
+
+def _default_lab(sidecar: Path | None, lab: str | None) -> dict[str, Any]:
+    """Give the options that set ``lab`` where the sidecar names no lab (else nothing)."""
+    if not lab or not lab.strip():
+        return {}
+    content = load_sidecar(sidecar) if sidecar is not None else {}
+    source = content.get("source")
+    if source is not None and not isinstance(source, dict):
+        return {}  # a malformed [source] is the sidecar's error to report, not to paper over
+    named = (source or {}).get("lab")
+    if named is None or (isinstance(named, str) and not named.strip()):
+        return {"source": {"lab": lab.strip()}}
+    return {}
+
+
 def intake_folder(
     catalog: Ledger,
     folder: str | Path,
     *,
     quarantine: str | Path | None = None,
+    lab: str | None = None,
     progress: Callable[[int, int, str], None] | None = None,
 ) -> IntakeReport:
-    """Log every data file in ``folder``; give what happened to each."""
+    """Log every data file in ``folder``; give what happened to each.
+
+    ``lab`` is the source lab of every file whose sidecar names none (a sidecar's own lab
+    always wins).
+    """
     folder = Path(folder)
     if not folder.is_dir():
         raise InputError(f"{folder}: not a folder")
@@ -174,12 +214,14 @@ def intake_folder(
         try:
             if early_error is not None:
                 raise InputError(early_error)
-            draft = build_draft(data, sidecar=job_sidecar, actor=catalog.actor)
+            options = _default_lab(job_sidecar, lab)
+            draft = build_draft(data, sidecar=job_sidecar, options=options, actor=catalog.actor)
             result = catalog.add_drafts([draft])[0]
         except CurateError as err:
             _quarantine(companions, str(err), jail)
             report.items.append(IntakeItem(file=data.name, status="quarantined", reason=str(err)))
             continue
+        _resolve_quarantined(data.name, result.id, jail)
         report.items.append(
             IntakeItem(
                 file=data.name,

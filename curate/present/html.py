@@ -12,14 +12,19 @@ import io
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from curate.export.files import write_text
 from curate.fit.sensitivity import SensitivityResult
 
 __all__ = [
     "GRADE_STYLE",
+    "MAX_TABLE_ROWS",
+    "column_extremes",
     "figure_tag",
     "page",
     "pyplot",
+    "rows_note",
     "sensitivity_section",
     "table_html",
     "write_sensitivity_report",
@@ -47,6 +52,58 @@ th { background: #eef2f5; } td:first-child, th:first-child { text-align: left; }
 .caution { border-left: 4px solid #b7852b; padding: .4rem .8rem; background: #fbf6ec; }
 img { max-width: 100%; height: auto; } code { background: #eef2f5; padding: 0 .2rem; }
 """
+
+
+# a table longer than this shows its first rows and says how many it left out; a shift plot
+# draws at most this many groups
+MAX_TABLE_ROWS = 200
+MAX_PLOT_GROUPS = 40
+
+
+def _largest_shift(group: Any) -> float:
+    shifts = [abs(p.get("shift_se") or 0.0) for p in group.parameters.values()]
+    return max(shifts, default=0.0)
+
+
+def column_extremes(x: np.ndarray, y: np.ndarray, columns: int) -> np.ndarray:
+    """Give the indices of the points to draw so that ``columns`` pixel columns look the same.
+
+    The range of ``x`` is cut into ``columns`` equal bins (one per pixel column of the plot);
+    each bin keeps the point of its smallest and of its largest ``y`` (the first one where
+    several tie), in the order of ``x``. A pixel column shows a vertical line from its minimum
+    to its maximum, so this min/max envelope draws what all points would, and keeps every
+    extreme. Time and memory grow linearly with the number of points; short series come back
+    whole.
+    """
+    n = len(x)
+    if n <= 2 * columns:
+        return np.arange(n)
+    order = np.argsort(x, kind="stable")
+    xs, ys = x[order], y[order]
+    span = xs[-1] - xs[0]
+    if span > 0:
+        bins = np.minimum(((xs - xs[0]) / span * columns).astype(np.int64), columns - 1)
+    else:
+        bins = np.zeros(n, dtype=np.int64)
+    starts = np.flatnonzero(np.r_[True, bins[1:] != bins[:-1]])
+    counts = np.diff(np.r_[starts, n])
+    kept = []
+    for reduce in (np.minimum, np.maximum):
+        extreme = np.repeat(reduce.reduceat(ys, starts), counts)
+        hits = np.flatnonzero(ys == extreme)
+        _, first = np.unique(bins[hits], return_index=True)
+        kept.append(hits[first])
+    return np.asarray(order[np.unique(np.concatenate(kept))])
+
+
+def rows_note(shown: int, total: int, what: str, where: str) -> str:
+    """Give the note under a cut table: how many rows it left out and where to see them."""
+    if total <= shown:
+        return ""
+    return (
+        f'<p class="note">{total - shown} more {html.escape(what)} not shown here '
+        f"(the first {shown} of {total}); {html.escape(where)}.</p>"
+    )
 
 
 def figure_tag(figure: Any, alt: str) -> str:
@@ -101,6 +158,11 @@ def sensitivity_section(result: SensitivityResult) -> str:
     full = result.full if isinstance(result.full, dict) else result.full.to_dict()
     names = list(full["parameters"])
     groups = [g for g in result.groups if g.error is None]
+    plotted = len(groups)
+    if len(groups) > MAX_PLOT_GROUPS:  # the groups that move the fit most; the table has all
+        groups = sorted(groups, key=lambda g: -(g.cook_distance or _largest_shift(g)))[
+            :MAX_PLOT_GROUPS
+        ]
     parts = [f'<section id="sensitivity-{html.escape(result.by.replace(":", "-"))}"><h2>Leave one {html.escape(result.by)} out</h2>',
              f'<p class="note">Method: {html.escape(result.method)} ({html.escape(result.executor)}). Each point is a '
              f"parameter's shift, in full-fit standard errors, when that {html.escape(result.by)} is left out; dashed lines "
@@ -135,6 +197,9 @@ def sensitivity_section(result: SensitivityResult) -> str:
             frameon=False,
         )
         parts.append(figure_tag(figure, f"parameter shifts when each {result.by} is left out"))
+        if plotted > len(groups):
+            parts.append(f'<p class="note">Drawn: the {len(groups)} of {plotted} groups with the largest '
+                         "Cook distance; the table lists every group.</p>")  # fmt: skip
         se_figure, se_axis = plt.subplots(figsize=(max(5, 0.8 * len(names) + 2), 3.2))
         asymptotic = [full["parameters"][n].get("stderr") or 0.0 for n in names]
         jack = [result.jackknife_stderr.get(n) or 0.0 for n in names]
@@ -150,6 +215,7 @@ def sensitivity_section(result: SensitivityResult) -> str:
         se_axis.legend(fontsize=8, frameon=False)
         parts.append("<h3>Standard errors: asymptotic against delete-one-group jackknife</h3>")
         parts.append(figure_tag(se_figure, "asymptotic and jackknife standard errors"))
+        parts += [f'<p class="note">{html.escape(note)}</p>' for note in result.notes()]
     header = [
         f"without {result.by}",
         "points",
@@ -159,7 +225,10 @@ def sensitivity_section(result: SensitivityResult) -> str:
         "notes",
     ]
     rows, flagged = [], []
-    for group in result.groups:
+    listed = result.groups
+    if len(listed) > MAX_TABLE_ROWS:  # flagged groups first, then the rest in order
+        listed = sorted(listed, key=lambda g: not g.flags)[:MAX_TABLE_ROWS]
+    for group in listed:
         shifts = []
         for name in names:
             z = group.parameters.get(name, {}).get("shift_se")
@@ -182,10 +251,14 @@ def sensitivity_section(result: SensitivityResult) -> str:
         )
         flagged.append(bool(group.flags))
     parts.append(table_html(header, rows, flagged=flagged))
+    parts.append(rows_note(len(listed), len(result.groups), "groups (flagged ones first)",
+                           "`curate sensitivity --json` gives them all"))  # fmt: skip
     flags = result.flags()
     if flags:
         parts.append("<p><strong>Conclusions that hinge on one group:</strong></p><ul>" +
-                     "".join(f"<li>{html.escape(f)}</li>" for f in flags) + "</ul>")  # fmt: skip
+                     "".join(f"<li>{html.escape(f)}</li>" for f in flags[:MAX_TABLE_ROWS]) + "</ul>"
+                     + rows_note(min(len(flags), MAX_TABLE_ROWS), len(flags), "flags",
+                                 "`curate sensitivity` prints them all"))  # fmt: skip
     else:
         parts.append(
             f"<p>No parameter moves more than {result.shift_threshold:g} SE when any one {html.escape(result.by)} is left out.</p>"

@@ -25,9 +25,12 @@ from curate.fit.sensitivity import SensitivityResult
 from curate.ledger import Ledger
 from curate.present.html import (
     GRADE_STYLE,
+    MAX_TABLE_ROWS,
+    column_extremes,
     figure_tag,
     page,
     pyplot,
+    rows_note,
     sensitivity_section,
     table_html,
 )
@@ -35,7 +38,7 @@ from curate.quality.actions import check_consistency
 from curate.quality.measured import measured_sd
 from curate.records import ConditionValue
 from curate.units import condition_text, short_unit
-from curate.weighting import Policy, Selection, weighted_table
+from curate.weighting import Policy, Selection, WeightSummary, weighted_table
 
 __all__ = ["SECTIONS", "build_report", "write_report"]
 
@@ -55,8 +58,31 @@ def _events(catalog: Ledger, kind: str) -> list[dict[str, Any]]:
     return [e for e in catalog.events() if e["kind"] == kind]
 
 
+# at most this many bars per overview chart (the rest summed as "others") and series panels
+MAX_BARS = 30
+MAX_PANELS = 48
+MAX_CHARTS = 6  # observables with a weight chart
+# the width of one series panel in pixels at the PNG's resolution: the thinning's columns
+PANEL_PIXELS = int(3.1 * 110)
+
+
+def _top(counts: Counter[str]) -> dict[str, int]:
+    """Give at most MAX_BARS labels with their counts, the rest summed as 'others'."""
+    if len(counts) <= MAX_BARS:
+        return dict(counts)
+    top = dict(counts.most_common(MAX_BARS - 1))
+    top[f"{len(counts) - len(top)} others"] = sum(counts.values()) - sum(top.values())
+    return top
+
+
+def _many(n: int, word: str) -> str:
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
 def _overview(catalog: Ledger) -> str:
-    versions = catalog.list(include_retired=True)
+    everything = catalog.list(include_retired=True)
+    versions = [v for v in everything if not v.record.retired]
+    retired = len(everything) - len(versions)
     by_observable = Counter(v.record.observable.id for v in versions)
     by_lab = Counter(v.record.source.lab for v in versions)
     by_grade = Counter(v.grade or "ungraded" for v in versions)
@@ -65,23 +91,31 @@ def _overview(catalog: Ledger) -> str:
     for axis, (title, counts) in zip(
         axes, (("observable", by_observable), ("lab", by_lab), ("grade", by_grade)), strict=True
     ):
-        labels = sorted(counts)
+        shown = _top(counts)
+        labels = sorted(shown)
         colours = [GRADE_STYLE.get(label if label != "ungraded" else None, GRADE_STYLE[None])[0] if title == "grade" else "#1b3a5c"
                    for label in labels]  # fmt: skip
         axis.barh(
-            labels, [counts[k] for k in labels], color=colours, edgecolor="black", linewidth=0.5
+            labels, [shown[k] for k in labels], color=colours, edgecolor="black", linewidth=0.5
         )
-        axis.set_title(f"datasets by {title}", fontsize=9)
+        axis.set_title(f"current datasets by {title}", fontsize=9)
         axis.tick_params(labelsize=8)
     figure.tight_layout()
+    listed = (versions + [v for v in everything if v.record.retired])[:MAX_TABLE_ROWS]
     rows = [[v.id, v.version, v.record.observable.id, short_unit(v.record.observable.unit), v.record.source.lab,
              ", ".join(f"{k}={condition_text(c)}" for k, c in v.record.conditions.items()), v.record.n_points,
              v.grade or "-", ", ".join(w.code for w in v.record.warnings) + (" retired" if v.record.retired else "")]
-            for v in versions]  # fmt: skip
+            for v in listed]  # fmt: skip
+    points = sum(v.record.n_points for v in versions)
+    aside = (
+        f" {_many(retired, 'retired dataset')} {'is' if retired == 1 else 'are'} kept but not counted."
+        if retired
+        else ""
+    )
     return (
-        f'<section id="overview"><h2>The catalog at a glance</h2><p class="note">{len(versions)} datasets from '
-        f"{len(by_lab)} labs; catalog {html.escape(catalog.catalog_id)}.</p>"
-        + figure_tag(figure, "datasets by observable, lab and grade")
+        f'<section id="overview"><h2>The catalog at a glance</h2><p class="note">{_many(len(versions), "current dataset")} '
+        f"({points:,} points) from {_many(len(by_lab), 'lab')}; catalog {html.escape(catalog.catalog_id)}.{aside}</p>"
+        + figure_tag(figure, "current datasets by observable, lab and grade")
         + table_html(
             [
                 "dataset",
@@ -96,17 +130,22 @@ def _overview(catalog: Ledger) -> str:
             ],
             rows,
         )
+        + rows_note(
+            len(listed), len(everything), "datasets", "`curate list --retired` lists them all"
+        )
         + "</section>"
     )
 
 
 def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     plt = pyplot()
-    versions = catalog.list()
+    current = catalog.list()
+    versions = current[:MAX_PANELS]
     columns = 4
     rows = math.ceil(len(versions) / columns) or 1
     figure, axes = plt.subplots(rows, columns, figsize=(3.1 * columns, 2.5 * rows), squeeze=False)
     overlay = fitted["predictions"] if fitted else {}
+    thinned = []
     for axis, version in zip(axes.flat, versions, strict=False):
         arrays = catalog.arrays(version.id)
         colour, marker = GRADE_STYLE.get(version.grade, GRADE_STYLE[None])
@@ -115,18 +154,14 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
         except InputError:
             sd = np.zeros(len(arrays))
         minutes = arrays.time / 60.0
-        order = np.argsort(minutes, kind="stable")
-        axis.fill_between(
-            minutes[order],
-            (arrays.value - sd)[order],
-            (arrays.value + sd)[order],
-            color=colour,
-            alpha=0.18,
-            linewidth=0,
-        )
+        band_x, band_low, band_high = _band(minutes, arrays.value - sd, arrays.value + sd)
+        axis.fill_between(band_x, band_low, band_high, color=colour, alpha=0.18, linewidth=0)
+        drawn = column_extremes(minutes, arrays.value, PANEL_PIXELS)
+        if len(drawn) < len(arrays):
+            thinned.append(version.id)
         axis.scatter(
-            minutes,
-            arrays.value,
+            minutes[drawn],
+            arrays.value[drawn],
             s=12,
             marker=marker,
             color=colour,
@@ -147,6 +182,7 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
         axis.tick_params(labelsize=7)
         axis.set_xlabel("time (min)", fontsize=7)
         axis.set_ylabel(short_unit(version.record.observable.unit), fontsize=7)
+        del arrays, sd, minutes
     for axis in list(axes.flat)[len(versions) :]:
         axis.axis("off")
     from matplotlib.lines import Line2D
@@ -165,26 +201,55 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     figure.tight_layout(rect=(0, 0, 1, 0.96))
     note = ("Black lines: the newest recorded fit (relative-unit data drawn with their fitted scale factor)."
             if overlay else "No fit recorded yet: run `curate fit` to draw one over the data.")  # fmt: skip
+    if thinned:
+        note += (
+            f" {len(thinned)} long series ({', '.join(thinned[:5])}{', ...' if len(thinned) > 5 else ''}) "
+            "are drawn by their smallest and largest value in each pixel column, which looks the "
+            "same as every point and keeps every extreme."
+        )
     return (
         '<section id="series"><h2>Every series, with its uncertainty band and grade</h2>'
         f'<p class="note">Shaded band: value ± measured SD (never trust-inflated). {html.escape(note)}</p>'
         + figure_tag(figure, "every measured series with its uncertainty band (key: grade markers)")
+        + rows_note(
+            len(versions), len(current), "series", "`curate show ID --points` gives any of them"
+        )
         + "</section>"
     )
 
 
-def _weights(catalog: Ledger, policy: Policy) -> str:
-    try:
-        summary = weighted_table(catalog, policy, Selection()).summary
-    except InputError as err:
-        return f'<section id="weights"><h2>Share of the total weight</h2><p>{html.escape(str(err))}</p></section>'
+def _band(
+    x: np.ndarray, low: np.ndarray, high: np.ndarray
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Give the band to shade: as given when short, else per pixel column its lowest low and
+    highest high, drawn across the column (a bounded number of vertices for any length)."""
+    order = np.argsort(x, kind="stable")
+    x, low, high = x[order], low[order], high[order]
+    if len(x) <= 2 * PANEL_PIXELS:
+        return x, low, high
+    span = x[-1] - x[0]
+    bins = np.minimum(
+        ((x - x[0]) / (span or 1.0) * PANEL_PIXELS).astype(np.int64), PANEL_PIXELS - 1
+    )
+    starts = np.flatnonzero(np.r_[True, bins[1:] != bins[:-1]])
+    ends = np.r_[starts[1:], len(x)] - 1
+    lows, highs = np.minimum.reduceat(low, starts), np.maximum.reduceat(high, starts)
+    edges = np.column_stack([x[starts], x[ends]]).reshape(-1)
+    return edges, np.repeat(lows, 2), np.repeat(highs, 2)
+
+
+def _weights(summary: WeightSummary | None, reason: str) -> str:
+    if summary is None:
+        return f'<section id="weights"><h2>Share of the total weight</h2><p>{html.escape(reason)}</p></section>'
     plt = pyplot()
-    observables = sorted(summary.n_eff)
+    observables = sorted(summary.n_eff)[:MAX_CHARTS]
     figure, axes = plt.subplots(
         1, len(observables), figsize=(5.5 * len(observables), 3.2), squeeze=False
     )
     for axis, observable in zip(axes.flat, observables, strict=True):
         rows = [d for d in summary.datasets if d.observable == observable]
+        if len(rows) > MAX_BARS:  # the largest shares; the table below says the rest
+            rows = sorted(rows, key=lambda d: -d.share)[:MAX_BARS]
         colours = [GRADE_STYLE.get(d.grade, GRADE_STYLE[None])[0] for d in rows]
         axis.barh(
             [d.id for d in rows],
@@ -196,9 +261,14 @@ def _weights(catalog: Ledger, policy: Policy) -> str:
         axis.set_title(f"{observable}: share of weight (%)", fontsize=9)
         axis.tick_params(labelsize=7)
     figure.tight_layout()
+    listed = sorted(summary.datasets, key=lambda d: -d.share)[:MAX_TABLE_ROWS]
+    if len(listed) == len(summary.datasets):
+        listed = list(summary.datasets)  # all of them, in their own order
     table = table_html(["dataset", "observable", "lab", "grade", "points", "inflation", "share", "Kish n_eff"],
                        [[d.id, d.observable, d.lab, d.grade, d.n_points, f"{d.inflation:g}", f"{100 * d.share:.1f}%",
-                         f"{d.n_eff:.1f}"] for d in summary.datasets])  # fmt: skip
+                         f"{d.n_eff:.1f}"] for d in listed])  # fmt: skip
+    table += rows_note(len(listed), len(summary.datasets), "datasets (the largest shares are shown)",
+                       "`curate weights` lists them all")  # fmt: skip
     warnings = "".join(f"<li>{html.escape(w)}</li>" for w in summary.warnings)
     return (
         f'<section id="weights"><h2>Share of the total weight</h2><p class="note">Policy {html.escape(summary.policy.name)} '
@@ -220,9 +290,16 @@ def _consistency(catalog: Ledger) -> str:
     parts = ['<section id="consistency"><h2>Consistency between datasets</h2>',
              '<p class="note">Each dataset against the consensus of the others measuring the same observable under '
              "matching conditions, on the uncertainties as measured.</p>"]  # fmt: skip
-    for group in result.groups:
+    shown = 0
+    for number, group in enumerate(result.groups):
+        if shown + len(group.datasets) > MAX_TABLE_ROWS and shown:
+            rest = result.groups[number:]
+            parts.append(f'<p class="note">{len(rest)} more groups ({sum(len(g.datasets) for g in rest)} datasets) '
+                         "not shown here; `curate consistency` lists them all.</p>")  # fmt: skip
+            break
+        shown += len(group.datasets)
         rows, flagged = [], []
-        for r in group.datasets:
+        for r in group.datasets[:MAX_TABLE_ROWS]:
             rows.append([r.id, r.lab, r.n_overlap, "-" if r.chi2 is None else f"{r.chi2:.1f}", r.dof if r.dof is not None else "-",
                          "-" if r.birge_ratio is None else f"{r.birge_ratio:.2f}", "-" if r.p_value is None else f"{r.p_value:.2g}",
                          "" if r.in_consensus else "left out of the consensus"])  # fmt: skip
@@ -238,6 +315,9 @@ def _consistency(catalog: Ledger) -> str:
                 rows,
                 flagged=flagged,
             )
+            + rows_note(
+                len(rows), len(group.datasets), "datasets", "`curate consistency` lists them all"
+            )
         )
         if group.summary is not None:
             s = group.summary
@@ -246,7 +326,10 @@ def _consistency(catalog: Ledger) -> str:
     if result.labs:
         parts.append("<h3>Labs against the consensus</h3>")
         parts.append(table_html(["lab", "Birge R", "dof", "grades", "flag"],
-                                [[lab.lab, f"{lab.birge_ratio:.2f}", lab.dof, ",".join(lab.grades), lab.flag] for lab in result.labs]))  # fmt: skip
+                                [[lab.lab, f"{lab.birge_ratio:.2f}", lab.dof, ",".join(lab.grades), lab.flag]
+                                 for lab in result.labs[:MAX_TABLE_ROWS]]))  # fmt: skip
+        parts.append(rows_note(min(len(result.labs), MAX_TABLE_ROWS), len(result.labs), "labs",
+                               "`curate consistency` lists them all"))  # fmt: skip
     parts.append("</section>")
     return "\n".join(parts)
 
@@ -266,7 +349,19 @@ def _predicts(payload: dict[str, Any]) -> bool:
     return backend is not None and not backend.fits_itself
 
 
-def _fit_overlay(catalog: Ledger, policy: Policy) -> tuple[str, dict[str, Any] | None]:
+def _templates(table: pd.DataFrame, ids: list[str]) -> pd.DataFrame:
+    """Give, for each of ``ids`` in the weighted table, its first row with ``time`` set to the
+    dataset's last time: what a fitted curve over the dataset needs (conditions, units...)."""
+    wanted = table[table["dataset_id"].isin(ids)]
+    ends = wanted.groupby("dataset_id", observed=True)["time"].max()
+    firsts = wanted.drop_duplicates("dataset_id").copy()
+    firsts["time"] = firsts["dataset_id"].astype(str).map(ends.rename(index=str)).to_numpy()
+    return firsts.reset_index(drop=True)
+
+
+def _fit_overlay(
+    catalog: Ledger, templates: pd.DataFrame | None
+) -> tuple[str, dict[str, Any] | None]:
     events = _events(catalog, "fit") + _events(catalog, "sensitivity")
     events = [e for e in sorted(events, key=lambda e: e["seq"]) if _predicts(e["payload"])]
     if not events:
@@ -281,15 +376,14 @@ def _fit_overlay(catalog: Ledger, policy: Policy) -> tuple[str, dict[str, Any] |
     values = {n: p["value"] for n, p in full["parameters"].items()}
     scales = full.get("scale_factors", {})
     predictions: dict[str, Any] = {}
-    note = ""
+    note = "" if templates is not None else " (no weighted data to draw it over)"
     try:
         backend: ModelBackend = rebuild(_backend_description(payload))
-        table = weighted_table(catalog, policy, Selection()).table
-        for dataset_id, rows in table.groupby("dataset_id"):
-            end = float(rows["time"].max())
-            grid = pd.DataFrame({"time": np.linspace(0.0, end, 120)})
-            first = rows.iloc[0]
-            for column in rows.columns:
+        shown = templates if templates is not None else pd.DataFrame(columns=["dataset_id"])
+        for _, first in shown.iterrows():
+            dataset_id = str(first["dataset_id"])
+            grid = pd.DataFrame({"time": np.linspace(0.0, float(first["time"]), 120)})
+            for column in shown.columns:
                 if column != "time":
                     grid[column] = first[column]
             # scale factors go by calibration group (data = s x model); fits recorded before
@@ -300,7 +394,7 @@ def _fit_overlay(catalog: Ledger, policy: Policy) -> tuple[str, dict[str, Any] |
                 else 1.0
             )
             curve = np.asarray(backend.predict(values, grid), dtype=float) * float(scale)
-            predictions[str(dataset_id)] = {
+            predictions[dataset_id] = {
                 "minutes": (grid["time"] / 60.0).tolist(),
                 "value": curve.tolist(),
             }
@@ -371,12 +465,28 @@ CAUTIONS = (
 
 
 def build_report(catalog: Ledger, policy: Policy) -> str:
-    """Give the whole report page."""
-    fit_html, fitted = _fit_overlay(catalog, policy)
+    """Give the whole report page.
+
+    Its size and memory stay bounded for any catalog: long series are thinned per pixel
+    column, charts and tables show a bounded number of rows and say how many they left out,
+    and the weighted table is built once and dropped before the plots are drawn.
+    """
+    summary: WeightSummary | None = None
+    templates: pd.DataFrame | None = None
+    reason = ""
+    try:
+        weighted = weighted_table(catalog, policy, Selection())
+    except InputError as err:
+        reason = str(err)
+    else:
+        summary = weighted.summary
+        templates = _templates(weighted.table, [v.id for v in catalog.list()[:MAX_PANELS]])
+        del weighted  # one row per point: not kept while the plots are drawn
+    fit_html, fitted = _fit_overlay(catalog, templates)
     sections = [
         _overview(catalog),
         _series(catalog, fitted),
-        _weights(catalog, policy),
+        _weights(summary, reason),
         _consistency(catalog),
         fit_html,
         _sensitivity(catalog),

@@ -153,9 +153,10 @@ def demo_text(result: DemoFindings) -> Group:
             parts.append(
                 Text("   against the values that generated the invented data: " + "; ".join(within))
             )
-    for by, sens in result.sensitivity.items():
+    for number, (by, sens) in enumerate(result.sensitivity.items()):
         measured = [g for g in sens.groups if g.cook_distance is not None]
-        text = f"8. after review, leave one {by} out: {len(sens.flags())} flag(s)"
+        step = "8. after review, leave" if number == 0 else "   leave"  # one step, several checks
+        text = f"{step} one {by} out: {len(sens.flags())} flag(s)"
         if measured:
             worst = max(measured, key=lambda g: g.cook_distance or 0.0)
             moved = max(((n, v["shift_se"]) for n, v in worst.parameters.items() if v["shift_se"] is not None),
@@ -262,14 +263,38 @@ def trace_text(result: TraceReport) -> Group:
     return Group(*parts)
 
 
+_IMPACT_WORDS = {
+    "export": "export",
+    "folds": "fold set",
+    "fit": "fit",
+    "sensitivity": "sensitivity run",
+}
+
+
+def _count(n: int, word: str) -> str:
+    """Give '1 fit', '2 fits', or '' for none."""
+    return "" if n == 0 else f"{n} {word}{'' if n == 1 else 's'}"
+
+
 def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
     """Give what ``curate impact`` prints."""
     if not found:
-        return Text(f"no export used an outdated version of {dataset_id}")
-    lines = [f"{len(found)} export(s) used an outdated version of {dataset_id}:"]
+        return Text(
+            f"no export, fold set, fit or sensitivity run used an outdated version of {dataset_id}"
+        )
+    counts = [
+        _count(sum(e.kind == kind for e in found), _IMPACT_WORDS[kind]) for kind in _IMPACT_WORDS
+    ]
+    lines = [f"{', '.join(c for c in counts if c)} used an outdated version of {dataset_id}:"]
     for entry in found:
         state = "retired" if entry.retired else f"now version {entry.current_version}"
-        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {entry.format}  {entry.outdir}: used version "
+        what = _IMPACT_WORDS.get(entry.kind, entry.kind)
+        if entry.kind == "export":
+            what = f"{entry.format} export"
+        elif entry.kind == "folds":
+            what = f"fold set (by {entry.format.partition(':')[2] or '?'})"
+        where = f" {entry.outdir}" if entry.outdir else ""
+        lines.append(f"  {entry.at[:19].replace('T', ' ')}  {what}{where}: used version "
                      f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
     return Text("\n".join(lines))
 
@@ -340,6 +365,8 @@ def sensitivity_text(result: SensitivityResult) -> Group:
             heldout,
         )
     parts.append(table)
+    if full.get("workdir"):
+        parts.append(Text(f"the fitter's files (tables, results, logs) are in {full['workdir']}"))
     se_table = plain_table(
         ("parameter", "value", "asymptotic SE", "jackknife SE"),
         right=("value", "asymptotic SE", "jackknife SE"),
@@ -351,6 +378,7 @@ def sensitivity_text(result: SensitivityResult) -> Group:
                          "-" if jack is None else f"{jack:.3g}")  # fmt: skip
     parts.append(Text(""))
     parts.append(se_table)
+    parts += [Text(note) for note in result.notes()]
     for entry in result.policies:
         moved = ", ".join(
             f"{n} {v['shift_se']:+.2f} SE"

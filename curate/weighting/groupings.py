@@ -111,22 +111,46 @@ def _kfold(by: str, argument: str | None) -> Grouping:
     return KFoldByDataset(by, k=k, seed=seed)
 
 
-# form -> (does it take ":ARGUMENT", how to build it)
-_FORMS: dict[str, tuple[bool, Callable[[str, str | None], Grouping]]] = {
-    "dataset": (False, lambda by, _: ByDataset(by)),
-    "lab": (False, lambda by, _: ByLab(by)),
-    "condition": (True, _condition),
-    "kfold": (True, _kfold),
+@dataclass(frozen=True)
+class _Form:
+    """One ``--by`` form: how it is written, whether it takes ``:ARGUMENT``, how to build it."""
+
+    shown: str
+    takes_argument: bool
+    build: Callable[[str, str | None], Grouping]
+    leaves_one_out: bool = True
+
+
+_FORMS: dict[str, _Form] = {
+    "dataset": _Form("dataset", False, lambda by, _: ByDataset(by)),
+    "lab": _Form("lab", False, lambda by, _: ByLab(by)),
+    "condition": _Form("condition:KEY", True, _condition),
+    "kfold": _Form("kfold:K", True, _kfold, leaves_one_out=False),
 }
 
 
-def parse_grouping(by: str) -> Grouping:
-    """Give the grouping a ``--by`` text names: dataset, lab, condition:KEY or kfold:K[:SEED]."""
+def _expected(forms: list[_Form]) -> str:
+    shown = [form.shown for form in forms]
+    return ", ".join(shown[:-1]) + " or " + shown[-1]
+
+
+def parse_grouping(by: str, *, leave_one_out: bool = False) -> Grouping:
+    """Give the grouping a ``--by`` text names: dataset, lab, condition:KEY or kfold:K[:SEED].
+
+    With ``leave_one_out`` only the forms that hold out one group per fold are accepted (and
+    named in the message): what a sensitivity check needs.
+    """
+    allowed = [f for f in _FORMS.values() if f.leaves_one_out or not leave_one_out]
     name, sep, argument = by.partition(":")
     form = _FORMS.get(name)
-    if form is None or form[0] != bool(sep):
-        raise InputError(f"--by {by}: expected dataset, lab, condition:KEY or kfold:K")
-    return form[1](by, argument if sep else None)
+    if form is not None and form not in allowed:
+        raise InputError(
+            f"--by {by}: expected {_expected(allowed)} ({form.shown} makes holdout folds "
+            "with `curate folds`, not one fold per group)"
+        )
+    if form is None or form.takes_argument != bool(sep):
+        raise InputError(f"--by {by}: expected {_expected(allowed)}")
+    return form.build(by, argument if sep else None)
 
 
 def fold_groups(table: pd.DataFrame, by: str) -> tuple[np.ndarray, GroupSplitter]:

@@ -13,7 +13,7 @@ from curate.errors import InputError
 from curate.ingest import parse_condition
 from curate.ledger import Ledger
 from curate.ledger.catalog import condition_matches
-from curate.records import DatasetVersion, canonical_json, normalise_grade
+from curate.records import DatasetVersion, normalise_grade
 from curate.weighting.policy import Policy
 
 __all__ = ["Selection", "select"]
@@ -42,6 +42,27 @@ class Selection:
             "versions": {k: v for k, v in self.versions},
             "include_retired": self.include_retired,
         }
+
+    def describe(self) -> str:
+        """Give the selection in words: 'lab Nobody; grade B or C' ('every dataset' if empty)."""
+
+        def either(word: str, values: list[str]) -> str:
+            return f"{word} {' or '.join(values)}"
+
+        parts = []
+        if self.observables:
+            parts.append(either("observable", list(self.observables)))
+        if self.labs:
+            parts.append(either("lab", [f"'{lab}'" for lab in self.labs]))
+        parts += [f"condition {key} = {value}" for key, value in self.conditions]
+        if self.grades:
+            parts.append(either("grade", list(self.grades)))
+        if self.ids:
+            parts.append(either("dataset", list(self.ids)))
+        parts += [f"{ident} at version {number}" for ident, number in self.versions]
+        if self.include_retired:
+            parts.append("retired ones included")
+        return "; ".join(parts) if parts else "every current dataset"
 
 
 def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[DatasetVersion]:
@@ -84,8 +105,9 @@ def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[Datase
             continue
         chosen.append(version)
     if not chosen:
+        excluded = " or ".join(policy.exclude)
         raise InputError(
-            "the selection matches no dataset that the policy lets into a fit: "
-            + canonical_json(selection.to_dict())
+            f"the selection matches no dataset that the policy lets into a fit ({selection.describe()}; "
+            f"the policy leaves out grade {excluded}); widen it, or see `curate list`"
         )
     return chosen

@@ -110,9 +110,16 @@ class GroupKFold(GroupSplitter):
 
 @dataclass(frozen=True)
 class FoldGap:
-    """Something only the held-out side covers: its parameters are unidentifiable in training."""
+    """Something only the held-out side covers: its parameters are unidentifiable in training.
 
-    kind: str  # "observable" or "condition"
+    Kinds: ``observable`` (measured only in the held-out data), ``condition`` (a value only
+    the held-out data have), ``single`` (a condition that varies in the data but keeps one
+    value in training, so how the response depends on it cannot be learned there) and
+    ``relative`` (an observable's relative-unit data are all held out, so their scale factors
+    cannot be learned in training).
+    """
+
+    kind: str
     name: str
     value: Any
 
@@ -120,17 +127,36 @@ class FoldGap:
         """Give the gap in words."""
         if self.kind == "observable":
             return f"observable {self.name} is measured only in the held-out data"
+        if self.kind == "single":
+            return (
+                f"condition {self.name} keeps one value ({self.value}) in training: how the "
+                f"response depends on {self.name} cannot be identified there"
+            )
+        if self.kind == "relative":
+            return (
+                f"the relative-unit data of {self.name} are all held out: their scale factors "
+                "cannot be learned in training"
+            )
         return f"condition {self.name} = {self.value} occurs only in the held-out data"
 
 
 def training_gaps(train: Any, test: Any, *, condition_columns: list[str]) -> list[FoldGap]:
     """Give what the held-out rows cover that the training rows do not (pandas frames in)."""
     gaps = []
-    train_observables = set(train["observable"])
-    for observable in sorted(set(test["observable"]) - train_observables):
-        gaps.append(FoldGap("observable", str(observable), None))
+    if "observable" in train and "observable" in test:
+        train_observables = set(train["observable"])
+        for observable in sorted(set(test["observable"]) - train_observables):
+            gaps.append(FoldGap("observable", str(observable), None))
+        if "relative" in train and "relative" in test:
+            relative_train = set(train.loc[train["relative"].astype(bool), "observable"])
+            relative_test = set(test.loc[test["relative"].astype(bool), "observable"])
+            for observable in sorted((relative_test - relative_train) & train_observables):
+                gaps.append(FoldGap("relative", str(observable), None))
     for column in condition_columns:
         seen = set(train[column].dropna().astype(str))
-        for value in sorted(set(test[column].dropna().astype(str)) - seen):
+        held = set(test[column].dropna().astype(str))
+        for value in sorted(held - seen):
             gaps.append(FoldGap("condition", column, value))
+        if len(seen) == 1 and held - seen:
+            gaps.append(FoldGap("single", column, next(iter(seen))))
     return gaps

@@ -136,10 +136,12 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
         "sd_source",
         "calibration_group",
     ):
-        # repeated labels as categories: a fraction of the memory, dictionary-encoded in Parquet
-        columns[name] = pd.Categorical(
-            np.repeat(np.asarray(per_dataset[name], dtype=object), counts).astype(str)
+        # repeated labels as categories: a fraction of the memory, dictionary-encoded in Parquet;
+        # built from codes, never from one string per point (gigabytes at millions of points)
+        labels, codes = np.unique(
+            np.asarray([str(v) for v in per_dataset[name]], dtype=str), return_inverse=True
         )
+        columns[name] = pd.Categorical.from_codes(np.repeat(codes, counts), categories=labels)
     return pd.DataFrame(columns)
 
 

@@ -34,6 +34,23 @@ class ExternalFitter(ModelBackend):
         self.command = command
         self.timeout = timeout
 
+    def check(self) -> None:
+        """Refuse, before anything runs, a command that cannot work: unsplittable, empty, or
+        without the ``{data}`` it reads or the ``{out}`` it must write."""
+        try:
+            parts = shlex.split(self.command)
+        except ValueError as err:
+            raise InputError(f"--fitter-cmd: cannot split the command ({err})") from None
+        if not parts:
+            raise InputError("--fitter-cmd: the command is empty")
+        missing = [m for m in ("{data}", "{out}") if not any(m in part for part in parts)]
+        if missing:
+            raise InputError(
+                f"--fitter-cmd '{self.command}': no {' and no '.join(missing)} in the command; "
+                "curate writes the training table to {data} and reads the fitted parameters "
+                "from {out}, e.g. 'julia fit.jl {data} {out}'"
+            )
+
     @classmethod
     def from_description(cls, description: dict[str, Any]) -> ModelBackend:
         """Give the fitter back from its recorded command and timeout."""
@@ -109,5 +126,17 @@ class ExternalFitter(ModelBackend):
         except FileNotFoundError:
             fold.error = f"the fitter wrote no {out.name} (log: {log})"
         except (json.JSONDecodeError, KeyError, TypeError, ValueError, AttributeError) as err:
-            fold.error = f'the fitter\'s {out.name} is not {{"parameters": {{NAME: value}}}} ({type(err).__name__}: {err})'
+            fold.error = (
+                f"the fitter's {out.name} is not "
+                f'{{"parameters": {{NAME: value}}}} ({_reason(err)})'
+            )
         return fold
+
+
+def _reason(err: Exception) -> str:
+    """Give why a result file could not be read, in words."""
+    if isinstance(err, json.JSONDecodeError):
+        return f"not JSON: {err.msg} at line {err.lineno}, column {err.colno}"
+    if isinstance(err, KeyError):
+        return f"no key {err.args[0]!r}" if err.args else "a key is missing"
+    return str(err) or "unexpected content"

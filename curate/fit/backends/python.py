@@ -106,7 +106,7 @@ def load_model(reference: str) -> Model:
             except Exception as err:
                 del sys.modules[module_name]
                 raise InputError(
-                    f"--model '{reference}': loading {path} failed ({type(err).__name__}: {err})"
+                    f"--model '{reference}': loading {path} failed ({err or 'no message'})"
                 ) from None
     else:
         try:
