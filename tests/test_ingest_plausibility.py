@@ -116,6 +116,17 @@ def test_identical_content_under_other_conditions():
     assert codes(warnings) == ["identical_to_other"]
 
 
+def test_identical_content_under_another_lab_is_flagged():
+    # same observable and conditions but another lab: two labs never agree to the last digit
+    same = [neighbour("a", 15.0, content="same")]
+    common = {"observable": "velarin", "unit": "nanomolar", "relative": False,
+              "conditions": "{}", "content_hash": "same", "magnitude": 15.0}  # fmt: skip
+    warnings = check_against_others(**common, others=same, lab="Other Lab")
+    assert codes(warnings) == ["identical_to_other"]
+    assert "dataset a of L: the same measurement logged under two labs?" in warnings[0].message
+    assert check_against_others(**common, others=same, lab="L") == []
+
+
 def test_relative_units_skip_magnitude_comparison():
     warnings = check_against_others(
         observable="velarin",

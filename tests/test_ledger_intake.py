@@ -27,6 +27,21 @@ def test_examples_intake_cleanly(catalog, examples):
     assert again.count("duplicate") == 13 and again.count("added") == 0
 
 
+def test_rerunning_an_intake_does_not_undo_a_revision(catalog, tmp_path):
+    # a file logged, its metadata corrected, the same file intaken again: still one dataset
+    inbox = tmp_path / "inbox"
+    write(inbox / "run.csv", LONG_CSV)
+    write(inbox / "run.toml", SIDECAR + '[conditions]\ntemperature = "37 degC"\n')
+    first = catalog.intake(inbox)
+    (logged,) = [item.id for item in first.items]
+    catalog.revise(logged, reason="incubator log", conditions={"temperature": "36.5 degC"})
+    again = catalog.intake(inbox)
+    assert again.count("duplicate") == 1 and again.count("added") == 0
+    assert again.items[0].id == logged
+    assert [v.id for v in catalog.list()] == [logged]
+    assert catalog.show(logged).record.conditions["temperature"].value == 36.5
+
+
 def test_bad_file_is_quarantined_with_reason(catalog, tmp_path):
     inbox = tmp_path / "inbox"
     write(inbox / "good.csv", LONG_CSV)

@@ -229,6 +229,7 @@ def check_against_others(
     others: Iterable[Neighbour] = (),
     same_content: Iterable[Neighbour] | None = None,
     others_level: float | None = None,
+    lab: str | None = None,
 ) -> list[PlausibilityWarning]:
     """Give the warnings from comparing a new series with the catalog's other datasets.
 
@@ -253,6 +254,15 @@ def check_against_others(
                     code="identical_to_other",
                     message=f"values identical to dataset {other.dataset_id}, which was logged"
                     " under other conditions or another observable: copied by mistake?",
+                )
+            )
+        elif lab is not None and other.lab != lab:
+            # two labs never measure the same numbers to the last digit
+            warnings.append(
+                PlausibilityWarning(
+                    code="identical_to_other",
+                    message=f"values identical to dataset {other.dataset_id} of {other.lab}: "
+                    "the same measurement logged under two labs?",
                 )
             )
     if relative or magnitude <= 0 or not others_level:

@@ -203,13 +203,21 @@ class _ActionContext:
     def __init__(self, store: Store) -> None:
         self.by_hash: dict[str, list[Neighbour]] = {}
         self.by_key: dict[tuple[str, str, str, str], DatasetVersion] = {}
+        # revised datasets by what they were first logged as: a file logged again after its
+        # dataset was corrected is that dataset, not a new one
+        self.logged_as: dict[tuple[str, str, str, str], str] = {}
         self.levels: dict[tuple[str, str], list[float]] = {}
         self.ids: set[str] = set()
         self.next_number: dict[str, int] = {}
         self.units: dict[str, dict[str, list[str]]] = {}  # observable -> absolute unit -> ids
         self.kinds: dict[str, dict[str, list[str]]] = {}  # condition key -> kind -> ids
-        for row in store.latest_versions():
+        latest = {row.dataset_id: row for row in store.latest_versions()}
+        for row in latest.values():
             self.remember(version_from_row(row))
+        for row in store.first_versions_of_revised():
+            first = version_from_row(row)
+            key = self.logged_key(first.record, first.record.content_hash)
+            self.logged_as[key] = row.dataset_id
 
     def remember(self, version: DatasetVersion) -> None:
         """Add a version written during this action to the indexes."""
@@ -233,6 +241,12 @@ class _ActionContext:
         for key, value in rec.conditions.items():
             kinds = self.kinds.setdefault(key, {})
             kinds.setdefault(condition_kind(value), []).append(version.id)
+
+    @staticmethod
+    def logged_key(rec: DatasetRecord, content: str) -> tuple[str, str, str, str]:
+        """Give (content hash, observable, conditions, lab): what makes two logs one dataset."""
+        conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
+        return (content, rec.observable.id, conditions, rec.source.lab)
 
     def check_unit(self, rec: DatasetRecord, origin: str) -> None:
         """Refuse absolute data whose unit has another dimension than the observable's
@@ -414,6 +428,13 @@ class Ledger:
             duplicate = context.by_key.get(
                 (draft.legacy_hash, rec.observable.id, conditions, rec.source.lab)
             )
+        for content in (rec.content_hash, draft.legacy_hash):
+            if duplicate is None and content is not None and context.logged_as:
+                # logged before as exactly this, and corrected since: a rerun of an intake must
+                # not undo the correction by logging the file again
+                revised = context.logged_as.get(context.logged_key(rec, content))
+                if revised is not None:
+                    duplicate = self.show(revised)
         if duplicate is None:
             context.check_unit(rec, draft.origin)
             context.check_conditions(rec.conditions, draft.origin)
@@ -422,7 +443,7 @@ class Ledger:
             observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
             conditions=conditions, content_hash=rec.content_hash, magnitude=magnitude,
             same_content=context.by_hash.get(rec.content_hash, []),
-            others_level=context.level(rec.observable.id, rec.observable.unit),
+            others_level=context.level(rec.observable.id, rec.observable.unit), lab=rec.source.lab,
         )  # fmt: skip
         annotations = {**rec.annotations, "typical_magnitude": magnitude}
         record = rec.model_copy(

@@ -378,6 +378,13 @@ class Store:
             " GROUP BY dataset_id) ORDER BY dataset_id"
         )
 
+    def first_versions_of_revised(self) -> list[VersionRow]:
+        """Give version 1 of every dataset that has later versions (what it was logged as)."""
+        return self._versions(
+            "WHERE version = 1 AND dataset_id IN (SELECT dataset_id FROM versions WHERE version > 1)"
+            " ORDER BY dataset_id"
+        )
+
     def all_versions(self) -> list[VersionRow]:
         """Give every version row, ordered by dataset id and version."""
         return self._versions("ORDER BY dataset_id, version")
