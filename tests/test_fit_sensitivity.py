@@ -195,6 +195,34 @@ def fitter_script(tmp_path, body):
     return f"{sys.executable} {script} {{data}} {{out}}"
 
 
+def test_an_external_fitter_without_standard_errors_gets_no_all_clear(demo_catalog, tmp_path):
+    # the fitter reports only values: a shift in SE cannot be judged, so no "nothing moves"
+    command = fitter_script(
+        tmp_path,
+        """
+        import json, sys
+        import pandas as pd
+        frame = pd.read_csv(sys.argv[1])
+        json.dump({"parameters": {"level": float(frame.value.mean())}}, open(sys.argv[2], "w"))
+    """,
+    )
+    result = demo_catalog.sensitivity(by="lab", fitter_cmd=command, workdir=tmp_path / "w")
+    assert result.flags() == [] and result.unjudged() == ["level"]
+    assert any("no standard error for level" in note for note in result.notes())
+    from curate.present.run_text import sensitivity_text
+
+    from rich.console import Console
+
+    console = Console(record=True, width=200)
+    console.print(sensitivity_text(result))
+    plain = console.export_text()
+    assert "no parameter moves more than" not in plain
+    assert "no flag, but level could not be judged" in plain
+    full = result.full["parameters"]["level"]["value"]
+    first = result.groups[0].parameters["level"]["value"]
+    assert f"{100 * (first - full) / abs(full):+.1f}%" in plain  # the relative change instead
+
+
 def test_external_fitter(demo_catalog, tmp_path):
     # an external "fitter": a straight line through the table, written as JSON
     command = fitter_script(

@@ -137,16 +137,37 @@ class SensitivityResult:
         """Give every plain-words flag."""
         return [flag for g in self.groups for flag in g.flags]
 
+    def unjudged(self) -> list[str]:
+        """Give the parameters whose shifts cannot be judged: the full fit gave no standard error."""
+        full = self.full.to_dict() if isinstance(self.full, FitResult) else self.full
+        return [n for n, p in full["parameters"].items() if p.get("stderr") is None
+                and any(n in g.parameters for g in self.groups)]  # fmt: skip
+
     def notes(self) -> list[str]:
-        """Give the caveats that go with the numbers (e.g. a jackknife over few groups)."""
+        """Give the caveats that go with the numbers (a jackknife over few groups, failed
+        refits, parameters without a standard error)."""
+        notes = []
         used = sum(1 for g in self.groups if g.error is None)
         if 2 <= used < MIN_JACKKNIFE_GROUPS:
-            return [
+            notes.append(
                 f"the jackknife standard errors come from only {used} groups: treat them as "
                 f"rough (fewer than {MIN_JACKKNIFE_GROUPS} groups; common practice, not a "
                 "published rule)"
-            ]
-        return []
+            )
+        failed = len(self.groups) - used
+        if failed:
+            notes.append(
+                f"{failed} of {len(self.groups)} refits failed: nothing is known of what "
+                "leaving those groups out does, and the jackknife uses only the others"
+            )
+        unjudged = self.unjudged()
+        if unjudged:
+            notes.append(
+                f"the full fit gave no standard error for {', '.join(unjudged)}: their shifts "
+                "cannot be judged in SE, so no flag can say whether they depend on one group "
+                "(their relative changes are shown instead)"
+            )
+        return notes
 
     def to_dict(self) -> dict[str, Any]:
         """Give the JSON shape scripts rely on."""

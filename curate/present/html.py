@@ -259,6 +259,11 @@ def sensitivity_section(result: SensitivityResult) -> str:
                      "".join(f"<li>{html.escape(f)}</li>" for f in flags[:MAX_TABLE_ROWS]) + "</ul>"
                      + rows_note(min(len(flags), MAX_TABLE_ROWS), len(flags), "flags",
                                  "`curate sensitivity` prints them all"))  # fmt: skip
+    elif result.unjudged():
+        parts.append(
+            f"<p>No flag, but {html.escape(', '.join(result.unjudged()))} could not be judged: the fit gave "
+            "no standard error for them.</p>"
+        )
     else:
         parts.append(
             f"<p>No parameter moves more than {result.shift_threshold:g} SE when any one {html.escape(result.by)} is left out.</p>"

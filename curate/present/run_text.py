@@ -347,11 +347,14 @@ def sensitivity_text(result: SensitivityResult) -> Group:
         shifts = []
         for name in names:
             z = group.parameters.get(name, {}).get("shift_se")
-            shifts.append(
-                "-"
-                if z is None
-                else f"{z:+.2f}" + (" !" if abs(z) > result.shift_threshold else "")
-            )
+            value = group.parameters.get(name, {}).get("value")
+            base = full["parameters"][name].get("value")
+            if z is not None:
+                shifts.append(f"{z:+.2f}" + (" !" if abs(z) > result.shift_threshold else ""))
+            elif value is not None and base:  # no standard error: the relative change
+                shifts.append(f"{100 * (value - base) / abs(base):+.1f}%")
+            else:
+                shifts.append("-")
         heldout = (
             f"{group.heldout_chi2:.1f}/{group.heldout_dof}"
             if group.heldout_chi2 is not None
@@ -391,6 +394,13 @@ def sensitivity_text(result: SensitivityResult) -> Group:
     if flags:
         parts.append(Text("conclusions that hinge on one group:", style="bold"))
         parts += [Text(f"  {flag}") for flag in flags]
+    elif result.unjudged():
+        parts.append(
+            Text(
+                f"no flag, but {', '.join(result.unjudged())} could not be judged (no standard "
+                f"error from the fit): look at their relative changes above"
+            )
+        )
     else:
         parts.append(
             Text(
