@@ -209,9 +209,9 @@ def test_an_external_fitter_without_standard_errors_gets_no_all_clear(demo_catal
     result = demo_catalog.sensitivity(by="lab", fitter_cmd=command, workdir=tmp_path / "w")
     assert result.flags() == [] and result.unjudged() == ["level"]
     assert any("no standard error for level" in note for note in result.notes())
-    from curate.present.run_text import sensitivity_text
-
     from rich.console import Console
+
+    from curate.present.run_text import sensitivity_text
 
     console = Console(record=True, width=200)
     console.print(sensitivity_text(result))
