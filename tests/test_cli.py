@@ -357,6 +357,9 @@ def test_verify_refuses_a_head_that_is_not_seq_colon_hash(cli, value):
 
 
 def test_verify_refuses_head_and_against_together_and_a_missing_file(cli, tmp_path):
+    import curate
+
+    curate.open_catalog(cli.catalog).close()  # verify only reads: the catalog must exist
     run = cli("verify", "--head", "0:" + "0" * 64, "--against", tmp_path)
     assert run.code == 2 and "not both" in run.err
     run = cli("verify", "--against", tmp_path / "nowhere")
