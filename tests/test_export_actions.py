@@ -412,6 +412,11 @@ def test_manifest_names_the_catalog_by_id_and_file_name_only(prepared, tmp_path)
     manifest = json.loads(text)
     assert manifest["catalog_file"] == "test.db" and "catalog_path" not in manifest
     assert str(tmp_path) not in text  # no folder of this machine travels with the export
+    policy = tmp_path / "lab_policy.toml"
+    policy.write_text((ROOT / "curate" / "data" / "policy.toml").read_text())
+    prepared.export("table", tmp_path / "t2", policy=policy.resolve())
+    text = (tmp_path / "t2" / "manifest.json").read_text()
+    assert json.loads(text)["policy"]["origin"] == "lab_policy.toml" and str(tmp_path) not in text
     assert prepared.trace(tmp_path / "t").intact
 
 

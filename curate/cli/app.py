@@ -24,11 +24,11 @@ from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
 from curate.ingest import build_draft
+from curate.jsontext import to_json
 from curate.ledger import AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
 from curate.present import run_text, text
 from curate.present.html import write_sensitivity_report
-from curate.present.jsondata import to_json
 from curate.present.progress import progress_bar
 from curate.quality.grading import load_checklist
 from curate.quality.noise import METHODS as NOISE_METHODS

@@ -7,13 +7,12 @@ as an event so that ``trace`` and ``impact`` can later tell what it used.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
 from curate.errors import InputError
-from curate.export.files import prepare_folder, write_text
+from curate.export.files import prepare_folder, write_json, write_text
 from curate.export.formats import CHECKS, FORMATS, ExportInput
 from curate.export.manifest import build_manifest, readme_text, record_run
 from curate.export.table import write_table
@@ -110,9 +109,7 @@ def write_folds(catalog: Ledger, by: str, outdir: str | Path, *, policy: Policy,
             "test_points": len(test),
             "training_lacks": [g.text() for g in gaps],
         }
-        files[f"{name}/fold.json"] = write_text(
-            folder / name / "fold.json", json.dumps(info, indent=2) + "\n"
-        )
+        files[f"{name}/fold.json"] = write_json(folder / name / "fold.json", info)
         described.append(info)
     files["README.txt"] = write_text(folder / "README.txt", readme_text(catalog, policy, folder))
     manifest = build_manifest(

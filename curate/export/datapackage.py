@@ -2,13 +2,12 @@
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from curate.export.files import write_text
+from curate.export.files import write_json
 from curate.export.table import table_bytes, unit_symbols
 
 __all__ = ["datapackage_descriptor", "write_datapackage"]
@@ -118,7 +117,5 @@ def write_datapackage(points: pd.DataFrame, datasets: pd.DataFrame, outdir: Path
     descriptor = datapackage_descriptor(
         points, datasets, name=name, condition_units=condition_units
     )
-    written["datapackage.json"] = write_text(
-        outdir / "datapackage.json", json.dumps(descriptor, indent=2) + "\n"
-    )
+    written["datapackage.json"] = write_json(outdir / "datapackage.json", descriptor)
     return written

@@ -7,14 +7,17 @@ import hashlib
 import os
 import tempfile
 from pathlib import Path
+from typing import Any
 
 from curate.errors import InputError
+from curate.jsontext import to_json
 
 __all__ = [
     "now_utc",
     "prepare_folder",
     "sha256_file",
     "write_bytes",
+    "write_json",
     "write_text",
 ]
 
@@ -32,6 +35,10 @@ def prepare_folder(outdir: Path, *, force: bool) -> None:
 
 def write_bytes(path: Path, data: bytes) -> str:
     """Write a file atomically (temporary file, then rename); give its sha256."""
+    if path.is_dir():
+        raise InputError(f"{path}: is a folder; expected a file name (e.g. {path / 'report.html'})")
+    if path.parent.exists() and not path.parent.is_dir():
+        raise InputError(f"{path.parent}: is a file, not a folder to write {path.name} into")
     path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     try:
@@ -50,6 +57,11 @@ def write_bytes(path: Path, data: bytes) -> str:
 def write_text(path: Path, text: str) -> str:
     """Write UTF-8 text atomically; give its sha256."""
     return write_bytes(path, text.encode("utf-8"))
+
+
+def write_json(path: Path, data: Any, *, sort_keys: bool = False) -> str:
+    """Write strict JSON (no NaN or Infinity: null instead) atomically; give its sha256."""
+    return write_text(path, to_json(data, sort_keys=sort_keys) + "\n")
 
 
 def sha256_file(path: Path) -> str:

@@ -15,7 +15,8 @@ from pathlib import Path
 from typing import Any
 
 from curate.errors import InputError
-from curate.export.files import now_utc, write_text
+from curate.export.files import now_utc, write_json
+from curate.jsontext import finite
 from curate.ledger import Ledger
 from curate.records import DatasetVersion, canonical_json
 from curate.version import __version__
@@ -89,7 +90,18 @@ def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selecti
         "files": dict(sorted(files.items())),
         **(extra or {}),
     }
-    return seal_manifest(manifest)
+    # a policy file is named by its file name only: no folder of this machine travels along
+    if Path(policy.origin).is_file():
+        manifest = _replace_value(manifest, policy.origin, Path(policy.origin).name)
+    return seal_manifest(finite(manifest))  # sealed as written: strict JSON, NaN as null
+
+
+def _replace_value(data: Any, old: str, new: str) -> Any:
+    if isinstance(data, dict):
+        return {key: _replace_value(value, old, new) for key, value in data.items()}
+    if isinstance(data, list):
+        return [_replace_value(value, old, new) for value in data]
+    return new if data == old else data
 
 
 def readme_text(catalog: Ledger, policy: Policy, outdir: Path) -> str:
@@ -114,7 +126,7 @@ def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[Datase
     with catalog.transaction():
         text_sha256 = catalog.store_policy(policy.sha256, policy.name, policy.origin, policy.text)
         if folder is not None:
-            write_text(folder / MANIFEST, json.dumps(manifest, indent=2, sort_keys=True) + "\n")
+            write_json(folder / MANIFEST, manifest, sort_keys=True)
         catalog.record_event(kind, {
             "format": manifest["format"], "outdir": str(folder.resolve()) if folder is not None else "",
             "manifest_sha256": manifest["manifest_sha256"], "event_chain_head": manifest["event_chain_head"],
@@ -152,5 +164,6 @@ Relative-unit datasets (relative = true) need a scale factor in the fit, one per
 calibration_group (or per dataset where none is given).
 
 manifest.json names every dataset version (and content hash) in this export;
-`curate trace {outdir_name}` tells whether the catalog still holds exactly that data.
+`curate trace FOLDER` (this folder; from the folder that holds it, `curate trace {outdir_name}`)
+tells whether the catalog still holds exactly that data.
 """

@@ -7,13 +7,12 @@ code; ``units.json`` beside the table names the unit of every other column (time
 from __future__ import annotations
 
 import io
-import json
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from curate.export.files import write_bytes, write_text
+from curate.export.files import write_bytes, write_json
 from curate.units import short_unit
 
 __all__ = ["UNITS_FILE", "table_bytes", "unit_symbols", "write_table", "write_units"]
@@ -36,8 +35,7 @@ def unit_symbols(frame: pd.DataFrame) -> pd.DataFrame:
 
 def write_units(outdir: Path, description: dict[str, Any]) -> dict[str, str]:
     """Write ``units.json`` (the unit of every column, see :data:`UNITS_FILE`); give its sha256."""
-    text = json.dumps(description, indent=2, ensure_ascii=False) + "\n"
-    return {UNITS_FILE: write_text(outdir / UNITS_FILE, text)}
+    return {UNITS_FILE: write_json(outdir / UNITS_FILE, description)}
 
 
 def table_bytes(frame: pd.DataFrame, kind: str) -> bytes:

@@ -8,7 +8,7 @@ import math
 import numpy as np
 import pytest
 
-from curate.present.jsondata import to_json
+from curate.jsontext import to_json
 
 
 def strict_loads(text):

@@ -1,4 +1,4 @@
-"""JSON output of every ``--json`` command: indented, strict JSON (RFC 8259), numpy allowed.
+"""Strict JSON (RFC 8259) of plain data, numpy allowed: every ``--json`` output and JSON file.
 
 JSON has no NaN or Infinity (RFC 8259, section 6); Python's json module writes them anyway
 unless told not to. Every non-finite number (float, numpy scalar or array element) becomes
@@ -45,8 +45,9 @@ def _json_default(value: Any) -> Any:
     return str(value)
 
 
-def to_json(value: Any) -> str:
+def to_json(value: Any, *, sort_keys: bool = False) -> str:
     """Give indented, strict JSON of plain data (numpy scalars and arrays allowed; NaN -> null)."""
     return json.dumps(
-        finite(value), indent=2, default=_json_default, ensure_ascii=False, allow_nan=False
-    )
+        finite(value), indent=2, default=_json_default, ensure_ascii=False, allow_nan=False,
+        sort_keys=sort_keys,
+    )  # fmt: skip
