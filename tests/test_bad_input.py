@@ -449,3 +449,10 @@ def test_budget_below_one_is_refused(seeded, tmp_path, command, option):
     run = seeded(command, "--model", f"{model}:f", "--params", params, option, "0")
     assert run.code == 2, run
     assert run.err.strip() == f"curate: error: {option} 0: expected at least 1"
+
+
+def test_a_bad_petab_problem_creates_no_catalog(cli, tmp_path):
+    problem = write(tmp_path / "p.yaml", "format_version: 1\nproblems: [\n")
+    run = cli("import-petab", problem)
+    assert run.code == 2 and run.err.count("\n") == 1
+    assert not cli.catalog.exists()

@@ -414,3 +414,13 @@ def test_usage_mistakes_exit_2_with_the_usage_line(cli):
     assert "internal error" not in missing.err + bogus.err
     bare = cli(catalog_path=None)
     assert bare.code == 0 and "Usage: curate" in bare.out
+
+
+def test_verify_counts_in_words_a_person_would_write():
+    from curate.ledger.verify import VerifyReport
+    from curate.present.text import verify_text
+
+    report = VerifyReport(datasets=1, versions=1, events=2, series=1)
+    report.policies = 1
+    first = verify_text(report).plain.splitlines()[0]
+    assert first.startswith("intact: 1 dataset, 1 version, 1 series, 2 events, 1 policy recomputed")

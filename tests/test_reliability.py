@@ -214,10 +214,14 @@ def test_restore_refuses_a_tampered_backup(tmp_path, cli):
     conn = sqlite3.connect(tmp_path / "b.db", isolation_level=None)
     conn.execute("UPDATE events SET actor = 'someone else'")
     conn.close()
+    backup_bytes = (tmp_path / "b.db").read_bytes()
     run = cli("restore", tmp_path / "b.db", catalog_path=catalog)
     assert run.code == 2 and "the backup does not verify" in run.err
     with curate.open_catalog(catalog) as opened:
         assert opened.verify().ok and len(opened.list()) == 1
+    # the backup itself is read, never changed: no migration, no write-ahead files beside it
+    assert (tmp_path / "b.db").read_bytes() == backup_bytes
+    assert not list(tmp_path.glob("b.db-*")) and not list(tmp_path.glob("c.db.restoring*"))
 
 
 HOSTILE = [

@@ -23,7 +23,7 @@ from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions,
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
-from curate.ingest import build_draft
+from curate.ingest import build_draft, read_petab_problem
 from curate.jsontext import to_json
 from curate.ledger import AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
@@ -270,8 +270,12 @@ def import_petab(
     as_json: JsonFlag = False,
 ) -> None:
     """Log a PEtab problem's measurement table, one dataset per observable and condition."""
+    # read and validate the problem before the catalog is opened: a bad problem creates nothing
+    drafts = read_petab_problem(
+        problem, lab=lab, time_unit=time_unit, unit=unit, actor=state.actor or default_actor()
+    )
     with _catalog(create=True) as catalog:
-        results = catalog.import_petab(problem, lab=lab, time_unit=time_unit, unit=unit)
+        results = catalog.add_drafts(drafts)
     if as_json:
         _emit_json([r.to_dict() for r in results])
         return

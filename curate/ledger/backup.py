@@ -62,6 +62,14 @@ def _first_problem(report: VerifyReport) -> str:
     return report.problems[0] if report.problems else report.sqlite
 
 
+def _remove(path: Path, *, keep_main: bool = False) -> None:
+    """Remove a staged SQLite file's write-ahead companions (and the file unless kept)."""
+    for suffix in ("-wal", "-shm"):
+        Path(str(path) + suffix).unlink(missing_ok=True)
+    if not keep_main:
+        path.unlink(missing_ok=True)
+
+
 def backup_catalog(ledger: Ledger, destination: str | Path, *, force: bool = False) -> VerifyReport:
     """Write a verified copy of the catalog to ``destination`` (while others may write)."""
     target = Path(destination)
@@ -96,15 +104,18 @@ def restore_catalog(
     source = Path(backup)
     if not source.is_file():
         raise InputError(f"{source}: no such backup file")
-    with Ledger(source) as candidate:
+    target = Path(catalog_path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG)
+    staged = target.with_name(target.name + ".restoring")
+    shutil.copyfile(source, staged)  # verified as a copy: the backup file itself stays untouched
+    with Ledger(staged) as candidate:
         report = candidate.verify()
+        candidate.store.checkpoint()
     if not report.ok:
+        _remove(staged)
         raise IntegrityError(
             f"{source}: the backup does not verify ({_first_problem(report)}); nothing restored"
         )
-    target = Path(catalog_path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG)
-    staged = target.with_name(target.name + ".restoring")
-    shutil.copyfile(source, staged)
+    _remove(staged, keep_main=True)
     kept = None
     if target.exists():
         stamp = dt.datetime.now(dt.UTC).strftime("%Y%m%dT%H%M%SZ")

@@ -214,13 +214,20 @@ def history_text(dataset_id: str, entries: list[HistoryEntry]) -> Group:
     return Group(*parts)
 
 
+def _count(n: int, word: str) -> str:
+    """Give '1 dataset', '2 datasets', '1 policy', '3 policies', '2 series'."""
+    if n == 1 or word == "series":
+        return f"{n} {word}"
+    return f"{n} {word[:-1]}ies" if word.endswith("y") else f"{n} {word}s"
+
+
 def verify_text(result: VerifyReport) -> Text:
     """Give what ``curate verify`` prints: intact or the problems, then the chain head."""
-    policies = f"{result.policies} polic{'y' if result.policies == 1 else 'ies'}"
-    counts = (
-        f"{result.datasets} datasets, {result.versions} versions, {result.series} series, "
-        f"{result.events} events, {policies}"
-    )
+    counts = ", ".join(
+        _count(n, word)
+        for n, word in ((result.datasets, "dataset"), (result.versions, "version"),
+                        (result.series, "series"), (result.events, "event"), (result.policies, "policy"))
+    )  # fmt: skip
     if result.ok:
         lines = [f"intact: {counts} recomputed, every hash and link holds"]
     else:
