@@ -73,6 +73,20 @@ def test_reopening_keeps_catalog_id(tmp_path):
         assert second.store.applied_migrations() == ["0001_initial", "0002_policies"]
 
 
+def test_a_condition_filter_without_its_unit_is_refused_not_silently_empty(filled):
+    # dose is stored as a quantity (1 uM = 1000 nM): "dose=1" would match nothing in silence
+    with pytest.raises(
+        InputError,
+        match=r"holds dose as a quantity in nM .* not a plain number; give it with its unit",
+    ):
+        filled.list(conditions={"dose": "1"})
+    from curate.weighting import Selection
+
+    with pytest.raises(InputError, match="not a plain number"):
+        filled.weighted_table(selection=Selection(conditions=(("dose", "1"),)))
+    assert len(filled.list(conditions={"dose": "1 uM"})) >= 1
+
+
 def test_list_filters(filled):
     assert [v.id for v in filled.list()] == [
         "harrow_velarin_conc_01",

@@ -79,6 +79,15 @@ def test_floors(tmp_path):
     np.testing.assert_allclose(weighted["sd"], [0.5, 0.1, 0.3])
 
 
+def test_the_absolute_floor_leaves_relative_data_alone(tmp_path):
+    # an absolute floor of 0.5 (nM, say) must not swamp an a.u. series whose sd is 0.001
+    policy = policy_file(tmp_path, BASE.replace("absolute = 0.0", "absolute = 0.5"))
+    points = frame([("abs", "v", "L", "A", 10.0, 0.1), ("rel", "v", "L", "A", 0.01, 0.001)])
+    points["relative"] = [False, True]
+    weighted, _ = weights.apply_policy(points, policy)
+    assert weighted["sd"].tolist() == [0.5, 0.001]
+
+
 def test_zero_sd_without_floor_is_refused(tmp_path):
     policy = policy_file(tmp_path, BASE)
     with pytest.raises(InputError, match="infinite weight"):

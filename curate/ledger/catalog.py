@@ -50,6 +50,7 @@ __all__ = [
     "AddResult",
     "HistoryEntry",
     "Ledger",
+    "check_condition_filters",
     "condition_matches",
     "default_actor",
     "describe_changes",
@@ -172,6 +173,38 @@ def condition_kind(value: ConditionValue) -> str:
     if isinstance(value.value, str):
         return "text"
     return value.unit if value.unit not in (None, "dimensionless") else "number"
+
+
+def check_condition_filters(
+    wanted: dict[str, ConditionValue], versions: Iterable[DatasetVersion]
+) -> None:
+    """Refuse a condition filter of another kind than the catalog stores for its key.
+
+    ``--condition dose=10`` against doses stored as quantities (nM) would match nothing in
+    silence: the filter must carry a unit then (and a text filter cannot match a number).
+    """
+    if not wanted:
+        return
+    stored: dict[str, set[str]] = {key: set() for key in wanted}
+    for version in versions:
+        for key, held in stored.items():
+            value = version.record.conditions.get(key)
+            if value is not None:
+                held.add(condition_kind(value))
+    for key, value in wanted.items():
+        kinds = stored[key]
+        if kinds and condition_kind(value) not in kinds:
+            shown = sorted(kinds)[0]
+            hint = (
+                f"; give it with its unit, e.g. {key}={value.value:g}{units.short_unit(shown)}"
+                if condition_kind(value) == "number"
+                and shown not in ("number", "text", "true/false")
+                else ""
+            )
+            raise InputError(
+                f"--condition {key}: the catalog holds {key} as {_kind_text(shown)}, "
+                f"not {_kind_text(condition_kind(value))}{hint}"
+            )
 
 
 def _kind_text(kind: str) -> str:
@@ -739,10 +772,9 @@ class Ledger:
                 f"unknown grade '{grade}'; expected one of {', '.join(GRADES)} or 'none'"
             )
         wanted = {
-            k: parse_condition(k, v, origin="--condition").value
-            for k, v in (conditions or {}).items()
+            k: parse_condition(k, v, origin="--condition") for k, v in (conditions or {}).items()
         }
-        found = []
+        candidates = []
         for row in self._store.latest_versions():
             if observable is not None and row.observable != observable:
                 continue
@@ -752,14 +784,16 @@ class Ledger:
                 continue
             if row.retired and not include_retired:
                 continue
-            version = version_from_row(row)
-            if any(
-                condition_matches(version.record.conditions.get(k), v) is False
+            candidates.append(version_from_row(row))
+        check_condition_filters(wanted, candidates)
+        return [
+            version
+            for version in candidates
+            if all(
+                condition_matches(version.record.conditions.get(k), v.value)
                 for k, v in wanted.items()
-            ):
-                continue
-            found.append(version)
-        return found
+            )
+        ]
 
     def history(self, dataset_id: str) -> builtins.list[HistoryEntry]:
         """Give every change of a dataset, oldest first, with what changed and why."""

@@ -12,7 +12,7 @@ from typing import Any
 from curate.errors import InputError
 from curate.ingest import parse_condition
 from curate.ledger import Ledger
-from curate.ledger.catalog import condition_matches
+from curate.ledger.catalog import check_condition_filters, condition_matches
 from curate.records import DatasetVersion, normalise_grade
 from curate.weighting.policy import Policy
 
@@ -74,13 +74,15 @@ def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[Datase
     pinned = dict(selection.versions)
     for ident in (*selection.ids, *pinned):
         catalog.show(ident)  # NotFoundError names an unknown id
-    wanted = {
-        key: parse_condition(key, raw, origin="--condition").value
-        for key, raw in selection.conditions
+    parsed = {
+        key: parse_condition(key, raw, origin="--condition") for key, raw in selection.conditions
     }
+    current = catalog.list(include_retired=True)
+    check_condition_filters(parsed, current)
+    wanted = {key: value.value for key, value in parsed.items()}
     wanted_grades = {normalise_grade(g) for g in selection.grades}  # 'b' is B
     chosen: list[DatasetVersion] = []
-    for version in catalog.list(include_retired=True):
+    for version in current:
         if selection.ids and version.id not in selection.ids and version.id not in pinned:
             continue
         if version.id in pinned:

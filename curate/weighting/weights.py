@@ -139,7 +139,12 @@ def apply_policy(
     if not np.all(np.isfinite(sd)) or np.any(sd < 0):
         bad = frame.loc[~np.isfinite(sd) | (sd < 0), "dataset_id"].iloc[0]
         raise InputError(f"dataset {bad}: a point has no usable sd")
-    floored = np.maximum(sd, policy.absolute_floor)
+    # the absolute floor is in the observable's physical unit: it means nothing for data in
+    # arbitrary units, which only the relative floor reaches
+    relative_rows = (
+        frame["relative"].to_numpy(dtype=bool) if "relative" in frame.columns else np.zeros(len(frame), bool)
+    )
+    floored = np.maximum(sd, np.where(relative_rows, 0.0, policy.absolute_floor))
     floored = np.maximum(
         floored, policy.relative_floor * np.abs(frame["value"].to_numpy(dtype=float))
     )
