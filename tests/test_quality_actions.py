@@ -143,6 +143,17 @@ def test_consistency_catches_the_saturated_dataset(logged):
     assert accepted.grade == "D" and "accepted suggestion" in accepted.record.trust.rationale
 
 
+def test_the_same_evidence_does_not_ratchet_a_grade_down_run_after_run(logged):
+    # strong disagreement caps a grade at D; once that is accepted, asking again suggests nothing
+    logged.estimate_noise()
+    saturated = by_file(logged, "marrowby_velarin_37C_10uM")
+    logged.grade(saturated, "A", reason="before anyone looked")
+    first = {s.dataset_id: s.suggested for s in logged.consistency().suggestions}
+    assert first == {saturated: "D"}  # a cap, not "two steps down" (A -> C)
+    logged.accept_suggestion(saturated)
+    assert logged.consistency().suggestions == []
+
+
 def test_consistency_uses_measured_not_inflated_uncertainty(logged):
     # grading a dataset down must not change its consistency numbers
     logged.estimate_noise()

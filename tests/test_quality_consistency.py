@@ -240,3 +240,53 @@ def test_a_reported_sd_of_zero_is_named_by_its_time_not_sent_to_noise():
     zero = cons.Series("b", "B", times, np.ones(5), np.array([0.0, 0.1, 0.1, 0.1, 0.1]))
     with pytest.raises(InputError, match=r"dataset b: sd 0 at time 0 s; .*grade it X"):
         cons.against_consensus([good, zero])
+
+
+def test_two_disagreeing_absolute_levels_and_a_relative_one_are_ambiguous():
+    # an honest dataset (sd 0.5) and one 1.5x too high (sd 0.5), plus a relative dataset: the
+    # relative one fits either level through its scale, so nothing says which level is off
+    rng = np.random.default_rng(5)
+    times = np.linspace(0, 1200, 13)
+    honest = make("honest", "A", times, rng)
+    high = cons.Series("high", "B", times, 1.5 * curve(times), np.full(len(times), 0.5))
+    relative = make("rel", "C", times, rng, scale=40.0, relative=True)
+    results = {r.id: r for r in cons.against_consensus([honest, high, relative])}
+    assert results["honest"].ambiguous and results["high"].ambiguous
+    assert not results["rel"].ambiguous
+    assert "nothing here tells which one is off" in results["honest"].note
+
+
+def test_a_third_absolute_level_decides_and_nothing_is_ambiguous():
+    rng = np.random.default_rng(6)
+    times = np.linspace(0, 1200, 13)
+    series = [make("a", "A", times, rng), make("b", "B", times, rng)]
+    series.append(cons.Series("high", "H", times, 1.5 * curve(times), np.full(len(times), 0.2)))
+    results = {r.id: r for r in cons.against_consensus(series)}
+    assert not any(r.ambiguous for r in results.values())
+    assert not results["high"].in_consensus and results["a"].in_consensus
+
+
+def test_summary_levels_put_relative_data_on_the_consensus_pool_only():
+    # the relative dataset's late level must follow the datasets that agree, not the outlier
+    rng = np.random.default_rng(7)
+    times = np.linspace(0, 1200, 25)
+    series = [make("a", "A", times, rng, sd=0.05), make("b", "B", times, rng, sd=0.05)]
+    series.append(cons.Series("high", "H", times, 1.5 * curve(times), np.full(len(times), 0.01)))
+    series.append(make("rel", "R", times, rng, sd=0.05, scale=40.0, relative=True))
+    pooled = {r.id for r in cons.against_consensus(series) if r.in_consensus}
+    assert pooled == {"a", "b", "rel"}
+    levels = {v[0]: v[2] for v in cons.summary_values(series, reference=pooled)}
+    assert levels["rel"] == pytest.approx(levels["a"], rel=0.02)
+    assert levels["high"] == pytest.approx(1.5 * levels["a"], rel=0.02)
+
+
+def test_a_sparse_series_of_a_curve_is_no_evidence_against_a_dense_one():
+    # judged against a 4-point series, a dense series of the same curve sees the straight lines
+    # between the 4 points; that gap is interpolation, not disagreement
+    rng = np.random.default_rng(11)
+    dense = make("dense", "A", np.linspace(0, 1200, 25), rng, sd=0.2)
+    sparse_times = np.array([0.0, 400.0, 800.0, 1200.0])
+    sparse = cons.Series("sparse", "B", sparse_times, curve(sparse_times), np.full(4, 0.2))
+    third = make("third", "C", np.linspace(0, 1200, 25), rng, sd=0.2)
+    results = {r.id: r for r in cons.against_consensus([dense, sparse, third])}
+    assert all(r.p_value > 0.01 for r in results.values()), results

@@ -355,7 +355,7 @@ def consistency_text(result: ConsistencyReport) -> Group:
         )
         for row in group.datasets:
             note = row.note
-            if row.p_value is not None and row.p_value < result.alpha:
+            if row.p_value is not None and row.p_value < result.alpha and not row.ambiguous:
                 note = (note + "; " if note else "") + "disagrees with the others"
             if not row.in_consensus:
                 note = (note + "; " if note else "") + "left out of the consensus"

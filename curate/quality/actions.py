@@ -45,9 +45,10 @@ __all__ = [
 ]
 
 # Grade suggestions from a dataset's Birge ratio against the others (common practice, no single
-# source): p < 0.01 with R > 1.5 costs one grade, p < 0.001 with R > 2 costs two.
-_SUGGEST_ONE = (0.01, 1.5)
-_SUGGEST_TWO = (0.001, 2.0)
+# source): p < 0.01 with R > 1.5 caps the grade at C, p < 0.001 with R > 2 at D. A cap, not a
+# step down: the same evidence asked again suggests nothing new once it has been accepted.
+_SUGGEST_ONE = (0.01, 1.5, "C")
+_SUGGEST_TWO = (0.001, 2.0, "D")
 # a lab whose datasets scatter more than this about the consensus does not fit an A or B
 _LAB_OVERDISPERSED = 2.0
 _LAB_UNDERGRADED = 1.2
@@ -389,7 +390,8 @@ def check_consistency(
         results = consistency.against_consensus(series, alpha=alpha)
         summary = lab_summary = None
         try:
-            values = consistency.summary_values(series, at=at)
+            pooled = {r.id for r in results if r.in_consensus}
+            values = consistency.summary_values(series, at=at, reference=pooled)
             summary = consistency.summary_consistency(
                 [v[0] for v in values], [v[2] for v in values], [v[3] for v in values], alpha=alpha
             )
@@ -425,10 +427,12 @@ def check_consistency(
             current = by_id[result.id].grade
             suggested = None
             assert result.p_value is not None and result.birge_ratio is not None
-            if result.p_value < _SUGGEST_TWO[0] and result.birge_ratio > _SUGGEST_TWO[1]:
-                suggested = grading.lower_grade(current, 2)
+            if result.ambiguous:
+                pass  # two levels disagree with no majority: no grade follows from it
+            elif result.p_value < _SUGGEST_TWO[0] and result.birge_ratio > _SUGGEST_TWO[1]:
+                suggested = grading.cap_grade(current, _SUGGEST_TWO[2])
             elif result.p_value < _SUGGEST_ONE[0] and result.birge_ratio > _SUGGEST_ONE[1]:
-                suggested = grading.lower_grade(current, 1)
+                suggested = grading.cap_grade(current, _SUGGEST_ONE[2])
             if suggested is not None and suggested != current:
                 report.suggestions.append(
                     Suggestion(

@@ -22,12 +22,12 @@ group of relative data only, on a common scale of typical level 1).
 from __future__ import annotations
 
 import itertools
-from collections.abc import Sequence
-from dataclasses import dataclass, field
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import interpolate, optimize, stats
 
 from curate.errors import InputError
 
@@ -77,7 +77,8 @@ def collapse_replicates(series: Series) -> Series:
 def _interpolate(other: Series, times: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Give (values, variances, inside) of ``other`` linearly interpolated at ``times``.
 
-    Var of (1-w) y_j + w y_{j+1} is (1-w)^2 s_j^2 + w^2 s_{j+1}^2 (independent points).
+    Var of (1-w) y_j + w y_{j+1} is (1-w)^2 s_j^2 + w^2 s_{j+1}^2 (independent points), plus
+    the squared gap to a monotone cubic interpolant where the series curves.
     """
     t = other.time
     inside = (times >= t[0]) & (times <= t[-1])
@@ -93,6 +94,13 @@ def _interpolate(other: Series, times: np.ndarray) -> tuple[np.ndarray, np.ndarr
     w = np.clip((times - t[j]) / span, 0.0, 1.0)
     values = (1 - w) * other.value[j] + w * other.value[j + 1]
     variances = (1 - w) ** 2 * other.sd[j] ** 2 + w**2 * other.sd[j + 1] ** 2
+    if len(t) >= 3 and inside.any():
+        # between its points a curved series is not a straight line: count the gap between
+        # the linear and the monotone cubic interpolant (PCHIP, Fritsch & Carlson 1980) as
+        # interpolation uncertainty (an error indicator by common practice, no single source);
+        # it is 0 at the series' own times
+        cubic = interpolate.PchipInterpolator(t, other.value)(np.clip(times, t[0], t[-1]))
+        variances = variances + np.where(inside, (cubic - values) ** 2, 0.0)
     return values, variances, inside
 
 
@@ -159,6 +167,9 @@ class ConsensusResult:
     note: str = ""
     in_consensus: bool = True  # part of the consensus pool others are judged against
     calibration_group: str | None = None  # the name of its scale factor (relative units)
+    # it disagrees with the only other absolute dataset(s) and nothing tells which one is off
+    # (relative data cannot decide a level): no grade should follow from it
+    ambiguous: bool = False
 
     def to_dict(self) -> dict[str, Any]:
         """Give the result as plain data."""
@@ -174,11 +185,16 @@ class ConsensusResult:
             "note": self.note,
             "in_consensus": self.in_consensus,
             "calibration_group": self.calibration_group,
+            "ambiguous": self.ambiguous,
         }
 
 
-def _align_scales(series: Sequence[Series]) -> list[float]:
-    """Give one scale per series putting relative-unit series on a common scale (1 if absolute)."""
+def _align_scales(series: Sequence[Series], reference: set[int] | None = None) -> list[float]:
+    """Give one scale per series putting relative-unit series on a common scale (1 if absolute).
+
+    With ``reference``, each relative series is aligned on those series only (the consensus
+    pool), so a dataset left out of the consensus cannot pull the others' scales.
+    """
     scales = [
         1.0 / max(float(np.median(np.abs(s.value))), 1e-300) if s.relative else 1.0 for s in series
     ]
@@ -189,8 +205,13 @@ def _align_scales(series: Sequence[Series]) -> list[float]:
         for k, s in enumerate(series):
             if not s.relative:
                 continue
-            others = [o for i, o in enumerate(series) if i != k]
-            other_scales = [scales[i] for i in range(len(series)) if i != k]
+            chosen = [
+                i for i in range(len(series)) if i != k and (reference is None or i in reference)
+            ]
+            if not chosen:
+                continue
+            others = [series[i] for i in chosen]
+            other_scales = [scales[i] for i in chosen]
             consensus, variance, covered = _consensus(s.time, others, other_scales)
             if covered.sum() >= 1:
                 part = Series(s.id, s.lab, s.time[covered], s.value[covered], s.sd[covered], True)
@@ -199,8 +220,8 @@ def _align_scales(series: Sequence[Series]) -> list[float]:
             s.relative for s in series
         ):  # fix the overall level: geometric mean of scales = first start
             level = np.exp(np.mean(np.log(scales)))
-            reference = np.exp(np.mean(np.log(previous)))
-            scales = [x * reference / level for x in scales]
+            start = np.exp(np.mean(np.log(previous)))
+            scales = [x * start / level for x in scales]
         if np.allclose(scales, previous, rtol=1e-10):
             break
     return scales
@@ -284,6 +305,9 @@ def _evaluate(
     return results
 
 
+_AMBIGUOUS = "disagrees with the only other absolute level; nothing here tells which one is off"
+
+
 def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[ConsensusResult]:
     """Give each dataset's chi2 against the consensus of the others on its own time points.
 
@@ -291,11 +315,15 @@ def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[
     ranges; dof = that count (minus 1 for a fitted scale); R = sqrt(chi2/dof);
     p = P(chi2_dof > chi2). Relative-unit data are aligned on one scale first.
 
-    The consensus is pruned in the spirit of the largest consistent subset (Cox 2007): while a
-    member of the consensus pool fails the test at ``alpha`` and more than two remain, the
-    member with the largest Birge ratio leaves the pool. An overconfident bad dataset would
-    otherwise dominate the inverse-variance consensus and make the good ones look wrong. Every
-    dataset is then judged against the pool members other than itself.
+    The consensus pool is the largest consistent subset (Cox 2007): the largest set of datasets
+    each of which passes the test at ``alpha`` against the others of the set, searched subset by
+    subset for groups of up to ten (beyond that, the failing member with the largest Birge ratio
+    leaves the pool, one at a time). An overconfident bad dataset would otherwise dominate the
+    inverse-variance consensus and make the good ones look wrong. Only a majority can out-vote
+    a level: relative data fit any level through their scale factor, so where two absolute
+    levels disagree with no third to side with either, both are marked ``ambiguous`` and no
+    grade should follow. Every dataset is then judged against the pool members other than
+    itself.
     """
     if len(series) < 2:
         raise InputError(
@@ -313,40 +341,120 @@ def against_consensus(series: Sequence[Series], *, alpha: float = 0.05) -> list[
                 f"dataset {s.id}: sd 0 at time {times} s; a consistency test needs positive sds: "
                 "log the data again with the sd corrected, or grade it X to leave it out"
             )
-    pool = set(range(len(collapsed)))
-    while True:
+
+    def judge(pool: set[int]) -> list[ConsensusResult]:
         members = sorted(pool)
-        pool_scales = _align_scales([collapsed[i] for i in members])
         scales = [1.0] * len(collapsed)
-        for i, scale in zip(members, pool_scales, strict=True):
+        for i, scale in zip(members, _align_scales([collapsed[i] for i in members]), strict=True):
             scales[i] = scale
         for i in range(len(collapsed)):
             if i not in pool and collapsed[i].relative:
                 scales[i] = 1.0 / max(float(np.median(np.abs(collapsed[i].value))), 1e-300)
-        results = _evaluate(collapsed, pool, scales)
-        if not any(r.n_overlap for r in results):
-            raise InputError(
-                "no dataset overlaps another in time: a consensus needs a shared time range"
-            )
+        return _evaluate(collapsed, pool, scales)
+
+    def failing(results: list[ConsensusResult], pool: set[int]) -> list[int]:
         # p may underflow to exactly 0: the strongest disagreement, never "no test"
         p_values = {i: results[i].p_value for i in pool}
-        failing = [i for i, p in p_values.items() if p is not None and p < alpha]
-        if not failing or len(pool) <= 2:
+        return [i for i, p in p_values.items() if p is not None and p < alpha]
+
+    everyone = set(range(len(collapsed)))
+    results = judge(everyone)
+    if not any(r.n_overlap for r in results):
+        raise InputError(
+            "no dataset overlaps another in time: a consensus needs a shared time range"
+        )
+    if not failing(results, everyone):
+        return results
+    if len(collapsed) <= _EXHAUSTIVE:
+        found = _largest_consistent_subset(collapsed, judge, failing)
+        if found is not None:
+            return found
+    return _pruned_greedily(collapsed, judge, failing)
+
+
+_EXHAUSTIVE = 10  # groups up to this size are searched subset by subset (2^10 checks at most)
+
+
+def _mark_ambiguous(results: list[ConsensusResult], undecided: set[int]) -> list[ConsensusResult]:
+    return [
+        replace(r, ambiguous=True, note=_AMBIGUOUS) if k in undecided else r
+        for k, r in enumerate(results)
+    ]
+
+
+_Judge = Callable[[set[int]], list[ConsensusResult]]
+_Failing = Callable[[list[ConsensusResult], set[int]], list[int]]
+
+
+def _largest_consistent_subset(
+    collapsed: Sequence[Series], judge: _Judge, failing: _Failing
+) -> list[ConsensusResult] | None:
+    """Give the results against the largest subset whose members all pass, or None.
+
+    The largest consistent subset (Cox 2007), searched over every subset: among subsets of one
+    size, those holding the most absolute datasets win (relative data fit any level through
+    their scale, so they cannot out-vote one); the lowest total chi2 breaks remaining ties.
+    Absolute datasets that are in some winning subsets but not in all are marked ambiguous:
+    the data cannot tell which of those levels is off.
+    """
+    n = len(collapsed)
+    absolute = {i for i in range(n) if not collapsed[i].relative}
+    for size in range(n - 1, 1, -1):
+        winners: list[tuple[int, float, set[int], list[ConsensusResult]]] = []
+        for members in itertools.combinations(range(n), size):
+            pool = set(members)
+            if absolute and not pool & absolute:
+                continue  # shapes alone never decide a level
+            results = judge(pool)
+            if failing(results, pool):
+                continue
+            chi2 = sum(results[i].chi2 or 0.0 for i in pool)
+            winners.append((len(pool & absolute), chi2, pool, results))
+        if not winners:
+            continue
+        most = max(w[0] for w in winners)
+        best = sorted((w for w in winners if w[0] == most), key=lambda w: w[1])
+        in_all = set.intersection(*(w[2] & absolute for w in best))
+        in_some = set.union(*(w[2] & absolute for w in best))
+        if in_some == in_all:
+            return best[0][3]
+        # several levels each with its own majority: judge against all of them, decide nothing
+        return _mark_ambiguous(judge(set.union(*(w[2] for w in best))), in_some - in_all)
+    return None
+
+
+def _pruned_greedily(
+    collapsed: Sequence[Series], judge: _Judge, failing: _Failing
+) -> list[ConsensusResult]:
+    """Give the results after leaving out, one at a time, the failing member with the largest
+    Birge ratio (for groups too large to search subset by subset)."""
+    pool = set(range(len(collapsed)))
+    while True:
+        results = judge(pool)
+        bad = failing(results, pool)
+        absolute = [i for i in pool if not collapsed[i].relative]
+        undecided = {i for i in bad if not collapsed[i].relative}
+        if undecided and len(absolute) <= 2:
+            # two absolute levels disagree and no third one sides with either: a relative
+            # dataset fits any level by its scale, so it cannot tell which is off
+            return _mark_ambiguous(results, undecided)
+        if not bad or len(pool) <= 2:
             return results
-        worst = max(failing, key=lambda i: results[i].birge_ratio or 0.0)
-        pool.discard(worst)
+        pool.discard(max(bad, key=lambda i: results[i].birge_ratio or 0.0))
 
 
 def summary_values(
-    series: Sequence[Series], *, at: float | None = None
+    series: Sequence[Series], *, at: float | None = None, reference: set[str] | None = None
 ) -> list[tuple[str, str, float, float]]:
     """Give (id, lab, value, sd) per dataset: the value at time ``at`` (interpolated), or else
     the late level: the weighted mean of the points in the last quarter of the shared time range.
 
-    Relative-unit data are put on a common scale first.
+    Relative-unit data are put on a common scale first (with ``reference``, the ids of the
+    consensus pool, on that pool's scale only).
     """
     collapsed = [collapse_replicates(s) for s in series]
-    scales = _align_scales(collapsed)
+    pool = None if reference is None else {k for k, s in enumerate(collapsed) if s.id in reference}
+    scales = _align_scales(collapsed, pool or None)
     shared_end = min(float(s.time[-1]) for s in collapsed)
     shared_start = max(float(s.time[0]) for s in collapsed)
     if shared_end < shared_start:

@@ -25,6 +25,7 @@ __all__ = [
     "check_grade",
     "load_answers",
     "load_checklist",
+    "cap_grade",
     "lower_grade",
     "suggest_from_answers",
 ]
@@ -49,6 +50,13 @@ def check_grade(grade: str, *, origin: str = "grade") -> str:
             + ", ".join(f"{g} ({GRADE_MEANING[g].split(':')[0]})" for g in GRADES)
         )
     return grade
+
+
+def cap_grade(grade: str | None, ceiling: str) -> str:
+    """Give the grade no better than ``ceiling`` (an ungraded dataset gets the ceiling)."""
+    if grade in _FITTED_GRADES and _FITTED_GRADES.index(grade) >= _FITTED_GRADES.index(ceiling):
+        return grade
+    return ceiling
 
 
 def lower_grade(grade: str | None, steps: int) -> str:

@@ -142,7 +142,9 @@ def apply_policy(
     # the absolute floor is in the observable's physical unit: it means nothing for data in
     # arbitrary units, which only the relative floor reaches
     relative_rows = (
-        frame["relative"].to_numpy(dtype=bool) if "relative" in frame.columns else np.zeros(len(frame), bool)
+        frame["relative"].to_numpy(dtype=bool)
+        if "relative" in frame.columns
+        else np.zeros(len(frame), bool)
     )
     floored = np.maximum(sd, np.where(relative_rows, 0.0, policy.absolute_floor))
     floored = np.maximum(
