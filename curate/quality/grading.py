@@ -22,10 +22,10 @@ __all__ = [
     "Checklist",
     "GradeSuggestion",
     "Question",
+    "cap_grade",
     "check_grade",
     "load_answers",
     "load_checklist",
-    "cap_grade",
     "lower_grade",
     "suggest_from_answers",
 ]
