@@ -279,6 +279,20 @@ def test_relative_data_share_weight_on_the_absolute_scale(tmp_path, scale):
     assert any("dataset abs carries 99%" in w for w in summary.warnings)
 
 
+def test_a_low_grade_absolute_level_barely_moves_the_relative_scale(tmp_path):
+    # a grade-D absolute dataset 1.5x too high (same sd) beside the grade-A one: the reference
+    # the relative data are scaled against weighs each by its trust (D inflates by 10 here)
+    points = mixed()
+    high = points[points["dataset_id"] == "abs"].copy()
+    high["dataset_id"], high["lab"], high["grade"] = "high", "L3", "D"
+    high["value"] *= 1.5
+    _, summary = weights.apply_policy(pd.concat([points, high]), policy_file(tmp_path, BASE))
+    rel = next(d for d in summary.datasets if d.id == "rel")
+    # reference = (1 x truth + 1.5 x truth / 10) / (1 + 1/10): s = 1000 / that factor
+    expected = 1000.0 / ((1 + 1.5 / 10) / (1 + 1 / 10))
+    assert rel.scale == pytest.approx(expected, rel=1e-9)
+
+
 def test_lab_cap_acts_on_the_same_footing(tmp_path):
     # capped at 0.5, the absolute lab comes down to the relative lab's 2.5 units: 50/50
     weighted, summary = weights.apply_policy(

@@ -17,8 +17,9 @@ not depend on any dataset's arbitrary units:
 
 - absolute data as they are;
 - relative-unit data of an observable that also has absolute data on the absolute scale: with
-  the consensus scale factor s = sum w y h / sum w h^2 (data = s x reference; h the inverse-
-  variance mean of the absolute datasets under the same conditions, else of all absolute
+  the consensus scale factor s = sum w y h / sum w h^2 (data = s x reference; h the mean of
+  the absolute datasets weighted by their weights, trust included, so a low grade's level
+  counts for little, under the same conditions, else of all absolute
   datasets of the observable, interpolated linearly at the dataset's times inside their
   range; the fit's closed form), sd/s is the sd on the absolute scale, so the dataset weighs
   w s^2. This is also the information a point gives the model in a fit of s x f (d(s f)/df
@@ -229,15 +230,16 @@ def _footing(
     rows_of = np.split(order, np.cumsum(np.bincount(inverse, minlength=count))[:-1])
     relative = frame["relative"].to_numpy(dtype=bool)
     value = frame["value"].to_numpy(dtype=float)
-    sd = frame["sd"].to_numpy(dtype=float)
     time = frame["time"].to_numpy(dtype=float) if "time" in frame.columns else None
     is_relative = np.array([bool(relative[rows[0]]) for rows in rows_of])
     columns = [c for c in conditions if c in frame.columns]
     condition_of = [_condition_key(frame, int(rows[0]), columns) for rows in rows_of]
 
+    sigma = 1.0 / np.sqrt(base)  # trust-inflated: a low grade's level counts for little
+
     def series(k: int, times: np.ndarray) -> Series:
         rows = rows_of[k][np.argsort(times[rows_of[k]], kind="stable")]
-        return Series(str(k), "", times[rows], value[rows], sd[rows])
+        return Series(str(k), "", times[rows], value[rows], sigma[rows])
 
     for observable in np.unique(observable_of):
         members = np.flatnonzero(observable_of == observable)
