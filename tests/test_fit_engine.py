@@ -245,14 +245,26 @@ def test_evaluation_budget_stops_the_whole_fit():
         boxbod_bounded(), fitting.FitOptions(global_search=True, starts=3, max_evaluations=100)
     )
     population = 15 * 2  # scipy's default popsize 15 times the number of free parameters
-    assert 100 <= result.evaluations <= 100 + population
+    final = 2 * 2 + 2  # the standard errors' central differences and the last residuals
+    assert 100 <= result.evaluations <= 100 + population + final
     assert not result.converged
     assert result.message.startswith("stopped: the budget of 100 model evaluations is spent")
     assert [s["message"] for s in result.starts] == [
         "not run: the budget of 100 model evaluations is spent"
     ] * 4
-    local = fitting.fit(boxbod_bounded(), fitting.FitOptions(starts=2, max_evaluations=5))
-    assert local.evaluations <= 5 and not local.converged
+    calls = []
+    problem = boxbod_bounded()
+    counted = problem.backend.function
+
+    def counting(params, points):
+        calls.append(1)
+        return counted(params, points)
+
+    problem.backend.function = counting
+    local = fitting.fit(problem, fitting.FitOptions(starts=2, max_evaluations=5))
+    # every call of the model counts, the Jacobian's included: the search stays within 5, and
+    # the final standard errors cost 2 p + 2 more; the result reports the true count
+    assert local.evaluations == len(calls) <= 5 + final and not local.converged
     assert local.to_dict()["options"]["max_evaluations"] == 5
     with pytest.raises(InputError, match="max_evaluations = 0: expected at least 1"):
         fitting.fit(boxbod_bounded(), fitting.FitOptions(max_evaluations=0))

@@ -13,9 +13,10 @@ are reported by calibration group.
 - Covariance (J^T J)^-1 from the Jacobian of the projected residual at the optimum, mapped to
   natural parameters (dp = p d ln p for log parameters); optionally scaled by the reduced
   chi2 when the sigmas are only relative.
-- A budget: ``max_evaluations`` caps the model evaluations of the whole fit (global search and
-  every start together; the global search stops after the generation that spends it, later
-  starts get what is left), ``generations`` caps the global search's generations (default
+- A budget: ``max_evaluations`` caps the model evaluations of the search (global search and
+  every start together, each Jacobian's finite differences counted; the global search stops
+  after the generation that spends it, later starts get what is left); the final standard
+  errors cost 2 p + 2 evaluations more (p free parameters). ``generations`` caps the global search's generations (default
   300). A fit stopped by its budget is reported as not converged, saying so.
 """
 
@@ -74,7 +75,7 @@ class FitResult:
     free: list[str]
     message: str
     options: dict[str, Any]
-    evaluations: int = 0  # model evaluations the search used (before the final Jacobian)
+    evaluations: int = 0  # every model evaluation of the fit, the final Jacobian's included
 
     @property
     def reduced_chi2(self) -> float:
@@ -162,10 +163,14 @@ def least_squares(
     # Levenberg-Marquardt (MINPACK) where nothing is bounded: the most accurate on the NIST
     # problems; trust-region reflective where bounds must hold
     unbounded = not (np.isfinite(lower).any() or np.isfinite(upper).any())
+    method = "lm" if unbounded and len(problem.y) >= len(x0) else "trf"
+    # MINPACK's count includes the Jacobian's finite differences; trf's count leaves out the
+    # len(x0) extra evaluations each Jacobian costs, so its cap is the budget over (1 + n)
+    cap = budget if budget is None or method == "lm" else max(1, budget // (len(x0) + 1))
     return optimize.least_squares(
-        lambda theta: problem.residual(theta, rows), x0, bounds=(lower, upper),
-        method="lm" if unbounded and len(problem.y) >= len(x0) else "trf", x_scale="jac",
-        ftol=options.tolerance, xtol=options.tolerance, gtol=options.tolerance, max_nfev=budget,
+        lambda theta: problem.residual(theta, rows), x0, bounds=(lower, upper), method=method,
+        x_scale="jac", ftol=options.tolerance, xtol=options.tolerance, gtol=options.tolerance,
+        max_nfev=cap,
     )  # fmt: skip
 
 
@@ -263,7 +268,7 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
             f"{len(problem.y)} points cannot determine {len(problem.free)} free parameters"
         )
     budget = options.max_evaluations
-    spent = 0
+    first = problem.calls  # every model evaluation is counted where it happens
     candidates = _start_points(problem, options)
     if options.global_search:
         lower, upper = problem.bounds()
@@ -275,8 +280,6 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
         done = 0
 
         def objective(theta: np.ndarray) -> float:
-            nonlocal spent
-            spent += 1
             return float(np.sum(problem.residual(theta) ** 2))
 
         def generation(_x: np.ndarray, convergence: float = 0.0) -> bool:
@@ -284,7 +287,7 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
             done += 1
             if progress is not None:
                 progress(done, generations, "global search")
-            return budget is not None and spent >= budget  # True halts the search
+            return budget is not None and problem.calls - first >= budget  # True halts it
 
         found = optimize.differential_evolution(
             objective, list(zip(lower, upper, strict=True)), seed=options.seed, polish=False,
@@ -296,8 +299,8 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
     for number, x0 in enumerate(candidates):
         if progress is not None:
             progress(number, len(candidates), "local fits")
-        left = None if budget is None else budget - spent
-        if left is not None and left < 1:
+        left = None if budget is None else budget - (problem.calls - first)
+        if left is not None and left < len(x0) + 1:  # not even one step with its Jacobian
             starts.append({"start": problem.to_natural(x0), "chi2": None, "converged": False,
                            "message": f"not run: the budget of {budget} model evaluations is spent"})  # fmt: skip
             continue
@@ -313,7 +316,6 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
                 }
             )
             continue
-        spent += int(solution.nfev)
         chi2 = float(2 * solution.cost)
         record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
                   "message": str(solution.message), "from": "global search" if options.global_search and number == 0 else "start"}  # fmt: skip
@@ -322,7 +324,8 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
             best = solution
     if progress is not None:
         progress(len(candidates), len(candidates), "local fits")
-    spent_all = budget is not None and spent >= budget
+    spent = problem.calls - first
+    spent_all = budget is not None and spent + len(candidates[0]) + 1 > budget
     if best is not None:
         theta, converged, message = np.asarray(best.x), bool(best.success), str(best.message)
     elif spent_all and options.global_search:  # the search spent it all: its best point stands
@@ -333,5 +336,5 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
         message = f"stopped: the budget of {budget} model evaluations is spent ({message})"
     result = summarise(problem, theta, jacobian(problem, theta), converged=converged, starts=starts,
                        message=message, options=options)  # fmt: skip
-    result.evaluations = spent
+    result.evaluations = problem.calls - first  # the final Jacobian's 2 p included
     return result

@@ -66,6 +66,7 @@ class FitProblem:
         index = {name: k for k, name in enumerate(self._group_names)}
         self._groups = np.array([index.get(label, -1) for label in labels])
         self.free = self.spec.free
+        self.calls = 0  # model evaluations so far (the fit's budget counts these)
         self.fixed = {p.name: p.start for p in self.spec.parameters if p.fixed}
         # the optimiser works on O(1) numbers: ln p for log parameters, p / |start| otherwise
         # (finite-difference Jacobians lose digits when parameters span many decades)
@@ -108,6 +109,7 @@ class FitProblem:
         """Give the model prediction (before scale factors) for every row, or the chosen rows."""
         frame = self.points if rows is None else self.points.iloc[rows]
         params = self.to_natural(theta)
+        self.calls += 1
         try:
             output = self.backend.predict(params, frame)
         except InputError:
