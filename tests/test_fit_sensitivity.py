@@ -223,6 +223,24 @@ def test_an_external_fitter_without_standard_errors_gets_no_all_clear(demo_catal
     assert f"{100 * (first - full) / abs(full):+.1f}%" in plain  # the relative change instead
 
 
+def test_an_external_fitter_giving_nan_is_a_failed_refit(demo_catalog, tmp_path):
+    command = fitter_script(
+        tmp_path,
+        """
+        import sys
+        import pandas as pd
+        frame = pd.read_csv(sys.argv[1])
+        value = "NaN" if "Marrowby Group" not in set(frame.lab) else float(frame.value.mean())
+        open(sys.argv[2], "w").write('{"parameters": {"level": %s}, "stderr": {"level": 1.0}}' % value)
+    """,
+    )
+    result = demo_catalog.sensitivity(by="lab", fitter_cmd=command, workdir=tmp_path / "w")
+    errors = {g.group: g.error for g in result.groups}
+    assert errors["Marrowby Group"] == "the fitter's result.json gives no finite value for level"
+    assert not next(g for g in result.groups if g.group == "Marrowby Group").converged
+    assert all(e is None for k, e in errors.items() if k != "Marrowby Group")
+
+
 def test_external_fitter(demo_catalog, tmp_path):
     # an external "fitter": a straight line through the table, written as JSON
     command = fitter_script(

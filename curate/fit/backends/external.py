@@ -10,6 +10,7 @@ checked this way.
 from __future__ import annotations
 
 import json
+import math
 import shlex
 import subprocess
 from pathlib import Path
@@ -130,6 +131,12 @@ class ExternalFitter(ModelBackend):
                 f"the fitter's {out.name} is not "
                 f'{{"parameters": {{NAME: value}}}} ({_reason(err)})'
             )
+        if fold.error is None:
+            bad = [n for n, v in fold.parameters.items() if not math.isfinite(v)]
+            if bad:  # a NaN is no parameter value: the refit failed, whatever its exit code
+                fold.error = f"the fitter's {out.name} gives no finite value for {', '.join(bad)}"
+            for name in [n for n, v in fold.stderr.items() if not math.isfinite(v)]:
+                del fold.stderr[name]  # a standard error that is not a number is none
         return fold
 
 
