@@ -116,6 +116,42 @@ def test_identical_content_under_other_conditions():
     assert codes(warnings) == ["identical_to_other"]
 
 
+def test_a_series_orders_of_magnitude_from_its_neighbours_is_named_whatever_the_factor():
+    # 10^8 is no known slip factor (10^3, 10^6), yet no lab measures the same thing that far off
+    warnings = check_against_others(
+        observable="velarin", unit="nanomolar", relative=False, conditions="{}",
+        content_hash="new", magnitude=1.6e9, others=[neighbour("a", 14.0), neighbour("b", 16.0)],
+    )  # fmt: skip
+    assert codes(warnings) == ["magnitude_vs_others"]
+    assert "about 10^8 times larger" in warnings[0].message and "(15 nM)" in warnings[0].message
+    near = check_against_others(
+        observable="velarin", unit="nanomolar", relative=False, conditions="{}",
+        content_hash="new", magnitude=150.0, others=[neighbour("a", 14.0), neighbour("b", 16.0)],
+    )  # fmt: skip
+    assert near == []  # ten times the others is biology, not a unit
+
+
+def test_round_uncertainty_is_judged_as_the_lab_wrote_it():
+    # 0.02 um/min as written is 3.33e-4 um/s once converted: round as written, not converted
+    value = np.linspace(0.1, 1.0, 6) / 60
+    sd = np.full(6, 0.02 / 60)
+    found = check_series(value, sd, uncertainty=UncertaintyType.SD, nonnegative=True,
+                         sd_as_given=np.full(6, 0.02), sd_unit="um/min")  # fmt: skip
+    assert "round_uncertainty" in codes(found)
+    assert "the round number 0.02 um/min" in next(
+        w.message for w in found if w.code == "round_uncertainty"
+    )
+    assert "round_uncertainty" not in codes(
+        check_series(
+            value,
+            sd,
+            uncertainty=UncertaintyType.SD,
+            nonnegative=True,
+            sd_as_given=np.linspace(0.011, 0.023, 6),
+        )  # fmt: skip
+    )
+
+
 def test_identical_content_under_another_lab_is_flagged():
     # same observable and conditions but another lab: two labs never agree to the last digit
     same = [neighbour("a", 15.0, content="same")]

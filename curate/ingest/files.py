@@ -519,6 +519,8 @@ def _assemble(
         time=given_time,
         time_unit=time_unit.original,
         replicates=arrays.replicate is not None,
+        sd_as_given=given_sd,
+        sd_unit=value_unit.original if sd_in_value_units else "",
     )
     record = DatasetRecord(
         observable=observable,

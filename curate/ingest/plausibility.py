@@ -14,12 +14,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from curate.records import PlausibilityWarning, UncertaintyType
+from curate.units import short_unit
 
 __all__ = ["Neighbour", "check_against_others", "check_series", "typical_magnitude"]
 
 # a "unit slip" is a jump of about 10^3 (or 10^6): within a quarter decade of it
 _SLIP_DECADES = (3.0, 6.0)
 _SLIP_TOLERANCE = 0.35
+_FAR_DECADES = 2.5  # beyond this, a whole series far from its neighbours is named anyway
 _ROUND_STEPS = (1.0, 2.0, 2.5, 5.0)
 
 
@@ -58,8 +60,13 @@ def check_series(
     time: np.ndarray | None = None,
     time_unit: str = "",
     replicates: bool = False,
+    sd_as_given: np.ndarray | None = None,
+    sd_unit: str = "",
 ) -> list[PlausibilityWarning]:
     """Give the warnings about one series on its own (time-sorted).
+
+    ``sd_as_given`` (in ``sd_unit``, before any unit conversion) is what the round-number check
+    reads: 0.02 um/min is round as the lab wrote it, not as 3.33e-4 um/s.
 
     ``nonnegative``: the quantity cannot be below zero (a concentration, a length). ``time``
     (in ``time_unit``, as the lab gave it) names the points in the messages; ``replicates``
@@ -94,14 +101,16 @@ def check_series(
                     "a zero sd would give an infinite weight",
                 )
             )
-        distinct = np.unique(known[known > 0])
+        written = known if sd_as_given is None else np.asarray(sd_as_given, dtype=float)
+        written = written[np.isfinite(written)]
+        distinct = np.unique(written[written > 0])
         if len(known) >= 5 and 1 <= len(distinct) <= 2 and all(_is_round(x) for x in distinct):
+            shown = " or ".join(f"{x:g}" for x in distinct) + (f" {sd_unit}" if sd_unit else "")
             warnings.append(
                 PlausibilityWarning(
                     code="round_uncertainty",
-                    message="every uncertainty is the round number "
-                    + " or ".join(f"{x:g}" for x in distinct)
-                    + ": it looks assumed rather than measured",
+                    message=f"every uncertainty is the round number {shown}: it looks assumed "
+                    "rather than measured",
                 )
             )
         finite = np.isfinite(sd) & (np.abs(value) > 0)
@@ -276,9 +285,9 @@ def check_against_others(
             warnings.append(
                 PlausibilityWarning(
                     code="magnitude_vs_others",
-                    message=f"typical value {magnitude:.3g} is about 10^{decades:g} times "
-                    f"{'larger' if ratio > 0 else 'smaller'} than the other {observable} datasets "
-                    f"({others_level:.3g} {unit}): a unit slip?",
+                    message=f"typical value {magnitude:.3g} {short_unit(unit)} is about 10^{decades:g} "
+                    f"times {'larger' if ratio > 0 else 'smaller'} than the other {observable} "
+                    f"datasets ({others_level:.3g} {short_unit(unit)}): a unit slip?",
                 )
             )
             break
@@ -295,4 +304,16 @@ def check_against_others(
                         )
                     )
                     break
+        if not warnings and abs(ratio) >= _FAR_DECADES:
+            # no known slip factor, but orders of magnitude away from its neighbours: a unit
+            # that converts correctly yet was not the one meant (furlongs for micrometres)
+            warnings.append(
+                PlausibilityWarning(
+                    code="magnitude_vs_others",
+                    message=f"typical value {magnitude:.3g} {short_unit(unit)} is about "
+                    f"10^{abs(ratio):.0f} times {'larger' if ratio > 0 else 'smaller'} than the "
+                    f"other {observable} datasets ({others_level:.3g} {short_unit(unit)}): the "
+                    "wrong unit?",
+                )
+            )
     return warnings
