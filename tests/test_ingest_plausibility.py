@@ -148,7 +148,7 @@ def test_round_uncertainty_is_judged_as_the_lab_wrote_it():
             uncertainty=UncertaintyType.SD,
             nonnegative=True,
             sd_as_given=np.linspace(0.011, 0.023, 6),
-        )  # fmt: skip
+        )
     )
 
 
