@@ -105,9 +105,9 @@ class Catalog(Ledger):
         return quality.grade_from_checklist(self, dataset_id, answers=answers, answers_file=answers_file,
                                             checklist_file=checklist_file, accept=accept)  # fmt: skip
 
-    def accept_suggestion(self, dataset_id: str) -> DatasetVersion:
-        """Take the newest grade suggestion for a dataset as its grade."""
-        return quality.accept_suggestion(self, dataset_id)
+    def accept_suggestion(self, dataset_id: str, *, reason: str | None = None) -> DatasetVersion:
+        """Take the newest grade suggestion for a dataset as its grade (with the person's reason)."""
+        return quality.accept_suggestion(self, dataset_id, reason=reason)
 
     def consistency(self, *, observable: str | None = None, tolerance: float = 0.01, at: float | None = None,
                     alpha: float = 0.05, record: bool = True) -> quality.ConsistencyReport:  # fmt: skip

@@ -456,3 +456,11 @@ def test_a_bad_petab_problem_creates_no_catalog(cli, tmp_path):
     run = cli("import-petab", problem)
     assert run.code == 2 and run.err.count("\n") == 1
     assert not cli.catalog.exists()
+
+
+def test_a_report_into_a_missing_folder_is_refused_not_created(seeded, tmp_path):
+    run = seeded("report", tmp_path / "nowhere" / "deeper" / "r.html")
+    assert run.code == 2 and "nowhere/deeper: no such folder" in run.err
+    assert not (tmp_path / "nowhere").exists()
+    run = seeded("report", tmp_path)  # a folder where a file is meant
+    assert run.code == 2 and run.err.count("\n") == 1

@@ -185,6 +185,20 @@ def test_spec_errors(tmp_path):
     assert spec.parameters[0].upper == float("inf") and len(spec.sha256) == 64
 
 
+def test_a_model_file_can_import_a_module_beside_it(tmp_path):
+    folder = tmp_path / "models"
+    folder.mkdir()
+    (folder / "kinetics_helpers_x7.py").write_text("def line(p, t):\n    return p['a'] * t\n")
+    (folder / "m.py").write_text(
+        "from kinetics_helpers_x7 import line\n"
+        "def predict(params, points):\n    return line(params, points['time'].to_numpy())\n"
+    )
+    model = fitting.load_model(f"{folder / 'm.py'}:predict")
+    import pandas as pd
+
+    assert list(model({"a": 2.0}, pd.DataFrame({"time": [1.0, 3.0]}))) == [2.0, 6.0]
+
+
 def test_model_errors(tmp_path):
     with pytest.raises(InputError, match="no such file"):
         fitting.load_model(str(tmp_path / "missing.py") + ":f")

@@ -139,8 +139,10 @@ def test_consistency_catches_the_saturated_dataset(logged):
     # recorded as events; grades unchanged until a person accepts
     assert logged.latest_event(saturated, "grade_suggestion")["payload"]["suggested"] == "D"
     assert logged.show(saturated).grade == "C"
-    accepted = logged.accept_suggestion(saturated)
+    accepted = logged.accept_suggestion(saturated, reason="the detector ceiling is in the raw file")
     assert accepted.grade == "D" and "accepted suggestion" in accepted.record.trust.rationale
+    # the person's own reason comes first, then what the suggestion rested on
+    assert accepted.record.trust.rationale.startswith("the detector ceiling is in the raw file; ")
 
 
 def test_the_same_evidence_does_not_ratchet_a_grade_down_run_after_run(logged):

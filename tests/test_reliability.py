@@ -224,6 +224,17 @@ def test_restore_refuses_a_tampered_backup(tmp_path, cli):
     assert not list(tmp_path.glob("b.db-*")) and not list(tmp_path.glob("c.db.restoring*"))
 
 
+def test_restoring_a_file_that_is_no_backup_leaves_nothing_behind(tmp_path, cli):
+    catalog = tmp_path / "c.db"
+    curate.open_catalog(catalog).close()
+    not_a_backup = tmp_path / "data.csv"
+    not_a_backup.write_text("time,value\n0,1\n")
+    run = cli("restore", not_a_backup, catalog_path=catalog)
+    assert run.code == 2 and run.err.count("\n") == 1
+    assert f"{not_a_backup}: not a catalog backup" in run.err
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["c.db", "data.csv"]
+
+
 HOSTILE = [
     "'; DROP TABLE versions; --",
     'x" OR "1"="1',

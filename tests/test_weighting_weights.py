@@ -133,7 +133,7 @@ def test_lab_cap(tmp_path):
     )
     assert summary.lab_shares["v"]["L1"] == pytest.approx(0.4)
     assert summary.lab_shares["v"]["L2"] == pytest.approx(0.3)
-    with pytest.raises(InputError, match="cannot each stay below it"):
+    with pytest.raises(InputError, match="is too small for .* labs"):
         weights.apply_policy(
             points, policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.2\n", "r.toml")
         )
@@ -373,3 +373,19 @@ def test_consensus_scale_factor_is_the_weighted_regression_through_the_origin(tm
     assert next(d for d in summary.datasets if d.id == "rel").scale == pytest.approx(
         expected, rel=1e-12
     )
+
+
+def test_a_lab_cap_says_where_it_cannot_act_and_names_its_file_when_too_small(tmp_path):
+    one_lab = frame([("a", "v", "L1", "A", 1.0, 0.1), ("b", "v", "L1", "A", 1.0, 0.1)])
+    _, summary = weights.apply_policy(
+        one_lab, policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.5\n")
+    )
+    assert (
+        "the lab cap (0.5) cannot act on v: all its data come from one lab (L1)" in summary.warnings
+    )
+    three = frame([(k, "v", f"L{k}", "A", 1.0, 0.1) for k in "abc"])
+    tiny = policy_file(tmp_path, BASE + "[balance]\nlab_cap = 0.01\n", "tiny.toml")
+    with pytest.raises(
+        InputError, match=r"tiny\.toml, field 'balance.lab_cap': 0.01 is too small for 3 labs"
+    ):
+        weights.apply_policy(three, tiny)

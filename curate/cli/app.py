@@ -469,7 +469,7 @@ def grade(
             _print_graded(version, as_json)
             return
         if accept_suggestion:
-            _print_graded(catalog.accept_suggestion(dataset_id), as_json)
+            _print_graded(catalog.accept_suggestion(dataset_id, reason=reason), as_json)
             return
         answers = None
         if checklist is None:
@@ -714,6 +714,8 @@ def sensitivity(
     if workers < 0:
         raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
     count = workers if workers > 0 else (os.cpu_count() or 1)
+    if report_file is not None and not report_file.parent.is_dir():  # before hours of refits
+        raise InputError(f"{report_file.parent}: no such folder for --report; create it first")
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "refitting", enabled=show_bar) as update:
         result = catalog.sensitivity(

@@ -33,12 +33,17 @@ def prepare_folder(outdir: Path, *, force: bool) -> None:
     outdir.mkdir(parents=True, exist_ok=True)
 
 
-def write_bytes(path: Path, data: bytes) -> str:
-    """Write a file atomically (temporary file, then rename); give its sha256."""
+def write_bytes(path: Path, data: bytes, *, make_folders: bool = True) -> str:
+    """Write a file atomically (temporary file, then rename); give its sha256.
+
+    ``make_folders=False``: the folder must exist (a file a person names, such as a report).
+    """
     if path.is_dir():
         raise InputError(f"{path}: is a folder; expected a file name (e.g. {path / 'report.html'})")
     if path.parent.exists() and not path.parent.is_dir():
         raise InputError(f"{path.parent}: is a file, not a folder to write {path.name} into")
+    if not make_folders and not path.parent.is_dir():
+        raise InputError(f"{path.parent}: no such folder; create it first, or name another file")
     path.parent.mkdir(parents=True, exist_ok=True)
     handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
     try:
@@ -54,9 +59,9 @@ def write_bytes(path: Path, data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
-def write_text(path: Path, text: str) -> str:
+def write_text(path: Path, text: str, *, make_folders: bool = True) -> str:
     """Write UTF-8 text atomically; give its sha256."""
-    return write_bytes(path, text.encode("utf-8"))
+    return write_bytes(path, text.encode("utf-8"), make_folders=make_folders)
 
 
 def write_json(path: Path, data: Any, *, sort_keys: bool = False) -> str:

@@ -16,7 +16,7 @@ import os
 import shutil
 from pathlib import Path
 
-from curate.errors import InputError, IntegrityError
+from curate.errors import CatalogError, InputError, IntegrityError
 from curate.ledger.catalog import DEFAULT_CATALOG, Ledger
 from curate.ledger.provenance import GENESIS, ChainHead, verify_chain
 from curate.ledger.store import read_chain
@@ -106,10 +106,17 @@ def restore_catalog(
         raise InputError(f"{source}: no such backup file")
     target = Path(catalog_path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG)
     staged = target.with_name(target.name + ".restoring")
+    if not is_catalog_file(source):
+        raise InputError(f"{source}: not a catalog backup (not an SQLite file); nothing restored")
     shutil.copyfile(source, staged)  # verified as a copy: the backup file itself stays untouched
-    with Ledger(staged) as candidate:
-        report = candidate.verify()
-        candidate.store.checkpoint()
+    try:
+        with Ledger(staged) as candidate:
+            report = candidate.verify()
+            candidate.store.checkpoint()
+    except CatalogError as err:
+        _remove(staged)
+        reason = str(err).removeprefix(f"{staged}: ")
+        raise IntegrityError(f"{source}: {reason}; nothing restored") from None
     if not report.ok:
         _remove(staged)
         raise IntegrityError(

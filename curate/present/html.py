@@ -276,5 +276,7 @@ def sensitivity_section(result: SensitivityResult) -> str:
 def write_sensitivity_report(result: SensitivityResult, path: str | Path) -> str:
     """Write a standalone sensitivity report; give its sha256."""
     return write_text(
-        Path(path), page("curate: sensitivity of the fit", [sensitivity_section(result)])
+        Path(path),
+        page("curate: sensitivity of the fit", [sensitivity_section(result)]),
+        make_folders=False,
     )

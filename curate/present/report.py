@@ -165,8 +165,9 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
             s=12,
             marker=marker,
             color=colour,
-            edgecolors="black",
-            linewidths=0.3,
+            # an unfilled marker (x, for grade X) has no edge to draw
+            edgecolors=None if marker in _UNFILLED else "black",
+            linewidths=0.3 if marker not in _UNFILLED else 1.0,
             zorder=3,
         )
         if version.id in overlay:
@@ -216,6 +217,9 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
         )
         + "</section>"
     )
+
+
+_UNFILLED = {"x", "+", "1", "2", "3", "4", "|", "_"}
 
 
 def _band(
@@ -498,4 +502,7 @@ def build_report(catalog: Ledger, policy: Policy) -> str:
 
 def write_report(catalog: Ledger, path: str | Path, policy: Policy) -> str:
     """Write the report to ``path``; give its sha256."""
-    return write_text(Path(path), build_report(catalog, policy))
+    target = Path(path)
+    if not target.parent.is_dir():  # say so before the report is built, not after
+        raise InputError(f"{target.parent}: no such folder; create it first, or name another file")
+    return write_text(target, build_report(catalog, policy), make_folders=False)

@@ -539,7 +539,9 @@ def _stale_because(
     return None
 
 
-def accept_suggestion(catalog: Ledger, dataset_id: str) -> DatasetVersion:
+def accept_suggestion(
+    catalog: Ledger, dataset_id: str, *, reason: str | None = None
+) -> DatasetVersion:
     """Record the newest grade suggestion for a dataset as its grade (a person's decision).
 
     Refused when the suggestion no longer holds: a newer consistency run covering the dataset
@@ -560,6 +562,7 @@ def accept_suggestion(catalog: Ledger, dataset_id: str) -> DatasetVersion:
         catalog,
         dataset_id,
         str(payload["suggested"]),
-        reason=f"accepted suggestion (event {event['seq']}): {payload['reason']}",
+        reason=(f"{reason.strip()}; " if reason and reason.strip() else "")
+        + f"accepted suggestion (event {event['seq']}): {payload['reason']}",
         source="suggestion",
     )

@@ -178,7 +178,8 @@ def apply_policy(
             factors[part] = target / footed[part] * (footed[part].sum() / target.sum())
         if policy.lab_cap > 0 and len(np.unique(labs[part])) > 1:
             factors[part] = (
-                _cap_labs(footed[part] * factors[part], labs[part], policy.lab_cap) / footed[part]
+                _cap_labs(footed[part] * factors[part], labs[part], policy.lab_cap, policy.origin)
+                / footed[part]
             )
     frame["balance"] = factors[inverse]
     weight = base * frame["balance"].to_numpy()
@@ -288,13 +289,16 @@ def _zero_sd_message(rows: pd.DataFrame, policy: Policy) -> str:
     )
 
 
-def _cap_labs(totals: np.ndarray, labs: np.ndarray, cap: float) -> np.ndarray:
+def _cap_labs(
+    totals: np.ndarray, labs: np.ndarray, cap: float, origin: str = "the policy"
+) -> np.ndarray:
     """Give per-dataset totals rescaled so no lab carries more than ``cap`` of the whole."""
     totals = totals.astype(float).copy()
     lab_names = np.unique(labs)
     if cap * len(lab_names) < 1.0:
         raise InputError(
-            f"balance.lab_cap {cap}: {len(lab_names)} labs cannot each stay below it (need cap >= {1 / len(lab_names):.3g})"
+            f"{origin}, field 'balance.lab_cap': {cap:g} is too small for {len(lab_names)} labs "
+            f"(their shares add up to 1, so the cap must be at least {1 / len(lab_names):.3g})"
         )
     for _ in range(100):
         whole = totals.sum()
@@ -376,6 +380,13 @@ def _summarise(
             warnings.append(
                 f"{obs} weights span a factor of {value:.2g} (more than 1e6): check the smallest sds and the noise floors"
             )
+    if policy.lab_cap > 0:
+        for obs, shares in sorted(lab_shares.items()):
+            if len(shares) == 1:
+                warnings.append(
+                    f"the lab cap ({policy.lab_cap:g}) cannot act on {obs}: all its data come "
+                    f"from one lab ({next(iter(shares))})"
+                )
     if not policy.is_likelihood:
         warnings.append(
             "balancing or a lab cap is on: the weighted sum of squares is no longer a likelihood, "

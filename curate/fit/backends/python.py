@@ -101,6 +101,10 @@ def load_model(reference: str) -> Model:
                 raise InputError(f"--model '{reference}': cannot load {path}")
             module = importlib.util.module_from_spec(spec)
             sys.modules[module_name] = module
+            # as Python runs a script: modules beside the model file can be imported
+            folder = str(path.resolve().parent)
+            if folder not in sys.path:
+                sys.path.insert(0, folder)
             try:
                 spec.loader.exec_module(module)
             except Exception as err:
