@@ -63,10 +63,10 @@ app = typer.Typer(
     help="Keep measured time courses with their provenance, noise and trust grade; "
     "turn them into weighted, checkable data for any fitter.",
 )
-out = Console(highlight=False, soft_wrap=True)
+out = Console(highlight=False, soft_wrap=True, emoji=False)  # ':abc:' stays text
 if not out.is_terminal:  # piped output: keep table rows whole rather than folding them
     out.width = 220
-err_console = Console(stderr=True, highlight=False, soft_wrap=True)
+err_console = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False)
 
 
 class _State:
@@ -815,13 +815,12 @@ _USAGE_ERRORS = (click.ClickException, getattr(typer, "TyperException", click.Cl
 
 
 def _usage_fail(usage: Exception) -> None:
-    """Print the command's usage line and the help hint, then the one error line; exit 2."""
+    """Print one error line that names the help to read; exit 2."""
     ctx = getattr(usage, "ctx", None)
-    if ctx is not None:
-        err_console.print(ctx.get_usage(), markup=False)
-        err_console.print(f"Try '{ctx.command_path} --help' for help.", markup=False)
     format_message = getattr(usage, "format_message", None)
-    _fail(format_message() if callable(format_message) else str(usage))
+    message = format_message() if callable(format_message) else str(usage)
+    where = f"`{ctx.command_path} --help`" if ctx is not None else "`curate --help`"
+    _fail(f"{message.rstrip('.')} (see {where})")
 
 
 def main(argv: list[str] | None = None) -> None:
