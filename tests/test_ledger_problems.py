@@ -16,12 +16,13 @@ import sqlite3
 import pandas as pd
 import pytest
 import yaml
-from conftest import DATA
+from conftest import DATA, LONG_CSV, write
 
 from curate.errors import InputError, NotFoundError
 from curate.ledger.problems import problem_record_hash
 
 BENCHMARKS = ("Boehm_JProteomeRes2014", "Fujita_SciSignal2010")
+OPTIONS = {"observable": {"id": "x", "unit": "nM"}, "time": {"unit": "s"}, "source": {"lab": "L"}}
 
 
 def problem_path(name):
@@ -174,6 +175,24 @@ def test_a_problem_with_another_model_is_another_problem(boehm, tmp_path):
     assert results[0].problem.id == "boehm_jproteomeres2014_02" != problem_id
     assert results[0].problem.version == 1
     assert len(catalog.problems()) == 2
+
+
+def test_a_catalog_from_before_stored_problems_gains_them_on_open(tmp_path, monkeypatch):
+    import curate
+    from curate.ledger import store
+
+    path = tmp_path / "old.db"
+    with monkeypatch.context() as patch:  # a catalog made before the 0003 step existed
+        patch.setattr(store, "MIGRATIONS", store.MIGRATIONS[:2])
+        with curate.open_catalog(path, actor="tester") as old:
+            old.add(write(tmp_path / "a.csv", LONG_CSV), options=OPTIONS)
+            assert "problems" not in old.store.db.table_names()
+    with curate.open_catalog(path, actor="tester") as reopened:
+        assert reopened.store.applied_migrations()[-1] == "0003_problems"
+        assert reopened.problems() == [] and reopened.models() == []
+        reopened.import_petab(problem_path("Boehm_JProteomeRes2014"))
+        report = reopened.verify()
+        assert report.ok and (report.datasets, report.stored_problems) == (4, 1)
 
 
 def test_an_unknown_problem_id_is_named(catalog):

@@ -215,7 +215,8 @@ def _verify_problems(store: Store, events: list[Event], report: VerifyReport) ->
     for event in events:
         if event.kind == PROBLEM_EVENT:
             payload = event.payload
-            key = (str(payload.get("problem_id")), int(payload.get("problem_version", 0)))
+            version = payload.get("problem_version")
+            key = (str(payload.get("problem_id")), version if isinstance(version, int) else 0)
             logged[key] = str(payload.get("record_hash"))
             files = payload.get("files")
             sealed_files |= set(files.values()) if isinstance(files, dict) else set()
