@@ -23,7 +23,15 @@ from curate.errors import (
 )
 from curate.fit import FitOptions, FitResult, ModelBackend, PythonFunction
 from curate.ingest import Draft
-from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeItem, IntakeReport, VerifyReport
+from curate.ledger import (
+    AddPlan,
+    AddResult,
+    HistoryEntry,
+    IntakeItem,
+    IntakeReport,
+    StoredProblem,
+    VerifyReport,
+)
 from curate.records import (
     EXCLUSION_GRADE,
     GRADES,
@@ -58,6 +66,7 @@ __all__ = [
     "PythonFunction",
     "Selection",
     "SeriesArrays",
+    "StoredProblem",
     "UnitError",
     "VerifyReport",
     "__version__",

@@ -464,3 +464,81 @@ def test_a_report_into_a_missing_folder_is_refused_not_created(seeded, tmp_path)
     assert not (tmp_path / "nowhere").exists()
     run = seeded("report", tmp_path)  # a folder where a file is meant
     assert run.code == 2 and run.err.count("\n") == 1
+
+
+def _boehm_copy(folder: Path) -> Path:
+    import shutil
+
+    from conftest import DATA
+
+    shutil.copytree(DATA / "petab" / "Boehm_JProteomeRes2014", folder)
+    return folder / "Boehm_JProteomeRes2014.yaml"
+
+
+def _replace(path: Path, old: str, new: str) -> None:
+    text = path.read_text()
+    assert old in text
+    path.write_text(text.replace(old, new, 1))
+
+
+MODEL = "model_Boehm_JProteomeRes2014.xml"
+PARAMETERS = "parameters_Boehm_JProteomeRes2014.tsv"
+BAD_PROBLEMS = [
+    # (name, how the copy is spoilt, expected fragment of the one error line)
+    (
+        "SBML file missing",
+        lambda f: (f / MODEL).unlink(),
+        f"field 'sbml_files': file '{MODEL}' does not exist beside the problem; put it there",
+    ),
+    (
+        "SBML file not XML",
+        lambda f: (f / MODEL).write_text("<sbml><model id='m'>\n"),
+        f"{MODEL}: not a readable SBML file (no element found: line 2, column 0)",
+    ),
+    (
+        "SBML file of another XML kind",
+        lambda f: (f / MODEL).write_text("<html><body/></html>"),
+        f"{MODEL}: not an SBML file (its root element is <html>, expected <sbml>)",
+    ),
+    (
+        "SBML without a model",
+        lambda f: (f / MODEL).write_text('<sbml xmlns="http://www.sbml.org/sbml/level3"/>'),
+        f"{MODEL}: the SBML file has no <model> element",
+    ),
+    (
+        "parameter table without parameterId",
+        lambda f: _replace(f / PARAMETERS, "parameterId", "parameterID"),
+        f"{PARAMETERS}: required column 'parameterId' is missing",
+    ),
+    (
+        "visualization table not UTF-8",
+        lambda f: (f / "visualizationSpecification_Boehm_JProteomeRes2014.tsv").write_bytes(
+            b"plotId\tplotName\np1\t\xff\n"
+        ),
+        "visualizationSpecification_Boehm_JProteomeRes2014.tsv: byte 19 is not UTF-8 text",
+    ),
+    (
+        "problems not a list of entries",
+        lambda f: (f / "Boehm_JProteomeRes2014.yaml").write_text(
+            "format_version: 1\nparameter_file: x.tsv\nproblems: [1]\n"
+        ),
+        "field 'problems': expected a list of problem entries",
+    ),
+    (
+        "file list not a list of names",
+        lambda f: _replace(
+            f / "Boehm_JProteomeRes2014.yaml", f"sbml_files:\n  - {MODEL}", "sbml_files: 3"
+        ),
+        "field 'sbml_files': expected a list of file names",
+    ),
+]
+
+
+@pytest.mark.parametrize(
+    ("name", "spoil", "expected"), BAD_PROBLEMS, ids=[c[0] for c in BAD_PROBLEMS]
+)
+def test_a_bad_petab_problem_stores_nothing(seeded, tmp_path, name, spoil, expected):
+    problem = _boehm_copy(tmp_path / "problem")
+    spoil(problem.parent)
+    line = refused(seeded, ["import-petab", problem], expected)
+    assert not CLASS_NAME.search(line), line

@@ -193,6 +193,7 @@ def test_public_api_is_exactly_this():
         "PythonFunction",
         "Selection",
         "SeriesArrays",
+        "StoredProblem",
         "UnitError",
         "VerifyReport",
         "__version__",
@@ -278,6 +279,7 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
             "import-petab",
             DATA / "petab" / "Fujita_SciSignal2010" / "Fujita_SciSignal2010.yaml",
         ],
+        "models": ["models"],
     }
     assert sorted(runs) == json_commands(), "every command with --json needs a run here"
     for name, args in runs.items():
@@ -426,3 +428,38 @@ def test_verify_counts_in_words_a_person_would_write():
     report.policies = 1
     first = verify_text(report).plain.splitlines()[0]
     assert first.startswith("intact: 1 dataset, 1 version, 1 series, 2 events, 1 policy recomputed")
+
+
+def test_models_lists_stored_problems_in_the_documented_shape(cli):
+    import hashlib
+
+    run = cli("models", "--json")
+    assert run.code == 2 and "does not exist" in run.err  # no catalog yet: not created
+    folder = DATA / "petab" / "Fujita_SciSignal2010"
+    imported = cli("import-petab", folder / "Fujita_SciSignal2010.yaml")
+    assert imported.code == 0, imported.err
+    assert imported.out.startswith(
+        "problem Fujita_SciSignal2010.yaml: stored as fujita_scisignal2010_01 version 1"
+    )
+    again = cli("import-petab", folder / "Fujita_SciSignal2010.yaml")
+    assert "already stored as fujita_scisignal2010_01 version 1" in again.out
+    (item,) = json.loads(cli("models", "--json").out)
+    assert list(item) == [
+        "id", "source", "sbml_sha256", "parameters", "observables", "conditions", "datasets"
+    ]  # fmt: skip
+    model = (folder / "model_Fujita_SciSignal2010.xml").read_bytes()
+    assert item["id"] == "fujita_scisignal2010_01"
+    assert item["source"] == "Fujita_SciSignal2010.yaml"
+    assert item["sbml_sha256"] == hashlib.sha256(model).hexdigest()
+    assert item["observables"] == ["pAkt_tot", "pEGFR_tot", "pS6_tot"]  # the table's order
+    assert len(item["parameters"]) == 19 and len(item["conditions"]) == 16
+    listed = json.loads(cli("list", "--json").out)
+    assert item["datasets"] == sorted(d["id"] for d in listed) and len(listed) == 18
+    text = cli("models").out
+    assert "fujita_scisignal2010_01" in text and hashlib.sha256(model).hexdigest()[:12] in text
+
+
+def test_models_of_a_catalog_without_problems(cli, tmp_path):
+    assert cli("add", write(tmp_path / "a.csv", LONG_CSV), *ADD).code == 0
+    assert cli("models", "--json").out.strip() == "[]"
+    assert "no stored problems" in cli("models").out

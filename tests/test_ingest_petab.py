@@ -109,6 +109,37 @@ def test_import_cli(cli):
 
     payload = json.loads(run.out)
     assert len(payload) == 3 and all(p["added"] for p in payload)
+    assert {json.dumps(p["problem"]) for p in payload} == {
+        json.dumps({"id": "boehm_jproteomeres2014_01", "version": 1, "stored": True})
+    }
+
+
+@pytest.mark.parametrize("name", sorted(PROBLEMS))
+def test_the_problem_is_read_whole_and_byte_for_byte(name):
+    import hashlib
+
+    from curate.ingest import read_petab_import
+
+    folder = DATA / "petab" / name
+    imported = read_petab_import(
+        folder / f"{name}.yaml", lab=None, time_unit="s", unit="1", actor="tester"
+    )
+    problem = imported.problem
+    # every file in the folder is named by the YAML (test_data/ is a folder of other problems)
+    on_disk = {p.name: p.read_bytes() for p in folder.iterdir() if p.is_file()}
+    assert problem.source == f"{name}.yaml" and problem.files == on_disk
+    assert problem.manifest() == {n: hashlib.sha256(b).hexdigest() for n, b in on_disk.items()}
+    assert problem.model_ids == (name,)  # <model id="..."> of the benchmark's SBML file
+    assert len(imported.drafts) == len(reference_table(name).groupby(GROUP, sort=False))
+
+
+def test_a_parameter_table_of_a_header_alone_is_a_table_of_no_parameters(catalog, tmp_path):
+    problem = curate_export(tmp_path)  # curate's own export: nothing to estimate
+    (result,) = catalog.import_petab(problem)
+    stored = catalog.problem(result.problem.id)
+    assert stored.parameter_df is not None and stored.ids("parameter") == []
+    assert stored.sbml_name is None and stored.sbml_sha256 is None
+    assert [m.to_dict()["sbml_sha256"] for m in catalog.models()] == [None]
 
 
 def test_bad_problem_file(cli, tmp_path):

@@ -61,7 +61,7 @@ def test_open_catalog_uses_environment(tmp_path, monkeypatch):
 def test_wal_mode_and_migrations(catalog):
     mode = catalog.store.db.execute("PRAGMA journal_mode").fetchone()[0]
     assert mode == "wal"
-    assert catalog.store.applied_migrations() == ["0001_initial", "0002_policies"]
+    assert catalog.store.applied_migrations() == ["0001_initial", "0002_policies", "0003_problems"]
     assert len(catalog.catalog_id) == 36
 
 
@@ -70,7 +70,11 @@ def test_reopening_keeps_catalog_id(tmp_path):
         ident = first.catalog_id
     with curate.open_catalog(tmp_path / "x.db") as second:
         assert second.catalog_id == ident
-        assert second.store.applied_migrations() == ["0001_initial", "0002_policies"]
+        assert second.store.applied_migrations() == [
+            "0001_initial",
+            "0002_policies",
+            "0003_problems",
+        ]
 
 
 def test_a_condition_filter_without_its_unit_is_refused_not_silently_empty(filled):

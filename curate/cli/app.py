@@ -23,7 +23,7 @@ from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions,
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
-from curate.ingest import build_draft, read_petab_problem
+from curate.ingest import build_draft, read_petab_import
 from curate.jsontext import to_json
 from curate.ledger import AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
@@ -269,17 +269,27 @@ def import_petab(
     unit: Annotated[str, typer.Option(help="unit of the measurements")] = "1",
     as_json: JsonFlag = False,
 ) -> None:
-    """Log a PEtab problem's measurement table, one dataset per observable and condition."""
+    """Store a PEtab problem (YAML, SBML and tables byte for byte) and log its measurements,
+    one dataset per observable and condition, each linked to the stored problem."""
     # read and validate the problem before the catalog is opened: a bad problem creates nothing
-    drafts = read_petab_problem(
+    imported = read_petab_import(
         problem, lab=lab, time_unit=time_unit, unit=unit, actor=state.actor or default_actor()
     )
     with _catalog(create=True) as catalog:
-        results = catalog.add_drafts(drafts)
+        results = catalog.add_petab(imported)
     if as_json:
         _emit_json([r.to_dict() for r in results])
         return
     out.print(text.petab_import_text(results))
+
+
+@app.command()
+def models(as_json: JsonFlag = False) -> None:
+    """List the stored PEtab problems: source, SBML sha256, parameter, observable and
+    condition ids, and the datasets imported from each."""
+    with _catalog() as catalog:
+        found = catalog.models()
+    _show([s.to_dict() for s in found], lambda: text.models_table(found), as_json)
 
 
 @app.command("list")

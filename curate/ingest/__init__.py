@@ -7,12 +7,14 @@ ledger to write.
 from __future__ import annotations
 
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
-from curate.ingest.petab import read_petab_problem
+from curate.ingest.petab import PetabImport, read_petab_import, read_petab_problem
 
 __all__ = [
     "Draft",
+    "PetabImport",
     "build_draft",
     "draft_from_arrays",
     "parse_condition",
+    "read_petab_import",
     "read_petab_problem",
 ]

@@ -7,6 +7,13 @@ rows, so that an export can give back each measurement, time and noise value exa
 Files are read as text first; real problems have CRLF line ends, missing final newlines and
 columns we do not interpret.
 
+The problem itself is read too, byte for byte (:class:`PetabFiles`): the YAML, every file it
+names (SBML models, condition, observable, parameter, measurement and visualization tables),
+each read once, so that what the tables were parsed from is exactly what the catalog stores.
+Storing them is the ledger's part (``curate.ledger.problems``); a file the YAML names that is
+missing, unreadable or not what its role needs refuses the whole problem here, before anything
+is written.
+
 A problem that curate exported carries its own facts back: where the annotation columns
 ``curateUnit``, ``curateRelative``, ``curateGrade`` and ``curateSd`` are present they give each
 dataset its unit, relative flag, grade and sd (before trust inflation), and ``units.json``
@@ -18,6 +25,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
@@ -25,9 +33,54 @@ import numpy as np
 
 from curate.errors import InputError
 from curate.ingest.files import Draft, draft_from_arrays
-from curate.ingest.tables import Table, read_table
+from curate.ingest.tables import MAX_FILE_BYTES, Table, table_from_bytes
 
-__all__ = ["read_petab_problem"]
+__all__ = [
+    "FILE_ROLES",
+    "PetabFiles",
+    "PetabImport",
+    "petab_file_names",
+    "read_petab_import",
+    "read_petab_problem",
+    "sbml_model_id",
+]
+
+# the YAML fields that name a problem's files, by the role the file plays (PEtab v1 schema)
+FILE_ROLES = {
+    "sbml": "sbml_files",
+    "condition": "condition_files",
+    "observable": "observable_files",
+    "parameter": "parameter_file",
+    "measurement": "measurement_files",
+    "visualization": "visualization_files",
+}
+
+
+@dataclass(frozen=True)
+class PetabFiles:
+    """A PEtab problem's files as read, byte for byte: what the catalog stores of it.
+
+    ``files`` maps each name as the YAML gives it (the YAML itself under its own file name,
+    ``source``) to the file's bytes; ``model_ids`` are the ids of the SBML ``<model>``
+    elements, in the YAML's order.
+    """
+
+    source: str
+    files: dict[str, bytes]
+    model_ids: tuple[str, ...]
+
+    def manifest(self) -> dict[str, str]:
+        """Give {file name: sha256 of its bytes}."""
+        return {name: hashlib.sha256(raw).hexdigest() for name, raw in self.files.items()}
+
+
+@dataclass(frozen=True)
+class PetabImport:
+    """A PEtab problem read whole: its files and one draft per measurement group."""
+
+    problem: PetabFiles
+    drafts: list[Draft]
+
 
 _GROUP_COLUMNS = (
     "observableId",
@@ -63,13 +116,14 @@ def _condition_units(base: Path) -> dict[str, str]:
     return found
 
 
-def _load_yaml(path: Path) -> dict[str, Any]:
+def _load_yaml(path: Path) -> tuple[bytes, dict[str, Any]]:
     import yaml
 
     if not path.is_file():
         raise InputError(f"{path}: no such PEtab problem file")
+    raw = _read_bytes(path)
     try:
-        content = yaml.safe_load(path.read_text(encoding="utf-8"))
+        content = yaml.safe_load(raw.decode("utf-8"))
     except UnicodeDecodeError:
         raise InputError(f"{path}: not a readable YAML file (not UTF-8 text)") from None
     except yaml.YAMLError as err:
@@ -82,7 +136,67 @@ def _load_yaml(path: Path) -> dict[str, Any]:
     version = str(content.get("format_version", ""))
     if not version.startswith("1"):
         raise InputError(f"{path}, field 'format_version': '{version}'; this reader takes PEtab 1")
-    return content
+    return raw, content
+
+
+def _read_bytes(path: Path) -> bytes:
+    if not path.is_file():
+        raise InputError(f"{path}: no such file")
+    size = path.stat().st_size
+    if size > MAX_FILE_BYTES:
+        raise InputError(
+            f"{path}: the file has {size} bytes, more than the limit of {MAX_FILE_BYTES} bytes "
+            "for one file"
+        )
+    return path.read_bytes()
+
+
+def _names(value: Any, field: str, origin: str) -> list[str]:
+    """Give the file names a YAML field lists (a name or a list of names)."""
+    if value is None:
+        return []
+    listed = [value] if isinstance(value, str) else value
+    if not isinstance(listed, list) or not all(isinstance(n, str) and n.strip() for n in listed):
+        raise InputError(f"{origin}, field '{field}': expected a list of file names")
+    return list(listed)
+
+
+def petab_file_names(content: dict[str, Any], origin: str = "the problem") -> dict[str, list[str]]:
+    """Give {role: file names} of a loaded PEtab v1 YAML (roles as in :data:`FILE_ROLES`).
+
+    Names keep the YAML's spelling and order; a name listed twice counts once.
+    """
+    parts = content.get("problems")
+    if not isinstance(parts, list) or not all(isinstance(p, dict) for p in parts):
+        raise InputError(f"{origin}, field 'problems': expected a list of problem entries")
+    found: dict[str, list[str]] = {role: [] for role in FILE_ROLES}
+    listed = [("parameter", content.get("parameter_file"), "parameter_file")]
+    for part in parts:
+        listed += [(role, part.get(field), field) for role, field in FILE_ROLES.items()]
+    for role, value, field in listed:
+        for name in _names(value, field, origin):
+            if name not in found[role]:
+                found[role].append(name)
+    return found
+
+
+def sbml_model_id(path: str | Path, raw: bytes) -> str:
+    """Give the id of an SBML file's <model> element; refuse a file that is not SBML."""
+    import xml.etree.ElementTree as ElementTree
+
+    try:  # expat >= 2.4 (Python's own) bounds entity expansion; external entities are not read
+        root = ElementTree.fromstring(raw)
+    except ElementTree.ParseError as err:
+        raise InputError(f"{path}: not a readable SBML file ({err}); expected SBML XML") from None
+    if root.tag.rsplit("}", 1)[-1] != "sbml":
+        raise InputError(
+            f"{path}: not an SBML file (its root element is <{root.tag.rsplit('}', 1)[-1]}>, "
+            "expected <sbml>)"
+        )
+    model = next((c for c in root if c.tag.rsplit("}", 1)[-1] == "model"), None)
+    if model is None:
+        raise InputError(f"{path}: the SBML file has no <model> element")
+    return str(model.get("id", ""))
 
 
 def _table_rows(table: Table, key: str) -> dict[str, dict[str, str]]:
@@ -111,42 +225,71 @@ def read_petab_problem(
     actor: str,
 ) -> list[Draft]:
     """Give one draft per measurement group of a PEtab problem."""
+    return read_petab_import(problem, lab=lab, time_unit=time_unit, unit=unit, actor=actor).drafts
+
+
+def read_petab_import(
+    problem: str | Path,
+    *,
+    lab: str | None,
+    time_unit: str,
+    unit: str,
+    actor: str,
+) -> PetabImport:
+    """Give a PEtab problem's files (byte for byte) and one draft per measurement group."""
     problem = Path(problem)
-    content = _load_yaml(problem)
+    yaml_bytes, content = _load_yaml(problem)
     base = problem.parent
     lab = lab or problem.stem
     condition_units = _condition_units(base)
-    drafts: list[Draft] = []
-    for part in content["problems"]:
-        observables: dict[str, dict[str, str]] = {}
-        for name in part.get("observable_files", []):
-            observables.update(
-                _table_rows(read_table(_inside(base, name, problem)), "observableId")
-            )
-        conditions: dict[str, dict[str, str]] = {}
-        for name in part.get("condition_files", []):
-            conditions.update(_table_rows(read_table(_inside(base, name, problem)), "conditionId"))
-        for name in part.get("measurement_files", []):
+    names = petab_file_names(content, str(problem))
+    files = {problem.name: yaml_bytes}
+    tables: dict[str, Table] = {}
+    model_ids = []
+    for role, listed in names.items():
+        for name in listed:
             path = _inside(base, name, problem)
-            table = read_table(path)
-            drafts += _drafts_from_measurements(
-                table,
-                observables,
-                conditions,
-                lab=lab,
-                time_unit=time_unit,
-                unit=unit,
-                actor=actor,
-                problem=problem.name,
-                sha256=hashlib.sha256(path.read_bytes()).hexdigest(),
-                condition_units=condition_units,
-            )
+            if not path.is_file():
+                raise InputError(
+                    f"{problem}, field '{FILE_ROLES[role]}': file '{name}' does not exist "
+                    "beside the problem; put it there or correct the name"
+                )
+            raw = files.get(name)
+            if raw is None:
+                raw = files[name] = _read_bytes(path)
+            if role == "sbml":
+                model_ids.append(sbml_model_id(path, raw))
+            else:  # a table that estimates or plots nothing may be a header alone
+                tables[name] = table_from_bytes(path, raw, require_rows=role == "measurement")
+    observables: dict[str, dict[str, str]] = {}
+    for name in names["observable"]:
+        observables.update(_table_rows(tables[name], "observableId"))
+    conditions: dict[str, dict[str, str]] = {}
+    for name in names["condition"]:
+        conditions.update(_table_rows(tables[name], "conditionId"))
+    for name in names["parameter"]:
+        if "parameterId" not in tables[name].columns:
+            raise InputError(f"{tables[name].path}: required column 'parameterId' is missing")
+    drafts: list[Draft] = []
+    for name in names["measurement"]:
+        drafts += _drafts_from_measurements(
+            tables[name],
+            observables,
+            conditions,
+            lab=lab,
+            time_unit=time_unit,
+            unit=unit,
+            actor=actor,
+            problem=problem.name,
+            sha256=hashlib.sha256(files[name]).hexdigest(),
+            condition_units=condition_units,
+        )
     if not drafts:
         raise InputError(f"{problem}: the problem lists no measurements")
     ids = [d.requested_id for d in drafts]
     if len(set(ids)) != len(ids):  # a datasetId spanning groups: let the catalog number them
         drafts = [dataclasses.replace(d, requested_id=None) for d in drafts]
-    return drafts
+    return PetabImport(PetabFiles(problem.name, files, tuple(model_ids)), drafts)
 
 
 def _drafts_from_measurements(

@@ -22,6 +22,7 @@ __all__ = [
     "MAX_FILE_BYTES",
     "Table",
     "read_table",
+    "table_from_bytes",
 ]
 
 DATA_SUFFIXES = {".csv": ",", ".tsv": "\t", ".tab": "\t", ".xlsx": None}
@@ -100,8 +101,24 @@ def read_table(
 ) -> Table:
     """Give the header and text cells of a CSV, TSV or XLSX file."""
     path = Path(path)
-    suffix = _check_file(path, max_bytes)
-    raw = path.read_bytes()
+    _check_file(path, max_bytes)
+    return table_from_bytes(path, path.read_bytes(), sheet=sheet)
+
+
+def table_from_bytes(
+    path: Path, raw: bytes, *, sheet: str | None = None, require_rows: bool = True
+) -> Table:
+    """Give the header and text cells of a file's bytes already read (``path`` names it).
+
+    With ``require_rows=False`` a header without data rows is a table of no rows (a PEtab
+    parameter table of a problem that estimates nothing).
+    """
+    suffix = path.suffix.lower()
+    if suffix not in DATA_SUFFIXES:
+        raise InputError(
+            f"{path}: unsupported file type '{path.suffix}'; expected "
+            + ", ".join(sorted(DATA_SUFFIXES))
+        )
     if suffix == ".xlsx":
         if not raw.startswith(_ZIP_MAGIC):
             raise InputError(
@@ -116,7 +133,7 @@ def read_table(
             raise InputError(f"{path}: a sheet name applies to .xlsx files only")
         rows, lines = _text_rows(path, raw, DATA_SUFFIXES[suffix] or ",")
         row_word = "line"
-    return _to_table(path, rows, lines, row_word)
+    return _to_table(path, rows, lines, row_word, require_rows=require_rows)
 
 
 def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]], list[int]]:
@@ -195,7 +212,9 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str
     return rows, lines
 
 
-def _to_table(path: Path, rows: list[list[str]], lines: list[int], row_word: str) -> Table:
+def _to_table(
+    path: Path, rows: list[list[str]], lines: list[int], row_word: str, *, require_rows: bool
+) -> Table:
     if not rows:
         raise InputError(f"{path}: the file holds no rows; expected a header row and data rows")
     header = [cell.strip() for cell in rows[0]]
@@ -213,7 +232,7 @@ def _to_table(path: Path, rows: list[list[str]], lines: list[int], row_word: str
             raise InputError(f"{path}, {row_word} {lines[0]}: column '{name}' appears twice")
         seen.add(name.lower())
     body = rows[1:]
-    if not body:
+    if not body and require_rows:
         raise InputError(f"{path}: the file has a header but no data rows")
     width = len(header)
     for row, line in zip(body, lines[1:], strict=True):

@@ -1,4 +1,5 @@
-"""The ledger: versioned, hash-chained datasets (store, provenance, verify, backup, intake).
+"""The ledger: versioned, hash-chained datasets and stored PEtab problems (store, provenance,
+verify, backup, intake, problems).
 
 The bottom room of the catalog. It imports nothing above it: noise, weights, exports and fits
 are built on :class:`Ledger` and never the other way round.
@@ -16,6 +17,7 @@ from curate.ledger.catalog import (
     default_actor,
 )
 from curate.ledger.intake import IntakeItem, IntakeReport, intake_folder
+from curate.ledger.problems import ProblemOutcome, ProblemSummary, StoredProblem
 from curate.ledger.verify import VerifyReport
 
 __all__ = [
@@ -26,6 +28,9 @@ __all__ = [
     "IntakeItem",
     "IntakeReport",
     "Ledger",
+    "ProblemOutcome",
+    "ProblemSummary",
+    "StoredProblem",
     "VerifyReport",
     "backup_catalog",
     "default_actor",

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import bisect
 import builtins
+import dataclasses
 import datetime as dt
 import getpass
 import os
@@ -27,8 +28,17 @@ import pandas as pd
 from curate import units
 from curate.errors import InputError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
-from curate.ingest.petab import read_petab_problem
+from curate.ingest.petab import PetabImport, read_petab_import
 from curate.ingest.plausibility import Neighbour, check_against_others, typical_magnitude
+from curate.ledger.problems import (
+    ProblemOutcome,
+    ProblemSummary,
+    StoredProblem,
+    read_problem,
+    read_problems,
+    store_problem,
+    summarise_problems,
+)
 from curate.ledger.provenance import ChainHead, head_problem, text_sha256
 from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
@@ -103,6 +113,8 @@ class AddResult:
     duplicate_of: str | None
     origin: str
     warnings: tuple[str, ...]
+    # a PEtab import: the stored problem it stored or recognised (None for other logs)
+    problem: ProblemOutcome | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Give the result as plain data."""
@@ -113,6 +125,7 @@ class AddResult:
             "duplicate_of": self.duplicate_of,
             "origin": self.origin,
             "warnings": list(self.warnings),
+            "problem": None if self.problem is None else self.problem.to_dict(),
         }
 
 
@@ -599,11 +612,49 @@ class Ledger:
     def import_petab(
         self, problem: str | Path, *, lab: str | None = None, time_unit: str = "s", unit: str = "1"
     ) -> builtins.list[AddResult]:
-        """Log a PEtab problem's measurements, one dataset per observable/condition/datasetId."""
-        drafts = read_petab_problem(
+        """Store a PEtab problem (its files byte for byte) and log its measurements, one
+        dataset per observable/condition/datasetId, each linked to the stored problem."""
+        imported = read_petab_import(
             problem, lab=lab, time_unit=time_unit, unit=unit, actor=self.actor
         )
-        return self.add_drafts(drafts)
+        return self.add_petab(imported)
+
+    def add_petab(self, imported: PetabImport) -> builtins.list[AddResult]:
+        """Store a PEtab problem already read and log its drafts: one transaction.
+
+        A problem whose content is stored already is recognised (nothing written for it);
+        new datasets carry ``annotations['petab_problem'] = {'id', 'version'}``.
+        """
+        with self._store.transaction():
+            outcome = store_problem(self._store, imported.problem, actor=self.actor)
+            link = {"id": outcome.id, "version": outcome.version}
+            context = _ActionContext(self._store)
+            results = []
+            for draft in imported.drafts:
+                record = draft.record
+                linked = dataclasses.replace(
+                    draft,
+                    record=record.model_copy(
+                        update={"annotations": {**record.annotations, "petab_problem": link}}
+                    ),
+                )
+                result = self.apply(self.plan_add(linked, context), context)
+                results.append(dataclasses.replace(result, problem=outcome))
+        return results
+
+    # -- stored problems -------------------------------------------------------------------
+
+    def problems(self) -> builtins.list[StoredProblem]:
+        """Give the newest version of every stored PEtab problem, ordered by id."""
+        return read_problems(self._store)
+
+    def problem(self, problem_id: str, version: int | None = None) -> StoredProblem:
+        """Give one stored PEtab problem (the newest version unless ``version`` is named)."""
+        return read_problem(self._store, problem_id, version)
+
+    def models(self) -> builtins.list[ProblemSummary]:
+        """Give what ``curate models`` lists: each stored problem with its ids and datasets."""
+        return summarise_problems(self._store)
 
     # -- new versions ----------------------------------------------------------------------
 

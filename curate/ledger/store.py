@@ -10,6 +10,10 @@ Layout (one SQLite file any tool can open):
 - ``versions``   one row per dataset version: the record JSON, its hash, and copies of the
                  fields people filter by (observable, lab, grade, retired)
 - ``events``     the append-only, hash-chained log of every change
+- ``policies``   each weighting policy a run used, under its settings hash, with its exact text
+- ``problems``   one row per stored PEtab problem version: its manifest (file name -> sha256),
+                 the manifest's hash (the content address) and its record hash
+- ``problem_files`` the files of stored problems byte for byte, one row per distinct sha256
 
 Writes go through :meth:`Store.transaction` (``BEGIN IMMEDIATE``, one per user action), so
 concurrent writers queue on SQLite's lock instead of failing, and a killed process leaves
@@ -38,7 +42,7 @@ from curate.errors import CatalogError
 from curate.ledger.provenance import GENESIS, Event, event_hash
 from curate.records import SeriesArrays, array_bytes, canonical_json
 
-__all__ = ["PolicyRow", "Store", "VersionRow", "read_chain"]
+__all__ = ["PolicyRow", "ProblemRow", "Store", "VersionRow", "read_chain"]
 
 _BUSY_TIMEOUT_S = 120.0
 
@@ -66,6 +70,19 @@ class PolicyRow:
     sha256: str
     name: str
     text: str
+
+
+@dataclass(frozen=True)
+class ProblemRow:
+    """A row of the problems table (one stored PEtab problem version)."""
+
+    problem_id: str
+    version: int
+    created_at: str
+    source: str
+    content_sha256: str
+    manifest_json: str
+    record_hash: str
 
 
 def _initial_schema(db: sqlite_utils.Database) -> None:
@@ -140,10 +157,33 @@ def _policies(db: sqlite_utils.Database) -> None:
     )
 
 
+def _problems(db: sqlite_utils.Database) -> None:
+    db.table("problems").create(
+        {
+            "problem_id": str,
+            "version": int,
+            "created_at": str,
+            "source": str,
+            "content_sha256": str,
+            "manifest_json": str,
+            "record_hash": str,
+        },
+        pk=("problem_id", "version"),
+        not_null={"created_at", "source", "content_sha256", "manifest_json", "record_hash"},
+    )
+    db.table("problems").create_index(["content_sha256"])
+    db.table("problem_files").create(
+        {"sha256": str, "n_bytes": int, "content": bytes},
+        pk="sha256",
+        not_null={"n_bytes", "content"},
+    )
+
+
 # Named, ordered schema steps. Append only: a released step is never edited.
 MIGRATIONS: list[tuple[str, Callable[[sqlite_utils.Database], None]]] = [
     ("0001_initial", _initial_schema),
     ("0002_policies", _policies),
+    ("0003_problems", _problems),
 ]
 
 
@@ -423,6 +463,70 @@ class Store:
         """Give every stored policy, ordered by hash."""
         rows = self.db.execute("SELECT sha256, name, text FROM policies ORDER BY sha256")
         return [PolicyRow(str(r[0]), str(r[1]), str(r[2])) for r in rows]
+
+    # -- stored PEtab problems ----------------------------------------------------------------
+
+    _PROBLEM_COLUMNS = (
+        "problem_id, version, created_at, source, content_sha256, manifest_json, record_hash"
+    )
+
+    def put_problem_file(self, sha256: str, content: bytes) -> None:
+        """Store one problem file's bytes under their sha256 (a no-op if already there)."""
+        self.db.execute(
+            "INSERT OR IGNORE INTO problem_files(sha256, n_bytes, content) VALUES (?,?,?)",
+            [sha256, len(content), content],
+        )
+
+    def put_problem(self, row: ProblemRow) -> None:
+        """Insert one new problem version row (never replaces one)."""
+        self.db.execute(
+            f"INSERT INTO problems({self._PROBLEM_COLUMNS}) VALUES (?,?,?,?,?,?,?)",
+            [
+                row.problem_id,
+                row.version,
+                row.created_at,
+                row.source,
+                row.content_sha256,
+                row.manifest_json,
+                row.record_hash,
+            ],
+        )
+
+    def problem_rows(self, problem_id: str | None = None) -> list[ProblemRow]:
+        """Give the problem version rows, all or one problem's, ordered by id and version."""
+        where, args = ("WHERE problem_id = ?", [problem_id]) if problem_id is not None else ("", [])
+        rows = self.db.execute(
+            f"SELECT {self._PROBLEM_COLUMNS} FROM problems {where} ORDER BY problem_id, version",
+            args,
+        ).fetchall()
+        return [ProblemRow(r[0], int(r[1]), r[2], r[3], r[4], r[5], r[6]) for r in rows]
+
+    def problems_with_content(self, content_sha256: str) -> list[ProblemRow]:
+        """Give the problem versions whose manifest has this hash, oldest first."""
+        rows = self.db.execute(
+            f"SELECT {self._PROBLEM_COLUMNS} FROM problems WHERE content_sha256 = ?"
+            " ORDER BY created_at, problem_id, version",
+            [content_sha256],
+        ).fetchall()
+        return [ProblemRow(r[0], int(r[1]), r[2], r[3], r[4], r[5], r[6]) for r in rows]
+
+    def problem_files(self, sha256s: list[str]) -> dict[str, bytes]:
+        """Give the stored bytes of these sha256s (those missing are left out)."""
+        found: dict[str, bytes] = {}
+        wanted = list(dict.fromkeys(sha256s))
+        for start in range(0, len(wanted), 500):
+            chunk = wanted[start : start + 500]
+            marks = ",".join("?" * len(chunk))
+            for row in self.db.execute(
+                f"SELECT sha256, content FROM problem_files WHERE sha256 IN ({marks})", chunk
+            ):
+                found[str(row[0])] = bytes(row[1])
+        return found
+
+    def iter_problem_files(self) -> Iterator[tuple[str, bytes]]:
+        """Give every stored (sha256 key, bytes) of problem files."""
+        for row in self.db.execute("SELECT sha256, content FROM problem_files"):
+            yield str(row[0]), bytes(row[1])
 
     def backup_to(self, destination: Path) -> None:
         """Copy the whole catalog into a new SQLite file with SQLite's online backup.

@@ -14,13 +14,23 @@ that hash of each stored text and names the policy whose text no longer matches,
 naming a policy the catalog no longer holds, and a stored policy no event names. Events
 written before the text was sealed name only ``policy_sha256``; a policy named only by such
 events is counted in ``unsealed_policies`` (its presence is still checked, its text cannot be).
+
+Stored PEtab problems (:mod:`curate.ledger.problems`): each version's record hash is
+recomputed from its id, number, source and manifest and compared with the ``problem`` event
+that wrote it; each file the manifest names must be stored, and its bytes must still have the
+sha256 they are stored under. So an edited byte of a stored SBML file or table, an edited
+manifest, a deleted problem row or file, and a problem row no event wrote are each named.
 """
 
 from __future__ import annotations
 
+import hashlib
+import json
 from dataclasses import dataclass, field
 from typing import Any
 
+from curate.ledger.problems import EVENT_KIND as PROBLEM_EVENT
+from curate.ledger.problems import problem_content_hash, problem_record_hash
 from curate.ledger.provenance import (
     GENESIS,
     ChainHead,
@@ -44,6 +54,8 @@ class VerifyReport:
     events: int = 0
     series: int = 0
     policies: int = 0
+    stored_problems: int = 0  # PEtab problem versions
+    problem_files: int = 0
     sqlite: str = "ok"
     problems: list[str] = field(default_factory=list)
     head_seq: int = 0
@@ -67,6 +79,8 @@ class VerifyReport:
             "sqlite": self.sqlite,
             "problems": self.problems,
             "policies": self.policies,
+            "stored_problems": self.stored_problems,
+            "problem_files": self.problem_files,
             "unsealed_policies": self.unsealed_policies,
             "head": {"seq": self.head_seq, "hash": self.head_hash},
             "anchor": None if self.anchor is None else self.anchor.to_dict(),
@@ -151,6 +165,7 @@ def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
                 "but missing from the file (deleted?)"
             )
     _verify_policies(store, events, report)
+    _verify_problems(store, events, report)
     if head is not None:
         cut = head_problem(events, head)
         if cut is not None:
@@ -190,3 +205,67 @@ def _verify_policies(store: Store, events: list[Event], report: VerifyReport) ->
                 f"{name}: its stored text no longer matches the hash sealed in event "
                 f"{broken.seq} (edited in the file)"
             )
+
+
+def _verify_problems(store: Store, events: list[Event], report: VerifyReport) -> None:
+    rows = store.problem_rows()
+    report.stored_problems = len(rows)
+    logged: dict[tuple[str, int], str] = {}
+    sealed_files: set[str] = set()  # every file a problem event names
+    for event in events:
+        if event.kind == PROBLEM_EVENT:
+            payload = event.payload
+            version = payload.get("problem_version")
+            key = (str(payload.get("problem_id")), version if isinstance(version, int) else 0)
+            logged[key] = str(payload.get("record_hash"))
+            files = payload.get("files")
+            sealed_files |= set(files.values()) if isinstance(files, dict) else set()
+    named: set[str] = set()
+    intact: dict[str, bool] = {}
+    for sha, content in store.iter_problem_files():
+        intact[sha] = hashlib.sha256(content).hexdigest() == sha
+    report.problem_files = len(intact)
+    for row in rows:
+        name = f"problem {row.problem_id} version {row.version}"
+        logged_hash = logged.pop((row.problem_id, row.version), None)
+        try:
+            manifest = json.loads(row.manifest_json)
+            ok = isinstance(manifest, dict) and all(isinstance(v, str) for v in manifest.values())
+        except json.JSONDecodeError:
+            ok = False
+        if (
+            not ok
+            or problem_record_hash(row.problem_id, row.version, row.source, row.manifest_json)
+            != row.record_hash
+            or problem_content_hash(manifest) != row.content_sha256
+        ):
+            report.problems.append(
+                f"{name}: its id, source or manifest no longer match its record hash "
+                "(edited in the file)"
+            )
+            continue
+        if logged_hash != row.record_hash:
+            report.problems.append(f"{name}: no event in the log records this version as written")
+        for file_name, sha in manifest.items():
+            named.add(sha)
+            if sha not in intact:
+                report.problems.append(
+                    f"{name}: file '{file_name}' ({sha[:12]}) is missing from the catalog "
+                    "(deleted?)"
+                )
+            elif not intact[sha]:
+                report.problems.append(
+                    f"{name}: file '{file_name}' no longer matches its sha256 {sha[:12]} "
+                    "(edited in the file)"
+                )
+    for problem_id, version in logged:
+        report.problems.append(
+            f"problem {problem_id} version {version}: logged as written but missing from the "
+            "file (deleted?)"
+        )
+    # a file of a deleted problem row is explained by that row's line above
+    for sha in sorted(set(intact) - named - sealed_files):
+        report.problems.append(
+            f"problem file {sha[:12]}: stored, but no stored problem names it "
+            "(inserted in the file, or its problem deleted?)"
+        )

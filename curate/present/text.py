@@ -13,6 +13,7 @@ from rich.table import Table
 from rich.text import Text
 
 from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
+from curate.ledger.problems import ProblemSummary
 from curate.present.tables import field_table
 from curate.present.tables import table as plain_table
 from curate.quality.actions import ConsistencyReport, NoiseOutcome
@@ -41,6 +42,29 @@ __all__ = [
     "verify_text",
     "written_text",
 ]
+
+
+def models_table(found: list[ProblemSummary]) -> Table | Text:
+    """Give the table printed by ``curate models``."""
+    if not found:
+        return Text("no stored problems; `curate import-petab PROBLEM.yaml` stores one")
+    table = plain_table(
+        ("id", "v", "source", "SBML sha256", "parameters", "observables", "conditions",
+         "datasets"),
+        right=("v", "parameters", "observables", "conditions", "datasets"),
+    )  # fmt: skip
+    for summary in found:
+        table.add_row(
+            summary.id,
+            str(summary.version),
+            summary.source,
+            summary.sbml_sha256[:12] if summary.sbml_sha256 else "-",
+            str(len(summary.parameters)),
+            str(len(summary.observables)),
+            str(len(summary.conditions)),
+            str(len(summary.datasets)),
+        )
+    return table
 
 
 def list_table(found: list[DatasetVersion]) -> Table | Text:
@@ -227,7 +251,7 @@ def verify_text(result: VerifyReport) -> Text:
         _count(n, word)
         for n, word in ((result.datasets, "dataset"), (result.versions, "version"),
                         (result.series, "series"), (result.events, "event"), (result.policies, "policy"))
-    )  # fmt: skip
+    ) + (f", {_count(result.stored_problems, 'PEtab problem')}" if result.stored_problems else "")  # fmt: skip
     if result.ok:
         lines = [f"intact: {counts} recomputed, every hash and link holds"]
     else:
@@ -439,7 +463,15 @@ def added_notes(result: AddResult) -> list[str]:
 def petab_import_text(results: list[AddResult]) -> Text:
     """Give what ``curate import-petab`` prints."""
     added = sum(r.added for r in results)
-    lines = [f"{added} dataset(s) logged, {len(results) - added} already present"]
+    lines = []
+    problem = results[0].problem if results else None
+    if problem is not None:
+        how = "stored as" if problem.stored else "already stored as"
+        lines.append(
+            f"problem {problem.source}: {how} {problem.id} version {problem.version} "
+            f"(`curate models` lists it)"
+        )
+    lines.append(f"{added} dataset(s) logged, {len(results) - added} already present")
     lines += [
         f"  {r.id}" + ("" if r.added else f"  (already present as {r.duplicate_of})")
         for r in results
