@@ -107,8 +107,10 @@ def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[st
     conditions = {}
     for key in sorted(found):
         only = next(iter(found[key])) if len(found[key]) == 1 else ""
+        text = not only and "" in found[key]
         conditions[key] = {
-            "column": key if petab else condition_column(key),
+            # in PEtab, text conditions travel in the measurement table's curateConditions
+            "column": ("curateConditions" if text else key) if petab else condition_column(key),
             "unit": short_unit(only) if only else None,
             "ucum": ucum_code(only) if only else None,
         }

@@ -22,6 +22,7 @@ PEtab keep their original formula, transformation and observable parameters.
 from __future__ import annotations
 
 import io
+import json
 import re
 from pathlib import Path
 from typing import Any
@@ -126,6 +127,11 @@ def petab_tables(
                 "curateGrade": "" if pd.isna(row.get("grade")) else str(row["grade"]),
                 "curateUnit": facts["unit"],
                 "curateRelative": "true" if facts["relative"] else "false",
+                # text and true/false conditions: a PEtab condition table holds numbers only
+                "curateConditions": json.dumps(
+                    {k: v for k, v in facts["conditions"].items() if isinstance(v, bool | str)},
+                    sort_keys=True, ensure_ascii=False,
+                ),
             })  # fmt: skip
     measurements = pd.DataFrame(rows)
     numeric_keys = sorted({k for facts in datasets.values() for k, v in facts["conditions"].items()

@@ -370,6 +370,17 @@ def _drafts_from_measurements(
                     + f"'{own['curateRelative']}'; expected true or false"
                 )
             relative = own["curateRelative"] == "true"
+        if own.get("curateConditions"):
+            try:
+                carried = json.loads(own["curateConditions"])
+            except json.JSONDecodeError:
+                raise InputError(
+                    table.locate(rows[0], "curateConditions") + "not JSON; expected an object"
+                ) from None
+            if not isinstance(carried, dict):
+                raise InputError(table.locate(rows[0], "curateConditions") + "expected an object")
+            for key, value in carried.items():
+                condition_values[key] = value if isinstance(value, bool) else {"text": str(value)}
         metadata: dict[str, Any] = {
             "observable": {
                 "id": observable_id,
@@ -426,7 +437,7 @@ def _drafts_from_measurements(
 
 
 # curate's annotation columns that hold one value per dataset
-_OWN_COLUMNS = ("curateUnit", "curateRelative", "curateGrade", "curateVersion")
+_OWN_COLUMNS = ("curateUnit", "curateRelative", "curateGrade", "curateVersion", "curateConditions")
 
 
 def _constant(table: Table, rows: list[int], column: str) -> str:
