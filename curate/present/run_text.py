@@ -333,7 +333,8 @@ def sensitivity_text(result: SensitivityResult) -> Group:
     """Give what ``curate sensitivity`` prints."""
     full = result.full if isinstance(result.full, dict) else result.full.to_dict()
     names = list(full["parameters"])
-    parts: list[Any] = [Text(f"leave one {result.by} out ({result.method}, {result.executor}); "
+    how = result.executor if result.method == "external" else f"{result.method}, {result.executor}"
+    parts: list[Any] = [Text(f"leave one {result.by} out ({how}); "
                              f"flags beyond {result.shift_threshold:g} SE", style="bold")]  # fmt: skip
     shifted = [f"{name} (SE)" for name in names]
     numbers = ["points", *shifted, "Cook D", "held-out chi2/dof"]
@@ -341,7 +342,7 @@ def sensitivity_text(result: SensitivityResult) -> Group:
     for group in result.groups:
         if group.error:
             table.add_row(
-                group.group, str(group.n_points), *(["-"] * len(names)), "-", group.error[:40]
+                group.group, str(group.n_points), *(["-"] * len(names)), "-", "refit failed (below)"
             )
             continue
         shifts = []
@@ -368,6 +369,7 @@ def sensitivity_text(result: SensitivityResult) -> Group:
             heldout,
         )
     parts.append(table)
+    parts += [Text(f"  without {result.by} {g.group}: {g.error}") for g in result.groups if g.error]
     if full.get("workdir"):
         parts.append(Text(f"the fitter's files (tables, results, logs) are in {full['workdir']}"))
     se_table = plain_table(
