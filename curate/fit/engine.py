@@ -76,6 +76,8 @@ class FitResult:
     message: str
     options: dict[str, Any]
     evaluations: int = 0  # every model evaluation of the fit, the final Jacobian's included
+    nllh: float = float("nan")  # negative log-likelihood at the optimum (see FitProblem.nllh)
+    objective: str = "chi2"  # what was minimised: 'chi2' (fixed weights) or 'nllh' (noise model)
 
     @property
     def reduced_chi2(self) -> float:
@@ -94,6 +96,8 @@ class FitResult:
             "parameters": self.parameters,
             "scale_factors": self.scale_factors,
             "chi2": self.chi2,
+            "nllh": self.nllh,
+            "objective": self.objective,
             "dof": self.dof,
             "n_points": self.n_points,
             "converged": self.converged,
@@ -167,9 +171,12 @@ def least_squares(
     # MINPACK's count includes the Jacobian's finite differences; trf's count leaves out the
     # len(x0) extra evaluations each Jacobian costs, so its cap is the budget over (1 + n)
     cap = budget if budget is None or method == "lm" else max(1, budget // (len(x0) + 1))
+    # the noise residuals hold a constant n C (see curate.fit.likelihood): a relative tolerance
+    # on the cost must be that much finer to mean the same on the nllh
+    ftol = max(options.tolerance / 1000, 1e-15) if problem.noise_model else options.tolerance
     return optimize.least_squares(
         lambda theta: problem.residual(theta, rows), x0, bounds=(lower, upper), method=method,
-        x_scale="jac", ftol=options.tolerance, xtol=options.tolerance, gtol=options.tolerance,
+        x_scale="jac", ftol=ftol, xtol=options.tolerance, gtol=options.tolerance,
         max_nfev=cap,
     )  # fmt: skip
 
@@ -204,9 +211,10 @@ def covariance_from_jacobian(jacobian: np.ndarray) -> np.ndarray:
 def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, converged: bool, starts: list[dict[str, Any]],
               message: str, options: FitOptions, rows: np.ndarray | None = None) -> FitResult:  # fmt: skip
     """Give the FitResult at an optimum: values, standard errors, scale factors, chi2, dof."""
-    residual = problem.residual(theta, rows)
+    residual = problem.point_residual(theta, rows)
     chi2 = float(residual @ residual)
     n_points = len(residual)
+    nllh = problem.nllh(theta, rows)
     dof = n_points - len(theta) - problem.n_scale_factors(rows)
     internal = covariance_from_jacobian(jacobian)
     if options.scale_covariance and dof > 0:
@@ -241,7 +249,8 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
     return FitResult(
         parameters=parameters, scale_factors=scale_factors, chi2=chi2, dof=dof, n_points=n_points,
         converged=converged, starts=starts, covariance=covariance, internal_covariance=internal, theta=theta,
-        free=[p.name for p in problem.free], message=message,
+        free=[p.name for p in problem.free], message=message, nllh=nllh,
+        objective="nllh" if problem.noise_model else "chi2",
         options={"starts": options.starts, "seed": options.seed, "global_search": options.global_search,
                  "scale_covariance": options.scale_covariance, "tolerance": options.tolerance,
                  "max_evaluations": options.max_evaluations, "generations": options.generations},
@@ -316,9 +325,17 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
                 }
             )
             continue
+        except ArithmeticError:  # a log parameter ran off to infinity: exp() overflowed
+            starts.append({"start": problem.to_natural(x0), "chi2": None, "converged": False,
+                           "message": "the parameters ran off to infinity"})  # fmt: skip
+            continue
         chi2 = float(2 * solution.cost)
         record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
                   "message": str(solution.message), "from": "global search" if options.global_search and number == 0 else "start"}  # fmt: skip
+        if problem.noise_model:  # the cost also holds the noise terms: give both parts apart
+            fitted = np.asarray(solution.fun)[: len(problem.y)]
+            record["chi2"] = float(fitted @ fitted)
+            record["nllh"] = problem.nllh(np.asarray(solution.x))
         starts.append(record)
         if best is None or chi2 < 2 * best.cost:
             best = solution

@@ -6,6 +6,13 @@ Relative-unit rows get one scale factor per calibration group, solved in closed 
 residual, s* = sum(w y h) / sum(w h^2) (h the model prediction): the variable-projection idea of
 Golub & Pereyra (1973), so the optimiser sees only the shared parameters. The optimiser works on
 O(1) numbers: ln p for log parameters, p / |start| otherwise.
+
+A backend with its own noise model (``backend.noise_model``: a PEtab problem's noise formulas,
+perhaps with estimated noise parameters) is fitted by its negative log-likelihood instead
+(:mod:`curate.fit.likelihood`): the residual is then [r_1..r_n, q_1..q_n], the scaled residuals
+and the noise residuals, with sigma_eff = sigma_model * sqrt(inflation / balance) (trust acts on
+sigma; the weight column is not used). :meth:`FitProblem.residual_index` maps point rows to
+residual rows in either case.
 """
 
 from __future__ import annotations
@@ -19,7 +26,8 @@ import numpy as np
 import pandas as pd
 
 from curate.errors import InputError
-from curate.fit.backends import ModelBackend, PythonFunction
+from curate.fit import likelihood
+from curate.fit.backends import ModelBackend, PointEvaluation, PythonFunction
 from curate.fit.spec import ParameterSpec
 
 __all__ = ["FitProblem"]
@@ -61,10 +69,17 @@ class FitProblem:
             if "calibration_group" in self.points
             else self.points.get("dataset_id", pd.Series(["all"] * len(self.y)))
         )
+        if self.backend.noise_model:
+            relative = np.zeros(len(self.y), bool)  # PEtab writes its scalings into formulas
         labels = np.where(relative, key.astype(str).to_numpy(), "")
         self._group_names = sorted(set(labels) - {""})
         index = {name: k for k, name in enumerate(self._group_names)}
         self._groups = np.array([index.get(label, -1) for label in labels])
+        self.noise_model = bool(self.backend.noise_model)
+        # trust acts on sigma: sigma_eff = sigma_model * sqrt(v_grade / b_d)
+        inflation = self.points["inflation"].to_numpy(dtype=float) if "inflation" in self.points else 1.0
+        balance = self.points["balance"].to_numpy(dtype=float) if "balance" in self.points else 1.0
+        self.trust_factor = np.broadcast_to(np.sqrt(inflation / balance), self.y.shape).copy()
         self.free = self.spec.free
         self.calls = 0  # model evaluations so far (the fit's budget counts these)
         self.fixed = {p.name: p.start for p in self.spec.parameters if p.fixed}
@@ -132,6 +147,56 @@ class FitProblem:
             )
         return prediction
 
+    def evaluate(self, theta: np.ndarray, rows: np.ndarray | None = None) -> PointEvaluation:
+        """Give a noise-model backend's evaluation (sigma already times the trust factor)."""
+        frame = self.points if rows is None else self.points.iloc[rows]
+        params = self.to_natural(theta)
+        self.calls += 1
+        try:
+            found = self.backend.evaluate(params, frame)
+        except InputError:
+            raise
+        except Exception as err:
+            raise InputError(f"the model failed: {_reason(err)}") from None
+        simulation = np.asarray(found.simulation, dtype=float)
+        sigma = np.asarray(found.sigma, dtype=float)
+        factor = self.trust_factor if rows is None else self.trust_factor[rows]
+        if simulation.shape != (len(frame),) or sigma.shape != (len(frame),):
+            raise InputError(
+                f"the model gave {simulation.size} simulations and {sigma.size} sigmas for "
+                f"{len(frame)} rows; expected one of each per row"
+            )
+        return PointEvaluation(simulation, sigma * factor, np.asarray(found.transformation),
+                               np.asarray(found.distribution))  # fmt: skip
+
+    def nllh(self, theta: np.ndarray, rows: np.ndarray | None = None) -> float:
+        """Give the negative log-likelihood of the (chosen) points.
+
+        With a noise-model backend, PEtab's (see :mod:`curate.fit.likelihood`); otherwise the
+        normal likelihood with sigma_i = 1 / sqrt(w_i): 0.5 chi2 + sum ln sigma_i + n/2 ln 2 pi.
+        """
+        y = self.y if rows is None else self.y[rows]
+        if self.noise_model:
+            found = self.evaluate(theta, rows)
+            return likelihood.negative_log_likelihood(
+                y, found.simulation, found.sigma, found.transformation, found.distribution
+            )
+        residual = self.residual(theta, rows)
+        w = self.w if rows is None else self.w[rows]
+        return float(0.5 * residual @ residual - 0.5 * np.sum(np.log(w))
+                     + 0.5 * len(w) * math.log(2 * math.pi))  # fmt: skip
+
+    def point_residual(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+        """Give one scaled residual per (chosen) point; their squares sum to chi2."""
+        if not self.noise_model:
+            return self.residual(theta, rows)
+        return self.residual(theta, rows)[: len(self.y) if rows is None else len(rows)]
+
+    def residual_index(self, rows: np.ndarray) -> np.ndarray:
+        """Give the residual rows of the chosen point rows (a noise model has two per point)."""
+        rows = np.asarray(rows, dtype=int)
+        return np.concatenate([rows, rows + len(self.y)]) if self.noise_model else rows
+
     def scales(self, prediction: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
         """Give the closed-form scale factor of each calibration group, s* = sum(w y h) / sum(w h^2)."""
         groups = self._groups if rows is None else self._groups[rows]
@@ -150,7 +215,27 @@ class FitProblem:
         return result
 
     def residual(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
-        """Give sqrt(w) (y - s h) with the scale factors projected out."""
+        """Give sqrt(w) (y - s h) with the scale factors projected out.
+
+        With a noise-model backend: [r, q], the scaled and the noise residuals, so that half
+        their sum of squares is the nllh up to a constant.
+        """
+        if self.noise_model:
+            found = self.evaluate(theta, rows)
+            y_rows = self.y if rows is None else self.y[rows]
+            r = likelihood.scaled_residuals(y_rows, found.simulation, found.sigma,
+                                            found.transformation, found.distribution)  # fmt: skip
+            q = likelihood.noise_residuals(found.sigma, found.distribution)
+            both = np.concatenate([r, q])
+            if not np.all(np.isfinite(both)):
+                position = int(np.argmax(~np.isfinite(np.concatenate([r, q])))) % len(r)
+                shown = ", ".join(f"{k}={v:.4g}" for k, v in self.to_natural(theta).items())
+                raise InputError(
+                    f"the likelihood is not finite at row {position + 1} (sigma "
+                    f"{found.sigma[position]:.4g}, simulation {found.simulation[position]:.4g}) "
+                    f"for parameters {shown}"
+                )
+            return both
         prediction = self.predict(theta, rows)
         groups = self._groups if rows is None else self._groups[rows]
         factor = np.ones(len(prediction))

@@ -361,10 +361,11 @@ def leave_one_group_out(
     for group in unique:
         held = labels == group
         keep = np.flatnonzero(~held)
-        gap = _unidentified(jacobian, keep, names)
+        kept_rows = problem.residual_index(keep)  # a noise model has two residuals per point
+        gap = _unidentified(jacobian, kept_rows, names, points=len(keep))
         plans[group] = (keep, np.flatnonzero(held), gap)
         if gap is None:
-            lost, weights = _small_directions(jacobian, keep)
+            lost, weights = _small_directions(jacobian, kept_rows)
             if lost > already_lost:
                 involved = [
                     n
@@ -394,7 +395,8 @@ def leave_one_group_out(
     else:
         for done, (group, (keep, _, gap)) in enumerate(plans.items()):
             if gap is None:
-                j, r = jacobian[keep], residual[keep]
+                kept_rows = problem.residual_index(keep)
+                j, r = jacobian[kept_rows], residual[kept_rows]
                 if group in weak:  # step only along the directions the rest still determines
                     step = -_determined_step(j, r)
                 else:
@@ -435,7 +437,7 @@ def leave_one_group_out(
             )
         if group in weak:
             flags.insert(0, weak[group])
-        held_residual = problem.residual(new_theta, held)
+        held_residual = problem.point_residual(new_theta, held)
         heldout_chi2 = float(held_residual @ held_residual)
         heldout_dof = len(held) - problem.n_scale_factors(held)
         if not converged:
@@ -474,8 +476,13 @@ def _small_directions(jacobian: np.ndarray, keep: np.ndarray) -> tuple[int, np.n
     return count, (vt[::-1] ** 2)
 
 
-def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str]) -> str | None:
-    """Give a reason if some parameter has no data left in the kept rows, else None."""
+def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str], *,
+                  points: int | None = None) -> str | None:  # fmt: skip
+    """Give a reason if some parameter has no data left in the kept rows, else None.
+
+    ``keep`` are residual rows; ``points`` how many data points they stand for (default: one each).
+    """
+    count = len(keep) if points is None else points
     full_norm = np.linalg.norm(jacobian, axis=0)
     kept_norm = np.linalg.norm(jacobian[keep], axis=0) if len(keep) else np.zeros(len(names))
     lost = [
@@ -483,8 +490,8 @@ def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str]) 
     ]
     if lost:
         return f"leaves {', '.join(lost)} with no data"
-    if len(keep) <= len(names):
-        return f"leaves {len(keep)} points for {len(names)} parameters"
+    if count <= len(names):
+        return f"leaves {count} points for {len(names)} parameters"
     return None
 
 

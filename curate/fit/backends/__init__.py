@@ -12,11 +12,19 @@ from __future__ import annotations
 from typing import Any
 
 from curate.errors import InputError
-from curate.fit.backends.base import ExternalFit, ModelBackend
+from curate.fit.backends.base import ExternalFit, ModelBackend, PointEvaluation
 from curate.fit.backends.external import ExternalFitter
 from curate.fit.backends.python import PythonFunction
 
-__all__ = ["BACKENDS", "ExternalFit", "ExternalFitter", "ModelBackend", "PythonFunction", "rebuild"]
+__all__ = [
+    "BACKENDS",
+    "ExternalFit",
+    "ExternalFitter",
+    "ModelBackend",
+    "PointEvaluation",
+    "PythonFunction",
+    "rebuild",
+]
 
 BACKENDS: dict[str, type[ModelBackend]] = {
     PythonFunction.kind: PythonFunction,

@@ -3,7 +3,10 @@
 A backend gives predictions for a points table and a parameter dict, says whether it can be
 rebuilt in a worker process from its description, and describes itself for the run record.
 A backend that is itself a fitter (an external program) says so with ``fits_itself`` and fits
-a table with :meth:`ModelBackend.fit_points` instead.
+a table with :meth:`ModelBackend.fit_points` instead. A backend that carries its own noise model
+(a PEtab problem's noise formulas) says so with ``noise_model`` and gives each point's sigma,
+transformation and distribution with :meth:`ModelBackend.evaluate`; the fit then minimises the
+negative log-likelihood (:mod:`curate.fit.likelihood`) instead of fixed-weight least squares.
 """
 
 from __future__ import annotations
@@ -17,7 +20,7 @@ import pandas as pd
 
 from curate.errors import InputError
 
-__all__ = ["ExternalFit", "ModelBackend"]
+__all__ = ["ExternalFit", "ModelBackend", "PointEvaluation"]
 
 
 @dataclass
@@ -31,15 +34,39 @@ class ExternalFit:
     error: str | None = None
 
 
+@dataclass(frozen=True)
+class PointEvaluation:
+    """A noise-model backend's answer for each point, in row order.
+
+    ``simulation`` is the observable (untransformed); ``sigma`` the noise formula's value on
+    the transformed scale; ``transformation`` 'lin', 'log' or 'log10'; ``distribution``
+    'normal' or 'laplace'.
+    """
+
+    simulation: np.ndarray
+    sigma: np.ndarray
+    transformation: np.ndarray
+    distribution: np.ndarray
+
+
 class ModelBackend:
     """What every model backend offers. Subclasses set ``kind`` and implement the methods."""
 
     kind: ClassVar[str] = ""
     fits_itself: ClassVar[bool] = False  # an external fitter: parameters come from fit_points
+    noise_model: ClassVar[bool] = False  # gives each point's sigma (see evaluate)
 
     def predict(self, parameters: dict[str, float], points: pd.DataFrame) -> np.ndarray:
         """Give one prediction per row of ``points`` (before scale factors)."""
         raise InputError(f"the {self.kind} backend gives fitted parameters, not predictions")
+
+    def evaluate(self, parameters: dict[str, float], points: pd.DataFrame) -> PointEvaluation:
+        """Give predictions with each point's sigma (only where ``noise_model``)."""
+        raise InputError(f"the {self.kind} backend has no noise model of its own")
+
+    def run_record(self) -> dict[str, Any]:
+        """Give what the run record keeps of the backend (by default :meth:`describe`)."""
+        return self.describe()
 
     @property
     def portable(self) -> bool:
