@@ -162,34 +162,64 @@ class Catalog(Ledger):
 
     # -- fits and sensitivity ----------------------------------------------------------------
 
-    def fit(self, model: str | ModelBackend, params: str | Path, *, policy: PolicyLike = None,
+    def fit(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
+            problem: str | None = None, policy: PolicyLike = None,
             selection: Selection | None = None, options: FitOptions | None = None,
+            evaluate: bool = False, simulations: str | Path | None = None,
+            tolerances: dict[str, float] | None = None,
             progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
-        """Fit a model (module:function, file.py:function or a backend) to the weighted selection."""
+        """Fit a model (module:function, file.py:function or a backend) to the weighted selection,
+        or a stored PEtab problem's own model (``problem``) to its datasets in the selection.
+
+        With ``problem``: ``params`` overrides the parameter table, ``evaluate`` computes the
+        objective at the start without optimising, ``simulations`` names a PEtab simulation
+        table to write, ``tolerances`` sets the solver's (``relative``, ``absolute``).
+        """
         chosen = resolve_policy(policy)
+        if problem is not None:
+            if model is not None:
+                raise InputError("fit: give --problem or --model, not both")
+            return runs.run_problem_fit(
+                self, problem, policy=chosen, selection=selection or Selection(),
+                spec=load_spec(params) if params is not None else None, options=options,
+                evaluate=evaluate, simulations=simulations, tolerances=tolerances, progress=progress,
+            )  # fmt: skip
+        if evaluate or simulations is not None:
+            raise InputError("fit: --evaluate and --simulations go with --problem ID")
+        if model is None or params is None:
+            raise InputError("fit: give --model with --params, or --problem ID")
         spec = load_spec(params)
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
                             options=options, progress=progress)  # fmt: skip
 
     def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
-                    fitter_cmd: str | None = None, method: str = "exact", policy: PolicyLike = None,
+                    fitter_cmd: str | None = None, problem: str | None = None, method: str = "exact",
+                    policy: PolicyLike = None,
                     selection: Selection | None = None, options: FitOptions | None = None, workers: int = 1,
                     dask: str | None = None, threshold: float = DEFAULT_SHIFT_THRESHOLD,
                     policies: Sequence[PolicyLike] = (), timeout: float = 600.0,
-                    workdir: str | Path | None = None,
+                    workdir: str | Path | None = None, tolerances: dict[str, float] | None = None,
                     progress: Callable[[int, int], None] | None = None) -> SensitivityResult:  # fmt: skip
         """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs."""
         chosen = resolve_policy(policy)
         alternatives = [resolve_policy(p) for p in policies]
         runs.sensitivity_grouping(by)
-        backend, spec = runs.choose_backend(
-            model=model, params=params, fitter_cmd=fitter_cmd, timeout=timeout
-        )
+        backend: ModelBackend | None
+        if problem is not None:
+            if model is not None or fitter_cmd is not None:
+                raise InputError(
+                    "sensitivity: give --problem, --model or --fitter-cmd, one of them"
+                )
+            backend, spec = None, load_spec(params) if params is not None else None
+        else:
+            backend, spec = runs.choose_backend(
+                model=model, params=params, fitter_cmd=fitter_cmd, timeout=timeout
+            )
         return runs.run_sensitivity(
             self, backend, spec, by=by, policy=chosen, selection=selection or Selection(), method=method,
             options=options, workers=workers, dask=dask, threshold=threshold, alternative_policies=alternatives,
-            workdir=workdir, progress=progress,
+            workdir=workdir, progress=progress, problem_id=problem, tolerances=tolerances,
         )  # fmt: skip
 
     # -- keeping and showing -------------------------------------------------------------------

@@ -631,6 +631,18 @@ MaxEvaluations = Annotated[
 Generations = Annotated[
     int | None, typer.Option(help="generations of the --global search (default 300)")
 ]
+ProblemOption = Annotated[
+    str | None,
+    typer.Option(
+        metavar="ID", help="a stored PEtab problem (`curate models`): its model and datasets"
+    ),
+]
+RelativeTolerance = Annotated[
+    float | None, typer.Option(help="with --problem: the ODE solver's relative tolerance (1e-8)")
+]
+AbsoluteTolerance = Annotated[
+    float | None, typer.Option(help="with --problem: the ODE solver's absolute tolerance (1e-10)")
+]
 
 
 def _budget(option: str, value: int | None) -> int | None:
@@ -642,10 +654,23 @@ def _budget(option: str, value: int | None) -> int | None:
 @app.command()
 @selection_options
 def fit(
-    model: Annotated[str, typer.Option(help="module:function or path/to/model.py:function")],
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
     params: Annotated[
-        Path, typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)")
-    ],
+        Path | None,
+        typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)"),
+    ] = None,
+    problem: ProblemOption = None,
+    evaluate: Annotated[
+        bool, typer.Option(help="with --problem: the objective at the start, not optimised")
+    ] = False,
+    simulations: Annotated[
+        Path | None,
+        typer.Option(metavar="FILE.tsv", help="with --problem: write the PEtab simulation table"),
+    ] = None,
+    relative_tolerance: RelativeTolerance = None,
+    absolute_tolerance: AbsoluteTolerance = None,
     *,
     selection: Selection,
     policy: Policy,
@@ -675,11 +700,36 @@ def fit(
         generations=_budget("--generations", generations),
     )  # fmt: skip
     show_bar = not as_json and err_console.is_terminal
+    tolerances = _tolerances(relative_tolerance, absolute_tolerance, problem)
     with _catalog() as catalog, progress_bar(err_console, "fitting", enabled=show_bar) as update:
         result = catalog.fit(
-            model, params, policy=policy, selection=selection, options=options, progress=update
+            model,
+            params,
+            problem=problem,
+            policy=policy,
+            selection=selection,
+            options=options,
+            evaluate=evaluate,
+            simulations=simulations,
+            tolerances=tolerances,
+            progress=update,
         )
     _show(result.to_dict(), lambda: run_text.fit_text(result), as_json)
+    if simulations is not None and not as_json:
+        out.print(text.written_text("simulations", simulations))
+
+
+def _tolerances(
+    relative: float | None, absolute: float | None, problem: str | None
+) -> dict[str, float] | None:
+    """Give the solver tolerances asked for (they apply to a stored problem's simulations)."""
+    given = {k: v for k, v in (("relative", relative), ("absolute", absolute)) if v is not None}
+    if given and problem is None:
+        raise InputError("--relative-tolerance and --absolute-tolerance go with --problem ID")
+    for name, value in given.items():
+        if not value > 0:
+            raise InputError(f"--{name}-tolerance {value}: expected a positive number")
+    return given or None
 
 
 @app.command()
@@ -693,6 +743,9 @@ def sensitivity(
     fitter_cmd: Annotated[
         str | None, typer.Option(help="external fitter instead of --model: 'COMMAND {data} {out}'")
     ] = None,
+    problem: ProblemOption = None,
+    relative_tolerance: RelativeTolerance = None,
+    absolute_tolerance: AbsoluteTolerance = None,
     method: Annotated[str, typer.Option(help="exact refits, or one-step screening")] = "exact",
     workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
     dask: Annotated[
@@ -729,7 +782,9 @@ def sensitivity(
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "refitting", enabled=show_bar) as update:
         result = catalog.sensitivity(
-            by=by, model=model, params=params, fitter_cmd=fitter_cmd, method=method, policy=policy,
+            by=by, model=model, params=params, fitter_cmd=fitter_cmd, problem=problem,
+            tolerances=_tolerances(relative_tolerance, absolute_tolerance, problem),
+            method=method, policy=policy,
             selection=selection, workers=count, dask=dask,
             options=FitOptions(starts=starts, max_evaluations=_budget("--max-evaluations", max_evaluations)),
             threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,

@@ -38,6 +38,7 @@ __all__ = [
     "FitOptions",
     "FitResult",
     "covariance_from_jacobian",
+    "evaluate_at_start",
     "fit",
     "jacobian",
     "least_squares",
@@ -188,6 +189,8 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
     error for smooth models), better than the optimiser's own forward differences.
     """
     step = 6e-6 * np.maximum(1.0, np.abs(theta))
+    if len(theta) == 0:  # nothing free: no columns
+        return np.zeros((len(problem.residual(theta, rows)), 0))
     columns = []
     for k in range(len(theta)):
         e = np.zeros(len(theta))
@@ -200,6 +203,8 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
 
 def covariance_from_jacobian(jacobian: np.ndarray) -> np.ndarray:
     """Give (J^T J)^-1 by SVD (pseudo-inverse where J is rank deficient)."""
+    if jacobian.shape[1] == 0:
+        return np.zeros((0, 0))
     _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
     threshold = np.finfo(float).eps * max(jacobian.shape) * (singular[0] if len(singular) else 0.0)
     keep = singular > threshold
@@ -258,6 +263,18 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
 
 
 DEFAULT_GENERATIONS = 300
+
+
+def evaluate_at_start(problem: FitProblem, options: FitOptions | None = None) -> FitResult:
+    """Give the objective, chi2 and standard errors at the start point, without optimising."""
+    options = options or FitOptions()
+    first = problem.calls
+    theta = problem.to_internal({p.name: p.start for p in problem.free})
+    result = summarise(problem, theta, jacobian(problem, theta), converged=False, starts=[],
+                       message="evaluated at the start point; not optimised", options=options)  # fmt: skip
+    result.options["evaluate"] = True
+    result.evaluations = problem.calls - first
+    return result
 
 
 def fit(problem: FitProblem, options: FitOptions | None = None, *,

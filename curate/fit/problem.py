@@ -77,7 +77,9 @@ class FitProblem:
         self._groups = np.array([index.get(label, -1) for label in labels])
         self.noise_model = bool(self.backend.noise_model)
         # trust acts on sigma: sigma_eff = sigma_model * sqrt(v_grade / b_d)
-        inflation = self.points["inflation"].to_numpy(dtype=float) if "inflation" in self.points else 1.0
+        inflation = (
+            self.points["inflation"].to_numpy(dtype=float) if "inflation" in self.points else 1.0
+        )
         balance = self.points["balance"].to_numpy(dtype=float) if "balance" in self.points else 1.0
         self.trust_factor = np.broadcast_to(np.sqrt(inflation / balance), self.y.shape).copy()
         self.free = self.spec.free

@@ -19,14 +19,20 @@ from curate.errors import InputError
 from curate.export.manifest import build_manifest, record_run
 from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
-from curate.fit.engine import FitOptions, FitResult, fit
+from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.problem import FitProblem
 from curate.fit.spec import ParameterSpec, load_spec
 from curate.ledger import Ledger
 from curate.weighting import Policy, Selection, WeightedTable, weighted_table
 from curate.weighting.groupings import Grouping, parse_grouping
 
-__all__ = ["choose_backend", "run_fit", "run_sensitivity", "sensitivity_grouping"]
+__all__ = [
+    "choose_backend",
+    "run_fit",
+    "run_problem_fit",
+    "run_sensitivity",
+    "sensitivity_grouping",
+]
 
 
 def choose_backend(*, model: str | None, params: str | Path | None, fitter_cmd: str | None,
@@ -52,7 +58,7 @@ def sensitivity_grouping(by: str) -> Grouping:
 
 def _record(catalog: Ledger, kind: str, backend: ModelBackend, spec: ParameterSpec | None,
             weighted: WeightedTable, summary: dict[str, Any]) -> None:  # fmt: skip
-    description = backend.describe()
+    description = backend.run_record()
     manifest = build_manifest(
         catalog, kind, weighted.policy, weighted.selection, weighted.versions, {}
     )
@@ -77,9 +83,50 @@ def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, poli
     return result
 
 
+def _problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: Selection,
+                 spec: ParameterSpec | None, tolerances: dict[str, float] | None) -> Any:  # fmt: skip
+    # libroadrunner is imported only when a stored problem is fitted
+    from curate.fit.backends.petab_sbml import SolverTolerances
+    from curate.fit.problem_runs import problem_fit
+
+    solver = SolverTolerances(**tolerances) if tolerances else None
+    return problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
+                       tolerances=solver)  # fmt: skip
+
+
+def run_problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: Selection,
+                    spec: ParameterSpec | None = None, options: FitOptions | None = None,
+                    evaluate: bool = False, simulations: str | Path | None = None,
+                    tolerances: dict[str, float] | None = None,
+                    progress: Callable[[int, int, str], None] | None = None) -> FitResult:  # fmt: skip
+    """Fit (or, with ``evaluate``, only evaluate) a stored PEtab problem's model on its datasets
+    in the selection; write the PEtab simulation table if asked; record the run."""
+    from curate.export.simulations import check_simulation_path, write_simulation_table
+    from curate.fit.problem_runs import simulation_table
+
+    if simulations is not None:
+        check_simulation_path(Path(simulations))  # before any work
+    fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
+                          tolerances=tolerances)  # fmt: skip
+    problem = FitProblem(fitted.points, fitted.backend, fitted.spec)
+    result = (
+        evaluate_at_start(problem, options)
+        if evaluate
+        else fit(problem, options, progress=progress)
+    )
+    if simulations is not None:
+        simulated = problem.evaluate(result.theta).simulation
+        write_simulation_table(Path(simulations), simulation_table(fitted, simulated))
+    summary = {k: v for k, v in result.to_dict().items() if k != "starts"}
+    summary["problem"] = {"id": fitted.problem.id, "version": fitted.problem.version,
+                          "sha256": fitted.problem.content_sha256}  # fmt: skip
+    _record(catalog, "fit", fitted.backend, fitted.spec, fitted.weighted, summary)
+    return result
+
+
 def run_sensitivity(
     catalog: Ledger,
-    backend: ModelBackend,
+    backend: ModelBackend | None,
     spec: ParameterSpec | None,
     *,
     by: str,
@@ -93,13 +140,27 @@ def run_sensitivity(
     alternative_policies: Sequence[Policy] = (),
     workdir: str | Path | None = None,
     progress: Callable[[int, int], None] | None = None,
+    problem_id: str | None = None,
+    tolerances: dict[str, float] | None = None,
 ) -> sensitivity.SensitivityResult:
-    """Run the leave-one-group-out check (and a policy sweep); record it; give the result."""
+    """Run the leave-one-group-out check (and a policy sweep); record it; give the result.
+
+    With ``problem_id`` the backend is the stored problem's model (``backend`` is then None)
+    and ``spec`` overrides its parameter table when given.
+    """
     if workers < 1:
         raise InputError(f"workers={workers}: expected at least 1 worker process")
     grouping = sensitivity_grouping(by)
-    weighted = weighted_table(catalog, policy, selection)
-    labels = grouping.labels(weighted.table)
+    if problem_id is not None:
+        fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
+                              tolerances=tolerances)  # fmt: skip
+        backend, spec, weighted, table = fitted.backend, fitted.spec, fitted.weighted, fitted.points
+    else:
+        weighted = weighted_table(catalog, policy, selection)
+        table = weighted.table
+    if backend is None:
+        raise InputError("sensitivity: give --model with --params, --fitter-cmd, or --problem ID")
+    labels = grouping.labels(table)
     if backend.fits_itself:
         # a folder of our own is removed after a run in which every fit worked; after a failure
         # it stays, since the error messages name the logs in it; a --workdir always stays
@@ -115,7 +176,7 @@ def run_sensitivity(
         return result
     if spec is None:
         raise InputError("sensitivity: --model needs --params SPEC.toml")
-    problem = FitProblem(weighted.table, backend, spec)
+    problem = FitProblem(table, backend, spec)
     full = fit(problem, options, progress=(lambda d, t, _: progress(d, t)) if progress else None)
     result = sensitivity.leave_one_group_out(
         problem, full, labels, by=by, method=method, options=options, workers=workers, dask=dask,
@@ -123,8 +184,13 @@ def run_sensitivity(
     )  # fmt: skip
     tolerance = (options or FitOptions()).tolerance
     for alternative in alternative_policies:
-        other = weighted_table(catalog, alternative, selection)
-        refit = fit(FitProblem(other.table, backend, spec), FitOptions(tolerance=tolerance))
+        if problem_id is not None:
+            again = _problem_fit(catalog, problem_id, policy=alternative, selection=selection,
+                                 spec=spec, tolerances=tolerances)  # fmt: skip
+            other_points = again.points
+        else:
+            other_points = weighted_table(catalog, alternative, selection).table
+        refit = fit(FitProblem(other_points, backend, spec), FitOptions(tolerance=tolerance))
         shifts = {}
         for name in full.free:
             se = full.parameters[name]["stderr"]

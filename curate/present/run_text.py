@@ -301,8 +301,20 @@ def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
 
 def fit_text(result: FitResult) -> Group:
     """Give what ``curate fit`` prints."""
-    parts: list[Any] = [Text(f"chi2 {result.chi2:.4g} on {result.dof} dof (reduced {result.reduced_chi2:.3g}), "
-                             f"{result.n_points} points, {'converged' if result.converged else 'NOT converged'}: {result.message}")]  # fmt: skip
+    if result.options.get("evaluate"):
+        state = "at the start point, not optimised"
+    else:
+        state = f"{'converged' if result.converged else 'NOT converged'}: {result.message}"
+    head = f"chi2 {result.chi2:.4g} on {result.dof} dof (reduced {result.reduced_chi2:.3g}), {result.n_points} points, {state}"
+    if (
+        result.objective == "nllh"
+    ):  # the noise model is the problem's own: its likelihood was minimised
+        head = (
+            f"nllh {result.nllh:.10g} (minimised), " + head
+            if not result.options.get("evaluate")
+            else f"nllh {result.nllh:.10g}, " + head
+        )
+    parts: list[Any] = [Text(head)]
     table = plain_table(
         ("parameter", "value", "stderr", "rel. error"), right=("value", "stderr", "rel. error")
     )
@@ -319,13 +331,10 @@ def fit_text(result: FitResult) -> Group:
             )
         )
     if len(result.starts) > 1:
-        best = sorted(s["chi2"] for s in result.starts if s["chi2"] is not None)
-        parts.append(
-            Text(
-                f"{len(result.starts)} starts; best chi2 values: "
-                + ", ".join(f"{c:.4g}" for c in best[:5])
-            )
-        )
+        key = "nllh" if result.objective == "nllh" else "chi2"
+        best = sorted(s[key] for s in result.starts if s.get(key) is not None)
+        shown = ", ".join(f"{c:.6g}" if key == "nllh" else f"{c:.4g}" for c in best[:5])
+        parts.append(Text(f"{len(result.starts)} starts; best {key} values: {shown}"))
     return Group(*parts)
 
 
