@@ -344,7 +344,7 @@ def _check_names(
 
 
 def _used(rows: list[_Row], *columns: str) -> set[str]:
-    return {r.cells.get(c, "").strip() for r in rows for c in columns} - {""}
+    return {row.cells.get(c, "").strip() for row in rows for c in columns} - {""}
 
 
 class _Tables:
@@ -408,12 +408,19 @@ def plan_problem_export(
         mine = sorted((row for row in rows if row.file == name), key=lambda row: row.order)
         tables.out[name] = [row.cells for row in mine]
         tables.changed.add(name)
+    # what the stored rows used and the exported rows do not is left out; what the stored
+    # problem holds without using it (conditions of other experiments) stays, as published
+    stored = [_Row(row, "", (0, 0), "1", "") for row in tables.rows("measurement")]
+    pair = ("simulationConditionId", "preequilibrationConditionId")
     observables = _used(rows, "observableId")
-    conditions = _used(rows, "simulationConditionId", "preequilibrationConditionId")
+    unused_observables = _used(stored, "observableId") - observables
+    unused_conditions = _used(stored, *pair) - _used(rows, *pair)
     left_out: dict[str, list[str]] = {"files": []}
-    left_out["conditions"] = tables.keep_ids("condition", "conditionId", conditions.__contains__)
+    left_out["conditions"] = tables.keep_ids(
+        "condition", "conditionId", lambda c: c not in unused_conditions
+    )
     left_out["observables"] = tables.keep_ids(
-        "observable", "observableId", observables.__contains__
+        "observable", "observableId", lambda o: o not in unused_observables
     )
     for name in names["observable"]:
         if any(row["observableId"].strip() in placeholders for row in tables.out[name]):
