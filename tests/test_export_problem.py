@@ -365,3 +365,98 @@ def test_cli_refuses_a_mixed_selection_in_one_line(cli, tmp_path):
     assert run.code == 2 and run.err.count("\n") == 1 and "Traceback" not in run.err
     assert "the selection mixes datasets of stored problem boehm_jproteomeres2014_01" in run.err
     assert not (tmp_path / "p").exists()
+
+
+def test_petablint_passes_on_the_export_with_its_model(catalog, tmp_path):
+    import subprocess
+    import sys
+
+    catalog.import_petab(problem_yaml(FUJITA))
+    catalog.export("petab", tmp_path / "p")
+    run = subprocess.run(
+        [sys.executable, "-m", "petab.petablint", str(tmp_path / "p" / f"{FUJITA}.yaml")],
+        capture_output=True,
+        text=True,
+        check=False,
+    )
+    assert run.returncode == 0, run.stdout + run.stderr
+
+
+def test_an_edited_problem_exports_its_newest_version(catalog, tmp_path):
+    folder = tmp_path / "edited"
+    shutil.copytree(DATA / "petab" / BOEHM, folder)
+    catalog.import_petab(folder / f"{BOEHM}.yaml")
+    parameters = folder / "parameters_Boehm_JProteomeRes2014.tsv"
+    parameters.write_bytes(parameters.read_bytes().replace(b"k_phos\tk_{phos}\tlog10\t1E-05\t100000", b"k_phos\tk_{phos}\tlog10\t1E-05\t1000"))  # fmt: skip
+    again = catalog.import_petab(folder / f"{BOEHM}.yaml")
+    assert not any(r.added for r in again) and again[0].problem.version == 2
+    result = catalog.export("petab", tmp_path / "p", policy=neutral(tmp_path))
+    # the datasets stay linked to version 1 (their data did not change); the export takes
+    # the problem as it stands now
+    assert result.manifest["petab_problem"]["version"] == 2
+    assert (tmp_path / "p" / parameters.name).read_bytes() == parameters.read_bytes()
+
+
+def test_every_noise_model_and_transformation_takes_the_factor_exactly(catalog, tmp_path):
+    # Boehm with its noise models changed here (not as published): laplace noise on the log10
+    # scale with two noise placeholders (one estimated, one a number); normal noise on the ln
+    # scale with a constant formula and empty cells
+    folder = tmp_path / "variant"
+    shutil.copytree(DATA / "petab" / BOEHM, folder)
+    observables_file = folder / "observables_Boehm_JProteomeRes2014.tsv"
+    observables = pd.read_csv(observables_file, sep="\t", dtype=str, keep_default_na=False)
+    changes = {
+        "pSTAT5A_rel": ("noiseParameter1_pSTAT5A_rel + noiseParameter2_pSTAT5A_rel", "log10", "laplace"),
+        "pSTAT5B_rel": ("0.5", "log", "normal"),
+    }  # fmt: skip
+    for observable, (formula, transformation, distribution) in changes.items():
+        row = observables.observableId == observable
+        observables.loc[row, ["noiseFormula", "observableTransformation", "noiseDistribution"]] = (
+            formula, transformation, distribution,
+        )  # fmt: skip
+    observables.to_csv(observables_file, sep="\t", index=False)
+    measurements_file = folder / "measurementData_Boehm_JProteomeRes2014.tsv"
+    rows = pd.read_csv(measurements_file, sep="\t", dtype=str, keep_default_na=False)
+    rows.loc[rows.observableId == "pSTAT5A_rel", "noiseParameters"] = "sd_pSTAT5A_rel;0.05"
+    rows.loc[rows.observableId == "pSTAT5B_rel", "noiseParameters"] = ""
+    rows.to_csv(measurements_file, sep="\t", index=False)
+    parameters_file = folder / "parameters_Boehm_JProteomeRes2014.tsv"
+    parameters = pd.read_csv(parameters_file, sep="\t", dtype=str, keep_default_na=False)
+    parameters[parameters.parameterId != "sd_pSTAT5B_rel"].to_csv(parameters_file, sep="\t", index=False)  # fmt: skip
+    assert lint(folder / f"{BOEHM}.yaml") is False  # the variant is a valid problem itself
+    results = catalog.import_petab(folder / f"{BOEHM}.yaml")
+    grades = {"model1_data1_pSTAT5A_rel": "B", "model1_data1_pSTAT5B_rel": "C", "model1_data1_rSTAT5A_rel": "A"}  # fmt: skip
+    for r in results:
+        catalog.grade(r.id, grades[r.id], reason="test")
+    catalog.export("petab", tmp_path / "p")  # the default policy: B inflates by 2, C by 4
+    out = tmp_path / "p"
+    exported = pd.read_csv(out / observables_file.name, sep="\t", index_col=0)["noiseFormula"]
+    assert exported.to_dict() == {
+        "pSTAT5A_rel": f"({changes['pSTAT5A_rel'][0]}) * noiseParameter3_pSTAT5A_rel",
+        "pSTAT5B_rel": "(0.5) * noiseParameter1_pSTAT5B_rel",
+        "rSTAT5A_rel": "noiseParameter1_rSTAT5A_rel",
+    }
+    written = pd.read_csv(out / measurements_file.name, sep="\t", dtype=str, keep_default_na=False)
+    assert written.groupby("observableId")["noiseParameters"].unique().map(list).to_dict() == {
+        "pSTAT5A_rel": ["sd_pSTAT5A_rel;0.05;1.4142135623731"],
+        "pSTAT5B_rel": ["2"],
+        "rSTAT5A_rel": ["sd_rSTAT5A_rel"],
+    }
+    assert lint(out / f"{BOEHM}.yaml") is False
+    # the reference: each PEtab noise density (PEtab 1 documentation, written from memory)
+    # with sigma multiplied by sqrt(inflation), y the measurement and s = 1.1 y the simulation
+    nominal = pd.read_csv(parameters_file, sep="\t", index_col=0)["nominalValue"]
+    total = 0.0
+    for _, row in rows.iterrows():
+        y = float(row["measurement"])
+        s = 1.1 * y
+        if row["observableId"] == "pSTAT5A_rel":  # laplace on log10 y, scale sigma
+            sigma = (nominal["sd_pSTAT5A_rel"] + 0.05) * math.sqrt(2)
+            total -= math.log(2 * sigma * y * math.log(10)) + abs(math.log10(s) - math.log10(y)) / sigma  # fmt: skip
+        elif row["observableId"] == "pSTAT5B_rel":  # normal on ln y
+            sigma = 0.5 * math.sqrt(4)
+            total -= 0.5 * math.log(2 * math.pi * sigma**2 * y**2) + 0.5 * ((math.log(s) - math.log(y)) / sigma) ** 2  # fmt: skip
+        else:  # normal on y
+            sigma = nominal["sd_rSTAT5A_rel"]
+            total -= 0.5 * math.log(2 * math.pi * sigma**2) + 0.5 * ((s - y) / sigma) ** 2
+    assert llh(out / f"{BOEHM}.yaml") == pytest.approx(total, rel=1e-12)
