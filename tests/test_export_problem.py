@@ -460,3 +460,20 @@ def test_every_noise_model_and_transformation_takes_the_factor_exactly(catalog, 
             sigma = nominal["sd_rSTAT5A_rel"]
             total -= 0.5 * math.log(2 * math.pi * sigma**2) + 0.5 * ((s - y) / sigma) ** 2
     assert llh(out / f"{BOEHM}.yaml") == pytest.approx(total, rel=1e-12)
+
+
+def test_datasets_imported_before_row_numbers_were_kept_still_export(catalog, tmp_path):
+    # a dataset version without annotations['petab_row_index'] (imported by an earlier curate):
+    # its rows follow the others, in the stored (time-sorted) order
+    catalog.import_petab(problem_yaml(BOEHM))
+    dataset = "model1_data1_pSTAT5A_rel"
+    annotations = dict(catalog.show(dataset).record.annotations)
+    del annotations["petab_row_index"]
+    catalog.new_version(dataset, kind="revise", reason="test", update={"annotations": annotations})
+    catalog.export("petab", tmp_path / "p", policy=neutral(tmp_path))
+    exported = normalised(tmp_path / "p" / "measurementData_Boehm_JProteomeRes2014.tsv", drop=CURATE_COLUMNS)  # fmt: skip
+    original = normalised(DATA / "petab" / BOEHM / "measurementData_Boehm_JProteomeRes2014.tsv")
+    first = original.datasetId == dataset
+    expected = pd.concat([original[~first], original[first]], ignore_index=True)
+    pd.testing.assert_frame_equal(exported, expected)
+    assert lint(tmp_path / "p" / f"{BOEHM}.yaml") is False

@@ -17,10 +17,11 @@ noise placeholders the original uses) and each of its rows gets ``;<factor>`` ap
 and laplace distributions take sigma as their scale on the transformed scale, so this is
 exact for every noise model and transformation, estimated sigmas included.
 
-What the rows no longer use is left out, so that the problem lints: conditions and observables
-no exported row names, parameters that only the left-out rows, observables or conditions
-referred to (never an id of the SBML model), visualization rows of left-out datasets or
-observables, and any table file left empty. The YAML is copied as stored when every file
+What the exported rows no longer use is left out, so that the problem lints: conditions and
+observables the stored rows named and no exported row names (those the stored problem held
+unused stay), parameters that only the left-out rows, observables or conditions referred to
+(never an id of the SBML model), visualization rows of left-out datasets or observables, and
+any measurement or visualization file left empty. The YAML is copied as stored when every file
 stays, else rewritten without the files left out.
 """
 
@@ -29,6 +30,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import io
+import json
 import math
 import re
 import textwrap
@@ -73,7 +75,7 @@ class ProblemExport:
     content_sha256: str
     files: dict[str, bytes]  # name as the YAML gives it -> bytes; the YAML under ``source``
     copied: tuple[str, ...]  # written byte for byte as stored
-    left_out: dict[str, list[str]]  # 'files', 'conditions', 'observables', 'parameters', ...
+    left_out: dict[str, list[str]]  # files, conditions, observables, parameters, visualization_rows
     noise_placeholders: dict[str, str]  # observable -> the placeholder its factor fills
 
     def manifest_entry(self) -> dict[str, Any]:
@@ -92,7 +94,11 @@ class ProblemExport:
     def readme_text(self) -> str:
         """Give the README's section on the problem and on how trust is written into it."""
         changed = ", ".join(f"{obs} ({name})" for obs, name in self.noise_placeholders.items())
-        left = "; ".join(f"{kind}: {', '.join(ids)}" for kind, ids in self.left_out.items() if ids)
+        left = "; ".join(
+            f"{kind.replace('_', ' ')}: {', '.join(ids)}"
+            for kind, ids in self.left_out.items()
+            if ids
+        )
         text = PROBLEM_README.format(
             problem_id=self.problem_id, version=self.problem_version, source=self.source,
             copied=", ".join(self.copied) or "none", changed=changed or "none (every factor is 1)",
@@ -119,8 +125,8 @@ def problem_of_selection(links: dict[str, Any]) -> str | None:
         problem = link.get("id") if isinstance(link, dict) else None
         key = f"stored problem {problem}" if isinstance(problem, str) else "no stored problem"
         by_problem.setdefault(key, []).append(dataset_id)
-    if len(by_problem) == 1:
-        (key,) = by_problem
+    if len(by_problem) <= 1:
+        key = next(iter(by_problem), "no stored problem")
         return None if key == "no stored problem" else key.removeprefix("stored problem ")
     parts = [f"{key} ({_listed(ids)})" for key, ids in sorted(by_problem.items())]
     raise InputError(
@@ -188,7 +194,7 @@ def _references(
     cells += [
         v for row in conditions for c, v in row.items() if c not in ("conditionId", "conditionName")
     ]
-    return _symbols(cells)  # fmt: skip
+    return _symbols(cells)
 
 
 def _sbml_ids(raw: bytes) -> set[str]:
@@ -258,7 +264,7 @@ def _measurement_rows(
             order = (0, int(numbers[k])) if numbers is not None else (1, sequence)
             sequence += 1
             factor = trust_factor_text(float(inflation), float(balance))
-            rows.append(_Row(cells, file, order, factor, str(dataset_id)))  # fmt: skip
+            rows.append(_Row(cells, file, order, factor, str(dataset_id)))
     return rows
 
 
@@ -268,8 +274,6 @@ def _number_text(value: float) -> str:
 
 def _own_columns(group: pd.DataFrame, facts: dict[str, Any]) -> list[dict[str, str]]:
     """Give curate's columns for each point: version, grades, sd and weight, unit, flags."""
-    import json
-
     conditions = json.dumps(
         {k: v for k, v in facts["conditions"].items() if isinstance(v, bool | str)},
         sort_keys=True, ensure_ascii=False,
@@ -343,8 +347,9 @@ def _check_names(
                 )
 
 
-def _used(rows: list[_Row], *columns: str) -> set[str]:
-    return {row.cells.get(c, "").strip() for row in rows for c in columns} - {""}
+def _used(rows: list[dict[str, str]], *columns: str) -> set[str]:
+    """Give the ids the rows name in these columns."""
+    return {row.get(c, "").strip() for row in rows for c in columns} - {""}
 
 
 class _Tables:
@@ -410,11 +415,11 @@ def plan_problem_export(
         tables.changed.add(name)
     # what the stored rows used and the exported rows do not is left out; what the stored
     # problem holds without using it (conditions of other experiments) stays, as published
-    stored = [_Row(row, "", (0, 0), "1", "") for row in tables.rows("measurement")]
+    stored, exported = tables.rows("measurement"), [row.cells for row in rows]
     pair = ("simulationConditionId", "preequilibrationConditionId")
-    observables = _used(rows, "observableId")
+    observables = _used(exported, "observableId")
     unused_observables = _used(stored, "observableId") - observables
-    unused_conditions = _used(stored, *pair) - _used(rows, *pair)
+    unused_conditions = _used(stored, *pair) - _used(exported, *pair)
     left_out: dict[str, list[str]] = {"files": []}
     left_out["conditions"] = tables.keep_ids(
         "condition", "conditionId", lambda c: c not in unused_conditions
@@ -431,14 +436,14 @@ def plan_problem_export(
     for name in names["sbml"]:
         model_ids |= _sbml_ids(problem.files[name])
     after = _references(
-        [r.cells for r in rows],
+        exported,
         tables.rows("observable", kept=True),
         tables.rows("condition", kept=True),
     )
     unused = (before - after) - model_ids
     left_out["parameters"] = tables.keep_ids("parameter", "parameterId", lambda p: p not in unused)
-    datasets_kept = _used(rows, "datasetId")
-    left_out["visualization rows"] = tables.keep(
+    datasets_kept = _used(exported, "datasetId")
+    left_out["visualization_rows"] = tables.keep(
         "visualization",
         lambda r: _plots_kept(r, datasets_kept, observables),
         lambda r: f"{r.get('plotId', '?')} {r.get('datasetId', '')}".strip(),
