@@ -1,7 +1,8 @@
 """Exports: writers for each open format, the manifest, and the runs that write them.
 
 ``files`` (atomic writes, the folder rule), ``table``/``petab``/``datapackage``/``prov`` (pure
-writers: frames in, files out), ``formats`` (the name -> writer registry), ``manifest`` (the
+writers: frames in, files out), ``petab_problem`` (a stored PEtab problem given back whole),
+``formats`` (the name -> writer registry), ``manifest`` (the
 sealed manifest, the README, the run's event), ``actions`` (export and fold sets of a
 selection), ``trace`` (trace and impact).
 """

@@ -13,7 +13,7 @@ from typing import Any
 
 from curate.errors import InputError
 from curate.export.files import prepare_folder, write_json, write_text
-from curate.export.formats import CHECKS, FORMATS, ExportInput
+from curate.export.formats import FORMATS, PREPARE, ExportInput, Prepared
 from curate.export.manifest import build_manifest, readme_text, record_run
 from curate.export.table import write_table
 from curate.ledger import Ledger
@@ -49,14 +49,14 @@ def export(catalog: Ledger, fmt: str, outdir: str | Path, *, policy: Policy, sel
         raise InputError(f"unknown export format '{fmt}'; expected one of {', '.join(FORMATS)}")
     folder = Path(outdir)
     weighted = weighted_table(catalog, policy, selection)
-    if fmt in CHECKS:
-        CHECKS[fmt](weighted)
+    prepared = PREPARE[fmt](catalog, weighted) if fmt in PREPARE else Prepared()
     prepare_folder(folder, force=force)
-    readme = {"README.txt": write_text(folder / "README.txt", readme_text(catalog, policy, folder))}
-    written = writer(ExportInput(catalog, weighted, fmt, dict(readme)), folder)
+    text = readme_text(catalog, policy, folder) + prepared.readme
+    readme = {"README.txt": write_text(folder / "README.txt", text)}
+    written = writer(ExportInput(catalog, weighted, fmt, dict(readme), prepared), folder)
     files = {**written, **readme}
     manifest = build_manifest(catalog, fmt, policy, selection, weighted.versions, files,
-                              {"weights": weighted.summary.to_dict()})  # fmt: skip
+                              {"weights": weighted.summary.to_dict(), **prepared.manifest})  # fmt: skip
     record_run(catalog, "export", policy, weighted.versions, manifest, folder=folder)
     return ExportResult(fmt, folder, files, manifest, weighted.summary)
 

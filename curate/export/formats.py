@@ -1,7 +1,8 @@
 """The export formats by name: each entry turns a weighted selection into files in a folder.
 
 A writer gets an :class:`ExportInput` (the weighted table, the versions, the catalog facts it
-may need) and the folder, and gives back {relative file name: sha256}. The writers themselves
+may need, and what the format settled before anything was written: :class:`Prepared`) and the
+folder, and gives back {relative file name: sha256}. The writers themselves
 (:mod:`curate.export.table`, ``petab``, ``datapackage``, ``prov``) take frames and plain data;
 the small adapters here hand them what they need. Adding a format is one writer module plus one
 entry in :data:`FORMATS`.
@@ -10,7 +11,7 @@ entry in :data:`FORMATS`.
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -20,16 +21,39 @@ from curate.errors import InputError
 from curate.export.datapackage import write_datapackage
 from curate.export.manifest import build_manifest
 from curate.export.petab import write_petab
+from curate.export.petab_problem import (
+    ProblemExport,
+    plan_problem_export,
+    problem_of_selection,
+    write_problem_export,
+)
 from curate.export.prov import write_prov
 from curate.export.table import write_table, write_units
 from curate.ledger import Ledger
 from curate.records import DatasetVersion
-from curate.units import condition_text, short_unit, to_unit, ucum_code
+from curate.units import (
+    canonical_unit,
+    condition_text,
+    scale_factor,
+    short_unit,
+    to_unit,
+    ucum_code,
+)
 from curate.version import __version__
 from curate.weighting import WeightedTable
 from curate.weighting.table import condition_column
 
-__all__ = ["CHECKS", "FORMATS", "ExportInput", "Writer", "units_description"]
+__all__ = ["FORMATS", "PREPARE", "ExportInput", "Prepared", "Writer", "units_description"]
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """What a format settles before anything is written (a refusal leaves no files behind):
+    text for the README, fields for the manifest, and the plan its writer writes."""
+
+    readme: str = ""
+    manifest: dict[str, Any] = field(default_factory=dict)
+    plan: Any = None
 
 
 @dataclass(frozen=True)
@@ -40,6 +64,7 @@ class ExportInput:
     weighted: WeightedTable
     fmt: str
     files: dict[str, str]  # written so far (the README), for writers that describe the folder
+    prepared: Prepared = Prepared()
 
     @property
     def table(self) -> pd.DataFrame:
@@ -72,6 +97,9 @@ def _dataset_facts(versions: list[DatasetVersion]) -> dict[str, dict[str, Any]]:
             "calibration_group": record.protocol.calibration_group,
             "petab": record.annotations.get("petab"),
             "petab_rows": record.annotations.get("petab_rows"),
+            "petab_row_index": record.annotations.get("petab_row_index"),
+            # a stored problem's rows keep their cells as imported: in the unit given then
+            "unit_verbatim": record.observable.unit_original,
         }
     return facts
 
@@ -133,12 +161,77 @@ def _table(given: ExportInput, folder: Path) -> dict[str, str]:
     return {**written, **write_units(folder, units_description(given.versions, petab=False))}
 
 
+def _verbatim_unit(original: str | None, canonical: str | None) -> dict[str, str | None]:
+    """Give the symbol and UCUM code of a unit as given at intake (a UCUM code only where
+    curate's code for the canonical unit is that unit's, factor 1)."""
+    if not original:
+        return {
+            "unit": short_unit(canonical) if canonical else None,
+            "ucum": ucum_code(canonical or ""),
+        }
+    try:
+        parsed = canonical_unit(original, role="value")
+        same = scale_factor(parsed) == 1.0 and to_unit(0.0, original, parsed.canonical) == 0.0
+    except InputError:
+        return {"unit": original, "ucum": None}
+    return {"unit": original, "ucum": parsed.ucum if same else None}  # fmt: skip
+
+
+def problem_units_description(versions: list[DatasetVersion]) -> dict[str, Any]:
+    """Give ``units.json`` of a stored problem's export: time, values and condition columns in
+    the units the problem was imported with (its cells are verbatim, never converted)."""
+    time_units = sorted({v.record.time_unit_original for v in versions})
+    conditions: dict[str, Any] = {}
+    for version in versions:
+        for key, condition in version.record.conditions.items():
+            text = isinstance(condition.value, bool | str)
+            unit = (
+                {"unit": None, "ucum": None}
+                if text
+                else _verbatim_unit(condition.unit_original, condition.unit)
+            )
+            conditions.setdefault(key, {"column": "curateConditions" if text else key, **unit})  # fmt: skip
+    return {
+        "about": "the unit of every column; a symbol (as pint reads it) and a UCUM code",
+        "time": {"column": "time", **_verbatim_unit(time_units[0], None)},
+        "values": "measurement, numeric noiseParameters, curateSd: in the unit named by the "
+        "row's curateUnit, as the problem was imported",
+        "conditions": dict(sorted(conditions.items())),
+    }
+
+
 def _petab(given: ExportInput, folder: Path) -> dict[str, str]:
+    plan = given.prepared.plan
+    if isinstance(plan, ProblemExport):
+        written = write_problem_export(plan, folder)
+        return {**written, **write_units(folder, problem_units_description(given.versions))}
     written = write_petab(given.table, _dataset_facts(given.versions), folder)
     return {**written, **write_units(folder, units_description(given.versions, petab=True))}
 
 
-def _check_petab(weighted: WeightedTable) -> None:
+def _prepare_petab(catalog: Ledger, weighted: WeightedTable) -> Prepared:
+    """Refuse what PEtab cannot hold; for a selection from one stored problem, plan the
+    problem's export whole (see :mod:`curate.export.petab_problem`)."""
+    _check_times(weighted)
+    links = {v.id: v.record.annotations.get("petab_problem") for v in weighted.versions}
+    problem_id = problem_of_selection(links)
+    if problem_id is None:
+        return Prepared()
+    time_units = {v.record.time_unit_original for v in weighted.versions}
+    if len(time_units) > 1:
+        raise InputError(
+            f"petab export: the datasets of stored problem {problem_id} were imported with "
+            f"different time units ({', '.join(sorted(time_units))}), so their times cannot "
+            "share one measurement table; select the datasets of one import"
+        )
+    # the newest stored version: an edit (bounds, a corrected model) stores a new version
+    # while the unchanged datasets stay linked to the one they were first imported from
+    problem = catalog.problem(problem_id)
+    plan = plan_problem_export(problem, weighted.table, _dataset_facts(weighted.versions))
+    return Prepared(plan.readme_text(), {"petab_problem": plan.manifest_entry()}, plan)
+
+
+def _check_times(weighted: WeightedTable) -> None:
     """Refuse points before t = 0: a PEtab 1 simulation starts at 0 (the initial time of SBML
     models; PEtab 1 has no way to name another), so a fitter cannot place them."""
     early = weighted.table[weighted.table["time"] < 0]
@@ -181,8 +274,8 @@ def _prov(given: ExportInput, folder: Path) -> dict[str, str]:
     )
 
 
-# checks that run before anything is written: a refused export leaves no files behind
-CHECKS: dict[str, Callable[[WeightedTable], None]] = {"petab": _check_petab}
+# what runs before anything is written: a refused export leaves no files behind
+PREPARE: dict[str, Callable[[Ledger, WeightedTable], Prepared]] = {"petab": _prepare_petab}
 
 FORMATS: dict[str, Writer] = {
     "table": _table,

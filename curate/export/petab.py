@@ -16,7 +16,9 @@ every condition column.
 
 No model is written: ``observableFormula`` names a placeholder ``<observableId>_model`` for
 absolute data, which the modeller replaces with their model's expression; data imported from
-PEtab keep their original formula, transformation and observable parameters.
+PEtab keep their original formula, transformation and observable parameters. A selection whose
+datasets all come from one stored problem is written by :mod:`curate.export.petab_problem`
+instead: that problem whole, with its model.
 """
 
 from __future__ import annotations

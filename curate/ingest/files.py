@@ -46,7 +46,7 @@ __all__ = [
 ]
 
 # annotations holding one text cell per point, kept in the same (time-sorted) order as the arrays
-_PER_POINT_ANNOTATIONS = ("extra_columns", "petab_rows")
+_PER_POINT_ANNOTATIONS = ("extra_columns", "petab_rows", "petab_row_index")
 # normalisations to a reference of the same series or experiment: values in '%' or a fraction
 # of such a reference are relative (a fit needs a scale factor), not absolute dimensionless
 REFERENCE_NORMALISATIONS = ("peak", "reference_time", "reference_condition")

@@ -2,8 +2,9 @@
 
 Rows are grouped by (observableId, simulationConditionId, preequilibrationConditionId,
 datasetId); replicates stay together. Every cell of every measurement row is kept verbatim
-(``annotations['petab_rows']``), together with the observable's and the condition's table
-rows, so that an export can give back each measurement, time and noise value exactly.
+(``annotations['petab_rows']``), with each point's row number in its file
+(``annotations['petab_row_index']``) and the observable's and the condition's table rows, so
+that an export can give back each measurement, time and noise value exactly, in file order.
 Files are read as text first; real problems have CRLF line ends, missing final newlines and
 columns we do not interpret.
 
@@ -430,6 +431,9 @@ def _drafts_from_measurements(
                     "measurement_file_sha256": sha256,
                 },
                 "petab_rows": petab_rows,
+                # each point's data row in its measurement file (0 = the first row under the
+                # header): intake sorts points by time, an export gives back the file's order
+                "petab_row_index": {"row": [int(i) for i in rows]},
             },
         )
         drafts.append(dataclasses.replace(draft, requested_id=requested))
