@@ -50,21 +50,6 @@ class ProblemFit:
     rows: list[dict[str, str]]  # each point's PEtab measurement row as imported (for --simulations)
 
 
-def _linked_version(weighted: WeightedTable, problem_id: str) -> int:
-    versions = {
-        int(link["version"])
-        for version in weighted.versions
-        if isinstance(link := version.record.annotations.get("petab_problem"), dict)
-        and link.get("id") == problem_id
-    }
-    if len(versions) > 1:
-        raise InputError(
-            f"the selection holds datasets of versions {', '.join(map(str, sorted(versions)))} of "
-            f"problem {problem_id}; select one version's datasets (e.g. with --id)"
-        )
-    return versions.pop()
-
-
 def problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: Selection,
                 spec: ParameterSpec | None = None,
                 tolerances: SolverTolerances | None = None) -> ProblemFit:  # fmt: skip
@@ -82,9 +67,14 @@ def problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: 
             f"--problem {problem_id}: no dataset of the selection comes from it "
             f"({selection.describe()})"
         )
-    weighted = weighted_table(catalog, policy, dataclasses.replace(selection, ids=ids))
-    version = _linked_version(weighted, problem_id)
-    problem = read_problem(catalog.store, problem_id, version)
+    # the problem's noise formulas give sigma: a dataset without a measured sd must not stop
+    # the table (its sd column is then the policy's default, used only by a balancing policy)
+    lenient = dataclasses.replace(policy, unknown_noise="default")
+    weighted = weighted_table(catalog, lenient, dataclasses.replace(selection, ids=ids))
+    weighted = dataclasses.replace(weighted, policy=policy)
+    # the newest version, as `export petab` writes it (an edit such as new bounds makes a new
+    # problem version while its unchanged datasets stay linked to the first)
+    problem = read_problem(catalog.store, problem_id)
     backend = PetabSbml(problem.files, problem.source, problem_id=problem.id,
                         version=problem.version, tolerances=tolerances)  # fmt: skip
     points, rows = _with_petab_rows(weighted)
