@@ -4,7 +4,8 @@
 
     CurateError                 anything the user can fix; the CLI prints str(err), exits 2
     ├── InputError              a file, cell, option or sidecar field is not what is expected
-    │   └── UnitError           a unit string is unknown or has the wrong dimension
+    │   ├── UnitError           a unit string is unknown or has the wrong dimension
+    │   └── SimulationFailed    a model's ODEs could not be integrated at given parameters
     ├── NotFoundError           a dataset id or version the catalog does not hold
     ├── CatalogError            the catalog file cannot be opened or written as asked
     └── IntegrityError          stored data no longer matches its hashes (tampering, corruption)
@@ -23,6 +24,7 @@ __all__ = [
     "InputError",
     "IntegrityError",
     "NotFoundError",
+    "SimulationFailed",
     "UnitError",
     "where",
 ]
@@ -38,6 +40,10 @@ class InputError(CurateError):
 
 class UnitError(InputError):
     """A unit string pint does not know, or a unit of the wrong dimension for its role."""
+
+
+class SimulationFailed(InputError):
+    """The ODE solver failed at some parameters (a fit records a failed start, not a crash)."""
 
 
 class NotFoundError(CurateError):

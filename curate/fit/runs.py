@@ -89,7 +89,11 @@ def _problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection:
     from curate.fit.backends.petab_sbml import SolverTolerances
     from curate.fit.problem_runs import problem_fit
 
-    solver = SolverTolerances(**tolerances) if tolerances else None
+    solver = None
+    if tolerances:
+        default = SolverTolerances()
+        solver = SolverTolerances(relative=float(tolerances.get("relative", default.relative)),
+                                  absolute=float(tolerances.get("absolute", default.absolute)))  # fmt: skip
     return problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
                        tolerances=solver)  # fmt: skip
 

@@ -1,7 +1,9 @@
 """Model backends by kind: every way curate runs a model goes through one protocol.
 
 - ``python``: a Python function, in process or rebuilt in workers from its reference;
-- ``external``: a program that fits the exported table itself.
+- ``external``: a program that fits the exported table itself;
+- ``petab-sbml``: a stored PEtab problem, its SBML model simulated with libroadrunner (imported
+  on first use, so that importing curate does not load libroadrunner).
 
 Adding a backend is one module with a :class:`ModelBackend` subclass and one entry in
 :data:`BACKENDS`.
@@ -35,7 +37,12 @@ BACKENDS: dict[str, type[ModelBackend]] = {
 def rebuild(description: dict[str, Any]) -> ModelBackend:
     """Give the backend a run record (or a worker task) describes."""
     kind = str(description.get("kind", ""))
+    if kind == "petab-sbml" and kind not in BACKENDS:  # sympy and libroadrunner load on first use
+        from curate.fit.backends.petab_sbml import PetabSbml
+
+        BACKENDS[kind] = PetabSbml
     backend = BACKENDS.get(kind)
     if backend is None:
-        raise InputError(f"unknown model backend '{kind}'; known: {', '.join(sorted(BACKENDS))}")
+        known = ", ".join(sorted({*BACKENDS, "petab-sbml"}))
+        raise InputError(f"unknown model backend '{kind}'; known: {known}")
     return backend.from_description(description)

@@ -1,0 +1,312 @@
+"""A PEtab v1 problem's model, simulated with libroadrunner: conditions, preequilibration, formulas.
+
+Semantics (PEtab v1 specification, "Condition table", "Observables table", "Measurement table"):
+
+- every parameter-table id that is a model parameter takes its value (nominal, or the fitted
+  one) before each simulation; a condition-table column sets a model parameter, a species'
+  initial concentration or a compartment's initial size, to a number or a parameter-table id;
+  an empty or NaN cell keeps the model's own value (after preequilibration: the preequilibrated
+  value);
+- a row with a preequilibration condition is simulated from the preequilibration condition to
+  a steady state first; then the simulation condition's parameters apply and every state keeps
+  its preequilibrated value except the states the simulation condition sets (partial
+  preequilibration);
+- the observable formula gives the simulation, the noise formula sigma, both with the row's
+  ``observableParameter{n}_{id}`` / ``noiseParameter{n}_{id}`` placeholders filled from its
+  ``observableParameters`` / ``noiseParameters`` (numbers or parameter ids, per row), and with
+  model species (concentrations), parameters, compartments, parameter-table ids, condition-table
+  output parameters and ``time``.
+
+Each (preequilibration, simulation condition) pair is simulated once per evaluation, at the union
+of its rows' times. Solver tolerances are explicit (:class:`SolverTolerances`).
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import yaml
+
+from curate.errors import InputError, SimulationFailed
+from curate.fit.petab.formulas import Formula, parse_formula
+from curate.ingest.petab import petab_file_names
+
+__all__ = ["PetabModel", "SolverTolerances"]
+
+_STEADY_RATE = 1e-10  # max |dx/dt| (relative to max(1, |x|)) taken as a steady state
+_STEADY_HORIZONS = (1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8)
+
+
+@dataclass(frozen=True)
+class SolverTolerances:
+    """The ODE solver's settings (CVODE inside libroadrunner), recorded with every run."""
+
+    relative: float = 1e-8
+    absolute: float = 1e-10
+    max_steps: int = 100_000
+
+    def to_dict(self) -> dict[str, float]:
+        """Give the settings as plain data."""
+        return {"relative": self.relative, "absolute": self.absolute, "max_steps": self.max_steps}
+
+
+def _table(files: dict[str, bytes], names: list[str], kind: str) -> tuple[pd.DataFrame, str]:
+    frames = []
+    for name in names:
+        try:
+            frames.append(pd.read_csv(io.BytesIO(files[name]), sep="\t", dtype=str,
+                                      keep_default_na=False))  # fmt: skip
+        except (KeyError, pd.errors.ParserError, UnicodeDecodeError) as err:
+            raise InputError(f"{name}: cannot read the {kind} table ({err})") from None
+    if not frames:
+        return pd.DataFrame(), ""
+    return pd.concat(frames, ignore_index=True), names[0]
+
+
+def _number(text: str) -> float | None:
+    try:
+        value = float(text)
+    except ValueError:
+        return None
+    return value
+
+
+@dataclass
+class _Observable:
+    id: str
+    formula: Formula
+    noise: Formula
+    transformation: str
+    distribution: str
+
+
+@dataclass
+class PetabModel:
+    """A PEtab problem's model and tables, ready to simulate rows at given parameters."""
+
+    files: dict[str, bytes]
+    source: str
+    tolerances: SolverTolerances = field(default_factory=SolverTolerances)
+
+    def __post_init__(self) -> None:
+        try:
+            description = yaml.safe_load(self.files[self.source].decode("utf-8"))
+        except (KeyError, UnicodeDecodeError, yaml.YAMLError) as err:
+            raise InputError(f"{self.source}: cannot read the problem's YAML ({err})") from None
+        names = petab_file_names(description, self.source)
+        if not names["sbml"]:
+            raise InputError(f"{self.source}: the problem names no SBML model; nothing to simulate")
+        self.sbml_name = names["sbml"][0]
+        conditions, self.condition_file = _table(self.files, names["condition"], "condition")
+        observables, self.observable_file = _table(self.files, names["observable"], "observable")
+        parameters, self.parameter_file = _table(self.files, names["parameter"], "parameter")
+        self.conditions = {
+            str(row["conditionId"]).strip(): row for row in conditions.to_dict("records")
+        }
+        self.parameters = parameters
+        self.nominal = {
+            str(row["parameterId"]).strip(): float(row["nominalValue"])
+            for row in parameters.to_dict("records")
+        }
+        self._load_model()
+        self.observables = {
+            str(row["observableId"]).strip(): self._observable(row, k)
+            for k, row in enumerate(observables.to_dict("records"))
+        }
+        self._check_conditions()
+
+    # -- the model -------------------------------------------------------------------------
+
+    def _load_model(self) -> None:
+        import roadrunner
+
+        try:
+            text = self.files[self.sbml_name].decode("utf-8")
+            self.runner = roadrunner.RoadRunner(text)
+        except Exception as err:  # libroadrunner raises RuntimeError and others
+            first = (str(err).strip().splitlines() or ["no message"])[0]
+            raise InputError(
+                f"{self.sbml_name}: libroadrunner cannot load the SBML model: {first}"
+            ) from None
+        runner = self.runner
+        integrator = runner.integrator
+        integrator.relative_tolerance = self.tolerances.relative
+        integrator.absolute_tolerance = self.tolerances.absolute
+        integrator.maximum_num_steps = self.tolerances.max_steps
+        model = runner.model
+        self.species = list(model.getFloatingSpeciesIds()) + list(model.getBoundarySpeciesIds())
+        rules = set(runner.getAssignmentRuleIds())
+        self.model_parameters = list(model.getGlobalParameterIds())
+        self.settable = [p for p in self.model_parameters if p not in rules]
+        self.compartments = list(model.getCompartmentIds())
+        self.model_symbols = set(self.species) | set(self.model_parameters) | set(self.compartments)
+        # the state variables (species amounts, rate-rule targets), named as the rates name them
+        self.state_ids = [str(c).rstrip("'") for c in runner.getRatesOfChangeNamedArray().colnames]
+
+    def _observable(self, row: dict[str, str], index: int) -> _Observable:
+        observable_id = str(row["observableId"]).strip()
+        where = f"{self.observable_file}, row {index + 2} ({observable_id})"
+        formula = parse_formula(
+            row.get("observableFormula", ""), where=where + ", observableFormula"
+        )
+        noise = parse_formula(row.get("noiseFormula", "") or "1", where=where + ", noiseFormula")
+        transformation = (row.get("observableTransformation") or "lin").strip() or "lin"
+        distribution = (row.get("noiseDistribution") or "normal").strip() or "normal"
+        if transformation not in ("lin", "log", "log10"):
+            raise InputError(
+                f"{where}, observableTransformation: '{transformation}'; expected lin, log or log10"
+            )
+        if distribution not in ("normal", "laplace"):
+            raise InputError(
+                f"{where}, noiseDistribution: '{distribution}'; expected normal or laplace"
+            )
+        output = self._output_parameters()
+        for column, parsed in (("observableFormula", formula), ("noiseFormula", noise)):
+            for name in parsed.names:
+                if name.startswith(("observableParameter", "noiseParameter")) and name.endswith(
+                    f"_{observable_id}"
+                ):
+                    continue
+                if (
+                    name in self.model_symbols
+                    or name in self.nominal
+                    or name in output
+                    or name == "time"
+                ):
+                    continue
+                raise InputError(
+                    f"{where}, {column}: '{name}' is neither a model symbol, a parameter-table id "
+                    "nor a placeholder of this observable"
+                )
+        return _Observable(observable_id, formula, noise, transformation, distribution)
+
+    def _output_parameters(self) -> set[str]:
+        """Give the condition-table columns that are not model symbols (observable parameters)."""
+        columns = {c for row in self.conditions.values() for c in row} - {
+            "conditionId",
+            "conditionName",
+        }
+        return {c for c in columns if c not in self.model_symbols}
+
+    def _check_conditions(self) -> None:
+        used = {n for o in self.observables.values() for n in (*o.formula.names, *o.noise.names)}
+        for column in sorted(self._output_parameters()):
+            if column not in used:
+                raise InputError(
+                    f"{self.condition_file}, column {column}: the model has no symbol '{column}' "
+                    "and no observable or noise formula uses it"
+                )
+
+    # -- values ------------------------------------------------------------------------------
+
+    def _value(self, cell: str, parameters: dict[str, float], where: str) -> float:
+        text = str(cell).strip()
+        number = _number(text)
+        if number is not None:
+            return number
+        if text in parameters:
+            return float(parameters[text])
+        if text in self.nominal:
+            return self.nominal[text]
+        raise InputError(f"{where}: '{text}' is neither a number nor a parameter-table id")
+
+    def _condition(self, condition_id: str) -> dict[str, str]:
+        row = self.conditions.get(condition_id)
+        if row is None:
+            raise InputError(
+                f"{self.condition_file}: no condition '{condition_id}' for a measurement row"
+            )
+        return dict(row)
+
+    def _overrides(self, condition_id: str, parameters: dict[str, float]) -> dict[str, float]:
+        """Give the condition's model-symbol values (NaN and empty cells left out)."""
+        out: dict[str, float] = {}
+        for column, cell in self._condition(condition_id).items():
+            if column in ("conditionId", "conditionName") or column not in self.model_symbols:
+                continue
+            if not str(cell).strip():
+                continue
+            value = self._value(
+                cell,
+                parameters,
+                f"{self.condition_file}, condition {condition_id}, column {column}",
+            )
+            if not math.isnan(value):
+                out[column] = value
+        return out
+
+    def _initialise(self, condition_id: str, parameters: dict[str, float]) -> dict[str, float]:
+        """Reset the model to its values under one condition; give the condition's overrides."""
+        runner = self.runner
+        runner.resetAll()
+        overrides = self._overrides(condition_id, parameters)
+        for name in self.settable:
+            if name in overrides:
+                continue
+            if name in parameters:
+                runner.setValue(f"init({name})", float(parameters[name]))
+            elif name in self.nominal:
+                runner.setValue(f"init({name})", self.nominal[name])
+        for name, value in overrides.items():
+            if name in self.compartments or name in self.settable:
+                runner.setValue(f"init({name})", value)
+        for name, value in overrides.items():
+            if name in self.species:
+                runner.setValue(f"init([{name}])", value)
+        runner.reset()
+        return overrides
+
+    def _steady_state(self, where: str) -> None:
+        runner = self.runner
+        start = 0.0
+        for horizon in _STEADY_HORIZONS:
+            runner.simulate(start, horizon, 2)
+            start = horizon
+            rates = np.asarray(runner.getRatesOfChange(), dtype=float)
+            state = np.array([runner.getValue(n) for n in self.state_ids], dtype=float)
+            if np.all(np.abs(rates) <= _STEADY_RATE * np.maximum(1.0, np.abs(state))):
+                return
+        raise SimulationFailed(f"{where}: no steady state reached by t = {_STEADY_HORIZONS[-1]:g}")
+
+    def simulate(self, pre: str, condition: str, times: np.ndarray, names: list[str],
+                 parameters: dict[str, float]) -> dict[str, np.ndarray]:  # fmt: skip
+        """Give each named model symbol's value at each time under one condition pair."""
+        runner = self.runner
+        where = f"condition {condition}" + (f" after preequilibration {pre}" if pre else "")
+        try:
+            if pre:
+                self._initialise(pre, parameters)
+                self._steady_state(f"preequilibration {pre}")
+                kept = {n: runner.getValue(n) for n in self.state_ids}
+                overrides = self._initialise(condition, parameters)
+                for name, value in kept.items():  # states the condition sets start afresh
+                    if name not in overrides:
+                        runner.setValue(name, value)
+            else:
+                self._initialise(condition, parameters)
+            grid = np.unique(np.concatenate([[0.0], times]))
+            selections = ["time"] + [f"[{n}]" if n in self.species else n for n in names]
+            runner.timeCourseSelections = selections
+            if len(grid) == 1:
+                values = np.array([[0.0] + [runner.getValue(s) for s in selections[1:]]])
+            else:
+                values = np.asarray(runner.simulate(times=grid.tolist()), dtype=float)
+        except SimulationFailed:
+            raise
+        except RuntimeError as err:
+            first = (str(err).strip().splitlines() or ["no message"])[0]
+            shown = ", ".join(f"{k}={v:.4g}" for k, v in list(parameters.items())[:8])
+            raise SimulationFailed(
+                f"{self.sbml_name}: the simulation of {where} failed at {shown}: {first}"
+            ) from None
+        position = np.searchsorted(values[:, 0], times)
+        return {name: values[position, k + 1] for k, name in enumerate(names)}
+
+    def parameter_rows(self) -> list[dict[str, Any]]:
+        """Give the parameter table's rows as dicts (text cells)."""
+        return list(self.parameters.to_dict("records"))
