@@ -12,14 +12,12 @@ import yaml
 
 import curate
 
-petabtests = pytest.importorskip("petabtests")
-pytest.importorskip("roadrunner")
-
-# The PEtab test suite, version 1.0.0, SBML cases 0001-0018 (package `petabtests` on PyPI,
+# The PEtab test suite, version 1.0.0, SBML cases 0001-0018 (package `petabtests` 0.0.1 on PyPI,
 # BSD-3-Clause, https://github.com/PEtab-dev/petab_test_suite): each case gives the problem and
 # the expected chi2, log-likelihood and simulations at the nominal parameters, with its own
-# tolerances.
-SUITE = Path(petabtests.CASES_DIR) / "v1.0.0" / "sbml"
+# tolerances. The case files are copied into tests/data/petab_suite with the suite's licence:
+# the package's sdist requires pysb, whose build downloads setuptools from the network.
+SUITE = Path(__file__).parent / "data" / "petab_suite" / "sbml"
 CASES = [f"{k:04d}" for k in range(1, 19)]
 
 # inflation 1 for every grade, no floors, no balancing: curate's trust leaves sigma as it is
@@ -83,8 +81,8 @@ def test_petab_suite_case_evaluates_to_its_chi2_llh_and_simulations(case, cli, t
         frame["time"] = frame["time"].astype(float)
         for key in keys[1:]:
             frame[key] = frame[key].astype(str) if key != "time" else frame[key]
-    ours = ours.sort_values(keys + ["simulation"], kind="stable").reset_index(drop=True)
-    theirs = theirs.sort_values(keys + ["simulation"], kind="stable").reset_index(drop=True)
+    ours = ours.sort_values([*keys, "simulation"], kind="stable").reset_index(drop=True)
+    theirs = theirs.sort_values([*keys, "simulation"], kind="stable").reset_index(drop=True)
     assert (ours[keys].astype(str).to_numpy() == theirs[keys].astype(str).to_numpy()).all()
     np.testing.assert_allclose(
         ours["simulation"].to_numpy(float), theirs["simulation"].to_numpy(float),
@@ -117,7 +115,9 @@ def test_simulations_into_a_missing_folder_is_refused_before_any_work(cli, tmp_p
     assert not (tmp_path / "no").exists()
 
 
-def test_fit_from_the_nominal_point_does_not_end_worse_and_records_tolerances(cli, tmp_path, neutral):
+def test_fit_from_the_nominal_point_does_not_end_worse_and_records_tolerances(
+    cli, tmp_path, neutral
+):
     problem_id = _import(cli, tmp_path, SUITE / "0002" / "_0002.yaml")
     catalog = tmp_path / "curate.db"
     start = json.loads(cli("fit", "--problem", problem_id, "--evaluate", "--policy", neutral,

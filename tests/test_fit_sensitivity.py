@@ -433,9 +433,15 @@ def test_leaving_out_one_of_two_doses_flags_the_dose_response_parameters(method)
         )
         assert all(np.isfinite(p["value"]) for p in group.parameters.values())
     errors = {g.group: g.error for g in result.groups}
-    # the exact refit without the high dose runs off along the lost direction: said, not crashed
-    ran_off = "the parameters ran off to infinity" if method == "exact" else None
-    assert errors == {"10": None, "100": ran_off}
+    # an exact refit on one dose may run off along the lost direction (Emax and EC50 grow
+    # together; whether it does for the low dose too depends on the optimiser's path): said, not
+    # crashed. The one-step approximation never refits, so it never runs off.
+    ran_off = "the parameters ran off to infinity"
+    if method == "exact":
+        assert set(errors.values()) <= {None, ran_off}
+        assert errors["100"] == ran_off
+    else:
+        assert errors == {"10": None, "100": None}
     # leaving out a dataset keeps both doses: nothing is lost, nothing flagged as such
     by_dataset = sensitivity.leave_one_group_out(
         problem, full, points["dataset_id"].to_numpy(), by="dataset", method=method
