@@ -129,8 +129,22 @@ def test_group_that_holds_a_parameters_only_data():
         problem, full, points["dataset_id"].to_numpy(), by="dataset"
     )
     without_b = next(g for g in result.groups if g.group == "b")
-    assert without_b.error == "leaves shift_b with no data"
-    assert "leaving out dataset b leaves shift_b with no data" in without_b.flags[0]
+    # shift_b acts only on b's rows: without b it is held, and the rest is refitted exactly
+    assert without_b.error is None
+    assert without_b.flags[0].startswith(
+        "leaving out dataset b leaves shift_b with no data: held at the full-fit value"
+    )
+    assert without_b.parameters["shift_b"] == {"value": None, "shift_se": None}
+    # reference: the straight line through a's points alone (numpy's polyfit)
+    slope, intercept = np.polyfit([0, 1, 2, 3.0], [1, 2, 3, 4.0], 1)
+    assert without_b.parameters["m"]["value"] == pytest.approx(slope, abs=1e-8)
+    assert without_b.parameters["c"]["value"] == pytest.approx(intercept, abs=1e-8)
+    one_step = sensitivity.leave_one_group_out(
+        problem, full, points["dataset_id"].to_numpy(), by="dataset", method="one-step"
+    )
+    quick = next(g for g in one_step.groups if g.group == "b")  # linear: one step is exact
+    assert quick.parameters["m"]["value"] == pytest.approx(slope, abs=1e-8)
+    assert quick.parameters["shift_b"]["value"] is None
 
 
 def test_needs_two_groups():

@@ -16,8 +16,10 @@ jackknife standard error sqrt((G-1)/G * sum (theta_g - mean)^2).
 Thresholds (common practice, no single source): a shift beyond 2 standard errors, and a Cook
 distance above 1 (the usual rule of thumb for Cook's D), are flagged.
 
-A group whose removal leaves some parameters unidentifiable is flagged too: with no data left
-for a parameter the refit is skipped; where the remaining data determine fewer parameter
+A group whose removal leaves some parameters unidentifiable is flagged too: a parameter with no
+data left (it acts only on the held-out rows, as a PEtab problem's noise parameter of one
+dataset does) cannot move the rest's optimum, so the refit holds it at its full-fit value and
+reports it as not identified without the group; where the remaining data determine fewer parameter
 combinations than the full data (the Jacobian at the full optimum loses rank, e.g. one of two
 doses left out of a dose-response model), the refit runs and the flag names the parameters
 whose shifts mean little, with the condition that no longer varies in training.
@@ -25,6 +27,7 @@ whose shifts mean little, with the condition that no longer varies in training.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import multiprocessing
 from collections.abc import Callable, Sequence
@@ -219,14 +222,31 @@ class _Task:
 
     @classmethod
     def of(cls, problem: FitProblem, group: str, keep: np.ndarray, theta0: np.ndarray,
-           options: FitOptions, *, in_worker: bool) -> _Task:  # fmt: skip
-        """Give the task of one refit; a portable backend travels as its description."""
+           options: FitOptions, *, in_worker: bool, held: Sequence[str] = ()) -> _Task:  # fmt: skip
+        """Give the task of one refit; a portable backend travels as its description.
+
+        ``held`` parameters (no data left) are held at their values in ``theta0``.
+        """
         backend = problem.backend
+        spec, theta0 = _holding(problem, theta0, held)
         if in_worker and backend.portable:
-            return cls(
-                group, keep, theta0, None, backend.describe(), problem.points, problem.spec, options
-            )
-        return cls(group, keep, theta0, backend, None, problem.points, problem.spec, options)
+            return cls(group, keep, theta0, None, backend.describe(), problem.points, spec, options)
+        return cls(group, keep, theta0, backend, None, problem.points, spec, options)
+
+
+def _holding(problem: FitProblem, theta: np.ndarray,
+             held: Sequence[str]) -> tuple[ParameterSpec, np.ndarray]:  # fmt: skip
+    """Give the spec with ``held`` parameters fixed at their values in ``theta``, and the
+    optimiser vector of the others (their internal scaling is unchanged)."""
+    if not held:
+        return problem.spec, theta
+    natural = problem.to_natural(theta)
+    spec = dataclasses.replace(problem.spec, parameters=tuple(
+        dataclasses.replace(p, start=natural[p.name], fixed=True) if p.name in held else p
+        for p in problem.spec.parameters
+    ))  # fmt: skip
+    free = np.array([p.name not in held for p in problem.free])
+    return spec, theta[free]
 
 
 def _exact_refit(task: _Task) -> tuple[str, np.ndarray | None, np.ndarray | None, bool, str | None]:
@@ -355,6 +375,7 @@ def leave_one_group_out(
     stderr = {n: full.parameters[n]["stderr"] for n in names}
     inverse_cov = np.linalg.pinv(full.covariance)
     plans: dict[str, tuple[np.ndarray, np.ndarray, str | None]] = {}
+    holding: dict[str, list[str]] = {}  # group -> parameters with no data left without it
     weak: dict[str, str] = {}  # group -> the flag of parameters the rest no longer identify
     conditions = [c for c in problem.points.columns if c not in STANDARD_COLUMNS]
     already_lost = _small_directions(jacobian, np.arange(len(jacobian)))[0]
@@ -362,14 +383,16 @@ def leave_one_group_out(
         held = labels == group
         keep = np.flatnonzero(~held)
         kept_rows = problem.residual_index(keep)  # a noise model has two residuals per point
-        gap = _unidentified(jacobian, kept_rows, names, points=len(keep))
+        holding[group] = _without_data(jacobian, kept_rows, names)
+        ident = [k for k, n in enumerate(names) if n not in holding[group]]
+        gap = _too_few(len(keep), len(ident))
         plans[group] = (keep, np.flatnonzero(held), gap)
         if gap is None:
-            lost, weights = _small_directions(jacobian, kept_rows)
+            lost, weights = _small_directions(jacobian[:, ident], kept_rows)
             if lost > already_lost:
                 involved = [
-                    n
-                    for n, w in zip(names, weights[: lost - already_lost].sum(axis=0), strict=True)
+                    names[k]
+                    for k, w in zip(ident, weights[: lost - already_lost].sum(axis=0), strict=True)
                     if w > 0.1
                 ]
                 why = [f"{gap.name} takes one value ({gap.value}) in training" for gap in training_gaps(
@@ -385,22 +408,28 @@ def leave_one_group_out(
     if method == "exact":
         in_worker = dask is not None or workers > 1
         tasks = [
-            _Task.of(problem, group, keep, theta, options, in_worker=in_worker)
+            _Task.of(problem, group, keep, theta, options, in_worker=in_worker, held=holding[group])
             for group, (keep, _, gap) in plans.items()
             if gap is None
         ]
         results, executor = _run_tasks(tasks, workers=workers, dask=dask, progress=progress)
         for group, new_theta, _, converged, error in results:
+            if new_theta is not None and holding[group]:  # back to the full vector
+                full_theta = theta.copy()
+                full_theta[[n not in holding[group] for n in names]] = new_theta
+                new_theta = full_theta
             refits[group] = (new_theta, converged, error)
     else:
         for done, (group, (keep, _, gap)) in enumerate(plans.items()):
             if gap is None:
                 kept_rows = problem.residual_index(keep)
-                j, r = jacobian[kept_rows], residual[kept_rows]
+                ident = np.array([n not in holding[group] for n in names])
+                j, r = jacobian[np.ix_(kept_rows, ident)], residual[kept_rows]
+                step = np.zeros(len(theta))
                 if group in weak:  # step only along the directions the rest still determines
-                    step = -_determined_step(j, r)
+                    step[ident] = -_determined_step(j, r)
                 else:
-                    step = -covariance_from_jacobian(j) @ (j.T @ r)
+                    step[ident] = -covariance_from_jacobian(j) @ (j.T @ r)
                 refits[group] = (theta + step, True, None)
             if progress:
                 progress(done + 1, len(plans))
@@ -425,18 +454,30 @@ def leave_one_group_out(
         parameters: dict[str, dict[str, float | None]] = {}
         flags = []
         for k, name in enumerate(names):
+            if name in holding[group]:  # not identified without the group: nothing to report
+                parameters[name] = {"value": None, "shift_se": None}
+                continue
             se = stderr[name]
             shift = float(delta[k] / se) if se else None
             parameters[name] = {"value": natural[name], "shift_se": shift}
             if shift is not None and abs(shift) > shift_threshold:
                 flags.append(f"{name} depends on {by} {group}: shifts {shift:+.1f} SE without it")
-        cook = float(delta @ inverse_cov @ delta / len(names))
+        # over the parameters the rest identifies (the held ones do not move)
+        ident = np.array([n not in holding[group] for n in names])
+        block = inverse_cov[np.ix_(ident, ident)]
+        cook = float(delta[ident] @ block @ delta[ident] / max(1, int(ident.sum())))
         if cook > cook_threshold:
             flags.append(
                 f"the fit as a whole depends on {by} {group}: Cook distance {cook:.2f} (> {cook_threshold:g})"
             )
         if group in weak:
             flags.insert(0, weak[group])
+        if holding[group]:
+            flags.insert(0, (
+                f"leaving out {by} {group} leaves {', '.join(holding[group])} with no data: held "
+                "at the full-fit value in the refit (not identified without it; the held-out chi2 "
+                "uses that value, fitted with the group)"
+            ))  # fmt: skip
         held_residual = problem.point_residual(new_theta, held)
         heldout_chi2 = float(held_residual @ held_residual)
         heldout_dof = len(held) - problem.n_scale_factors(held)
@@ -476,22 +517,19 @@ def _small_directions(jacobian: np.ndarray, keep: np.ndarray) -> tuple[int, np.n
     return count, (vt[::-1] ** 2)
 
 
-def _unidentified(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str], *,
-                  points: int | None = None) -> str | None:  # fmt: skip
-    """Give a reason if some parameter has no data left in the kept rows, else None.
-
-    ``keep`` are residual rows; ``points`` how many data points they stand for (default: one each).
-    """
-    count = len(keep) if points is None else points
+def _without_data(jacobian: np.ndarray, keep: np.ndarray, names: Sequence[str]) -> list[str]:
+    """Give the parameters the kept residual rows do not depend on at all (no data left)."""
     full_norm = np.linalg.norm(jacobian, axis=0)
     kept_norm = np.linalg.norm(jacobian[keep], axis=0) if len(keep) else np.zeros(len(names))
-    lost = [
+    return [
         n for n, a, b in zip(names, full_norm, kept_norm, strict=True) if a > 0 and b <= 1e-10 * a
     ]
-    if lost:
-        return f"leaves {', '.join(lost)} with no data"
-    if count <= len(names):
-        return f"leaves {count} points for {len(names)} parameters"
+
+
+def _too_few(points: int, parameters: int) -> str | None:
+    """Give a reason if the kept points cannot determine the parameters left, else None."""
+    if points <= parameters:
+        return f"leaves {points} points for {parameters} parameters"
     return None
 
 

@@ -338,21 +338,21 @@ def fit_text(result: FitResult) -> Group:
     return Group(*parts)
 
 
-def sensitivity_text(result: SensitivityResult) -> Group:
-    """Give what ``curate sensitivity`` prints."""
-    full = result.full if isinstance(result.full, dict) else result.full.to_dict()
-    names = list(full["parameters"])
-    how = result.executor if result.method == "external" else f"{result.method}, {result.executor}"
-    parts: list[Any] = [Text(f"leave one {result.by} out ({how}); "
-                             f"flags beyond {result.shift_threshold:g} SE", style="bold")]  # fmt: skip
+_SHIFT_COLUMNS = 6  # parameter columns per shift table (fits a 160-column terminal)
+
+
+def _shift_table(result: SensitivityResult, full: dict[str, Any], names: list[str], *,
+                 last: bool) -> Any:  # fmt: skip
+    """Give one table of shifts in SE for ``names``; the last one adds Cook D and held-out chi2."""
     shifted = [f"{name} (SE)" for name in names]
-    numbers = ["points", *shifted, "Cook D", "held-out chi2/dof"]
+    numbers = ["points", *shifted] + (["Cook D", "held-out chi2/dof"] if last else [])
     table = plain_table([f"without {result.by}", *numbers], right=numbers)
+    table.columns[0].no_wrap = True
+    table.columns[0].min_width = max([len(g.group) for g in result.groups] + [10])
     for group in result.groups:
         if group.error:
-            table.add_row(
-                group.group, str(group.n_points), *(["-"] * len(names)), "-", "refit failed (below)"
-            )
+            tail = ["-", "refit failed (below)"] if last else []
+            table.add_row(group.group, str(group.n_points), *(["-"] * len(names)), *tail)
             continue
         shifts = []
         for name in names:
@@ -370,14 +370,27 @@ def sensitivity_text(result: SensitivityResult) -> Group:
             if group.heldout_chi2 is not None
             else "-"
         )
-        table.add_row(
-            group.group,
-            str(group.n_points),
-            *shifts,
-            "-" if group.cook_distance is None else f"{group.cook_distance:.3g}",
-            heldout,
-        )
-    parts.append(table)
+        cook = "-" if group.cook_distance is None else f"{group.cook_distance:.3g}"
+        table.add_row(group.group, str(group.n_points), *shifts, *([cook, heldout] if last else []))
+    return table
+
+
+def sensitivity_text(result: SensitivityResult) -> Group:
+    """Give what ``curate sensitivity`` prints."""
+    full = result.full if isinstance(result.full, dict) else result.full.to_dict()
+    names = list(full["parameters"])
+    how = result.executor if result.method == "external" else f"{result.method}, {result.executor}"
+    parts: list[Any] = [Text(f"leave one {result.by} out ({how}); "
+                             f"flags beyond {result.shift_threshold:g} SE", style="bold")]  # fmt: skip
+    # fixed parameters do not move; many parameters go into several tables of a few columns
+    # each, so that no group name or column is cut off
+    free = [n for n in names if any(n in g.parameters for g in result.groups)] or names
+    chunks = [free[k : k + _SHIFT_COLUMNS] for k in range(0, len(free), _SHIFT_COLUMNS)] or [[]]
+    for number, chunk in enumerate(chunks):
+        last = number == len(chunks) - 1
+        if number:
+            parts.append(Text(""))
+        parts.append(_shift_table(result, full, chunk, last=last))
     parts += [Text(f"  without {result.by} {g.group}: {g.error}") for g in result.groups if g.error]
     if full.get("workdir"):
         parts.append(Text(f"the fitter's files (tables, results, logs) are in {full['workdir']}"))
