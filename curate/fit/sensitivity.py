@@ -423,13 +423,13 @@ def leave_one_group_out(
         for done, (group, (keep, _, gap)) in enumerate(plans.items()):
             if gap is None:
                 kept_rows = problem.residual_index(keep)
-                ident = np.array([n not in holding[group] for n in names])
-                j, r = jacobian[np.ix_(kept_rows, ident)], residual[kept_rows]
+                mask = np.array([n not in holding[group] for n in names])
+                j, r = jacobian[np.ix_(kept_rows, mask)], residual[kept_rows]
                 step = np.zeros(len(theta))
                 if group in weak:  # step only along the directions the rest still determines
-                    step[ident] = -_determined_step(j, r)
+                    step[mask] = -_determined_step(j, r)
                 else:
-                    step[ident] = -covariance_from_jacobian(j) @ (j.T @ r)
+                    step[mask] = -covariance_from_jacobian(j) @ (j.T @ r)
                 refits[group] = (theta + step, True, None)
             if progress:
                 progress(done + 1, len(plans))
@@ -463,9 +463,9 @@ def leave_one_group_out(
             if shift is not None and abs(shift) > shift_threshold:
                 flags.append(f"{name} depends on {by} {group}: shifts {shift:+.1f} SE without it")
         # over the parameters the rest identifies (the held ones do not move)
-        ident = np.array([n not in holding[group] for n in names])
-        block = inverse_cov[np.ix_(ident, ident)]
-        cook = float(delta[ident] @ block @ delta[ident] / max(1, int(ident.sum())))
+        moving = np.array([n not in holding[group] for n in names])
+        block = inverse_cov[np.ix_(moving, moving)]
+        cook = float(delta[moving] @ block @ delta[moving] / max(1, int(moving.sum())))
         if cook > cook_threshold:
             flags.append(
                 f"the fit as a whole depends on {by} {group}: Cook distance {cook:.2f} (> {cook_threshold:g})"
