@@ -2,8 +2,7 @@
 
 Problems: Boehm et al., J. Proteome Res. 2014 (doi 10.1021/pr5006923) and Fujita et al.,
 Sci. Signal. 2010 (doi 10.1126/scisignal.2000810), from the public PEtab benchmark collection
-(Benchmark-Models-PEtab; tests/data/petab/ holds the same files as
-/work/shared/reference/petab/). The linter and the likelihood are petab's own (petab.v1:
+(Benchmark-Models-PEtab; tests/data/petab/ holds the collection's files unchanged). The linter and the likelihood are petab's own (petab.v1:
 ``lint_problem``, ``calculate_llh``), an outside reference for "runnable" and for the objective.
 """
 
