@@ -376,6 +376,7 @@ def leave_one_group_out(
     inverse_cov = np.linalg.pinv(full.covariance)
     plans: dict[str, tuple[np.ndarray, np.ndarray, str | None]] = {}
     holding: dict[str, list[str]] = {}  # group -> parameters with no data left without it
+    moving: dict[str, np.ndarray] = {}  # group -> mask of the other parameters (refitted)
     weak: dict[str, str] = {}  # group -> the flag of parameters the rest no longer identify
     conditions = [c for c in problem.points.columns if c not in STANDARD_COLUMNS]
     already_lost = _small_directions(jacobian, np.arange(len(jacobian)))[0]
@@ -384,7 +385,8 @@ def leave_one_group_out(
         keep = np.flatnonzero(~held)
         kept_rows = problem.residual_index(keep)  # a noise model has two residuals per point
         holding[group] = _without_data(jacobian, kept_rows, names)
-        ident = [k for k, n in enumerate(names) if n not in holding[group]]
+        moving[group] = np.array([n not in holding[group] for n in names], dtype=bool)
+        ident = np.flatnonzero(moving[group])
         gap = _too_few(len(keep), len(ident))
         plans[group] = (keep, np.flatnonzero(held), gap)
         if gap is None:
@@ -416,14 +418,14 @@ def leave_one_group_out(
         for group, new_theta, _, converged, error in results:
             if new_theta is not None and holding[group]:  # back to the full vector
                 full_theta = theta.copy()
-                full_theta[[n not in holding[group] for n in names]] = new_theta
+                full_theta[moving[group]] = new_theta
                 new_theta = full_theta
             refits[group] = (new_theta, converged, error)
     else:
         for done, (group, (keep, _, gap)) in enumerate(plans.items()):
             if gap is None:
                 kept_rows = problem.residual_index(keep)
-                mask = np.array([n not in holding[group] for n in names])
+                mask = moving[group]
                 j, r = jacobian[np.ix_(kept_rows, mask)], residual[kept_rows]
                 step = np.zeros(len(theta))
                 if group in weak:  # step only along the directions the rest still determines
@@ -463,9 +465,9 @@ def leave_one_group_out(
             if shift is not None and abs(shift) > shift_threshold:
                 flags.append(f"{name} depends on {by} {group}: shifts {shift:+.1f} SE without it")
         # over the parameters the rest identifies (the held ones do not move)
-        moving = np.array([n not in holding[group] for n in names])
-        block = inverse_cov[np.ix_(moving, moving)]
-        cook = float(delta[moving] @ block @ delta[moving] / max(1, int(moving.sum())))
+        mask = moving[group]
+        block = inverse_cov[np.ix_(mask, mask)]
+        cook = float(delta[mask] @ block @ delta[mask] / max(1, int(mask.sum())))
         if cook > cook_threshold:
             flags.append(
                 f"the fit as a whole depends on {by} {group}: Cook distance {cook:.2f} (> {cook_threshold:g})"

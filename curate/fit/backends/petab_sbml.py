@@ -128,7 +128,7 @@ class PetabSbml(ModelBackend):
         times = points["petab_time"].to_numpy(dtype=float)
         observable_cells = points["petab_observableParameters"].fillna("").astype(str).to_numpy()
         noise_cells = points["petab_noiseParameters"].fillna("").astype(str).to_numpy()
-        output = model._output_parameters()
+        output = model.output_parameters
         for (pre, condition), index in pd.Series(range(n)).groupby([pres, conditions], sort=False):
             rows = index.to_numpy()
             needed = sorted({name for o in set(observable_ids[rows]) for name in self._names(o)

@@ -126,6 +126,7 @@ class PetabModel:
             for row in parameters.to_dict("records")
         }
         self._load_model()
+        self.output_parameters = self._output_parameters()  # once: every evaluation asks
         self.observables = {
             str(row["observableId"]).strip(): self._observable(row, k)
             for k, row in enumerate(observables.to_dict("records"))
@@ -179,7 +180,7 @@ class PetabModel:
             raise InputError(
                 f"{where}, noiseDistribution: '{distribution}'; expected normal or laplace"
             )
-        output = self._output_parameters()
+        output = self.output_parameters
         for column, parsed in (("observableFormula", formula), ("noiseFormula", noise)):
             for name in parsed.names:
                 if name.startswith(("observableParameter", "noiseParameter")) and name.endswith(
@@ -209,7 +210,7 @@ class PetabModel:
 
     def _check_conditions(self) -> None:
         used = {n for o in self.observables.values() for n in (*o.formula.names, *o.noise.names)}
-        for column in sorted(self._output_parameters()):
+        for column in sorted(self.output_parameters):
             if column not in used:
                 raise InputError(
                     f"{self.condition_file}, column {column}: the model has no symbol '{column}' "
