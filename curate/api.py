@@ -20,10 +20,13 @@ from curate.errors import CatalogError, InputError
 from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
+from curate.fit.problem_runs import check_problem_model
 from curate.fit.sensitivity import DEFAULT_SHIFT_THRESHOLD, SensitivityResult
 from curate.fit.spec import load_spec
+from curate.ingest import PetabImport, read_petab_import
 from curate.ledger import (
     DEFAULT_CATALOG,
+    AddResult,
     IntakeReport,
     Ledger,
     VerifyReport,
@@ -37,7 +40,16 @@ from curate.quality.grading import GradeSuggestion
 from curate.records import DatasetVersion
 from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_policy, weighted_table
 
-__all__ = ["Catalog", "open_catalog"]
+__all__ = ["Catalog", "open_catalog", "read_petab"]
+
+
+def read_petab(problem: str | Path, *, lab: str | None, time_unit: str, unit: str,
+               actor: str) -> PetabImport:  # fmt: skip
+    """Give a PEtab problem read whole, its model checked to load and its formulas to resolve."""
+    imported = read_petab_import(problem, lab=lab, time_unit=time_unit, unit=unit, actor=actor)
+    if imported.problem.model_ids:  # a problem without a model is data only
+        check_problem_model(imported.problem.files, imported.problem.source)
+    return imported
 
 
 def open_catalog(
@@ -70,6 +82,18 @@ class Catalog(Ledger):
 
     def __enter__(self) -> Catalog:
         return self
+
+    def import_petab(
+        self, problem: str | Path, *, lab: str | None = None, time_unit: str = "s", unit: str = "1"
+    ) -> builtins.list[AddResult]:
+        """Store a PEtab problem (its files byte for byte) and log its measurements, one
+        dataset per observable/condition/datasetId, each linked to the stored problem.
+
+        The model is checked first (:func:`read_petab`): nothing is stored for a problem whose
+        SBML libroadrunner cannot load or whose formulas name unknown symbols.
+        """
+        return self.add_petab(read_petab(problem, lab=lab, time_unit=time_unit, unit=unit,
+                                         actor=self.actor))  # fmt: skip
 
     # -- intake ----------------------------------------------------------------------------
 

@@ -7,6 +7,7 @@ import re
 import sqlite3
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 from conftest import LONG_CSV, SIDECAR, write
@@ -542,3 +543,150 @@ def test_a_bad_petab_problem_stores_nothing(seeded, tmp_path, name, spoil, expec
     spoil(problem.parent)
     line = refused(seeded, ["import-petab", problem], expected)
     assert not CLASS_NAME.search(line), line
+
+
+# -- stored problems whose model cannot be simulated ------------------------------------------
+SMALL = "_0001.yaml"  # the PEtab test suite's case 0001 (see tests/test_fit_problem.py)
+
+
+def _small_copy(folder: Path) -> Path:
+    import shutil
+
+    from conftest import DATA
+
+    shutil.copytree(DATA / "petab_suite" / "sbml" / "0001", folder)
+    return folder / SMALL
+
+
+BAD_MODELS = [
+    # (name, how the copy is spoilt, expected fragment of the one error line at import)
+    (
+        "SBML libroadrunner cannot load",
+        lambda f: _replace(f / "_model.xml", "<ci> k1 </ci>", "<ci> nothere </ci>"),
+        "_model.xml: libroadrunner cannot load the SBML model: The symbol 'nothere' is not",
+    ),
+    (
+        "observable formula naming an unknown symbol",
+        lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t", "obs_a\tA + zz\t"),
+        "_observables.tsv, row 2 (obs_a), observableFormula: 'zz' is neither a model symbol",
+    ),
+    (
+        "condition overriding a symbol the model lacks",
+        lambda f: (f / "_conditions.tsv").write_text("conditionId\tnosuch\nc0\t1\n"),
+        "_conditions.tsv, column nosuch: the model has no symbol 'nosuch'",
+    ),
+    (
+        "noise formula that does not parse",
+        lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t0.5", "obs_a\tA\t0.5 *"),
+        "_observables.tsv, row 2 (obs_a), noiseFormula",
+    ),
+]
+
+
+@pytest.mark.parametrize(("name", "spoil", "expected"), BAD_MODELS, ids=[c[0] for c in BAD_MODELS])
+def test_a_problem_whose_model_cannot_run_is_refused_at_import(
+    seeded, tmp_path, name, spoil, expected
+):
+    problem = _small_copy(tmp_path / "problem")
+    spoil(problem.parent)
+    line = refused(seeded, ["import-petab", problem, "--lab", "L"], expected)
+    assert not CLASS_NAME.search(line), line
+    assert "at virtual" not in line  # libroadrunner's C++ location is not the user's business
+
+
+def _stored(cli, problem: Path) -> str:
+    assert cli("import-petab", problem, "--lab", "L").code == 0
+    (stored,) = json.loads(cli("models", "--json").out)
+    return str(stored["id"])
+
+
+def _fit_events(catalog: Path) -> int:
+    conn = sqlite3.connect(catalog)
+    try:
+        return int(conn.execute("select count(*) from events where kind = 'fit'").fetchone()[0])
+    finally:
+        conn.close()
+
+
+BLOW_UP = """<times/>
+              <cn> -1 </cn>
+              <ci> k1 </ci>
+              <ci> A </ci>
+              <ci> A </ci>"""  # dA/dt = k1 A^2 runs off to infinity at t = 1 / (k1 A(0))
+RATE_FWD = """<times/>
+              <ci> compartment </ci>
+              <ci> k1 </ci>
+              <ci> A </ci>"""
+
+
+@pytest.mark.parametrize(
+    ("name", "spoil", "expected"),
+    [
+        (
+            "noise formula <= 0",
+            lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t0.5", "obs_a\tA\tA - 0.5"),
+            "_observables.tsv, observable obs_a: the noise formula gives -0.0714",
+        ),
+        (
+            "integration fails at the start point",
+            lambda f: _replace(f / "_model.xml", RATE_FWD, BLOW_UP),
+            "_model.xml: the simulation of condition c0 failed at a0=1, b0=0, k1=0.8, k2=0.6: "
+            "CVODE Error",
+        ),
+    ],
+    ids=["noise <= 0", "failed integration"],
+)
+def test_an_evaluation_that_cannot_be_done_is_one_line_and_stores_no_run(
+    cli, tmp_path, name, spoil, expected
+):
+    problem = _small_copy(tmp_path / "problem")
+    spoil(problem.parent)
+    problem_id = _stored(cli, problem)
+    line = refused(cli, ["fit", "--problem", problem_id, "--evaluate"], expected)
+    assert not CLASS_NAME.search(line.replace("CVODE Error", "")), line
+    assert _fit_events(cli.catalog) == 0
+
+
+def test_a_start_whose_integration_fails_is_a_recorded_failed_start(cli, tmp_path):
+    problem = _small_copy(tmp_path / "problem")
+    folder = problem.parent
+    _replace(folder / "_model.xml", RATE_FWD, BLOW_UP)
+    # eleven points; a0 and b0 fixed; k1 = 0.01 runs off at t = 100, past the last time (10),
+    # while most starts drawn in [0, 10] run off before it
+    rows = [f"obs_a\tc0\t{t}\t{1 / (1 - 0.01 * t):.6f}" for t in range(11)]
+    (folder / "_measurements.tsv").write_text(
+        "observableId\tsimulationConditionId\ttime\tmeasurement\n" + "\n".join(rows) + "\n"
+    )
+    (folder / "_parameters.tsv").write_text(
+        "parameterId\tparameterScale\tlowerBound\tupperBound\tnominalValue\testimate\n"
+        "a0\tlin\t0\t10\t1.0\t0\nb0\tlin\t0\t10\t0.0\t0\n"
+        "k1\tlin\t0\t10\t0.01\t1\nk2\tlin\t0\t10\t0.6\t1\n"
+    )
+    problem_id = _stored(cli, problem)
+    run = cli("fit", "--problem", problem_id, "--starts", "6", "--json")
+    assert run.code == 0, run.err
+    result = json.loads(run.out)
+    failed = [s for s in result["starts"] if s["chi2"] is None]
+    assert failed, result["starts"]
+    assert all("the simulation of condition c0 failed" in s["message"] for s in failed)
+    assert result["parameters"]["k1"]["value"] == pytest.approx(0.01, rel=1e-4)
+
+
+def test_the_solver_prints_nothing_of_its_own_when_it_fails(tmp_path, capfd):
+    from curate.errors import SimulationFailed
+    from curate.fit.petab.model import PetabModel
+
+    problem = _small_copy(tmp_path / "problem")
+    _replace(problem.parent / "_model.xml", RATE_FWD, BLOW_UP)
+    files = {
+        p.name: p.read_bytes()
+        for p in problem.parent.iterdir()
+        if p.suffix in (".yaml", ".tsv", ".xml")
+    }
+    model = PetabModel(files, SMALL)
+    capfd.readouterr()
+    with pytest.raises(SimulationFailed, match="CV_CONV_FAILURE"):
+        model.simulate("", "c0", np.array([0.0, 10.0]), ["A"], {"k1": 0.8, "a0": 1.0})
+    captured = capfd.readouterr()  # what reached file descriptors 1 and 2
+    assert "CVODE" not in captured.err and "cvodes" not in captured.err, captured.err
+    assert captured.out == ""

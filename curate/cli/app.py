@@ -18,12 +18,12 @@ import typer
 from rich.console import Console
 from typer.core import TyperGroup
 
-from curate.api import Catalog, open_catalog
+from curate.api import Catalog, open_catalog, read_petab
 from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions, selection_options
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
-from curate.ingest import build_draft, read_petab_import
+from curate.ingest import build_draft
 from curate.jsontext import to_json
 from curate.ledger import AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
@@ -272,7 +272,7 @@ def import_petab(
     """Store a PEtab problem (YAML, SBML and tables byte for byte) and log its measurements,
     one dataset per observable and condition, each linked to the stored problem."""
     # read and validate the problem before the catalog is opened: a bad problem creates nothing
-    imported = read_petab_import(
+    imported = read_petab(
         problem, lab=lab, time_unit=time_unit, unit=unit, actor=state.actor or default_actor()
     )
     with _catalog(create=True) as catalog:

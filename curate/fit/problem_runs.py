@@ -25,7 +25,7 @@ from curate.ledger import Ledger
 from curate.ledger.problems import StoredProblem, read_problem, summarise_problems
 from curate.weighting import Policy, Selection, WeightedTable, weighted_table
 
-__all__ = ["PETAB_COLUMNS", "ProblemFit", "problem_fit", "simulation_table"]
+__all__ = ["PETAB_COLUMNS", "ProblemFit", "check_problem_model", "problem_fit", "simulation_table"]
 
 # the points table's PEtab columns (what the backend reads) and the measurement columns they hold
 PETAB_COLUMNS = {
@@ -48,6 +48,17 @@ class ProblemFit:
     weighted: WeightedTable
     points: pd.DataFrame  # the weighted table with the PETAB_COLUMNS
     rows: list[dict[str, str]]  # each point's PEtab measurement row as imported (for --simulations)
+
+
+def check_problem_model(files: dict[str, bytes], source: str) -> None:
+    """Refuse (one line) a problem whose model cannot be simulated: an SBML file libroadrunner
+    cannot load, a formula naming an unknown symbol, a condition column the model lacks.
+
+    Run before a problem is stored, so that a problem the catalog keeps can be evaluated;
+    what depends on parameter values (a noise formula <= 0, a failed integration) is found
+    when it is evaluated.
+    """
+    PetabSbml(files, source)
 
 
 def problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: Selection,

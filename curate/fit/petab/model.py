@@ -23,8 +23,12 @@ of its rows' times. Solver tolerances are explicit (:class:`SolverTolerances`).
 
 from __future__ import annotations
 
+import contextlib
 import io
 import math
+import os
+import sys
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -40,6 +44,38 @@ __all__ = ["PetabModel", "SolverTolerances"]
 
 _STEADY_RATE = 1e-10  # max |dx/dt| (relative to max(1, |x|)) taken as a steady state
 _STEADY_HORIZONS = (1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8)
+
+
+@contextlib.contextmanager
+def _native_messages_hidden() -> Iterator[None]:
+    """Hide what the solver's C code writes to the process's stdout and stderr: SUNDIALS prints
+    CVODE's warnings and failures there, bypassing libroadrunner's logger, and they would mix
+    into the command's output (a ``--json`` document on stdout); the error itself is raised."""
+    for stream in (sys.stdout, sys.stderr):  # what Python has buffered goes out first
+        with contextlib.suppress(Exception):
+            stream.flush()
+    saved: list[tuple[int, int]] = []
+    try:
+        with open(os.devnull, "wb") as sink:
+            for descriptor in (1, 2):
+                try:
+                    saved.append((descriptor, os.dup(descriptor)))
+                except OSError:  # no such descriptor to hide
+                    continue
+                os.dup2(sink.fileno(), descriptor)
+        yield
+    finally:
+        for descriptor, copy in saved:
+            os.dup2(copy, descriptor)
+            os.close(copy)
+
+
+def _first_line(err: BaseException) -> str:
+    """Give a libroadrunner error's first line without its C++ location ("at virtual ...")."""
+    first = (str(err).strip().splitlines() or ["no message"])[0]
+    for cut in ("; In virtual ", ", at virtual ", " at virtual "):
+        first = first.split(cut)[0]
+    return first.strip() or "no message"
 
 
 @dataclass(frozen=True)
@@ -125,7 +161,8 @@ class PetabModel:
             str(row["parameterId"]).strip(): float(row["nominalValue"])
             for row in parameters.to_dict("records")
         }
-        self._load_model()
+        with _native_messages_hidden():
+            self._load_model()
         self.output_parameters = self._output_parameters()  # once: every evaluation asks
         self.observables = {
             str(row["observableId"]).strip(): self._observable(row, k)
@@ -142,9 +179,8 @@ class PetabModel:
             text = self.files[self.sbml_name].decode("utf-8")
             self.runner = roadrunner.RoadRunner(text)
         except Exception as err:  # libroadrunner raises RuntimeError and others
-            first = (str(err).strip().splitlines() or ["no message"])[0]
             raise InputError(
-                f"{self.sbml_name}: libroadrunner cannot load the SBML model: {first}"
+                f"{self.sbml_name}: libroadrunner cannot load the SBML model: {_first_line(err)}"
             ) from None
         runner = self.runner
         integrator = runner.integrator
@@ -309,6 +345,11 @@ class PetabModel:
     def simulate(self, pre: str, condition: str, times: np.ndarray, names: list[str],
                  parameters: dict[str, float]) -> dict[str, np.ndarray]:  # fmt: skip
         """Give each named model symbol's value at each time under one condition pair."""
+        with _native_messages_hidden():
+            return self._simulate(pre, condition, times, names, parameters)
+
+    def _simulate(self, pre: str, condition: str, times: np.ndarray, names: list[str],
+                  parameters: dict[str, float]) -> dict[str, np.ndarray]:  # fmt: skip
         runner = self.runner
         where = f"condition {condition}" + (f" after preequilibration {pre}" if pre else "")
         try:
@@ -332,7 +373,7 @@ class PetabModel:
         except SimulationFailed:
             raise
         except RuntimeError as err:
-            first = (str(err).strip().splitlines() or ["no message"])[0]
+            first = _first_line(err)
             shown = ", ".join(f"{k}={v:.4g}" for k, v in list(parameters.items())[:8])
             raise SimulationFailed(
                 f"{self.sbml_name}: the simulation of {where} failed at {shown}: {first}"
