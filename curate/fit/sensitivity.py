@@ -189,6 +189,16 @@ class SensitivityResult:
         }
 
 
+
+def group_order(label: str) -> tuple[int, float, str]:
+    """Give a sort key that puts numeric group labels (doses, temperatures) in numeric order
+    (0.1, 0.3, 1, 3, 10, 30), before the other labels in text order."""
+    try:
+        number = float(label)
+    except ValueError:
+        return (1, 0.0, label)
+    return (0, number, label) if math.isfinite(number) else (1, 0.0, label)
+
 def jackknife_stderr(
     values: Sequence[dict[str, float]], names: Sequence[str]
 ) -> dict[str, float | None]:
@@ -362,7 +372,7 @@ def leave_one_group_out(
         )
     options = options or FitOptions()
     labels = np.asarray(labels).astype(str)
-    unique = sorted(set(labels.tolist()))
+    unique = sorted(set(labels.tolist()), key=group_order)
     if len(unique) < 2:
         raise InputError(
             f"--by {by}: the selection has only one group ({unique[0] if unique else 'none'}); nothing to leave out"
@@ -547,7 +557,7 @@ def leave_one_group_out_external(backend: ModelBackend, table: pd.DataFrame, lab
     if full.error is not None:
         raise InputError(f"--fitter-cmd on the full data: {full.error}")
     groups = []
-    unique = sorted(set(labels.astype(str).tolist()))
+    unique = sorted(set(labels.astype(str).tolist()), key=group_order)
     names = sorted(full.parameters)
     for done, group in enumerate(unique):
         keep = labels.astype(str) != group
