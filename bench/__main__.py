@@ -16,11 +16,9 @@ import math
 import multiprocessing
 import os
 import sqlite3
-import statistics
 import sys
 import tempfile
 import time
-from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -31,22 +29,14 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
+from bench import petab_problems  # noqa: E402
 from bench.peak import export_peak, report_peak  # noqa: E402
+from bench.timing import median_time  # noqa: E402
 from curate import fit as fitting  # noqa: E402
 from curate.export.table import table_bytes  # noqa: E402
 from curate.fit import sensitivity  # noqa: E402
 
 POINTS_PER_SERIES = 100
-
-
-def median_time(function: Callable[[], Any], repeats: int) -> tuple[float, Any]:
-    """Give the median wall time of ``repeats`` calls and the last result."""
-    times, result = [], None
-    for _ in range(repeats):
-        started = time.perf_counter()
-        result = function()
-        times.append(time.perf_counter() - started)
-    return statistics.median(times), result
 
 
 def synthetic_series(
@@ -366,6 +356,13 @@ def main() -> None:
             results["scaling_1e7"] = case_scaling(folder, [10000, 100000])
         results["report"] = case_report(folder, 1_000_000 if quick else 10_000_000)
         print(f"  report done ({results['report']['ours_s']:.1f} s)", flush=True)
+        for name, short in (
+            ("Boehm_JProteomeRes2014", "boehm"),
+            ("Fujita_SciSignal2010", "fujita"),
+        ):
+            results[f"objective_{short}"] = petab_problems.case_objective(folder, name, repeats)
+        results["loo_boehm_2_workers"] = petab_problems.case_sensitivity(folder, 1 if quick else 3)
+        print("  PEtab problems done", flush=True)
     print()
     print(f"{'case':<22}{'n':>10}{'ours s':>10}{'base s':>10}{'ratio':>9}{'target':>8}  met")
     for case, row in results.items():

@@ -13,6 +13,7 @@ from scipy import stats
 
 from curate.fit.backends import ModelBackend, PointEvaluation
 from curate.fit.engine import FitOptions, fit
+from curate.fit import likelihood
 from curate.fit.likelihood import negative_log_likelihood, point_nllh, scaled_residuals
 from curate.fit.problem import FitProblem
 from curate.fit.sensitivity import leave_one_group_out
@@ -149,3 +150,20 @@ def test_leave_one_group_out_runs_on_the_likelihood() -> None:
         # the refit without a group is the OLS fit of the rest (statsmodels as the reference)
         assert group.parameters["b"]["value"] == pytest.approx(ols.params[1], abs=1e-5)
         assert group.heldout_chi2 is not None and group.heldout_chi2 > 0
+
+
+def test_point_scales_give_the_residual_functions_numbers():
+    rng = np.random.default_rng(3)
+    n = 12
+    y = rng.uniform(0.5, 3.0, n)
+    simulation = rng.uniform(0.5, 3.0, n)
+    sigma = rng.uniform(0.1, 1.0, n)
+    transformation = np.array(["lin", "log", "log10"] * 4, dtype=object)
+    distribution = np.array(["normal", "laplace"] * 6, dtype=object)
+    scales = likelihood.PointScales(y, transformation, distribution)
+    expected = np.concatenate([
+        likelihood.scaled_residuals(y, simulation, sigma, transformation, distribution),
+        likelihood.noise_residuals(sigma, distribution),
+    ])  # fmt: skip
+    np.testing.assert_allclose(scales.residuals(simulation, sigma), expected, rtol=1e-14)
+    assert scales.residuals(simulation, sigma)[n:].min() > 0

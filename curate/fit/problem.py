@@ -83,6 +83,8 @@ class FitProblem:
         balance = self.points["balance"].to_numpy(dtype=float) if "balance" in self.points else 1.0
         self.trust_factor = np.broadcast_to(np.sqrt(inflation / balance), self.y.shape).copy()
         self.free = self.spec.free
+        self._scales: dict[bytes | None, likelihood.PointScales] = {}
+        self._evaluations: dict[bytes | None, Callable[[dict[str, float]], PointEvaluation]] = {}
         self.calls = 0  # model evaluations so far (the fit's budget counts these)
         self.fixed = {p.name: p.start for p in self.spec.parameters if p.fixed}
         # the optimiser works on O(1) numbers: ln p for log parameters, p / |start| otherwise
@@ -151,11 +153,10 @@ class FitProblem:
 
     def evaluate(self, theta: np.ndarray, rows: np.ndarray | None = None) -> PointEvaluation:
         """Give a noise-model backend's evaluation (sigma already times the trust factor)."""
-        frame = self.points if rows is None else self.points.iloc[rows]
         params = self.to_natural(theta)
         self.calls += 1
         try:
-            found = self.backend.evaluate(params, frame)
+            found = self._prepared(rows)(params)
         except InputError:
             raise
         except Exception as err:
@@ -163,13 +164,25 @@ class FitProblem:
         simulation = np.asarray(found.simulation, dtype=float)
         sigma = np.asarray(found.sigma, dtype=float)
         factor = self.trust_factor if rows is None else self.trust_factor[rows]
-        if simulation.shape != (len(frame),) or sigma.shape != (len(frame),):
+        count = len(self.y) if rows is None else len(rows)
+        if simulation.shape != (count,) or sigma.shape != (count,):
             raise InputError(
                 f"the model gave {simulation.size} simulations and {sigma.size} sigmas for "
-                f"{len(frame)} rows; expected one of each per row"
+                f"{count} rows; expected one of each per row"
             )
         return PointEvaluation(simulation, sigma * factor, np.asarray(found.transformation),
                                np.asarray(found.distribution))  # fmt: skip
+
+    def _prepared(self, rows: np.ndarray | None) -> Callable[[dict[str, float]], PointEvaluation]:
+        """Give the backend's evaluation of the (chosen) rows, prepared once per set of rows."""
+        key = None if rows is None else np.asarray(rows, dtype=np.int64).tobytes()
+        found = self._evaluations.get(key)
+        if found is None:
+            if len(self._evaluations) > 64:  # many different row sets: keep memory bounded
+                self._evaluations.clear()
+            frame = self.points if rows is None else self.points.iloc[rows]
+            found = self._evaluations[key] = self.backend.prepare(frame)
+        return found
 
     def nllh(self, theta: np.ndarray, rows: np.ndarray | None = None) -> float:
         """Give the negative log-likelihood of the (chosen) points.
@@ -224,13 +237,20 @@ class FitProblem:
         """
         if self.noise_model:
             found = self.evaluate(theta, rows)
-            y_rows = self.y if rows is None else self.y[rows]
-            r = likelihood.scaled_residuals(y_rows, found.simulation, found.sigma,
-                                            found.transformation, found.distribution)  # fmt: skip
-            q = likelihood.noise_residuals(found.sigma, found.distribution)
-            both = np.concatenate([r, q])
+            key = None if rows is None else np.asarray(rows, dtype=np.int64).tobytes()
+            scales = self._scales.get(key)
+            if scales is None:  # the points' transformations and distributions, read once
+                if len(self._scales) > 64:
+                    self._scales.clear()
+                y_rows = self.y if rows is None else self.y[rows]
+                scales = self._scales[key] = likelihood.PointScales(
+                    y_rows, found.transformation, found.distribution
+                )
+            with np.errstate(divide="ignore", invalid="ignore"):
+                both = scales.residuals(found.simulation, found.sigma)
             if not np.all(np.isfinite(both)):
-                position = int(np.argmax(~np.isfinite(np.concatenate([r, q])))) % len(r)
+                r = both[: len(both) // 2]
+                position = int(np.argmax(~np.isfinite(both))) % len(r)
                 shown = ", ".join(f"{k}={v:.4g}" for k, v in self.to_natural(theta).items())
                 raise InputError(
                     f"the likelihood is not finite at row {position + 1} (sigma "

@@ -189,7 +189,6 @@ class SensitivityResult:
         }
 
 
-
 def group_order(label: str) -> tuple[int, float, str]:
     """Give a sort key that puts numeric group labels (doses, temperatures) in numeric order
     (0.1, 0.3, 1, 3, 10, 30), before the other labels in text order."""
@@ -198,6 +197,7 @@ def group_order(label: str) -> tuple[int, float, str]:
     except ValueError:
         return (1, 0.0, label)
     return (0, number, label) if math.isfinite(number) else (1, 0.0, label)
+
 
 def jackknife_stderr(
     values: Sequence[dict[str, float]], names: Sequence[str]

@@ -11,6 +11,7 @@ negative log-likelihood (:mod:`curate.fit.likelihood`) instead of fixed-weight l
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, ClassVar
@@ -63,6 +64,11 @@ class ModelBackend:
     def evaluate(self, parameters: dict[str, float], points: pd.DataFrame) -> PointEvaluation:
         """Give predictions with each point's sigma (only where ``noise_model``)."""
         raise InputError(f"the {self.kind} backend has no noise model of its own")
+
+    def prepare(self, points: pd.DataFrame) -> Callable[[dict[str, float]], PointEvaluation]:
+        """Give :meth:`evaluate` of these rows as a function of the parameters alone (a backend
+        that reads its rows once for many evaluations overrides it)."""
+        return lambda parameters: self.evaluate(parameters, points)
 
     def run_record(self) -> dict[str, Any]:
         """Give what the run record keeps of the backend (by default :meth:`describe`)."""

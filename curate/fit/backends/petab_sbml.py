@@ -17,6 +17,8 @@ from __future__ import annotations
 
 import hashlib
 import math
+from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
@@ -117,98 +119,190 @@ class PetabSbml(ModelBackend):
 
     def evaluate(self, parameters: dict[str, float], points: pd.DataFrame) -> PointEvaluation:
         """Give simulation, sigma, transformation and distribution for every row."""
-        model = self.model
-        n = len(points)
-        simulation, sigma = np.full(n, np.nan), np.full(n, np.nan)
-        transformation = np.empty(n, dtype=object)
-        distribution = np.empty(n, dtype=object)
-        observable_ids = points["petab_observableId"].astype(str).to_numpy()
-        conditions = points["petab_simulationConditionId"].astype(str).to_numpy()
-        pres = points["petab_preequilibrationConditionId"].fillna("").astype(str).to_numpy()
-        times = points["petab_time"].to_numpy(dtype=float)
-        observable_cells = points["petab_observableParameters"].fillna("").astype(str).to_numpy()
-        noise_cells = points["petab_noiseParameters"].fillna("").astype(str).to_numpy()
-        output = model.output_parameters
-        for (pre, condition), index in pd.Series(range(n)).groupby([pres, conditions], sort=False):
-            rows = index.to_numpy()
-            needed = sorted({name for o in set(observable_ids[rows]) for name in self._names(o)
-                             if name in model.model_symbols})  # fmt: skip
-            values = model.simulate(pre, condition, times[rows], needed, parameters)
-            condition_row = model._condition(condition)
-            for observable_id in dict.fromkeys(observable_ids[rows]):
-                part = rows[observable_ids[rows] == observable_id]
-                local = np.flatnonzero(observable_ids[rows] == observable_id)
-                observable = model.observables.get(observable_id)
-                if observable is None:
-                    raise InputError(
-                        f"measurement rows name observable '{observable_id}', which the observable table lacks"
-                    )
-                symbols: dict[str, Any] = {"time": times[part]}
-                for name in self._names(observable_id):
-                    if name in values:
-                        symbols[name] = values[name][local]
-                    elif name in output:
-                        where = f"{model.condition_file}, condition {condition}, column {name}"
-                        symbols[name] = model._value(condition_row.get(name, ""), parameters, where)
-                    elif name in model.nominal:
-                        symbols[name] = float(parameters.get(name, model.nominal[name]))
-                    elif name in model.model_symbols:
-                        symbols[name] = values[name][local]
-                symbols.update(
-                    self._placeholders(
-                        "observableParameter", observable_id, observable_cells[part], parameters
-                    )
-                )
-                symbols.update(
-                    self._placeholders(
-                        "noiseParameter", observable_id, noise_cells[part], parameters
-                    )
-                )
-                try:
-                    simulation[part] = observable.formula(symbols, len(part))
-                    sigma[part] = observable.noise(symbols, len(part))
-                except KeyError as err:
-                    raise InputError(
-                        f"observable {observable_id}: placeholder {err.args[0]} has no value in the "
-                        f"measurement rows of condition {condition}"
-                    ) from None
-                transformation[part] = observable.transformation
-                distribution[part] = observable.distribution
-                bad = ~(np.isfinite(sigma[part]) & (sigma[part] > 0))
-                if bad.any():
-                    k = part[int(np.argmax(bad))]
-                    raise InputError(
-                        f"{model.observable_file}, observable {observable_id}: the noise formula gives "
-                        f"{sigma[k]:g} at condition {condition}, time {times[k]:g}; sigma must be positive"
-                    )
-        return PointEvaluation(simulation, sigma, transformation, distribution)
+        return self.prepare(points)(parameters)
+
+    def prepare(self, points: pd.DataFrame) -> Callable[[dict[str, float]], PointEvaluation]:
+        """Give the evaluation of these rows as a function of the parameters: the rows are read
+        once (conditions grouped, placeholders split, numbers parsed), so that each evaluation
+        is the simulations and the formulas only."""
+        plan = _Plan(self, points)
+        return plan.evaluate
 
     def _names(self, observable_id: str) -> tuple[str, ...]:
         observable = self.model.observables.get(observable_id)
         return () if observable is None else (*observable.formula.names, *observable.noise.names)
 
-    def _placeholders(self, prefix: str, observable_id: str, cells: np.ndarray,
-                      parameters: dict[str, float]) -> dict[str, np.ndarray]:  # fmt: skip
-        wanted = sorted({name for name in self._names(observable_id)
-                         if name.startswith(prefix) and name.endswith(f"_{observable_id}")})  # fmt: skip
-        if not wanted:
-            return {}
-        out: dict[str, np.ndarray] = {}
-        split = [
-            [part.strip() for part in str(cell).split(";")] if str(cell).strip() else []
-            for cell in cells
-        ]
-        for name in wanted:
-            number = int(name[len(prefix) :].split("_", 1)[0])
-            column = np.empty(len(cells))
-            for k, parts in enumerate(split):
-                if number > len(parts):
+
+@dataclass
+class _Part:
+    """The rows of one observable under one condition pair, with what its formulas need."""
+
+    rows: np.ndarray  # positions in the points
+    local: np.ndarray  # positions within the condition pair's simulation
+    observable: Any
+    fixed: dict[str, Any]  # time and numeric placeholders / condition cells
+    chosen: list[
+        tuple[str, np.ndarray, list[tuple[int, str]]]
+    ]  # name, numbers, (row, parameter id)
+    simulated: list[str]  # model symbols taken from the simulation
+
+
+@dataclass
+class _Group:
+    pre: str
+    condition: str
+    times: np.ndarray
+    needed: list[str]
+    parts: list[_Part]
+
+
+class _Plan:
+    """The rows of a points table read once for repeated evaluation (see PetabSbml.prepare)."""
+
+    def __init__(self, backend: PetabSbml, points: pd.DataFrame) -> None:
+        model = backend.model
+        self.model = model
+        n = self.n = len(points)
+        observable_ids = points["petab_observableId"].astype(str).to_numpy()
+        conditions = points["petab_simulationConditionId"].astype(str).to_numpy()
+        pres = points["petab_preequilibrationConditionId"].fillna("").astype(str).to_numpy()
+        times = points["petab_time"].to_numpy(dtype=float)
+        self.times = times
+        observable_cells = points["petab_observableParameters"].fillna("").astype(str).to_numpy()
+        noise_cells = points["petab_noiseParameters"].fillna("").astype(str).to_numpy()
+        self.transformation = np.empty(n, dtype=object)
+        self.distribution = np.empty(n, dtype=object)
+        self.groups: list[_Group] = []
+        for (pre, condition), index in pd.Series(range(n)).groupby([pres, conditions], sort=False):
+            rows = index.to_numpy()
+            needed = sorted({name for o in set(observable_ids[rows]) for name in backend._names(o)
+                             if name in model.model_symbols})  # fmt: skip
+            condition_row = model._condition(condition)
+            parts = []
+            for observable_id in dict.fromkeys(observable_ids[rows]):
+                local = np.flatnonzero(observable_ids[rows] == observable_id)
+                part = rows[local]
+                observable = model.observables.get(observable_id)
+                if observable is None:
                     raise InputError(
-                        f"observable {observable_id}: {name} needs {number} {prefix}s per row; a row gives "
-                        f"'{cells[k]}'"
+                        f"measurement rows name observable '{observable_id}', which the observable table lacks"
                     )
-                column[k] = self.model._value(
-                    parts[number - 1], parameters, f"{prefix}s of observable {observable_id}"
+                fixed: dict[str, Any] = {"time": times[part]}
+                chosen: list[tuple[str, np.ndarray, list[tuple[int, str]]]] = []
+                simulated: list[str] = []
+                for name in backend._names(observable_id):
+                    if name in needed:
+                        simulated.append(name)
+                    elif name in model.output_parameters:
+                        cell = str(condition_row.get(name, ""))
+                        chosen.append((name, *_cells([cell] * len(part), model.nominal,
+                            f"{model.condition_file}, condition {condition}, column {name}")))  # fmt: skip
+                    elif name in model.nominal:
+                        chosen.append((name, np.full(len(part), model.nominal[name]),
+                                       [(-1, name)]))  # fmt: skip
+                for prefix, cells in (("observableParameter", observable_cells[part]),
+                                      ("noiseParameter", noise_cells[part])):  # fmt: skip
+                    for name, numbers, named in _placeholders(
+                        backend, prefix, observable_id, cells
+                    ):
+                        chosen.append((name, numbers, named))
+                missing = [name for name in (*observable.formula.names, *observable.noise.names)
+                           if name not in fixed and name not in simulated
+                           and name not in {c[0] for c in chosen}]  # fmt: skip
+                if missing:
+                    raise InputError(
+                        f"observable {observable_id}: placeholder {missing[0]!r} has no value in the "
+                        f"measurement rows of condition {condition}"
+                    )
+                self.transformation[part] = observable.transformation
+                self.distribution[part] = observable.distribution
+                parts.append(_Part(part, local, observable, fixed, chosen, simulated))
+            self.groups.append(_Group(pre, condition, times[rows], needed, parts))
+
+    def evaluate(self, parameters: dict[str, float]) -> PointEvaluation:
+        """Give simulation, sigma, transformation and distribution for every row."""
+        model = self.model
+        simulation, sigma = np.empty(self.n), np.empty(self.n)
+        for group in self.groups:
+            values = model.simulate(
+                group.pre, group.condition, group.times, group.needed, parameters
+            )
+            for part in group.parts:
+                symbols = dict(part.fixed)
+                for name in part.simulated:
+                    symbols[name] = values[name][part.local]
+                for name, numbers, named in part.chosen:
+                    if not named:
+                        symbols[name] = numbers
+                        continue
+                    column = numbers.copy()
+                    for row, parameter in named:
+                        value = float(
+                            parameters.get(parameter, model.nominal.get(parameter, math.nan))
+                        )
+                        if row < 0:
+                            column[:] = value
+                        else:
+                            column[row] = value
+                    symbols[name] = column
+                size = len(part.rows)
+                simulation[part.rows] = part.observable.formula(symbols, size)
+                noise = part.observable.noise(symbols, size)
+                sigma[part.rows] = noise
+                bad = ~(np.isfinite(noise) & (noise > 0))
+                if bad.any():
+                    k = part.rows[int(np.argmax(bad))]
+                    raise InputError(
+                        f"{model.observable_file}, observable {part.observable.id}: the noise formula gives "
+                        f"{sigma[k]:g} at condition {group.condition}, time {self.times[k]:g}; sigma must be positive"
+                    )
+        return PointEvaluation(simulation, sigma, self.transformation, self.distribution)
+
+
+def _cells(
+    cells: list[str], nominal: dict[str, float], where: str
+) -> tuple[np.ndarray, list[tuple[int, str]]]:
+    """Give the numbers of the cells and, for cells naming a parameter-table id, (row, id)."""
+    numbers = np.full(len(cells), math.nan)
+    named: list[tuple[int, str]] = []
+    for k, cell in enumerate(cells):
+        text = str(cell).strip()
+        try:
+            numbers[k] = float(text)
+            continue
+        except ValueError:
+            pass
+        if text not in nominal:
+            raise InputError(f"{where}: '{text}' is neither a number nor a parameter-table id")
+        named.append((k, text))
+    return numbers, named
+
+
+def _placeholders(backend: PetabSbml, prefix: str, observable_id: str, cells: np.ndarray
+                  ) -> list[tuple[str, np.ndarray, list[tuple[int, str]]]]:  # fmt: skip
+    wanted = sorted({name for name in backend._names(observable_id)
+                     if name.startswith(prefix) and name.endswith(f"_{observable_id}")})  # fmt: skip
+    if not wanted:
+        return []
+    split = [
+        [part.strip() for part in str(cell).split(";")] if str(cell).strip() else []
+        for cell in cells
+    ]
+    out = []
+    for name in wanted:
+        number = int(name[len(prefix) :].split("_", 1)[0])
+        texts = []
+        for k, parts in enumerate(split):
+            if number > len(parts):
+                raise InputError(
+                    f"observable {observable_id}: {name} needs {number} {prefix}s per row; a row gives "
+                    f"'{cells[k]}'"
                 )
-            out[name] = column
-        return out
+            texts.append(parts[number - 1])
+        out.append(
+            (
+                name,
+                *_cells(texts, backend.model.nominal, f"{prefix}s of observable {observable_id}"),
+            )
+        )
+    return out

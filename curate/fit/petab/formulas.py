@@ -43,6 +43,8 @@ class Formula:
     def __call__(self, values: dict[str, np.ndarray], size: int) -> np.ndarray:
         """Give the formula's value for each of ``size`` rows (values: name -> array or number)."""
         result = self.function(*[values[name] for name in self.names])
+        if isinstance(result, np.ndarray) and result.shape == (size,) and result.dtype == float:
+            return result
         return np.broadcast_to(np.asarray(result, dtype=float), (size,)).astype(float)
 
 

@@ -46,6 +46,9 @@ _STEADY_RATE = 1e-10  # max |dx/dt| (relative to max(1, |x|)) taken as a steady 
 _STEADY_HORIZONS = (1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8)
 
 
+_SINK: int | None = None  # the null device, for _native_messages_hidden
+
+
 @contextlib.contextmanager
 def _native_messages_hidden() -> Iterator[None]:
     """Hide what the solver's C code writes to the process's stdout and stderr: SUNDIALS prints
@@ -54,15 +57,17 @@ def _native_messages_hidden() -> Iterator[None]:
     for stream in (sys.stdout, sys.stderr):  # what Python has buffered goes out first
         with contextlib.suppress(Exception):
             stream.flush()
+    global _SINK
     saved: list[tuple[int, int]] = []
     try:
-        with open(os.devnull, "wb") as sink:
-            for descriptor in (1, 2):
-                try:
-                    saved.append((descriptor, os.dup(descriptor)))
-                except OSError:  # no such descriptor to hide
-                    continue
-                os.dup2(sink.fileno(), descriptor)
+        if _SINK is None:  # opened once per process: every simulation passes here
+            _SINK = os.open(os.devnull, os.O_WRONLY)
+        for descriptor in (1, 2):
+            try:
+                saved.append((descriptor, os.dup(descriptor)))
+            except OSError:  # no such descriptor to hide
+                continue
+            os.dup2(_SINK, descriptor)
         yield
     finally:
         for descriptor, copy in saved:
@@ -198,6 +203,8 @@ class PetabModel:
         # the state variables (species amounts, rate-rule targets), named as the rates name them
         self.state_ids = [str(c).rstrip("'") for c in runner.getRatesOfChangeNamedArray().colnames]
         self.state_set = set(self.state_ids)
+        self._selections: list[str] = []
+        self._condition_cells: dict[str, list[tuple[str, float | None, str]]] = {}
 
     def _observable(self, row: dict[str, str], index: int) -> _Observable:
         observable_id = str(row["observableId"]).strip()
@@ -276,16 +283,26 @@ class PetabModel:
 
     def _overrides(self, condition_id: str, parameters: dict[str, float]) -> dict[str, float]:
         """Give the condition's model-symbol values (NaN and empty cells left out)."""
+        cells = self._condition_cells.get(condition_id)
+        if cells is None:  # read once: (column, its number or None, its text)
+            cells = []
+            for column, cell in self._condition(condition_id).items():
+                if column in ("conditionId", "conditionName") or column not in self.model_symbols:
+                    continue
+                text = str(cell).strip()
+                if text:
+                    cells.append((column, _number(text), text))
+            self._condition_cells[condition_id] = cells
         out: dict[str, float] = {}
-        for column, cell in self._condition(condition_id).items():
-            if column in ("conditionId", "conditionName") or column not in self.model_symbols:
-                continue
-            if not str(cell).strip():
-                continue
-            value = self._value(
-                cell,
-                parameters,
-                f"{self.condition_file}, condition {condition_id}, column {column}",
+        for column, number, text in cells:
+            value = (
+                number
+                if number is not None
+                else self._value(
+                    text,
+                    parameters,
+                    f"{self.condition_file}, condition {condition_id}, column {column}",
+                )
             )
             if not math.isnan(value):
                 out[column] = value
@@ -365,7 +382,9 @@ class PetabModel:
                 self._initialise(condition, parameters)
             grid = np.unique(np.concatenate([[0.0], times]))
             selections = ["time"] + [f"[{n}]" if n in self.species else n for n in names]
-            runner.timeCourseSelections = selections
+            if selections != self._selections:  # setting them costs as much as a short run
+                runner.timeCourseSelections = selections
+                self._selections = selections
             if len(grid) == 1:
                 values = np.array([[0.0] + [runner.getValue(s) for s in selections[1:]]])
             else:
