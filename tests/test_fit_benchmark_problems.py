@@ -171,3 +171,22 @@ def test_leave_one_group_out_runs_to_completion_for_every_group(
         moved = [p for p in group["parameters"].values() if p["value"] is not None]
         assert moved, group
     assert result["full"]["nllh"] <= _evaluate(cli, catalog, problem_id, neutral)["nllh"] + 1e-7
+
+
+@pytest.mark.slow
+def test_a_multi_start_fit_from_the_bounds_reaches_the_best_objective(cli, tmp_path, neutral):
+    # 60 Latin-hypercube starts inside the parameter table's bounds (log10 1e-5..1e5 for all
+    # nine), besides the nominal start: on this machine class about 90 s, one start in 60
+    # reaching 138.22 for seeds 0 and 1 alike (the others end at local optima 140.1, 145.8,
+    # 147.5, ...). The optimum 138.222 is the benchmark collection's (from memory) and ours.
+    catalog = tmp_path / "c.db"
+    problem_id = _imported(cli, catalog, problem_yaml(BOEHM))
+    run = cli("fit", "--problem", problem_id, "--starts", "61", "--seed", "0", "--policy", neutral,
+              "--json", catalog_path=catalog)  # fmt: skip
+    assert run.code == 0, run.err
+    result = json.loads(run.out)
+    drawn = result["starts"][1:]  # the first start is the nominal point
+    assert len(drawn) == 60
+    best = min(s["nllh"] for s in drawn if s["nllh"] is not None)
+    assert best == pytest.approx(138.222, abs=0.1)
+    assert result["nllh"] == pytest.approx(138.222, abs=1e-3)

@@ -545,6 +545,10 @@ laplace distributions take this sigma as their scale on the scale of observableT
 (lin, log, log10), so the factor multiplies each point's variance by v_grade / b_d exactly,
 also where sigma is an estimated parameter. The policy's noise floors act on curate's sd
 (curateSd), never on the problem's noise model.
+Where sigma is an estimated parameter, a fit can absorb a factor shared by every row of that
+parameter: the noise estimate then moves by 1/factor and the model's parameters stay where they
+were. A grade changes the fitted model only where rows of different factors share a noise
+parameter, or where sigma is a number.
 Observables with a factor: {changed}.
 Left out (nothing exported uses them): {left_out}.
 """

@@ -175,10 +175,15 @@ def least_squares(
     # the noise residuals hold a constant n C (see curate.fit.likelihood): a relative tolerance
     # on the cost must be that much finer to mean the same on the nllh
     ftol = max(options.tolerance / 1000, 1e-15) if problem.noise_model else options.tolerance
+    # forward differences: a step of sqrt(accuracy) balances truncation against the model's own
+    # error (scipy's default assumes machine precision; an ODE solver's numbers are good to its
+    # tolerance only, and smaller steps give a Jacobian of noise)
+    accuracy = problem.backend.accuracy
+    step = math.sqrt(accuracy) if accuracy > 4 * np.finfo(float).eps else None
     return optimize.least_squares(
         lambda theta: problem.residual(theta, rows), x0, bounds=(lower, upper), method=method,
         x_scale="jac", ftol=ftol, xtol=options.tolerance, gtol=options.tolerance,
-        max_nfev=cap,
+        max_nfev=cap, diff_step=step,
     )  # fmt: skip
 
 
@@ -186,9 +191,13 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
     """Give the Jacobian of the projected residual by central differences.
 
     Steps of eps^(1/3) relative size balance truncation and rounding (about 1e-10 relative
-    error for smooth models), better than the optimiser's own forward differences.
+    error for smooth models), better than the optimiser's own forward differences; eps is the
+    backend's accuracy (machine precision, or an ODE solver's relative tolerance).
     """
-    step = 6e-6 * np.maximum(1.0, np.abs(theta))
+    accuracy = max(problem.backend.accuracy, float(np.finfo(float).eps))
+    step = min(6e-6 * (accuracy / np.finfo(float).eps) ** (1 / 3), 1e-2) * np.maximum(
+        1.0, np.abs(theta)
+    )
     if len(theta) == 0:  # nothing free: no columns
         return np.zeros((len(problem.residual(theta, rows)), 0))
     columns = []

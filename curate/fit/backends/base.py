@@ -57,6 +57,12 @@ class ModelBackend:
     fits_itself: ClassVar[bool] = False  # an external fitter: parameters come from fit_points
     noise_model: ClassVar[bool] = False  # gives each point's sigma (see evaluate)
 
+    @property
+    def accuracy(self) -> float:
+        """Give the relative accuracy of the backend's numbers (machine precision for a closed
+        form; an ODE solver's relative tolerance): the fit's finite-difference steps follow it."""
+        return float(np.finfo(float).eps)
+
     def predict(self, parameters: dict[str, float], points: pd.DataFrame) -> np.ndarray:
         """Give one prediction per row of ``points`` (before scale factors)."""
         raise InputError(f"the {self.kind} backend gives fitted parameters, not predictions")

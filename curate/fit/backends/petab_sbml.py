@@ -69,6 +69,11 @@ class PetabSbml(ModelBackend):
         return self.problem_id or self.source
 
     @property
+    def accuracy(self) -> float:
+        """Give the solver's relative tolerance: what CVODE's numbers are good to."""
+        return max(float(self.tolerances.relative), float(np.finfo(float).eps))
+
+    @property
     def portable(self) -> bool:
         """Rebuilt in workers from the files its description carries."""
         return True
@@ -142,7 +147,7 @@ class _Part:
     observable: Any
     fixed: dict[str, Any]  # time and numeric placeholders / condition cells
     chosen: list[
-        tuple[str, np.ndarray, list[tuple[int, str]]]
+        tuple[str, np.ndarray, list[tuple[Any, str]]]
     ]  # name, numbers, (row, parameter id)
     simulated: list[str]  # model symbols taken from the simulation
 
@@ -188,7 +193,7 @@ class _Plan:
                         f"measurement rows name observable '{observable_id}', which the observable table lacks"
                     )
                 fixed: dict[str, Any] = {"time": times[part]}
-                chosen: list[tuple[str, np.ndarray, list[tuple[int, str]]]] = []
+                chosen: list[tuple[str, np.ndarray, list[tuple[Any, str]]]] = []
                 simulated: list[str] = []
                 for name in backend._names(observable_id):
                     if name in needed:
@@ -199,7 +204,7 @@ class _Plan:
                             f"{model.condition_file}, condition {condition}, column {name}")))  # fmt: skip
                     elif name in model.nominal:
                         chosen.append((name, np.full(len(part), model.nominal[name]),
-                                       [(-1, name)]))  # fmt: skip
+                                       [(slice(None), name)]))  # fmt: skip
                 for prefix, cells in (("observableParameter", observable_cells[part]),
                                       ("noiseParameter", noise_cells[part])):  # fmt: skip
                     for name, numbers, named in _placeholders(
@@ -236,14 +241,10 @@ class _Plan:
                         symbols[name] = numbers
                         continue
                     column = numbers.copy()
-                    for row, parameter in named:
-                        value = float(
-                            parameters.get(parameter, model.nominal.get(parameter, math.nan))
+                    for where, parameter in named:
+                        column[where] = parameters.get(
+                            parameter, model.nominal.get(parameter, math.nan)
                         )
-                        if row < 0:
-                            column[:] = value
-                        else:
-                            column[row] = value
                     symbols[name] = column
                 size = len(part.rows)
                 simulation[part.rows] = part.observable.formula(symbols, size)
@@ -261,10 +262,11 @@ class _Plan:
 
 def _cells(
     cells: list[str], nominal: dict[str, float], where: str
-) -> tuple[np.ndarray, list[tuple[int, str]]]:
-    """Give the numbers of the cells and, for cells naming a parameter-table id, (row, id)."""
+) -> tuple[np.ndarray, list[tuple[Any, str]]]:
+    """Give the numbers of the cells and, for cells naming parameter-table ids, (rows, id) for
+    each id (its rows as an index array)."""
     numbers = np.full(len(cells), math.nan)
-    named: list[tuple[int, str]] = []
+    rows_of: dict[str, list[int]] = {}
     for k, cell in enumerate(cells):
         text = str(cell).strip()
         try:
@@ -274,12 +276,12 @@ def _cells(
             pass
         if text not in nominal:
             raise InputError(f"{where}: '{text}' is neither a number nor a parameter-table id")
-        named.append((k, text))
-    return numbers, named
+        rows_of.setdefault(text, []).append(k)
+    return numbers, [(np.array(rows), name) for name, rows in rows_of.items()]
 
 
 def _placeholders(backend: PetabSbml, prefix: str, observable_id: str, cells: np.ndarray
-                  ) -> list[tuple[str, np.ndarray, list[tuple[int, str]]]]:  # fmt: skip
+                  ) -> list[tuple[str, np.ndarray, list[tuple[Any, str]]]]:  # fmt: skip
     wanted = sorted({name for name in backend._names(observable_id)
                      if name.startswith(prefix) and name.endswith(f"_{observable_id}")})  # fmt: skip
     if not wanted:

@@ -204,6 +204,7 @@ class PetabModel:
         self.state_ids = [str(c).rstrip("'") for c in runner.getRatesOfChangeNamedArray().colnames]
         self.state_set = set(self.state_ids)
         self._selections: list[str] = []
+        self._grids: dict[tuple[bytes, tuple[str, ...]], tuple[np.ndarray, list[str]]] = {}
         self._condition_cells: dict[str, list[tuple[str, float | None, str]]] = {}
 
     def _observable(self, row: dict[str, str], index: int) -> _Observable:
@@ -380,8 +381,16 @@ class PetabModel:
                         runner.setValue(name, value)
             else:
                 self._initialise(condition, parameters)
-            grid = np.unique(np.concatenate([[0.0], times]))
-            selections = ["time"] + [f"[{n}]" if n in self.species else n for n in names]
+            key = (times.tobytes(), tuple(names))
+            known = self._grids.get(key)
+            if known is None:  # the same rows come back at every evaluation of a fit
+                if len(self._grids) > 256:
+                    self._grids.clear()
+                known = self._grids[key] = (
+                    np.unique(np.concatenate([[0.0], times])),
+                    ["time"] + [f"[{n}]" if n in self.species else n for n in names],
+                )
+            grid, selections = known
             if selections != self._selections:  # setting them costs as much as a short run
                 runner.timeCourseSelections = selections
                 self._selections = selections
