@@ -11,9 +11,9 @@ import pytest
 import statsmodels.api as sm
 from scipy import stats
 
+from curate.fit import likelihood
 from curate.fit.backends import ModelBackend, PointEvaluation
 from curate.fit.engine import FitOptions, fit
-from curate.fit import likelihood
 from curate.fit.likelihood import negative_log_likelihood, point_nllh, scaled_residuals
 from curate.fit.problem import FitProblem
 from curate.fit.sensitivity import leave_one_group_out

@@ -279,6 +279,7 @@ def evaluate_at_start(problem: FitProblem, options: FitOptions | None = None) ->
     options = options or FitOptions()
     first = problem.calls
     theta = problem.to_internal({p.name: p.start for p in problem.free})
+    problem.residual(theta)  # a model that fails there says so at the start point itself
     result = summarise(problem, theta, jacobian(problem, theta), converged=False, starts=[],
                        message="evaluated at the start point; not optimised", options=options)  # fmt: skip
     result.options["evaluate"] = True
