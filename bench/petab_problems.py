@@ -106,14 +106,14 @@ def case_objective(folder: Path, name: str, repeats: int) -> dict[str, Any]:
             "over_integration_alone": ours_s / statistics.median(integrated)}  # fmt: skip
 
 
-def case_sensitivity(folder: Path, repeats: int) -> dict[str, Any]:
-    """Give the ratio of Boehm's leave-one-dataset-out on 2 workers to the same run serial."""
-    name = "Boehm_JProteomeRes2014"
+def case_sensitivity(folder: Path, repeats: int, name: str = "Boehm_JProteomeRes2014",
+                     by: str = "dataset") -> dict[str, Any]:  # fmt: skip
+    """Give the ratio of a leave-one-group-out run on 2 workers to the same run serial."""
     path = _catalog(folder, name)
 
     def run(workers: int) -> Any:
         with curate.open_catalog(path) as catalog:
-            return catalog.sensitivity(problem=PROBLEMS[name], by="dataset", policy=_neutral(folder),
+            return catalog.sensitivity(problem=PROBLEMS[name], by=by, policy=_neutral(folder),
                                        workers=workers)  # fmt: skip
 
     ours_s, pooled = median_time(lambda: run(2), repeats)
@@ -133,3 +133,7 @@ if __name__ == "__main__":  # python -m bench.petab_problems: these cases alone
         for problem in PROBLEMS:
             print(problem, case_objective(Path(where), problem, 3))
         print("sensitivity", case_sensitivity(Path(where), 1))
+        print(
+            "sensitivity",
+            case_sensitivity(Path(where), 1, "Fujita_SciSignal2010", "condition:EGF_0"),
+        )

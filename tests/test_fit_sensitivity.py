@@ -168,11 +168,22 @@ MODEL = f"{ROOT / 'example_datasets' / 'model.py'}:predict"
 PARAMS = ROOT / "example_datasets" / "params.toml"
 
 
-def test_process_pool_gives_the_serial_results(demo_catalog):
+def test_process_pool_gives_the_serial_results(demo_catalog, monkeypatch):
+    monkeypatch.setattr(sensitivity, "WORKER_START_SECONDS", 0.0)  # workers even for quick refits
     serial = demo_catalog.sensitivity(by="lab", model=MODEL, params=PARAMS, workers=1)
     pooled = demo_catalog.sensitivity(by="lab", model=MODEL, params=PARAMS, workers=2)
     assert pooled.executor.startswith("process pool")
     for a, b in zip(serial.groups, pooled.groups, strict=True):
+        assert a.parameters == b.parameters and a.cook_distance == b.cook_distance
+
+
+def test_refits_quicker_than_starting_workers_run_here_and_say_so(demo_catalog, monkeypatch):
+    monkeypatch.setattr(sensitivity, "WORKER_START_SECONDS", 1e6)
+    serial = demo_catalog.sensitivity(by="lab", model=MODEL, params=PARAMS, workers=1)
+    asked = demo_catalog.sensitivity(by="lab", model=MODEL, params=PARAMS, workers=2)
+    assert serial.executor == "serial"
+    assert asked.executor.startswith("serial (2 workers asked; a refit takes ")
+    for a, b in zip(serial.groups, asked.groups, strict=True):
         assert a.parameters == b.parameters and a.cook_distance == b.cook_distance
 
 

@@ -30,6 +30,7 @@ from __future__ import annotations
 import dataclasses
 import math
 import multiprocessing
+import time
 from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
@@ -293,6 +294,11 @@ def _polish(problem: FitProblem, theta: np.ndarray, rows: np.ndarray) -> np.ndar
     return candidate if better @ better <= (residual @ residual) * (1 + 1e-9) else theta
 
 
+# what starting a worker process costs before its first refit (spawn, import curate and its
+# libraries, rebuild the model; an SBML model is compiled again): about 2 s on 2 cores
+WORKER_START_SECONDS = 2.0
+
+
 def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
                progress: Callable[[int, int], None] | None) -> tuple[list[Any], str]:  # fmt: skip
     if dask is not None:
@@ -304,16 +310,31 @@ def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
             if progress:
                 progress(done + 1, len(tasks))
         return results, "serial"
-    results = []
+    # the first refit runs here: if the others would finish sooner here than on workers that
+    # must first start (import curate, rebuild the model), they run here too
+    started = time.perf_counter()
+    results = [_exact_refit(tasks[0])]
+    took = time.perf_counter() - started
+    if progress:
+        progress(1, len(tasks))
+    rest = tasks[1:]
+    here = took * len(rest)
+    if here <= WORKER_START_SECONDS + here / min(workers, len(rest)):
+        for done, task in enumerate(rest):
+            results.append(_exact_refit(task))
+            if progress:
+                progress(done + 2, len(tasks))
+        return results, (f"serial ({workers} workers asked; a refit takes {took:.2g} s, less "
+                         "than starting workers)")  # fmt: skip
     # spawn, not fork: a forked child can inherit a lock held by another thread (pyarrow's
     # pool, SQLite) and hang; spawned workers start clean and import the model themselves
     with ProcessPoolExecutor(
         max_workers=workers, mp_context=multiprocessing.get_context("spawn")
     ) as pool:
-        for done, result in enumerate(pool.map(_exact_refit, tasks)):
+        for done, result in enumerate(pool.map(_exact_refit, rest)):
             results.append(result)
             if progress:
-                progress(done + 1, len(tasks))
+                progress(done + 2, len(tasks))
     return results, f"process pool ({workers} workers)"
 
 
