@@ -99,7 +99,7 @@ CASES = [
     ("binary as csv", "k.csv", b"\x00\x01\x02PK\x00", [], "not a text file (binary content)"),
     ("text as xlsx", "l.xlsx", "time,value\n0,1\n", [], "not an XLSX workbook"),
     ("broken zip as xlsx", "l2.xlsx", b"PK\x03\x04garbage", [], "not a readable XLSX workbook"),
-    ("not utf-8", "m.csv", b"time,value\n0,\xff\n", [], "is not UTF-8 text"),
+    ("not utf-8", "m.csv", b"time,value\n0,\xff\n", [], "is not a number; expected a measured value (the file is not UTF-8 and was read as "),
     ("unsupported type", "n.dat", "time,value\n0,1\n", [], "unsupported file type '.dat'"),
     ("duplicate header", "o.csv", "time,value,value\n0,1,2\n", [], "column 'value' appears twice"),
 ]

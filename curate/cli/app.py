@@ -19,7 +19,14 @@ from rich.console import Console
 from typer.core import TyperGroup
 
 from curate.api import Catalog, open_catalog, read_petab
-from curate.cli.options import DatasetId, ForceFlag, JsonFlag, parse_conditions, selection_options
+from curate.cli.options import (
+    DatasetId,
+    ForceFlag,
+    JsonFlag,
+    parse_columns,
+    parse_conditions,
+    selection_options,
+)
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
@@ -157,7 +164,22 @@ def add(
         ),
     ] = None,
     layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
-    sheet: Annotated[str | None, typer.Option(help="XLSX sheet name")] = None,
+    sheet: Annotated[
+        str | None, typer.Option(help="XLSX sheet: its name, or its position from 1")
+    ] = None,
+    column: Annotated[
+        list[str] | None,
+        typer.Option(
+            help='ROLE=HEADER, repeatable: time="Time (min)", value=pERK, sd=SD, replicate, n'
+        ),
+    ] = None,
+    header_row: Annotated[
+        int | None,
+        typer.Option(help="the line (sheet row) of the header; lines above are left out"),
+    ] = None,
+    skip_rows: Annotated[
+        int | None, typer.Option(help="lines (sheet rows) at the top to leave out")
+    ] = None,
     method: Annotated[str | None, typer.Option(help="measurement method")] = None,
     instrument: Annotated[str | None, typer.Option(help="instrument")] = None,
     contact: Annotated[str | None, typer.Option(help="contact person or address")] = None,
@@ -208,6 +230,10 @@ def add(
     put("uncertainty.n", sem_n)
     put("layout", layout)
     put("sheet", sheet)
+    put("header_row", header_row)
+    put("skip_rows", skip_rows)
+    for role, header in parse_columns(column or []).items():
+        put(f"columns.{role}", header)
     put("protocol.calibration_group", calibration_group)
     put("protocol.normalisation.kind", normalisation)
     put("id", dataset_id)

@@ -25,6 +25,7 @@ __all__ = [
     "DatasetId",
     "ForceFlag",
     "JsonFlag",
+    "parse_columns",
     "parse_conditions",
     "parse_pins",
     "selection_options",
@@ -62,6 +63,27 @@ def parse_conditions(pairs: list[str] | None) -> dict[str, str]:
             )
         given[key] = pair
         result[key] = value.strip()
+    return result
+
+
+COLUMN_ROLES = ("time", "value", "sd", "replicate", "n")
+
+
+def parse_columns(pairs: list[str]) -> dict[str, str]:
+    """Give {role: header} of repeated ``--column ROLE=HEADER`` options."""
+    result: dict[str, str] = {}
+    for pair in pairs:
+        role, sep, header = pair.partition("=")
+        role, header = role.strip().lower(), header.strip().strip('"').strip("'")
+        if not sep or not header:
+            raise InputError(f"--column '{pair}': expected ROLE=HEADER, e.g. time=\"Time (min)\"")
+        if role not in COLUMN_ROLES:
+            raise InputError(
+                f"--column '{pair}': unknown role '{role}'; expected one of {', '.join(COLUMN_ROLES)}"
+            )
+        if role in result:
+            raise InputError(f"--column '{pair}': role '{role}' is given twice; give each once")
+        result[role] = header
     return result
 
 

@@ -147,7 +147,7 @@ def trust_factor_text(inflation: float, balance: float) -> str:
 
 
 def _read(name: str, raw: bytes) -> Table:
-    return table_from_bytes(Path(name), raw, require_rows=False)
+    return table_from_bytes(Path(name), raw, require_rows=False, strict_text=True)
 
 
 def _rows(table: Table) -> list[dict[str, str]]:

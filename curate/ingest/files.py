@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import copy
 import datetime as dt
 import hashlib
 from dataclasses import dataclass
@@ -12,15 +13,17 @@ import numpy as np
 
 from curate import units
 from curate.errors import InputError
+from curate.ingest.headers import header_unit, match_column
 from curate.ingest.plausibility import check_series, typical_magnitude
 from curate.ingest.sidecar import (
     ConditionSpec,
     Sidecar,
     deep_merge,
     load_sidecar,
+    validate_layout,
     validate_sidecar,
 )
-from curate.ingest.tables import DATA_SUFFIXES, Table, read_table
+from curate.ingest.tables import DATA_SUFFIXES, Layout, Table, read_table
 from curate.records import (
     ConditionValue,
     DatasetRecord,
@@ -190,16 +193,16 @@ def _arrays_from_table(
     table: Table, meta: Sidecar
 ) -> tuple[dict[str, np.ndarray | None], tuple[str, ...], dict[str, Any]]:
     columns = meta.columns
-    lower = {name.lower(): name for name in table.columns}
 
     def find(name: str) -> str | None:
-        return lower.get(name.lower())
+        return match_column(name, table.columns)
 
     time_col = find(columns.time)
     if time_col is None:
         raise InputError(
             f"{table.path}: required column '{columns.time}' is missing; the columns "
-            f"are {', '.join(table.columns)}"
+            f"are {', '.join(table.columns)}; name the time column with --column time=HEADER "
+            "(columns.time in the sidecar)"
         )
     value_col = find(columns.value)
     layout = meta.layout
@@ -210,7 +213,8 @@ def _arrays_from_table(
         if value_col is None:
             raise InputError(
                 f"{table.path}: required column '{columns.value}' is missing; the "
-                f"columns are {', '.join(table.columns)}"
+                f"columns are {', '.join(table.columns)}; name it with --column value=HEADER "
+                "(columns.value in the sidecar)"
             )
         time = table.numbers(time_col, what="a time")
         value = table.numbers(value_col, what="a measured value")
@@ -309,14 +313,15 @@ def build_draft(
     path, sidecar_path, content = resolve_pair(path, Path(sidecar) if sidecar else None)
     merged = deep_merge(content, options or {})
     merged.pop("data_file", None)
-    meta = validate_sidecar(merged, origin=str(path), sidecar=sidecar_path)
     if path.suffix.lower() not in DATA_SUFFIXES:
         raise InputError(
             f"{path}: unsupported file type '{path.suffix}'; expected "
             + ", ".join(sorted(DATA_SUFFIXES))
         )
-    table = read_table(path, sheet=meta.sheet)
+    table, merged, found = read_with_layout(path, merged, sidecar_path)
+    meta = validate_sidecar(merged, origin=str(path), sidecar=sidecar_path)
     raw_arrays, labels, extras = _arrays_from_table(table, meta)
+    extras.update(found)
     raw = path.read_bytes()
     return _assemble(
         meta,
@@ -330,6 +335,66 @@ def build_draft(
         raw_file_name=path.name,
         raw_sha256=hashlib.sha256(raw).hexdigest(),
     )
+
+
+def read_with_layout(path: Path, merged: dict[str, Any], sidecar_path: Path | None
+                     ) -> tuple[Table, dict[str, Any], dict[str, Any]]:  # fmt: skip
+    """Give the table as the sidecar's layout fields place it, the metadata with the units its
+    headers state filled in (where none is given; a contradiction is refused), and what was
+    found (the dialect, the header units) for the dataset's provenance."""
+    layout = validate_layout(merged, origin=str(path), sidecar=sidecar_path)
+    dialect = layout.dialect
+    table = read_table(path, layout=Layout(
+        sheet=layout.sheet, header_row=layout.header_row, skip_rows=layout.skip_rows,
+        delimiter=dialect.delimiter, decimal=dialect.decimal, thousands=dialect.thousands,
+        encoding=dialect.encoding,
+    ))  # fmt: skip
+    merged = copy.deepcopy(merged)  # the units filled in must not reach the caller's dicts
+    found: dict[str, Any] = {}
+    if table.dialect is not None:
+        found["file_dialect"] = table.dialect.to_dict()
+    if table.sheet is not None:
+        found["file_sheet"] = table.sheet
+    if match_column(layout.columns.time, table.columns) is None:
+        raise InputError(
+            f"{table.path}: required column '{layout.columns.time}' is missing; the columns "
+            f"are {', '.join(table.columns)}; name the time column with --column time=HEADER "
+            "(columns.time in the sidecar)"
+        )
+    stated: dict[str, str] = {}
+    for role, wanted, field in (("time", layout.columns.time, ("time", "unit")),
+                                ("value", layout.columns.value, ("observable", "unit"))):  # fmt: skip
+        header = match_column(wanted, table.columns)
+        if header is None:
+            continue
+        unit = header_unit(header)[1]
+        if unit is None:
+            continue
+        stated[role] = unit
+        section = merged.setdefault(field[0], {})
+        if not isinstance(section, dict):
+            continue
+        given = section.get(field[1])
+        if given is None:
+            section[field[1]] = unit
+        elif not _same_unit(str(given), unit):
+            option = "--time-unit" if role == "time" else "--unit"
+            raise InputError(
+                f"{path}, {table.row_word} {table.header_line}, column '{header}': the header "
+                f"states '{unit}', but the {role} unit given ({option} or the sidecar) is "
+                f"'{given}'; correct one of them"
+            )
+    if stated:
+        found["header_units"] = stated
+    return table, merged, found
+
+
+def _same_unit(given: str, stated: str) -> bool:
+    """Tell whether two unit strings name the same unit (1 of one is 1 of the other)."""
+    try:
+        return abs(units.to_unit(1.0, given, stated) - 1.0) < 1e-12
+    except Exception:  # another dimension, or not a unit at all: not the same
+        return False
 
 
 def draft_from_arrays(

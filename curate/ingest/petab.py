@@ -261,7 +261,9 @@ def read_petab_import(
             if role == "sbml":
                 model_ids.append(sbml_model_id(path, raw))
             else:  # a table that estimates or plots nothing may be a header alone
-                tables[name] = table_from_bytes(path, raw, require_rows=role == "measurement")
+                tables[name] = table_from_bytes(
+                    path, raw, require_rows=role == "measurement", strict_text=True
+                )
     observables: dict[str, dict[str, str]] = {}
     for name in names["observable"]:
         observables.update(_table_rows(tables[name], "observableId"))

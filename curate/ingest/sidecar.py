@@ -24,7 +24,15 @@ from pydantic import (
 from curate.errors import InputError
 from curate.records import Identifier, Normalisation, Uncertainty, normalise_grade
 
-__all__ = ["Sidecar", "deep_merge", "load_sidecar", "validate_sidecar"]
+__all__ = [
+    "Sidecar",
+    "SidecarDialect",
+    "SidecarLayout",
+    "deep_merge",
+    "load_sidecar",
+    "validate_layout",
+    "validate_sidecar",
+]
 
 MAX_SIDECAR_BYTES = 1024 * 1024
 
@@ -55,6 +63,17 @@ class SidecarColumns(_Part):
     replicates: list[str] | None = Field(
         None, description="wide layout: the replicate columns (default: every other column)"
     )
+
+
+class SidecarDialect(_Part):
+    """How a delimited text file is written; what is left out is detected from the file."""
+
+    delimiter: str | None = Field(None, description="',', ';', 'tab' or '|'")
+    decimal: Literal[".", ","] | None = Field(None, description="the decimal mark")
+    thousands: Literal["", ".", ",", " ", "'"] | None = Field(
+        None, description="the thousands separator ('' for none)"
+    )
+    encoding: str | None = Field(None, description="'utf-8', 'latin-1', 'utf-16', 'cp1252' ...")
 
 
 class ConditionSpec(_Part):
@@ -98,7 +117,17 @@ class Sidecar(_Part):
     id: Identifier | None = Field(None, description="dataset id to use (default: generated)")
     data_file: str | None = Field(None, description="data file, relative to the sidecar's folder")
     layout: Literal["auto", "long", "wide"] = "auto"
-    sheet: str | None = Field(None, description="XLSX sheet (default: the first)")
+    sheet: str | int | None = Field(
+        None,
+        description="XLSX sheet: its name, or its position from 1 (default: the only one with data)",
+    )
+    header_row: Annotated[int, Field(ge=1)] | None = Field(
+        None, description="the line (sheet row) of the header; lines above it are left out"
+    )
+    skip_rows: Annotated[int, Field(ge=0)] = Field(
+        0, description="lines (sheet rows) at the top to leave out before the header"
+    )
+    dialect: SidecarDialect = SidecarDialect()
     observable: SidecarObservable
     time: SidecarTime
     columns: SidecarColumns = SidecarColumns()
@@ -107,6 +136,28 @@ class Sidecar(_Part):
     source: SidecarSource
     protocol: SidecarProtocol = SidecarProtocol()
     trust: SidecarTrust | None = None
+
+
+class SidecarLayout(BaseModel):
+    """The sidecar fields that say where the table is and how it is written: read before the
+    table, so that units stated in its headers can fill the unit fields."""
+
+    model_config = ConfigDict(extra="ignore")
+    sheet: str | int | None = None
+    header_row: Annotated[int, Field(ge=1)] | None = None
+    skip_rows: Annotated[int, Field(ge=0)] = 0
+    dialect: SidecarDialect = SidecarDialect()
+    columns: SidecarColumns = SidecarColumns()
+    layout: Literal["auto", "long", "wide"] = "auto"
+
+
+def validate_layout(content: dict[str, Any], *, origin: str, sidecar: Path | None) -> SidecarLayout:
+    """Give the layout fields validated; InputError names the first offending field."""
+    try:
+        return SidecarLayout.model_validate(content)
+    except ValidationError as err:
+        _refuse(err, origin=origin, sidecar=sidecar)
+        raise  # not reached: _refuse raises
 
 
 # which command-line option fills a required field, for the error hint
@@ -151,6 +202,13 @@ def validate_sidecar(content: dict[str, Any], *, origin: str, sidecar: Path | No
     try:
         return Sidecar.model_validate(content)
     except ValidationError as err:
+        _refuse(err, origin=origin, sidecar=sidecar)
+        raise  # not reached: _refuse raises
+
+
+def _refuse(err: ValidationError, *, origin: str, sidecar: Path | None) -> None:
+    """Raise the InputError naming the first field pydantic refused."""
+    if True:
         first = err.errors()[0]
         if first["loc"] and first["loc"][-1] == "[key]":
             key = first["loc"][-2]

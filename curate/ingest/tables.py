@@ -7,6 +7,7 @@ bad cell is found without a Python loop over points and reported by its line and
 from __future__ import annotations
 
 import csv
+import dataclasses
 import datetime as dt
 import io
 from dataclasses import dataclass
@@ -16,10 +17,18 @@ import numpy as np
 import pandas as pd
 
 from curate.errors import InputError, where
+from curate.ingest.dialect import (
+    Dialect,
+    decode,
+    detect_delimiter,
+    detect_number_format,
+    numbers_as_written,
+)
 
 __all__ = [
     "DATA_SUFFIXES",
     "MAX_FILE_BYTES",
+    "Layout",
     "Table",
     "read_table",
     "table_from_bytes",
@@ -39,6 +48,10 @@ class Table:
     cells: dict[str, np.ndarray]  # column -> object array of str
     lines: np.ndarray  # file line (CSV/TSV) or sheet row (XLSX) of each data row
     row_word: str = "line"
+    dialect: Dialect | None = None  # how a text file is written (None: a workbook)
+    sheet: str | None = None  # the workbook sheet read
+    sheets: tuple[str, ...] = ()  # every sheet of the workbook
+    header_line: int = 1  # file line or sheet row of the header
 
     def __len__(self) -> int:
         return len(self.lines)
@@ -57,6 +70,8 @@ class Table:
         Raises InputError naming the first cell that is not a finite number.
         """
         text = pd.Series(self.cells[column], dtype=object).str.strip()
+        if self.dialect is not None and (self.dialect.decimal != "." or self.dialect.thousands):
+            text = numbers_as_written(text, self.dialect.decimal, self.dialect.thousands)
         values = pd.to_numeric(text, errors="coerce").to_numpy(dtype=np.float64, copy=True)
         empty = (text == "").to_numpy()
         bad = ~np.isfinite(values) & ~(empty & allow_empty)
@@ -69,6 +84,8 @@ class Table:
                 problem = f"'{cell}' is not a finite number; expected {what}"
             else:
                 problem = f"'{cell}' is not a number; expected {what}"
+            if self.dialect is not None and "encoding" in self.dialect.detected:
+                problem += f" (the file is not UTF-8 and was read as {self.dialect.encoding})"
             raise InputError(self.locate(index, column) + problem)
         values[empty] = np.nan
         return np.asarray(values, dtype=np.float64)
@@ -96,23 +113,43 @@ def _check_file(path: Path, max_bytes: int) -> str:
     return suffix
 
 
+@dataclass(frozen=True)
+class Layout:
+    """Where the table sits in its file and how it is written (the sidecar's ``sheet``,
+    ``header_row``, ``skip_rows`` and ``[dialect]``; None: found from the file)."""
+
+    sheet: str | int | None = None  # a sheet's name, or its position counted from 1
+    header_row: int | None = None  # the file line (sheet row) of the header
+    skip_rows: int = 0  # lines (rows) above the header to leave out
+    delimiter: str | None = None
+    decimal: str | None = None
+    thousands: str | None = None
+    encoding: str | None = None
+
+
 def read_table(
-    path: str | Path, *, sheet: str | None = None, max_bytes: int = MAX_FILE_BYTES
-) -> Table:
+    path: str | Path, *, sheet: str | int | None = None, max_bytes: int = MAX_FILE_BYTES,
+    layout: Layout | None = None,
+) -> Table:  # fmt: skip
     """Give the header and text cells of a CSV, TSV or XLSX file."""
     path = Path(path)
     _check_file(path, max_bytes)
-    return table_from_bytes(path, path.read_bytes(), sheet=sheet)
+    return table_from_bytes(path, path.read_bytes(), sheet=sheet, layout=layout)
 
 
 def table_from_bytes(
-    path: Path, raw: bytes, *, sheet: str | None = None, require_rows: bool = True
-) -> Table:
+    path: Path, raw: bytes, *, sheet: str | int | None = None, require_rows: bool = True,
+    layout: Layout | None = None, strict_text: bool = False,
+) -> Table:  # fmt: skip
     """Give the header and text cells of a file's bytes already read (``path`` names it).
 
     With ``require_rows=False`` a header without data rows is a table of no rows (a PEtab
-    parameter table of a problem that estimates nothing).
+    parameter table of a problem that estimates nothing). ``strict_text`` reads UTF-8 with
+    the suffix's delimiter only (formats that define their own, such as PEtab's TSV).
     """
+    layout = layout or Layout()
+    if sheet is not None:
+        layout = Layout(**{**layout.__dict__, "sheet": sheet})
     suffix = path.suffix.lower()
     if suffix not in DATA_SUFFIXES:
         raise InputError(
@@ -126,14 +163,72 @@ def table_from_bytes(
                 "save it from the spreadsheet program as .xlsx, or rename a text "
                 "file to .csv"
             )
-        rows, lines = _xlsx_rows(path, raw, sheet)
-        row_word = "row"
+        rows, lines, chosen, sheets = _xlsx_rows(path, raw, layout.sheet)
+        rows, lines = _from_header(path, rows, lines, layout, "row")
+        table = _to_table(path, rows, lines, "row", require_rows=require_rows)
+        return dataclasses.replace(table, sheet=chosen, sheets=sheets)
+    if layout.sheet is not None:
+        raise InputError(f"{path}: a sheet applies to .xlsx files only")
+    default = DATA_SUFFIXES[suffix] or ","
+    if strict_text:
+        rows, lines = _text_rows(path, raw, default)
+        return _to_table(path, rows, lines, "line", require_rows=require_rows)
+    dialect, text = _dialect(path, raw, default, layout)
+    rows, lines = _rows_of_text(path, text, dialect.delimiter)
+    rows, lines = _from_header(path, rows, lines, layout, "line")
+    table = _to_table(path, rows, lines, "line", require_rows=require_rows)
+    if layout.decimal is None and layout.thousands is None:
+        cells = [str(c) for column in table.cells.values() for c in column[:2000]]
+        decimal, thousands = detect_number_format(cells, dialect.delimiter)
+        detected = dialect.detected + tuple(
+            name for name, value, default_value in
+            (("decimal", decimal, "."), ("thousands", thousands, "")) if value != default_value
+        )  # fmt: skip
+        dialect = dataclasses.replace(dialect, decimal=decimal, thousands=thousands,
+                                      detected=detected)  # fmt: skip
+    return dataclasses.replace(table, dialect=dialect)
+
+
+def _dialect(path: Path, raw: bytes, default: str, layout: Layout) -> tuple[Dialect, str]:
+    """Give the file's dialect (as given, else detected) and its text."""
+    if (
+        b"\x00" in raw[:65536] and not raw.startswith((b"\xff\xfe", b"\xfe\xff"))
+    ) or raw.startswith(_ZIP_MAGIC):
+        raise InputError(
+            f"{path}: not a text file (binary content); expected "
+            f"{'comma' if default == ',' else 'tab'}-separated text"
+        )
+    text, encoding, encoding_found = decode(path, raw, layout.encoding)
+    detected: list[str] = ["encoding"] if encoding_found else []
+    if layout.delimiter is not None:
+        delimiter = {"tab": "\t", "\\t": "\t"}.get(layout.delimiter, layout.delimiter)
     else:
-        if sheet is not None:
-            raise InputError(f"{path}: a sheet name applies to .xlsx files only")
-        rows, lines = _text_rows(path, raw, DATA_SUFFIXES[suffix] or ",")
-        row_word = "line"
-    return _to_table(path, rows, lines, row_word, require_rows=require_rows)
+        delimiter, found = detect_delimiter(text, default)
+        if found:
+            detected.append("delimiter")
+    if len(delimiter) != 1:
+        raise InputError(f"{path}: dialect.delimiter '{layout.delimiter}': expected one character")
+    dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=layout.decimal or ".",
+                      thousands=layout.thousands or "", detected=tuple(detected))  # fmt: skip
+    if dialect.decimal == dialect.delimiter:
+        raise InputError(f"{path}: the decimal mark and the delimiter are both '{delimiter}'")
+    return dialect, text
+
+
+def _from_header(path: Path, rows: list[list[str]], lines: list[int], layout: Layout,
+                 row_word: str) -> tuple[list[list[str]], list[int]]:  # fmt: skip
+    """Give the rows from the header on: below ``skip_rows``, from ``header_row``."""
+    if layout.skip_rows < 0 or (layout.header_row is not None and layout.header_row < 1):
+        raise InputError(f"{path}: header_row counts from 1 and skip_rows from 0")
+    first = layout.header_row if layout.header_row is not None else layout.skip_rows + 1
+    if first <= 1:
+        return rows, lines
+    keep = [k for k, line in enumerate(lines) if line >= first]
+    if layout.header_row is not None and (not keep or lines[keep[0]] != layout.header_row):
+        raise InputError(
+            f"{path}, {row_word} {layout.header_row}: header_row names an empty {row_word}"
+        )
+    return [rows[k] for k in keep], [lines[k] for k in keep]
 
 
 def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]], list[int]]:
@@ -148,6 +243,10 @@ def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]],
         raise InputError(
             f"{path}: byte {err.start} is not UTF-8 text; save the file as UTF-8"
         ) from None
+    return _rows_of_text(path, text, delimiter)
+
+
+def _rows_of_text(path: Path, text: str, delimiter: str) -> tuple[list[list[str]], list[int]]:
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     rows: list[list[str]] = []
     lines: list[int] = []
@@ -174,7 +273,8 @@ def _cell_text(value: object) -> str:
     return str(value)
 
 
-def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str]], list[int]]:
+def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None
+               ) -> tuple[list[list[str]], list[int], str, tuple[str, ...]]:  # fmt: skip
     import zipfile
 
     import openpyxl
@@ -188,15 +288,29 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str
             "name); save it again as .xlsx, or as .csv"
         ) from None
     try:
+        names = tuple(book.sheetnames)
+        listed = ", ".join(repr(s) for s in names)
         if sheet is None:
-            worksheet = book.worksheets[0]
-        elif sheet in book.sheetnames:
+            filled = [n for n in names if _has_cells(book[n])]
+            if len(filled) > 1:
+                raise InputError(
+                    f"{path}: the workbook has {len(filled)} sheets with data ("
+                    + ", ".join(repr(s) for s in filled)
+                    + "); name one with --sheet or sheet = ... in the sidecar (a name, or its "
+                    "position from 1)"
+                )
+            worksheet = book[filled[0]] if filled else book.worksheets[0]
+        elif isinstance(sheet, int) or (str(sheet).isdigit() and str(sheet) not in names):
+            position = int(sheet)
+            if not 1 <= position <= len(names):
+                raise InputError(
+                    f"{path}: no sheet {position}; the workbook has {len(names)} ({listed})"
+                )
+            worksheet = book.worksheets[position - 1]
+        elif sheet in names:
             worksheet = book[sheet]
         else:
-            raise InputError(
-                f"{path}: no sheet named '{sheet}'; the workbook has "
-                + ", ".join(repr(s) for s in book.sheetnames)
-            )
+            raise InputError(f"{path}: no sheet named '{sheet}'; the workbook has {listed}")
         rows: list[list[str]] = []
         lines: list[int] = []
         for number, values in enumerate(worksheet.iter_rows(values_only=True), start=1):
@@ -207,9 +321,17 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | None) -> tuple[list[list[str
                 continue
             rows.append(cells)
             lines.append(number)
+        chosen = str(worksheet.title)
     finally:
         book.close()
-    return rows, lines
+    return rows, lines, chosen, names
+
+
+def _has_cells(worksheet: object) -> bool:
+    for values in worksheet.iter_rows(values_only=True):  # type: ignore[attr-defined]
+        if any(v is not None and str(v).strip() for v in values):
+            return True
+    return False
 
 
 def _to_table(
@@ -235,6 +357,12 @@ def _to_table(
     if not body and require_rows:
         raise InputError(f"{path}: the file has a header but no data rows")
     width = len(header)
+    if body and len([c for c in body[0] if c.strip()]) > width and width == 1:
+        raise InputError(
+            f"{path}, {row_word} {lines[1]}: {len(body[0])} cells, but the header ({row_word} "
+            f"{lines[0]}: '{header[0][:40]}') has 1 column; if that is a title above the header, "
+            f"pass --header-row {lines[1]} (header_row = {lines[1]} in the sidecar)"
+        )
     for row, line in zip(body, lines[1:], strict=True):
         if len(row) > width and any(cell.strip() for cell in row[width:]):
             raise InputError(
@@ -253,4 +381,5 @@ def _to_table(
         cells=cells,
         lines=np.asarray(lines[1:], dtype=np.int64),
         row_word=row_word,
+        header_line=int(lines[0]),
     )
