@@ -31,6 +31,7 @@ from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
 from curate.ingest import build_draft
+from curate.ingest.inspection import inspect_file
 from curate.jsontext import to_json
 from curate.ledger import AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
@@ -283,6 +284,48 @@ def intake(
     _show(result.to_dict(), lambda: text.intake_text(result), as_json)
     if result.count("quarantined") or result.count("refused"):
         raise typer.Exit(1)
+
+
+@app.command()
+def inspect(
+    file: Annotated[Path, typer.Argument(help="data file (.csv, .tsv, .xlsx) or its TOML sidecar")],
+    meta: Annotated[
+        Path | None, typer.Option(help="TOML sidecar (default: FILE with .toml)")
+    ] = None,
+    observable: Annotated[str | None, typer.Option(help="observable id, e.g. front_speed")] = None,
+    unit: Annotated[str | None, typer.Option(help="unit of the values")] = None,
+    time_unit: Annotated[str | None, typer.Option(help="unit of the time column")] = None,
+    lab: Annotated[str | None, typer.Option(help="source lab or group")] = None,
+    sheet: Annotated[
+        str | None, typer.Option(help="XLSX sheet: its name, or its position from 1")
+    ] = None,
+    column: Annotated[
+        list[str] | None, typer.Option(help="ROLE=HEADER, repeatable (as for add)")
+    ] = None,
+    header_row: Annotated[
+        int | None, typer.Option(help="the line (sheet row) of the header")
+    ] = None,
+    skip_rows: Annotated[
+        int | None, typer.Option(help="lines (sheet rows) at the top to leave out")
+    ] = None,
+    layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
+    as_json: JsonFlag = False,
+) -> None:
+    """Show what a data file holds (sheets, columns, units in headers, dialect) and what `add`
+    would log from it with these options; nothing is written."""
+    options: dict[str, Any] = {}
+    for path, value in (("observable.id", observable), ("observable.unit", unit),
+                        ("time.unit", time_unit), ("source.lab", lab), ("sheet", sheet),
+                        ("header_row", header_row), ("skip_rows", skip_rows), ("layout", layout),
+                        *((f"columns.{r}", h) for r, h in parse_columns(column or []).items())):  # fmt: skip
+        if value is not None:
+            node = options
+            *parents, last = path.split(".")
+            for part in parents:
+                node = node.setdefault(part, {})
+            node[last] = value
+    found = inspect_file(file, sidecar=meta, options=options)
+    _show(found.to_dict(), lambda: text.inspection_text(found), as_json)
 
 
 @app.command("import-petab")

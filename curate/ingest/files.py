@@ -384,6 +384,28 @@ def read_with_layout(path: Path, merged: dict[str, Any], sidecar_path: Path | No
                 f"states '{unit}', but the {role} unit given ({option} or the sidecar) is "
                 f"'{given}'; correct one of them"
             )
+    time_header = match_column(layout.columns.time, table.columns)
+    if (
+        "value" not in stated
+        and layout.layout != "long"
+        and match_column(layout.columns.value, table.columns) is None
+    ):
+        # wide: one column per replicate; their headers give the unit when they all state one
+        named = layout.columns.replicates or [c for c in table.columns if c != time_header]
+        column_units = {header_unit(c)[1] for c in named}
+        section = merged.setdefault("observable", {})
+        if len(column_units) == 1 and None not in column_units and isinstance(section, dict):
+            (unit,) = column_units
+            given = section.get("unit")
+            if given is None:
+                section["unit"] = unit
+            elif not _same_unit(str(given), str(unit)):
+                raise InputError(
+                    f"{path}, {table.row_word} {table.header_line}: the replicate columns state "
+                    f"'{unit}', but the value unit given (--unit or the sidecar) is '{given}'; "
+                    "correct one of them"
+                )
+            stated["value"] = str(unit)
     if stated:
         found["header_units"] = stated
     return table, merged, found

@@ -32,6 +32,7 @@ __all__ = [
     "Table",
     "read_table",
     "table_from_bytes",
+    "workbook_sheets",
 ]
 
 DATA_SUFFIXES = {".csv": ",", ".tsv": "\t", ".tab": "\t", ".xlsx": None}
@@ -325,6 +326,30 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None
     finally:
         book.close()
     return rows, lines, chosen, names
+
+
+def workbook_sheets(path: Path) -> list[tuple[str, int]]:
+    """Give each sheet of a workbook with its number of rows that hold a cell."""
+    import zipfile
+
+    import openpyxl
+    from openpyxl.utils.exceptions import InvalidFileException
+
+    try:
+        book = openpyxl.load_workbook(path, read_only=True, data_only=True)
+    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
+        raise InputError(
+            f"{path}: not a readable XLSX workbook (damaged, or another format with an .xlsx "
+            "name); save it again as .xlsx, or as .csv"
+        ) from None
+    try:
+        return [
+            (str(name), sum(1 for values in book[name].iter_rows(values_only=True)
+                            if any(v is not None and str(v).strip() for v in values)))
+            for name in book.sheetnames
+        ]  # fmt: skip
+    finally:
+        book.close()
 
 
 def _has_cells(worksheet: object) -> bool:

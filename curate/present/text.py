@@ -12,6 +12,7 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
+from curate.ingest.inspection import FileInspection
 from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
 from curate.ledger.problems import ProblemSummary
 from curate.present.tables import field_table
@@ -29,6 +30,7 @@ __all__ = [
     "graded_data",
     "graded_text",
     "history_text",
+    "inspection_text",
     "intake_text",
     "list_table",
     "noise_table",
@@ -309,6 +311,42 @@ def plan_text(plan: AddPlan) -> Group:
         )
     ]
     lines += [Text(f"warning: {w['message']}") for w in info["warnings"]]
+    return Group(*lines)
+
+
+def inspection_text(found: FileInspection) -> Group:
+    """Give what ``curate inspect`` prints."""
+    lines: list[Any] = [Text(found.path)]
+    if found.sheets:
+        shown = ", ".join(f"{s['name']} ({s['rows']} rows)" for s in found.sheets)
+        lines.append(Text(f"sheets: {shown}" + (f"; read: {found.sheet}" if found.sheet else "")))
+    if found.dialect is not None:
+        d = found.dialect
+        names = {",": "comma", ";": "semicolon", "\t": "tab", "|": "bar"}
+        words = [f"{names.get(d['delimiter'], repr(d['delimiter']))}-separated",
+                 "decimal comma" if d["decimal"] == "," else "decimal point"]  # fmt: skip
+        if d["thousands"]:
+            words.append(f"thousands separator '{d['thousands']}'")
+        words.append(d["encoding"])
+        detected = f" (detected: {', '.join(d['detected'])})" if d["detected"] else ""
+        lines.append(Text("dialect: " + ", ".join(words) + detected))
+    if found.header_line is not None:
+        lines.append(Text(f"header on line {found.header_line}, {found.rows} data rows"))
+        table = plain_table(("column", "name", "unit in header", "read as"))
+        for column in found.columns:
+            table.add_row(column["header"], column["name"], column["unit"] or "-",
+                          column["role"] or "(kept as an extra column)")  # fmt: skip
+        lines.append(table)
+    if found.would_add is not None:
+        w = found.would_add
+        lines.append(Text(
+            f"add would log: {w['observable']} in {w['unit']}"
+            + (" (relative)" if w["relative"] else "")
+            + f", time in {w['time_unit']}, {w['points']} points, lab {w['lab']}"
+        ))  # fmt: skip
+        lines += [Text(f"  warning: {message}") for message in w["warnings"]]
+    elif found.would_refuse is not None:
+        lines.append(Text(f"add would refuse: {found.would_refuse}"))
     return Group(*lines)
 
 

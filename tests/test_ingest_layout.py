@@ -1,0 +1,230 @@
+"""Lab files as they arrive: units in headers, column mapping, title rows, sheets, dialects.
+
+Outside references: pandas.read_csv with the dialect stated by hand (sep, decimal, thousands,
+encoding) reads the same numbers from each file; openpyxl writes the workbooks.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import openpyxl
+import pandas as pd
+import pytest
+
+from curate.errors import InputError
+from curate.ingest.dialect import detect_number_format
+from curate.ingest.headers import header_unit, match_column
+
+LAB = {"source": {"lab": "Lab Quill"}, "observable": {"id": "perk"}}
+
+
+def _points(catalog, result):
+    return catalog.points(result.id)
+
+
+@pytest.mark.parametrize(
+    ("header", "expected"),
+    [
+        ("Time (min)", ("Time", "min")),
+        ("pERK [nM]", ("pERK", "nM")),
+        ("GFP [a.u.]", ("GFP", "a.u.")),
+        ("Value (replicate 1)", ("Value (replicate 1)", None)),  # brackets, but not a unit
+        ("time", ("time", None)),
+        ("(min)", ("(min)", None)),
+    ],
+)
+def test_header_units(header, expected):
+    assert header_unit(header) == expected
+
+
+def test_a_mapping_names_a_header_by_its_text_or_its_bare_name():
+    headers = ("Time (min)", "pERK [nM]", "SD")
+    assert match_column("time", headers) == "Time (min)"
+    assert match_column("perk [nM]", headers) == "pERK [nM]"
+    assert match_column("sd", headers) == "SD"
+    assert match_column("value", headers) is None
+
+
+def test_units_come_from_the_headers(catalog, tmp_path):
+    path = tmp_path / "blot.csv"
+    path.write_text("Time (min),pERK [nM],SD\n0,1.0,0.1\n5,2.0,0.1\n10,2.5,0.2\n")
+    result = catalog.add(path, options={**LAB, "columns": {"value": "pERK"}})
+    record = catalog.show(result.id).record
+    assert record.observable.unit_original == "nM" and record.time_unit_original == "min"
+    frame = _points(catalog, result)
+    assert frame["time"].tolist() == [0.0, 300.0, 600.0]  # minutes in seconds
+    np.testing.assert_allclose(frame["value"], [1.0, 2.0, 2.5])
+    assert record.annotations["header_units"] == {"time": "min", "value": "nM"}
+
+
+def test_a_unit_given_that_contradicts_the_header_is_refused(catalog, tmp_path):
+    path = tmp_path / "blot.csv"
+    path.write_text("Time (min),value\n0,1\n5,2\n10,3\n")
+    options = {**LAB, "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "s"}}
+    with pytest.raises(
+        InputError,
+        match=r"line 1, column 'Time \(min\)': the header states 'min', but the time unit given .* is 's'",
+    ):
+        catalog.add(path, options=options)
+    same = {**options, "time": {"unit": "minute"}}  # the same unit, written otherwise
+    assert catalog.add(path, options=same).added
+
+
+def test_a_title_row_is_named_and_skipped_with_header_row(catalog, tmp_path):
+    path = tmp_path / "titled.csv"
+    path.write_text("Experiment 12 - pERK by blot\n\ntime,value\n0,1\n5,2\n10,3\n")
+    options = {**LAB, "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "min"}}
+    with pytest.raises(
+        InputError,
+        match=r"line 3: 2 cells, but the header \(line 1: 'Experiment 12 - pERK by blot'\) has 1 column; if that is a title above the header, pass --header-row 3",
+    ):
+        catalog.add(path, options=options)
+    assert len(_points(catalog, catalog.add(path, options={**options, "header_row": 3}))) == 3
+    again = catalog.add(path, options={**options, "skip_rows": 2})
+    assert again.duplicate_of is not None  # the same data, found the other way
+
+
+def test_header_row_on_an_empty_line_is_refused(catalog, tmp_path):
+    path = tmp_path / "titled.csv"
+    path.write_text("title\n\ntime,value\n0,1\n5,2\n")
+    with pytest.raises(InputError, match="line 2: header_row names an empty line"):
+        catalog.add(path, options={**LAB, "observable": {"id": "perk", "unit": "nM"},
+                                   "time": {"unit": "min"}, "header_row": 2})  # fmt: skip
+
+
+GERMAN = "Zeit (min);pERK [nM];SD [nM]\n0;1,25;0,1\n5;2,5;0,2\n10;1.003,75;0,3\n"
+
+
+def test_semicolons_decimal_commas_and_thousands_read_as_pandas_reads_them(catalog, tmp_path):
+    path = tmp_path / "export.csv"
+    path.write_bytes(GERMAN.encode("cp1252"))
+    result = catalog.add(path, options={**LAB, "columns": {"time": "Zeit", "value": "pERK",
+                                                           "sd": "SD"}})  # fmt: skip
+    # the reference: pandas told the dialect by hand
+    reference = pd.read_csv(io.BytesIO(GERMAN.encode("cp1252")), sep=";", decimal=",",
+                            thousands=".", encoding="cp1252")  # fmt: skip
+    frame = _points(catalog, result)
+    np.testing.assert_allclose(frame["value"], reference["pERK [nM]"], rtol=1e-15)
+    np.testing.assert_allclose(frame["sd"], reference["SD [nM]"], rtol=1e-15)
+    np.testing.assert_allclose(frame["time"], reference["Zeit (min)"] * 60, rtol=1e-15)
+    dialect = catalog.show(result.id).record.annotations["file_dialect"]
+    assert dialect["delimiter"] == ";" and dialect["decimal"] == "," and dialect["thousands"] == "."
+    assert set(dialect["detected"]) == {"delimiter", "decimal", "thousands"}
+
+
+def test_a_non_utf8_file_is_read_in_its_encoding_and_says_which(catalog, tmp_path):
+    text = "time;Konzentration (µM)\n0;1,5\n1;2,5\n2;3,5\n"
+    path = tmp_path / "latin.csv"
+    path.write_bytes(text.encode("latin-1"))
+    options = {**LAB, "columns": {"value": "Konzentration"}, "time": {"unit": "s"}}
+    result = catalog.add(path, options=options)
+    reference = pd.read_csv(path, sep=";", decimal=",", encoding="latin-1")
+    # stored in the canonical nM
+    np.testing.assert_allclose(
+        _points(catalog, result)["value"], reference.iloc[:, 1] * 1000, rtol=1e-15
+    )
+    record = catalog.show(result.id).record
+    assert record.observable.unit_original == "µM"
+    assert "encoding" in record.annotations["file_dialect"]["detected"]
+
+
+def test_utf16_with_a_byte_order_mark(catalog, tmp_path):
+    path = tmp_path / "wide.csv"
+    path.write_bytes("time\tvalue\n0\t1\n1\t2\n".encode("utf-16"))
+    options = {**LAB, "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "s"}}
+    result = catalog.add(path, options=options)
+    assert _points(catalog, result)["value"].tolist() == [1.0, 2.0]
+    dialect = catalog.show(result.id).record.annotations["file_dialect"]
+    assert dialect["encoding"] == "utf-16" and dialect["delimiter"] == "\t"
+
+
+def test_a_dialect_given_in_the_sidecar_wins(catalog, tmp_path):
+    # "1,5" with a comma delimiter would be two cells: stated as semicolons it is one number
+    path = tmp_path / "stated.csv"
+    path.write_text("time;value\n0;1,5\n1;2,5\n")
+    options = {**LAB, "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "s"},
+               "dialect": {"delimiter": ";", "decimal": ","}}  # fmt: skip
+    result = catalog.add(path, options=options)
+    assert _points(catalog, result)["value"].tolist() == [1.5, 2.5]
+    assert catalog.show(result.id).record.annotations["file_dialect"]["detected"] == []
+
+
+def test_number_format_needs_every_grouped_cell_to_agree():
+    assert detect_number_format(["1,5", "2,25", "10"], ";") == (",", "")
+    assert detect_number_format(["1.234,5", "2,25"], ";") == (",", ".")
+    assert detect_number_format(["1,234.5", "2.25"], ";") == (".", ",")
+    assert detect_number_format(["1.5", "2,25"], ";") == (".", "")  # mixed: nothing assumed
+    assert detect_number_format(["1,5"], ",") == (".", "")  # a comma delimiter: never
+
+
+def _workbook(path, sheets):
+    book = openpyxl.Workbook()
+    book.remove(book.active)
+    for name, rows in sheets.items():
+        sheet = book.create_sheet(name)
+        for row in rows:
+            sheet.append(row)
+    book.save(path)
+    return path
+
+
+SERIES = [["Time (h)", "GFP [a.u.]"], [0, 1.0], [1, 2.0], [2, 4.0]]
+
+
+def test_a_workbook_of_several_filled_sheets_needs_one_named(catalog, tmp_path):
+    path = _workbook(
+        tmp_path / "plate.xlsx", {"notes": [["read on the plate reader"]], "series": SERIES}
+    )
+    options = {**LAB, "observable": {"id": "gfp"}}
+    with pytest.raises(
+        InputError, match=r"the workbook has 2 sheets with data \('notes', 'series'\); name one"
+    ):
+        catalog.add(path, options=options)
+    by_name = catalog.add(path, options={**options, "sheet": "series"})
+    by_position = catalog.add(path, options={**options, "sheet": 2})
+    assert by_position.duplicate_of is not None
+    record = catalog.show(by_name.id).record
+    assert record.observable.unit_original == "a.u." and record.observable.relative
+    assert record.annotations["file_sheet"] == "series"
+    with pytest.raises(InputError, match=r"no sheet 3; the workbook has 2 \('notes', 'series'\)"):
+        catalog.add(path, options={**options, "sheet": 3})
+
+
+def test_an_empty_sheet_beside_one_filled_is_no_question(catalog, tmp_path):
+    path = _workbook(tmp_path / "plate.xlsx", {"empty": [], "series": SERIES})
+    assert catalog.add(path, options={**LAB, "observable": {"id": "gfp"}}).added
+
+
+def test_cli_column_mapping_and_header_row(cli, tmp_path):
+    path = tmp_path / "titled.csv"
+    path.write_text("Run 4\nZeit (min);pERK [nM]\n0;1,25\n5;2,5\n")
+    run = cli("add", path, "--observable", "perk", "--lab", "Lab Quill", "--header-row", "2",
+              "--column", "time=Zeit", "--column", "value=pERK [nM]", "--json")  # fmt: skip
+    assert run.code == 0, run.err
+    assert json.loads(run.out)["added"] is True
+    bad = cli("add", path, "--observable", "perk", "--lab", "L", "--column", "colour=x")
+    assert bad.code == 2 and "unknown role 'colour'" in bad.err and bad.err.count("\n") == 1
+
+
+def test_inspect_says_what_add_would_do_and_writes_nothing(cli, tmp_path):
+    path = _workbook(
+        tmp_path / "plate.xlsx", {"notes": [["read on the plate reader"]], "series": SERIES}
+    )
+    catalog = tmp_path / "cli.db"
+    refused = cli("inspect", path, "--json")
+    assert refused.code == 0, refused.err
+    found = json.loads(refused.out)
+    assert found["sheets"] == [{"name": "notes", "rows": 1}, {"name": "series", "rows": 4}]
+    assert "2 sheets with data" in found["would_refuse"]
+    run = cli("inspect", path, "--sheet", "series", "--column", "value=GFP", "--observable", "gfp",
+              "--lab", "Lab Quill", "--json")  # fmt: skip
+    found = json.loads(run.out)
+    assert [c["role"] for c in found["columns"]] == ["time", "value"]
+    assert [c["unit"] for c in found["columns"]] == ["h", "a.u."]
+    assert found["would_add"]["points"] == 3 and found["would_add"]["time_unit"] == "h"
+    shown = cli("inspect", path, "--sheet", "2", "--observable", "gfp", "--lab", "Lab Quill")
+    assert "add would log: gfp in a.u. (relative), time in h, 3 points" in shown.out
+    assert not catalog.exists()
