@@ -99,7 +99,13 @@ CASES = [
     ("binary as csv", "k.csv", b"\x00\x01\x02PK\x00", [], "not a text file (binary content)"),
     ("text as xlsx", "l.xlsx", "time,value\n0,1\n", [], "not an XLSX workbook"),
     ("broken zip as xlsx", "l2.xlsx", b"PK\x03\x04garbage", [], "not a readable XLSX workbook"),
-    ("not utf-8", "m.csv", b"time,value\n0,\xff\n", [], "is not a number; expected a measured value (the file is not UTF-8 and was read as "),
+    (
+        "not utf-8",
+        "m.csv",
+        b"time,value\n0,\xff\n",
+        [],
+        "is not a number; expected a measured value (the file is not UTF-8 and was read as ",
+    ),
     ("unsupported type", "n.dat", "time,value\n0,1\n", [], "unsupported file type '.dat'"),
     ("duplicate header", "o.csv", "time,value,value\n0,1,2\n", [], "column 'value' appears twice"),
 ]
@@ -576,6 +582,39 @@ BAD_MODELS = [
         "_conditions.tsv, column nosuch: the model has no symbol 'nosuch'",
     ),
     (
+        "measurement before t = 0",
+        lambda f: _replace(f / "_measurements.tsv", "obs_a\tc0\t10\t", "obs_a\tc0\t-5\t"),
+        "_measurements.tsv, row 3: time -5 is before 0; a PEtab v1 simulation starts at t = 0",
+    ),
+    (
+        "an operator without its operand",
+        lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t", "obs_a\t2 * * A\t"),
+        "observableFormula: cannot read formula '2 * * A' (an operator without its operand)",
+    ),
+    (
+        "bounds the wrong way round",
+        lambda f: _replace(f / "_parameters.tsv", "k1\tlin\t0\t10", "k1\tlin\t10\t0"),
+        "_parameters.tsv, row 4 (k1): lowerBound 10 is not below upperBound 0",
+    ),
+    (
+        "log scale from zero",
+        lambda f: _replace(f / "_parameters.tsv", "k1\tlin\t0\t10", "k1\tlog10\t0\t10"),
+        "_parameters.tsv, row 4 (k1): parameterScale log10 needs a positive lowerBound, not 0",
+    ),
+    (
+        "a condition defined twice",
+        lambda f: (f / "_conditions.tsv").write_text("conditionId\nc0\nc0\n"),
+        "_conditions.tsv, row 3: condition 'c0' is defined twice",
+    ),
+    (
+        "more noise parameters than placeholders",
+        lambda f: (f / "_measurements.tsv").write_text(
+            "observableId\tsimulationConditionId\ttime\tmeasurement\tnoiseParameters\n"
+            "obs_a\tc0\t0\t0.7\t0.5;2\nobs_a\tc0\t10\t0.1\t\n"
+        ),
+        "_measurements.tsv, row 2, noiseParameters: '0.5;2' gives 2 values, but observable obs_a's formula has 0 noiseParameter placeholders",
+    ),
+    (
         "noise formula that does not parse",
         lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t0.5", "obs_a\tA\t0.5 *"),
         "_observables.tsv, row 2 (obs_a), noiseFormula",
@@ -690,3 +729,32 @@ def test_the_solver_prints_nothing_of_its_own_when_it_fails(tmp_path, capfd):
     captured = capfd.readouterr()  # what reached file descriptors 1 and 2
     assert "CVODE" not in captured.err and "cvodes" not in captured.err, captured.err
     assert captured.out == ""
+
+
+def test_a_failed_import_into_a_new_catalog_leaves_no_file(cli, tmp_path):
+    problem = _small_copy(tmp_path / "problem")
+    folder = problem.parent
+    # one dataset holds genotype as text, the other as a number: refused inside the catalog
+    (folder / "_conditions.tsv").write_text("conditionId\tgenotype\nc0\twt\nc1\t5\n")
+    _replace(folder / "_measurements.tsv", "obs_a\tc0\t10\t", "obs_a\tc1\t10\t")
+    _replace(folder / "_model.xml", "<listOfParameters>", "<listOfParameters>\n      "
+             '<parameter id="genotype" value="0" constant="true"/>')  # fmt: skip
+    catalog = tmp_path / "new.db"
+    run = cli("import-petab", problem, "--lab", "L", catalog_path=catalog)
+    assert run.code == 2 and "genotype" in run.err, run.err
+    assert not catalog.exists()
+
+
+def test_nan_in_a_species_column_keeps_the_value_as_an_empty_cell_does(cli, tmp_path):
+    # PEtab v1: NaN (or an empty cell) in the condition table keeps the model's own value
+    results = {}
+    for cell in ("NaN", ""):
+        problem = _small_copy(tmp_path / f"p{cell or 'empty'}")
+        (problem.parent / "_conditions.tsv").write_text(f"conditionId\tA\nc0\t{cell}\n")
+        catalog = tmp_path / f"{cell or 'empty'}.db"
+        assert cli("import-petab", problem, "--lab", "L", catalog_path=catalog).code == 0
+        (stored,) = json.loads(cli("models", "--json", catalog_path=catalog).out)
+        run = cli("fit", "--problem", stored["id"], "--evaluate", "--json", catalog_path=catalog)
+        assert run.code == 0, run.err
+        results[cell] = json.loads(run.out)["nllh"]
+    assert results["NaN"] == results[""]

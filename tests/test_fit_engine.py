@@ -10,6 +10,7 @@ from conftest import write
 
 from curate import fit as fitting
 from curate.errors import InputError
+from curate.fit.engine import evaluate_at_start
 
 
 def nist_fit(name, start):
@@ -282,3 +283,36 @@ def test_evaluation_budget_stops_the_whole_fit():
     assert local.to_dict()["options"]["max_evaluations"] == 5
     with pytest.raises(InputError, match="max_evaluations = 0: expected at least 1"):
         fitting.fit(boxbod_bounded(), fitting.FitOptions(max_evaluations=0))
+
+
+def test_a_model_failing_beside_the_optimum_gets_one_sided_differences_or_no_stderr():
+    # y = a + b t, fitted exactly; the model refuses a > 1 (as an ODE model may refuse a
+    # parameter past a bound): a's column is taken one-sided, and where both sides fail the
+    # parameter gets no standard error instead of the whole evaluation failing
+    t = np.linspace(0, 1, 9)
+    points = pd.DataFrame({"time": t, "value": 1.0 + 2.0 * t, "weight": np.ones(9)})
+
+    def model(params, frame, limit=1.0):
+        if params["a"] > limit:
+            raise InputError("no steady state")
+        return params["a"] + params["b"] * frame["time"].to_numpy()
+
+    spec = fitting.ParameterSpec((fitting.Parameter("a", 1.0, -10, 10),
+                                  fitting.Parameter("b", 2.0, -10, 10)))  # fmt: skip
+    result = evaluate_at_start(fitting.FitProblem(points, model, spec))
+    # one-sided at a = 1: the linear least-squares standard errors with unit weights (sigma 1),
+    # sqrt of the diagonal of (X'X)^-1 (the textbook formula, computed here directly)
+    x = np.column_stack([np.ones(9), t])
+    expected = np.sqrt(np.diag(np.linalg.inv(x.T @ x)))
+    assert result.parameters["a"]["stderr"] == pytest.approx(expected[0], rel=1e-4)
+    assert result.parameters["b"]["stderr"] == pytest.approx(expected[1], rel=1e-4)
+
+    def nowhere_but_here(params, frame):
+        if abs(params["a"] - 1.0) > 1e-12:
+            raise InputError("no steady state")
+        return params["a"] + params["b"] * frame["time"].to_numpy()
+
+    result = evaluate_at_start(fitting.FitProblem(points, nowhere_but_here, spec))
+    assert result.parameters["a"]["stderr"] is None
+    assert result.parameters["b"]["stderr"] is not None and result.parameters["b"]["stderr"] > 0
+    assert result.chi2 == pytest.approx(0.0, abs=1e-20)

@@ -5,11 +5,12 @@ No computation here. Errors a user can fix print one line on stderr and exit wit
 
 from __future__ import annotations
 
+import contextlib
 import difflib
 import json
 import os
 import sys
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Annotated, Any
 
@@ -33,7 +34,7 @@ from curate.fit import FitOptions
 from curate.ingest import build_draft
 from curate.ingest.inspection import inspect_file
 from curate.jsontext import to_json
-from curate.ledger import AddPlan, default_actor, restore_catalog
+from curate.ledger import DEFAULT_CATALOG, AddPlan, default_actor, restore_catalog
 from curate.ledger.provenance import parse_head
 from curate.present import run_text, text
 from curate.present.html import write_sensitivity_report
@@ -88,6 +89,21 @@ state = _State()
 def _catalog(*, create: bool = False) -> Catalog:
     """Open the chosen catalog; only commands that log data may ``create`` a missing one."""
     return open_catalog(state.catalog_path, actor=state.actor, create=create)
+
+
+@contextlib.contextmanager
+def _created_only_if_written() -> Iterator[None]:
+    """Remove a catalog this command created if the command then fails (nothing was stored)."""
+    chosen = state.catalog_path or os.environ.get("CURATE_CATALOG") or DEFAULT_CATALOG
+    path = Path(chosen)
+    existed = str(chosen) == ":memory:" or path.exists()
+    try:
+        yield
+    except CurateError:
+        if not existed:
+            for suffix in ("", "-wal", "-shm"):
+                Path(str(path) + suffix).unlink(missing_ok=True)
+        raise
 
 
 def _emit_json(value: Any) -> None:
@@ -344,7 +360,7 @@ def import_petab(
     imported = read_petab(
         problem, lab=lab, time_unit=time_unit, unit=unit, actor=state.actor or default_actor()
     )
-    with _catalog(create=True) as catalog:
+    with _created_only_if_written(), _catalog(create=True) as catalog:
         results = catalog.add_petab(imported)
     if as_json:
         _emit_json([r.to_dict() for r in results])

@@ -201,19 +201,50 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
     if len(theta) == 0:  # nothing free: no columns
         return np.zeros((len(problem.residual(theta, rows)), 0))
     columns = []
+    centre: np.ndarray | None = None
     for k in range(len(theta)):
         e = np.zeros(len(theta))
         e[k] = step[k]
-        columns.append(
-            (problem.residual(theta + e, rows) - problem.residual(theta - e, rows)) / (2 * step[k])
+        plus, minus = (
+            _try_residual(problem, theta + e, rows),
+            _try_residual(problem, theta - e, rows),
         )
+        if plus is not None and minus is not None:
+            columns.append((plus - minus) / (2 * step[k]))
+            continue
+        # the model fails on one side (a bound where a steady state stops existing, say):
+        # a one-sided difference, or no column at all (that parameter gets no standard error)
+        if centre is None:
+            centre = problem.residual(theta, rows)
+        if plus is not None:
+            columns.append((plus - centre) / step[k])
+        elif minus is not None:
+            columns.append((centre - minus) / step[k])
+        else:
+            columns.append(np.full(len(centre), np.nan))
     return np.column_stack(columns)
 
 
+def _try_residual(
+    problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None
+) -> np.ndarray | None:
+    try:
+        return problem.residual(theta, rows)
+    except InputError:
+        return None
+
+
 def covariance_from_jacobian(jacobian: np.ndarray) -> np.ndarray:
-    """Give (J^T J)^-1 by SVD (pseudo-inverse where J is rank deficient)."""
+    """Give (J^T J)^-1 by SVD (pseudo-inverse where J is rank deficient); a column that could
+    not be computed (NaN) gives NaN in its row and column."""
     if jacobian.shape[1] == 0:
         return np.zeros((0, 0))
+    known = np.all(np.isfinite(jacobian), axis=0)
+    if not known.all():
+        covariance = np.full((jacobian.shape[1],) * 2, np.nan)
+        if known.any():
+            covariance[np.ix_(known, known)] = covariance_from_jacobian(jacobian[:, known])
+        return covariance
     _, singular, vt = np.linalg.svd(jacobian, full_matrices=False)
     threshold = np.finfo(float).eps * max(jacobian.shape) * (singular[0] if len(singular) else 0.0)
     keep = singular > threshold

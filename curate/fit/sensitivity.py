@@ -324,8 +324,8 @@ def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
             results.append(_exact_refit(task))
             if progress:
                 progress(done + 2, len(tasks))
-        return results, (f"serial ({workers} workers asked; a refit takes {took:.2g} s, less "
-                         "than starting workers)")  # fmt: skip
+        return results, (f"serial: a refit takes {took:.2g} s, less than starting "
+                         f"{workers} worker processes would")  # fmt: skip
     # spawn, not fork: a forked child can inherit a lock held by another thread (pyarrow's
     # pool, SQLite) and hang; spawned workers start clean and import the model themselves
     with ProcessPoolExecutor(

@@ -350,6 +350,8 @@ def _drafts_from_measurements(
         for column, cell in condition_row.items():
             if column in ("conditionId", "conditionName") or not cell.strip():
                 continue
+            if cell.strip().lower() == "nan":  # PEtab: keep the model's (preequilibrated) value
+                continue
             number = _number_or_nan(cell)
             if not np.isfinite(number):
                 condition_values[column] = {"text": cell.strip()}

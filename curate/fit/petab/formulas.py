@@ -53,6 +53,10 @@ def parse_formula(text: str, *, where: str) -> Formula:
     source = str(text).strip()
     if not source:
         raise InputError(f"{where}: empty formula")
+    if re.search(r"\*\s+\*|\*{3,}|[+\-*/^]\s*$|^\s*[*/^]", source):
+        raise InputError(
+            f"{where}: cannot read formula '{source}' (an operator without its operand)"
+        )
     names = {n for n in _NAME.findall(source) if n not in _FUNCTIONS}
     local: dict[str, object] = {name: sympy.Symbol(name) for name in names}
     local.update(_FUNCTIONS)

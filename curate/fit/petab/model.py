@@ -109,6 +109,32 @@ def _table(files: dict[str, bytes], names: list[str], kind: str) -> tuple[pd.Dat
     return pd.concat(frames, ignore_index=True), names[0]
 
 
+def _placeholder_count(formula: Formula, prefix: str, observable_id: str) -> int:
+    """Give the highest n of the formula's ``{prefix}{n}_{observable_id}`` placeholders."""
+    numbers = [int(name[len(prefix):].split("_", 1)[0]) for name in formula.names
+               if name.startswith(prefix) and name.endswith(f"_{observable_id}")
+               and name[len(prefix):].split("_", 1)[0].isdigit()]  # fmt: skip
+    return max(numbers, default=0)
+
+
+def _check_parameter_rows(parameters: pd.DataFrame, file: str) -> None:
+    """Refuse estimated parameters whose bounds cannot hold a fit (one line, naming the row)."""
+    for k, row in enumerate(parameters.to_dict("records")):
+        if str(row.get("estimate", "1")).strip() in ("0", "0.0"):
+            continue
+        name = str(row.get("parameterId", "")).strip()
+        where = f"{file}, row {k + 2} ({name})"
+        lower = _number(str(row.get("lowerBound", "")).strip())
+        upper = _number(str(row.get("upperBound", "")).strip())
+        scale = (str(row.get("parameterScale", "lin")).strip() or "lin").lower()
+        if lower is not None and upper is not None and not lower < upper:
+            raise InputError(f"{where}: lowerBound {lower:g} is not below upperBound {upper:g}")
+        if scale in ("log", "log10") and lower is not None and lower <= 0:
+            raise InputError(
+                f"{where}: parameterScale {scale} needs a positive lowerBound, not {lower:g}"
+            )
+
+
 def _species_compartments(sbml: str) -> dict[str, str]:
     """Give each species' compartment, read from the SBML text (libroadrunner does not say)."""
     import xml.etree.ElementTree as ElementTree  # the model was loaded: the XML is well formed
@@ -158,10 +184,17 @@ class PetabModel:
         conditions, self.condition_file = _table(self.files, names["condition"], "condition")
         observables, self.observable_file = _table(self.files, names["observable"], "observable")
         parameters, self.parameter_file = _table(self.files, names["parameter"], "parameter")
-        self.conditions = {
-            str(row["conditionId"]).strip(): row for row in conditions.to_dict("records")
-        }
+        self.conditions: dict[str, dict[str, Any]] = {}
+        for k, row in enumerate(conditions.to_dict("records")):
+            condition_id = str(row["conditionId"]).strip()
+            if condition_id in self.conditions:
+                raise InputError(
+                    f"{self.condition_file}, row {k + 2}: condition '{condition_id}' is defined "
+                    "twice; each conditionId once"
+                )
+            self.conditions[condition_id] = row
         self.parameters = parameters
+        _check_parameter_rows(parameters, self.parameter_file)
         self.nominal = {
             str(row["parameterId"]).strip(): float(row["nominalValue"])
             for row in parameters.to_dict("records")
@@ -174,6 +207,37 @@ class PetabModel:
             for k, row in enumerate(observables.to_dict("records"))
         }
         self._check_conditions()
+        self._check_measurements(names["measurement"])
+
+    def _check_measurements(self, names: list[str]) -> None:
+        """Refuse rows a simulation cannot honour: a time before 0 (a PEtab v1 simulation
+        starts at t = 0), more observable or noise parameters than the formula's placeholders."""
+        for name in names:
+            table, _ = _table(self.files, [name], "measurement")
+            for k, row in enumerate(table.to_dict("records")):
+                where = f"{name}, row {k + 2}"
+                time = _number(str(row.get("time", "")).strip())
+                if time is not None and time < 0:
+                    raise InputError(
+                        f"{where}: time {time:g} is before 0; a PEtab v1 simulation starts at "
+                        "t = 0 (shift the times, or leave the row out)"
+                    )
+                observable = self.observables.get(str(row.get("observableId", "")).strip())
+                if observable is None:
+                    continue
+                for column, prefix, formula in (
+                    ("observableParameters", "observableParameter", observable.formula),
+                    ("noiseParameters", "noiseParameter", observable.noise),
+                ):
+                    cell = str(row.get(column, "") or "").strip()
+                    given = len(cell.split(";")) if cell and cell.lower() != "nan" else 0
+                    wanted = _placeholder_count(formula, prefix, observable.id)
+                    if given > wanted:
+                        raise InputError(
+                            f"{where}, {column}: '{cell}' gives {given} values, but observable "
+                            f"{observable.id}'s formula has {wanted} {prefix} placeholder"
+                            f"{'' if wanted == 1 else 's'}"
+                        )
 
     # -- the model -------------------------------------------------------------------------
 
@@ -309,6 +373,10 @@ class PetabModel:
                 out[column] = value
         return out
 
+    def _condition_values(self) -> set[str]:
+        """Give the parameter ids the condition table's cells name."""
+        return {str(cell).strip() for row in self.conditions.values() for cell in row.values()}
+
     def _initialise(self, condition_id: str, parameters: dict[str, float]) -> dict[str, float]:
         """Reset the model to its values under one condition; give the condition's overrides.
 
@@ -402,7 +470,9 @@ class PetabModel:
             raise
         except RuntimeError as err:
             first = _first_line(err)
-            shown = ", ".join(f"{k}={v:.4g}" for k, v in list(parameters.items())[:8])
+            # every value the simulation takes from the parameters (not the observable's own)
+            shown = ", ".join(f"{k}={v:.4g}" for k, v in parameters.items()
+                              if k in self.model_symbols or k in self._condition_values())  # fmt: skip
             raise SimulationFailed(
                 f"{self.sbml_name}: the simulation of {where} failed at {shown}: {first}"
             ) from None
