@@ -205,7 +205,7 @@ class Catalog(Ledger):
                 raise InputError("fit: give --problem or --model, not both")
             return runs.run_problem_fit(
                 self, problem, policy=chosen, selection=selection or Selection(),
-                spec=load_spec(params) if params is not None else None, options=options,
+                spec=load_spec(params, overrides=True) if params is not None else None, options=options,
                 evaluate=evaluate, simulations=simulations, tolerances=tolerances, progress=progress,
             )  # fmt: skip
         if evaluate or simulations is not None:
@@ -235,7 +235,7 @@ class Catalog(Ledger):
                 raise InputError(
                     "sensitivity: give --problem, --model or --fitter-cmd, one of them"
                 )
-            backend, spec = None, load_spec(params) if params is not None else None
+            backend, spec = None, load_spec(params, overrides=True) if params is not None else None
         else:
             backend, spec = runs.choose_backend(
                 model=model, params=params, fitter_cmd=fitter_cmd, timeout=timeout

@@ -190,3 +190,42 @@ def test_a_multi_start_fit_from_the_bounds_reaches_the_best_objective(cli, tmp_p
     best = min(s["nllh"] for s in drawn if s["nllh"] is not None)
     assert best == pytest.approx(138.222, abs=0.1)
     assert result["nllh"] == pytest.approx(138.222, abs=1e-3)
+
+
+def test_params_override_the_table_entries_they_name_and_keep_the_others(cli, tmp_path, neutral):
+    catalog = tmp_path / "c.db"
+    problem_id = _imported(cli, catalog, problem_yaml(BOEHM))
+    spec = write(tmp_path / "fix.toml", "[parameters.k_exp_hetero]\nstart = 1e-5\nfixed = true\n")
+    run = cli("fit", "--problem", problem_id, "--params", spec, "--policy", neutral, "--evaluate",
+              "--json", catalog_path=catalog)  # fmt: skip
+    assert run.code == 0, run.err
+    result = json.loads(run.out)
+    assert result["parameters"]["k_exp_hetero"] == {"value": 1e-5, "stderr": None}
+    estimated = [n for n, p in result["parameters"].items() if p["stderr"] is not None]
+    assert len(estimated) == 8  # the table's nine estimated, less the one now fixed
+    unknown = write(tmp_path / "unknown.toml", "[parameters.k_nope]\nstart = 1\nfixed = true\n")
+    refused = cli("fit", "--problem", problem_id, "--params", unknown, catalog_path=catalog)
+    assert refused.code == 2
+    assert "parameter 'k_nope' is not in" in refused.err and refused.err.count("\n") == 1
+
+
+def test_the_simulation_table_carries_the_sigma_the_objective_used(cli, tmp_path):
+    # under the default policy (trust inflates sigma), the Gaussian log-density of each row at
+    # (measurement, simulation, curateSigma) sums to the reported nllh: scipy.stats.norm as the
+    # reference (Boehm's observables are all linear-scale, normal noise)
+    from scipy import stats
+
+    catalog = tmp_path / "c.db"
+    problem_id = _imported(cli, catalog, problem_yaml(BOEHM))
+    datasets = json.loads(cli("models", "--json", catalog_path=catalog).out)[0]["datasets"]
+    assert cli("grade", datasets[0], "B", "--reason", "one blot", catalog_path=catalog).code == 0
+    simulations = tmp_path / "sim.tsv"
+    run = cli("fit", "--problem", problem_id, "--evaluate", "--simulations", simulations, "--json",
+              catalog_path=catalog)  # fmt: skip
+    result = json.loads(run.out)
+    table = pd.read_csv(simulations, sep="\t")
+    density = stats.norm.logpdf(
+        table["measurement"], loc=table["simulation"], scale=table["curateSigma"]
+    )
+    assert -density.sum() == pytest.approx(result["nllh"], rel=1e-12)
+    assert any("ungraded" in note for note in result["notes"])  # two datasets left ungraded

@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -79,6 +79,7 @@ class FitResult:
     evaluations: int = 0  # every model evaluation of the fit, the final Jacobian's included
     nllh: float = float("nan")  # negative log-likelihood at the optimum (see FitProblem.nllh)
     objective: str = "chi2"  # what was minimised: 'chi2' (fixed weights) or 'nllh' (noise model)
+    notes: list[str] = field(default_factory=list)  # what a reader of the numbers must know
 
     @property
     def reduced_chi2(self) -> float:
@@ -107,6 +108,7 @@ class FitResult:
             "message": self.message,
             "options": self.options,
             "evaluations": self.evaluations,
+            "notes": self.notes,
         }
 
 
@@ -137,6 +139,16 @@ def _start_points(problem: FitProblem, options: FitOptions) -> list[np.ndarray]:
     sampler = qmc.LatinHypercube(d=len(first), seed=options.seed)
     samples = qmc.scale(sampler.random(options.starts - 1), lo, hi)
     return [first, *list(samples)]
+
+
+def _origin(number: int, options: FitOptions) -> str:
+    """Give where start ``number`` came from: the global search, the spec's start, or the
+    Latin hypercube."""
+    if options.global_search:
+        if number == 0:
+            return "global search"
+        number -= 1
+    return "start" if number == 0 else "latin hypercube"
 
 
 def least_squares(
@@ -389,7 +401,7 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
             continue
         chi2 = float(2 * solution.cost)
         record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
-                  "message": str(solution.message), "from": "global search" if options.global_search and number == 0 else "start"}  # fmt: skip
+                  "message": str(solution.message), "from": _origin(number, options)}  # fmt: skip
         if problem.noise_model:  # the cost also holds the noise terms: give both parts apart
             fitted = np.asarray(solution.fun)[: len(problem.y)]
             record["chi2"] = float(fitted @ fitted)

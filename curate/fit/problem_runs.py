@@ -5,7 +5,8 @@ from a stored problem (narrowed by the usual selection options) with the problem
 model, observable and noise formulas (the ``petab-sbml`` backend). Each weighted point gets its
 PEtab measurement row back (observable, conditions, time in the problem's own unit, observable
 and noise parameters) from the rows its dataset kept at import; the parameter table gives the
-starts, bounds, scales and which parameters are estimated, unless a spec overrides it.
+starts, bounds, scales and which parameters are estimated; a spec (``--params``) replaces the
+entries of the parameters it names and leaves the others as the table gives them.
 """
 
 from __future__ import annotations
@@ -20,7 +21,7 @@ import pandas as pd
 
 from curate.errors import InputError
 from curate.fit.backends.petab_sbml import PetabSbml, SolverTolerances
-from curate.fit.spec import ParameterSpec
+from curate.fit.spec import ParameterSpec, overlay
 from curate.ledger import Ledger
 from curate.ledger.problems import StoredProblem, read_problem, summarise_problems
 from curate.weighting import Policy, Selection, WeightedTable, weighted_table
@@ -89,7 +90,9 @@ def problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: 
     backend = PetabSbml(problem.files, problem.source, problem_id=problem.id,
                         version=problem.version, tolerances=tolerances)  # fmt: skip
     points, rows = _with_petab_rows(weighted)
-    return ProblemFit(problem, backend, spec or backend.parameter_spec(), weighted, points, rows)
+    table = backend.parameter_spec()
+    chosen = overlay(table, spec) if spec is not None else table
+    return ProblemFit(problem, backend, chosen, weighted, points, rows)
 
 
 def _with_petab_rows(weighted: WeightedTable) -> tuple[pd.DataFrame, list[dict[str, str]]]:
@@ -130,12 +133,16 @@ def _with_petab_rows(weighted: WeightedTable) -> tuple[pd.DataFrame, list[dict[s
     return points, rows
 
 
-def simulation_table(fitted: ProblemFit, simulation: np.ndarray) -> pd.DataFrame:
+def simulation_table(fitted: ProblemFit, simulation: np.ndarray,
+                     sigma: np.ndarray | None = None) -> pd.DataFrame:  # fmt: skip
     """Give the PEtab simulation table: each point's measurement row as imported, plus
-    ``simulation`` (the observable at the given parameters)."""
+    ``simulation`` (the observable at the given parameters) and, where given, ``curateSigma``
+    (the sigma the objective used: the noise model's times the trust factor)."""
     frame = pd.DataFrame(fitted.rows)
     first = [c for c in ("observableId", "preequilibrationConditionId", "simulationConditionId",
                          "measurement", "time") if c in frame.columns]  # fmt: skip
     frame = frame[first + [c for c in frame.columns if c not in first]]
     frame.insert(frame.columns.get_loc("measurement") + 1, "simulation", simulation)
+    if sigma is not None:
+        frame["curateSigma"] = sigma
     return frame

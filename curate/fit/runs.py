@@ -78,6 +78,7 @@ def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, poli
         )
     weighted = weighted_table(catalog, policy, selection)
     result = fit(FitProblem(weighted.table, backend, spec), options, progress=progress)
+    result.notes += ungraded_note(weighted)
     _record(catalog, "fit", backend, spec, weighted,
             {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
     return result
@@ -98,6 +99,17 @@ def _problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection:
                        tolerances=solver)  # fmt: skip
 
 
+def ungraded_note(weighted: WeightedTable) -> list[str]:
+    """Give the note that ungraded datasets were weighted as the policy's stand-in grade."""
+    ungraded = [v.id for v in weighted.versions if v.grade is None]
+    if not ungraded:
+        return []
+    policy = weighted.policy
+    return [f"{len(ungraded)} of {len(weighted.versions)} datasets are ungraded: policy "
+            f"'{policy.name}' weights them as grade {policy.ungraded} (inflation "
+            f"{policy.inflation.get(policy.ungraded, 1.0):g}); grade them, or choose another policy"]  # fmt: skip
+
+
 def run_problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selection: Selection,
                     spec: ParameterSpec | None = None, options: FitOptions | None = None,
                     evaluate: bool = False, simulations: str | Path | None = None,
@@ -112,15 +124,22 @@ def run_problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selecti
         check_simulation_path(Path(simulations))  # before any work
     fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
                           tolerances=tolerances)  # fmt: skip
+    if not fitted.spec.free and not evaluate:
+        raise InputError(
+            f"{fitted.spec.origin}: every parameter is fixed; nothing to fit (--evaluate "
+            "computes the objective at these values)"
+        )
     problem = FitProblem(fitted.points, fitted.backend, fitted.spec)
     result = (
         evaluate_at_start(problem, options)
         if evaluate
         else fit(problem, options, progress=progress)
     )
+    result.notes += ungraded_note(fitted.weighted)
     if simulations is not None:
-        simulated = problem.evaluate(result.theta).simulation
-        write_simulation_table(Path(simulations), simulation_table(fitted, simulated))
+        found = problem.evaluate(result.theta)
+        write_simulation_table(Path(simulations),
+                               simulation_table(fitted, found.simulation, found.sigma))  # fmt: skip
     summary = {k: v for k, v in result.to_dict().items() if k != "starts"}
     summary["problem"] = {"id": fitted.problem.id, "version": fitted.problem.version,
                           "sha256": fitted.problem.content_sha256}  # fmt: skip

@@ -23,7 +23,7 @@ from typing import Any
 
 from curate.errors import InputError
 
-__all__ = ["Parameter", "ParameterSpec", "load_spec", "spec_from_dict"]
+__all__ = ["Parameter", "ParameterSpec", "load_spec", "overlay", "spec_from_dict"]
 
 
 @dataclass(frozen=True)
@@ -74,7 +74,7 @@ def _float(origin: str, name: str, key: str, value: Any, default: float) -> floa
 
 
 def spec_from_dict(
-    content: dict[str, Any], *, origin: str = "spec", sha256: str = ""
+    content: dict[str, Any], *, origin: str = "spec", sha256: str = "", overrides: bool = False
 ) -> ParameterSpec:
     """Give a validated spec from its TOML content."""
     raw = content.get("parameters")
@@ -123,13 +123,14 @@ def spec_from_dict(
     spec = ParameterSpec(
         tuple(parameters), bool(options.get("scale_factors", True)), origin, sha256
     )
-    if not spec.free:
+    if not spec.free and not overrides:
         raise InputError(f"{origin}: every parameter is fixed; nothing to fit")
     return spec
 
 
-def load_spec(path: str | Path) -> ParameterSpec:
-    """Give the parameter spec in a TOML file."""
+def load_spec(path: str | Path, *, overrides: bool = False) -> ParameterSpec:
+    """Give the parameter spec in a TOML file (``overrides``: parameters laid over another
+    spec, which may all be fixed)."""
     file = Path(path)
     if not file.is_file():
         raise InputError(f"{file}: no such parameter spec file")
@@ -138,4 +139,22 @@ def load_spec(path: str | Path) -> ParameterSpec:
         content = tomllib.loads(text.decode("utf-8"))
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
         raise InputError(f"{file}: not valid TOML ({err})") from None
-    return spec_from_dict(content, origin=str(file), sha256=hashlib.sha256(text).hexdigest())
+    return spec_from_dict(content, origin=str(file), sha256=hashlib.sha256(text).hexdigest(),
+                          overrides=overrides)  # fmt: skip
+
+
+def overlay(base: ParameterSpec, overrides: ParameterSpec) -> ParameterSpec:
+    """Give ``base`` with each parameter ``overrides`` names replaced by its entry there (the
+    others as they are); a name ``base`` lacks is refused."""
+    known = {p.name for p in base.parameters}
+    for p in overrides.parameters:
+        if p.name not in known:
+            raise InputError(
+                f"{overrides.origin}: parameter '{p.name}' is not in {base.origin}; it names "
+                + ", ".join(sorted(known))
+            )
+    given = {p.name: p for p in overrides.parameters}
+    merged = ParameterSpec(tuple(given.get(p.name, p) for p in base.parameters),
+                           base.scale_factors, f"{base.origin} with {overrides.origin}",
+                           hashlib.sha256((base.sha256 + overrides.sha256).encode()).hexdigest())  # fmt: skip
+    return merged

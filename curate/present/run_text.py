@@ -321,7 +321,8 @@ def fit_text(result: FitResult) -> Group:
     for name, p in result.parameters.items():
         value, se = p["value"], p["stderr"]
         relative = f"{100 * se / abs(value):.1f}%" if (se is not None and value) else "-"
-        table.add_row(name, f"{value:.6g}", "fixed" if se is None else f"{se:.3g}", relative)
+        missing = "fixed" if name not in result.free else "n/a"  # free without one: not computed
+        table.add_row(name, f"{value:.6g}", missing if se is None else f"{se:.3g}", relative)
     parts.append(table)
     if result.scale_factors:
         parts.append(
@@ -334,7 +335,16 @@ def fit_text(result: FitResult) -> Group:
         key = "nllh" if result.objective == "nllh" else "chi2"
         best = sorted(s[key] for s in result.starts if s.get(key) is not None)
         shown = ", ".join(f"{c:.6g}" if key == "nllh" else f"{c:.4g}" for c in best[:5])
-        parts.append(Text(f"{len(result.starts)} starts; best {key} values: {shown}"))
+        # "the same optimum": within 0.1 in nllh, or 0.1 % in chi2 (common practice, no source)
+        near = sum(
+            1
+            for c in best
+            if c - best[0] <= (0.1 if key == "nllh" else 1e-3 * max(best[0], 1e-300))
+        )
+        failed = sum(1 for s in result.starts if s.get(key) is None)
+        parts.append(Text(f"{len(result.starts)} starts, {near} reaching the best, {failed} failed; "
+                          f"best {key} values: {shown}"))  # fmt: skip
+    parts += [Text(f"note: {note}") for note in result.notes]
     return Group(*parts)
 
 
