@@ -249,6 +249,7 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
     runs = {
         "add": ["add", data, "--observable", "extra", *ADD[2:]],  # not in the fitted observables
         "intake": ["intake", inbox],
+        "inspect": ["inspect", data, "--observable", "extra", *ADD[2:]],
         "noise": ["noise", additive, "--method", "error-model"],
         "grade": ["grade", first, "B", "--reason", "looked at the raw files"],
         "consistency": ["consistency"],

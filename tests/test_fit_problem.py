@@ -135,3 +135,36 @@ def test_fit_from_the_nominal_point_does_not_end_worse_and_records_tolerances(
     assert backend["tolerances"]["relative"] == 1e-9
     assert "files" not in backend  # the run record names the stored problem, not its bytes
     assert event["payload"]["result"]["problem"]["id"] == problem_id
+
+
+@pytest.mark.parametrize(
+    ("formula", "reason"),
+    [
+        ("2 * * A", "an operator without its operand"),
+        ("A +", "an operator without its operand"),
+        ("(A + 1", "unbalanced parentheses"),
+        ("A + 1)", "unbalanced parentheses"),
+        ("A B", "not an arithmetic expression PEtab v1 reads"),
+    ],
+)
+def test_a_formula_that_does_not_read_is_named_with_its_reason(formula, reason):
+    from curate.errors import InputError
+    from curate.fit.petab.formulas import parse_formula
+
+    with pytest.raises(InputError) as caught:
+        parse_formula(formula, where="obs.tsv, row 2 (o), observableFormula")
+    assert str(caught.value) == (
+        f"obs.tsv, row 2 (o), observableFormula: cannot read formula '{formula}' ({reason})"
+    )
+
+
+def test_formulas_compute_what_python_computes():
+    # the parser's results against the same arithmetic written in Python (power as ^ and **)
+    from curate.fit.petab.formulas import parse_formula
+
+    values = {"A": np.array([0.5, 2.0]), "k": np.array([3.0, 3.0])}
+    cases = {"k * A^2 + 1": values["k"] * values["A"] ** 2 + 1,
+             "log10(A) - ln(k)": np.log10(values["A"]) - np.log(values["k"]),
+             "exp(-A) / (1 + A**k)": np.exp(-values["A"]) / (1 + values["A"] ** values["k"])}  # fmt: skip
+    for text, expected in cases.items():
+        np.testing.assert_allclose(parse_formula(text, where="w")(values, 2), expected, rtol=1e-15)

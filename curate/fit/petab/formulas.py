@@ -57,15 +57,23 @@ def parse_formula(text: str, *, where: str) -> Formula:
         raise InputError(
             f"{where}: cannot read formula '{source}' (an operator without its operand)"
         )
+    depth = 0
+    for character in source:
+        depth += {"(": 1, ")": -1}.get(character, 0)
+        if depth < 0:
+            break
+    if depth != 0:
+        raise InputError(f"{where}: cannot read formula '{source}' (unbalanced parentheses)")
     names = {n for n in _NAME.findall(source) if n not in _FUNCTIONS}
     local: dict[str, object] = {name: sympy.Symbol(name) for name in names}
     local.update(_FUNCTIONS)
     try:
         expression = sympy.sympify(source.replace("^", "**"), locals=local, rational=False)
     except (sympy.SympifyError, SyntaxError, TypeError, ValueError) as err:
-        raise InputError(
-            f"{where}: cannot read formula '{source}' ({str(err).splitlines()[0]})"
-        ) from None
+        reason = (str(err).strip().splitlines() or [""])[0]
+        if not reason or "Sympify of expression" in reason or "could not parse" in reason:
+            reason = "not an arithmetic expression PEtab v1 reads"
+        raise InputError(f"{where}: cannot read formula '{source}' ({reason})") from None
     if not isinstance(expression, sympy.Expr):
         raise InputError(f"{where}: formula '{source}' is not an arithmetic expression")
     used = tuple(sorted(str(s) for s in expression.free_symbols))
