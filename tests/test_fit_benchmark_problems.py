@@ -229,3 +229,18 @@ def test_the_simulation_table_carries_the_sigma_the_objective_used(cli, tmp_path
     )
     assert -density.sum() == pytest.approx(result["nllh"], rel=1e-12)
     assert any("ungraded" in note for note in result["notes"])  # two datasets left ungraded
+
+
+def test_a_stored_problem_refits_on_dask_as_it_does_here(cli, tmp_path, neutral):
+    pytest.importorskip("dask.distributed")
+    catalog = tmp_path / "c.db"
+    problem_id = _imported(cli, catalog, problem_yaml(BOEHM))
+    found = {}
+    for name, extra in (("here", ["--workers", "1"]), ("dask", ["--dask", "local"])):
+        run = cli("sensitivity", "--problem", problem_id, "--by", "dataset", "--policy", neutral,
+                  "--json", *extra, catalog_path=catalog)  # fmt: skip
+        assert run.code == 0, run.err
+        found[name] = json.loads(run.out)
+    assert found["dask"]["executor"] == "dask (local)"
+    for a, b in zip(found["here"]["groups"], found["dask"]["groups"], strict=True):
+        assert a["parameters"] == b["parameters"]
