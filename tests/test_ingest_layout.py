@@ -228,3 +228,21 @@ def test_inspect_says_what_add_would_do_and_writes_nothing(cli, tmp_path):
     shown = cli("inspect", path, "--sheet", "2", "--observable", "gfp", "--lab", "Lab Quill")
     assert "add would log: gfp in a.u. (relative), time in h, 3 points" in shown.out
     assert not catalog.exists()
+
+
+def test_calamine_and_openpyxl_read_a_workbook_to_the_same_cells(tmp_path):
+    # openpyxl, pandas' reference engine for .xlsx, as the outside reference for calamine
+    import datetime as dt
+
+    from curate.ingest.tables import _xlsx_rows
+
+    rows = [["Run 3"], [], ["time", "value", "note", "when"], [0, 1.5, "first", dt.date(2026, 3, 1)],
+            [5, 2, None, dt.datetime(2026, 3, 1, 10, 30)], [10, -3.25e-7, "x", None]]  # fmt: skip
+    path = _workbook(tmp_path / "book.xlsx", {"empty": [], "data": rows})
+    raw = path.read_bytes()
+    calamine = _xlsx_rows(path, raw, "data", engine="calamine")
+    reference = _xlsx_rows(path, raw, "data", engine="openpyxl")
+    assert calamine == reference
+    cells, lines, chosen, names = calamine
+    assert lines == [1, 3, 4, 5, 6] and chosen == "data" and names == ("empty", "data")
+    assert cells[2][:2] == ["0", "1.5"] and cells[4][1] == "-3.25e-07"

@@ -10,8 +10,10 @@ import csv
 import dataclasses
 import datetime as dt
 import io
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -274,25 +276,89 @@ def _cell_text(value: object) -> str:
     return str(value)
 
 
-def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None
+_UNREADABLE = (
+    "not a readable XLSX workbook (damaged, or another format with an .xlsx name); save it "
+    "again as .xlsx, or as .csv"
+)
+
+
+class _Workbook:
+    """A workbook's sheet names and each sheet's rows as (row number, cell values).
+
+    python-calamine (Rust) reads it where it can: several times faster than openpyxl, cached
+    values of formulas; openpyxl, pandas' own engine for the format, reads what calamine
+    refuses. Either gives the same text cells (a whole number is written without '.0').
+    """
+
+    def __init__(self, path: Path, raw: bytes, *, engine: str = "auto") -> None:
+        self.path = path
+        self._calamine: Any = None
+        self._openpyxl: Any = None
+        if engine in ("auto", "calamine"):
+            try:
+                from python_calamine import CalamineWorkbook
+
+                self._calamine = CalamineWorkbook.from_filelike(io.BytesIO(raw))
+                self.names = tuple(str(n) for n in self._calamine.sheet_names)
+                self.engine = "calamine"
+                return
+            except Exception:  # calamine refuses it (or is not installed): openpyxl tries
+                if engine == "calamine":
+                    raise InputError(f"{path}: {_UNREADABLE}") from None
+        import zipfile
+
+        import openpyxl
+        from openpyxl.utils.exceptions import InvalidFileException
+
+        try:
+            self._openpyxl = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True)
+        except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
+            raise InputError(f"{path}: {_UNREADABLE}") from None
+        self.names = tuple(str(n) for n in self._openpyxl.sheetnames)
+        self.engine = "openpyxl"
+
+    def rows(self, name: str) -> Iterator[tuple[int, list[str]]]:
+        """Give each row of a sheet that holds a cell: its number (from 1) and its text cells."""
+        if self._calamine is not None:
+            sheet = self._calamine.get_sheet_by_name(name)
+            first = sheet.start[0] if sheet.start else 0
+            values_by_row: Iterable[tuple[int, Any]] = (
+                (first + k + 1, values)
+                for k, values in enumerate(sheet.to_python(skip_empty_area=False))
+            )
+        else:
+            values_by_row = enumerate(self._openpyxl[name].iter_rows(values_only=True), start=1)
+        for number, values in values_by_row:
+            cells = [_cell_text(_whole(v)) for v in values]
+            while cells and cells[-1] == "":
+                cells.pop()
+            if cells:
+                yield number, cells
+
+    def close(self) -> None:
+        """Release the file."""
+        if self._openpyxl is not None:
+            self._openpyxl.close()
+
+
+def _whole(value: object) -> object:
+    """Give a cell value as openpyxl gives it: a whole float as an int (calamine reads every
+    number as a float; openpyxl gives 1 for a cell holding 1), a date as midnight of that day."""
+    if isinstance(value, float) and value.is_integer() and abs(value) < 2**53:
+        return int(value)
+    if isinstance(value, dt.date) and not isinstance(value, dt.datetime):
+        return dt.datetime(value.year, value.month, value.day)  # as openpyxl gives a date cell
+    return value
+
+
+def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None, *, engine: str = "auto"
                ) -> tuple[list[list[str]], list[int], str, tuple[str, ...]]:  # fmt: skip
-    import zipfile
-
-    import openpyxl
-    from openpyxl.utils.exceptions import InvalidFileException
-
+    book = _Workbook(path, raw, engine=engine)
     try:
-        book = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True)
-    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
-        raise InputError(
-            f"{path}: not a readable XLSX workbook (damaged, or another format with an .xlsx "
-            "name); save it again as .xlsx, or as .csv"
-        ) from None
-    try:
-        names = tuple(book.sheetnames)
+        names = book.names
         listed = ", ".join(repr(s) for s in names)
         if sheet is None:
-            filled = [n for n in names if _has_cells(book[n])]
+            filled = [n for n in names if next(book.rows(n), None) is not None]
             if len(filled) > 1:
                 raise InputError(
                     f"{path}: the workbook has {len(filled)} sheets with data ("
@@ -300,29 +366,23 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None
                     + "); name one with --sheet or sheet = ... in the sidecar (a name, or its "
                     "position from 1)"
                 )
-            worksheet = book[filled[0]] if filled else book.worksheets[0]
+            chosen = filled[0] if filled else names[0]
         elif isinstance(sheet, int) or (str(sheet).isdigit() and str(sheet) not in names):
             position = int(sheet)
             if not 1 <= position <= len(names):
                 raise InputError(
                     f"{path}: no sheet {position}; the workbook has {len(names)} ({listed})"
                 )
-            worksheet = book.worksheets[position - 1]
+            chosen = names[position - 1]
         elif sheet in names:
-            worksheet = book[sheet]
+            chosen = str(sheet)
         else:
             raise InputError(f"{path}: no sheet named '{sheet}'; the workbook has {listed}")
         rows: list[list[str]] = []
         lines: list[int] = []
-        for number, values in enumerate(worksheet.iter_rows(values_only=True), start=1):
-            cells = [_cell_text(v) for v in values]
-            while cells and cells[-1] == "":
-                cells.pop()
-            if not cells:
-                continue
+        for number, cells in book.rows(chosen):
             rows.append(cells)
             lines.append(number)
-        chosen = str(worksheet.title)
     finally:
         book.close()
     return rows, lines, chosen, names
@@ -330,33 +390,11 @@ def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None
 
 def workbook_sheets(path: Path) -> list[tuple[str, int]]:
     """Give each sheet of a workbook with its number of rows that hold a cell."""
-    import zipfile
-
-    import openpyxl
-    from openpyxl.utils.exceptions import InvalidFileException
-
+    book = _Workbook(path, path.read_bytes())
     try:
-        book = openpyxl.load_workbook(path, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
-        raise InputError(
-            f"{path}: not a readable XLSX workbook (damaged, or another format with an .xlsx "
-            "name); save it again as .xlsx, or as .csv"
-        ) from None
-    try:
-        return [
-            (str(name), sum(1 for values in book[name].iter_rows(values_only=True)
-                            if any(v is not None and str(v).strip() for v in values)))
-            for name in book.sheetnames
-        ]  # fmt: skip
+        return [(name, sum(1 for _ in book.rows(name))) for name in book.names]
     finally:
         book.close()
-
-
-def _has_cells(worksheet: object) -> bool:
-    for values in worksheet.iter_rows(values_only=True):  # type: ignore[attr-defined]
-        if any(v is not None and str(v).strip() for v in values):
-            return True
-    return False
 
 
 def _to_table(
