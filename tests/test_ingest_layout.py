@@ -246,3 +246,19 @@ def test_calamine_and_openpyxl_read_a_workbook_to_the_same_cells(tmp_path):
     cells, lines, chosen, names = calamine
     assert lines == [1, 3, 4, 5, 6] and chosen == "data" and names == ("empty", "data")
     assert cells[2][:2] == ["0", "1.5"] and cells[4][1] == "-3.25e-07"
+
+
+def test_the_example_lab_files_log_as_their_sidecars_say(catalog):
+    from conftest import ROOT
+
+    folder = ROOT / "example_datasets" / "lab_files"
+    export = catalog.add(folder / "marrowby_velarin_export.csv")
+    reference = pd.read_csv(folder / "marrowby_velarin_export.csv", sep=";", decimal=",",
+                            encoding="cp1252", skiprows=2)  # fmt: skip
+    frame = _points(catalog, export)
+    np.testing.assert_allclose(frame["value"], reference["velarin [nM]"], rtol=1e-15)
+    np.testing.assert_allclose(frame["time"], reference["Zeit (min)"] * 60, rtol=1e-15)
+    record = catalog.show(export.id).record
+    assert record.annotations["file_dialect"]["encoding"] == "cp1252"
+    peak = catalog.show(catalog.add(folder / "quillfen_glint_percent_of_peak.csv").id).record
+    assert peak.observable.relative and peak.protocol.normalisation.kind == "peak"

@@ -72,10 +72,10 @@ app = typer.Typer(
     help="Keep measured time courses with their provenance, noise and trust grade; "
     "turn them into weighted, checkable data for any fitter.",
 )
-out = Console(highlight=False, soft_wrap=True, emoji=False)  # ':abc:' stays text
+out = Console(highlight=False, soft_wrap=True, emoji=False, markup=False)  # ':abc:' stays text
 if not out.is_terminal:  # piped output: keep table rows whole rather than folding them
     out.width = 220
-err_console = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False)
+err_console = Console(stderr=True, highlight=False, soft_wrap=True, emoji=False, markup=False)
 
 
 class _State:

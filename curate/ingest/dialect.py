@@ -12,6 +12,7 @@ in the dataset's provenance.
 
 from __future__ import annotations
 
+import contextlib
 import re
 from dataclasses import asdict, dataclass
 from pathlib import Path
@@ -84,7 +85,12 @@ def decode(path: Path, raw: bytes, encoding: str | None) -> tuple[str, str, bool
             'as UTF-8 or name its encoding in the sidecar ([dialect] encoding = "latin-1")'
         )
     try:
-        return raw.decode(best.encoding), best.encoding.replace("_", "-"), True
+        text = raw.decode(best.encoding)
+        for preferred in ("cp1252", "latin_1"):  # the commonest, where it reads the same text
+            with contextlib.suppress(UnicodeDecodeError):
+                if raw.decode(preferred) == text:
+                    return text, preferred.replace("_", "-"), True
+        return text, best.encoding.replace("_", "-"), True
     except UnicodeDecodeError:
         raise InputError(
             f"{path}: byte {start} is not UTF-8 text; save the file as UTF-8 or name its "
