@@ -615,6 +615,14 @@ BAD_MODELS = [
         "_measurements.tsv, row 2, noiseParameters: '0.5;2' gives 2 values, but observable obs_a's formula has 0 noiseParameter placeholders",
     ),
     (
+        "a negative numeric noise parameter",
+        lambda f: (f / "_measurements.tsv").write_text(
+            "observableId\tsimulationConditionId\ttime\tmeasurement\tnoiseParameters\n"
+            "obs_a\tc0\t0\t0.7\t0.5\nobs_a\tc0\t10\t0.1\t-0.5\n"
+        ),
+        "_measurements.tsv, line 3, column 'noiseParameters': '-0.5' is a noise standard deviation of -0.5; expected > 0",
+    ),
+    (
         "noise formula that does not parse",
         lambda f: _replace(f / "_observables.tsv", "obs_a\tA\t0.5", "obs_a\tA\t0.5 *"),
         "_observables.tsv, row 2 (obs_a), noiseFormula",

@@ -343,6 +343,13 @@ def _drafts_from_measurements(
         if sd_column in table.columns:
             text = [str(table.cells[sd_column][i]).strip() for i in rows]
             numbers = np.array([_number_or_nan(t) for t in text])
+            negative = np.flatnonzero(numbers <= 0)
+            if len(negative):
+                k = int(negative[0])
+                raise InputError(
+                    table.locate(rows[k], sd_column)
+                    + f"'{text[k]}' is a noise standard deviation of {numbers[k]:g}; expected > 0"
+                )
             if np.isfinite(numbers).any():
                 sd = numbers
         transformation = (observable_row.get("observableTransformation") or "lin").strip() or "lin"
