@@ -156,7 +156,10 @@ def test_number_format_needs_every_grouped_cell_to_agree():
     assert detect_number_format(["1,5", "2,25", "10"], ";") == (",", "")
     assert detect_number_format(["1.234,5", "2,25"], ";") == (",", ".")
     assert detect_number_format(["1,234.5", "2.25"], ";") == (".", ",")
-    assert detect_number_format(["1.5", "2,25"], ";") == (".", "")  # mixed: nothing assumed
+    with pytest.raises(
+        InputError, match=r"written two ways \('2,25' with a decimal comma, '1.500' with a point"
+    ):
+        detect_number_format(["1.500", "2,25"], ";")  # 1500 or 1.5: the lab must say
     assert detect_number_format(["1,5"], ",") == (".", "")  # a comma delimiter: never
 
 

@@ -20,7 +20,14 @@ from typing import Any
 
 from curate.errors import InputError
 
-__all__ = ["Dialect", "decode", "detect_delimiter", "detect_number_format", "numbers_as_written"]
+__all__ = [
+    "AmbiguousNumbers",
+    "Dialect",
+    "decode",
+    "detect_delimiter",
+    "detect_number_format",
+    "numbers_as_written",
+]
 
 _SAMPLE_CHARACTERS = 64 * 1024  # what the delimiter is detected from
 _ENCODINGS = ("cp1252", "latin_1", "iso8859_15", "cp1250", "mac_roman", "utf_16")
@@ -29,6 +36,10 @@ _DECIMAL_COMMA = re.compile(r"^[+-]?(\d{1,3}(\.\d{3})+|\d+),\d+([eE][+-]?\d+)?$"
 _DECIMAL_POINT = re.compile(r"^[+-]?(\d{1,3}(,\d{3})+|\d*)\.\d+([eE][+-]?\d+)?$")
 _THOUSANDS_POINT = re.compile(r"^[+-]?\d{1,3}(\.\d{3})+(,\d+)?$")
 _THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d+)?$")
+
+
+class AmbiguousNumbers(InputError):
+    """The cells that look like numbers are written in two incompatible ways."""
 
 
 @dataclass(frozen=True)
@@ -130,6 +141,14 @@ def detect_number_format(cells: list[str], delimiter: str) -> tuple[str, str]:
     numeric = [c.strip() for c in cells if c.strip() and c.strip()[0] in "+-0123456789.,"]
     commas = sum(1 for c in numeric if _DECIMAL_COMMA.match(c))
     points = sum(1 for c in numeric if _DECIMAL_POINT.match(c))
+    if delimiter != "," and commas and points:
+        comma = next(c for c in numeric if _DECIMAL_COMMA.match(c))
+        point = next(c for c in numeric if _DECIMAL_POINT.match(c))
+        raise AmbiguousNumbers(
+            f"the numbers are written two ways ('{comma}' with a decimal comma, '{point}' with a "
+            "point, which may be a decimal point or a thousands separator); state them in the "
+            'sidecar: [dialect] decimal = "," and thousands = "." (or decimal = ".")'
+        )
     if delimiter != "," and commas and not points:
         grouped = [c for c in numeric if "." in c]
         thousands = "." if grouped and all(_THOUSANDS_POINT.match(c) for c in grouped) else ""

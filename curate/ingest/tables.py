@@ -20,6 +20,7 @@ import pandas as pd
 
 from curate.errors import InputError, where
 from curate.ingest.dialect import (
+    AmbiguousNumbers,
     Dialect,
     decode,
     detect_delimiter,
@@ -182,7 +183,10 @@ def table_from_bytes(
     table = _to_table(path, rows, lines, "line", require_rows=require_rows)
     if layout.decimal is None and layout.thousands is None:
         cells = [str(c) for column in table.cells.values() for c in column[:2000]]
-        decimal, thousands = detect_number_format(cells, dialect.delimiter)
+        try:
+            decimal, thousands = detect_number_format(cells, dialect.delimiter)
+        except AmbiguousNumbers as err:
+            raise InputError(f"{path}: {err}") from None
         detected = dialect.detected + tuple(
             name for name, value, default_value in
             (("decimal", decimal, "."), ("thousands", thousands, "")) if value != default_value
