@@ -71,6 +71,25 @@ def examples(tmp_path: Path) -> Path:
     return target
 
 
+# a weighting policy under which trust changes nothing (inflation 1 for every grade, no floors,
+# no balancing): a stored problem's objective is then the problem's own
+NEUTRAL = """
+name = "neutral"
+exclude = ["X"]
+ungraded = "A"
+[inflation]
+A = 1.0
+B = 1.0
+C = 1.0
+D = 1.0
+[floors]
+absolute = 0.0
+relative = 0.0
+[balance]
+mode = "none"
+"""
+
+
 def write(path: Path, text: str) -> Path:
     """Write dedented text to path; give the path."""
     path.parent.mkdir(parents=True, exist_ok=True)

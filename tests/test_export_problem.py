@@ -17,7 +17,7 @@ import shutil
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import DATA, add_mixed_observable, write
+from conftest import DATA, NEUTRAL, add_mixed_observable, write
 
 import curate
 from curate.errors import InputError
@@ -27,20 +27,6 @@ from curate.weighting import Selection
 pv1 = pytest.importorskip("petab.v1")
 
 BOEHM, FUJITA = "Boehm_JProteomeRes2014", "Fujita_SciSignal2010"
-# grade inflation 1 for every grade, no floors, no balancing: trust changes nothing
-NEUTRAL = """
-name = "neutral"
-[inflation]
-A = 1.0
-B = 1.0
-C = 1.0
-D = 1.0
-[floors]
-absolute = 0.0
-relative = 0.0
-[balance]
-mode = "none"
-"""
 
 
 def problem_yaml(name):

@@ -16,27 +16,12 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-from conftest import DATA, write
+from conftest import DATA, NEUTRAL, write
 
 pv1 = pytest.importorskip("petab.v1")
 
 BOEHM, FUJITA = "Boehm_JProteomeRes2014", "Fujita_SciSignal2010"
 PROBLEM_ID = {BOEHM: "boehm_jproteomeres2014_01", FUJITA: "fujita_scisignal2010_01"}
-# inflation 1 for every grade, no floors, no balancing: curate's trust leaves sigma as it is
-NEUTRAL = """
-name = "neutral"
-ungraded = "A"
-[inflation]
-A = 1.0
-B = 1.0
-C = 1.0
-D = 1.0
-[floors]
-absolute = 0.0
-relative = 0.0
-[balance]
-mode = "none"
-"""
 
 
 def problem_yaml(name: str) -> Path:

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 import yaml
+from conftest import NEUTRAL
 
 import curate
 
@@ -20,22 +21,6 @@ import curate
 SUITE = Path(__file__).parent / "data" / "petab_suite" / "sbml"
 CASES = [f"{k:04d}" for k in range(1, 19)]
 
-# inflation 1 for every grade, no floors, no balancing: curate's trust leaves sigma as it is
-NEUTRAL = """
-name = "neutral"
-exclude = ["X"]
-ungraded = "A"
-[inflation]
-A = 1.0
-B = 1.0
-C = 1.0
-D = 1.0
-[floors]
-absolute = 0.0
-relative = 0.0
-[balance]
-mode = "none"
-"""
 
 KEYS = ["observableId", "simulationConditionId", "time"]
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import io
 import json
+import re
 
 import numpy as np
 import openpyxl
@@ -265,3 +266,40 @@ def test_the_example_lab_files_log_as_their_sidecars_say(catalog):
     assert record.annotations["file_dialect"]["encoding"] == "cp1252"
     peak = catalog.show(catalog.add(folder / "quillfen_glint_percent_of_peak.csv").id).record
     assert peak.observable.relative and peak.protocol.normalisation.kind == "peak"
+
+
+# misreads a new user found: each is now one line, nothing stored
+MISREADS = [
+    ("an sd column beside an unmapped value column",
+     "Time (min),pERK (nM),SD\n0,0.12,0.02\n2,1.85,0.11\n", {},
+     "no value column among Time (min), pERK (nM), SD, but an 'SD' column"),
+    ("an sd header in another unit",
+     "Time (min),pAKT (nM),SD (uM)\n0,10,0.001\n10,50,0.005\n", {"columns": {"value": "pAKT"}},
+     "column 'SD (uM)': the header states 'uM', but the values are in 'nM'"),
+    ("replicates in different units",
+     "time (min),rep1 (nM),rep2 (uM)\n0,1,0.001\n10,2,0.002\n", {"observable": {"id": "perk", "unit": "nM"}},
+     "the replicate columns state different units (nM, uM)"),
+    ("a mapping to a missing sd column",
+     "Time (min),pERK (nM),SD\n0,0.12,0.02\n2,1.85,0.11\n", {"columns": {"value": "pERK", "sd": "Bogus"}},
+     "--column sd=Bogus (columns.sd) names no column"),
+    ("the same mark for decimals and thousands",
+     "time;value\n0;1,5\n1;2,5\n", {"observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "s"},
+                                    "dialect": {"decimal": ",", "thousands": ","}},
+     "dialect.decimal and dialect.thousands are both ','"),
+]  # fmt: skip
+
+
+@pytest.mark.parametrize(
+    ("name", "content", "options", "expected"), MISREADS, ids=[m[0] for m in MISREADS]
+)
+def test_what_would_be_misread_is_refused(catalog, tmp_path, name, content, options, expected):
+    path = tmp_path / "lab.csv"
+    path.write_text(content)
+    merged = {
+        **LAB,
+        **options,
+        "observable": {**LAB["observable"], **options.get("observable", {})},
+    }
+    with pytest.raises(InputError, match=re.escape(expected)):
+        catalog.add(path, options=merged)
+    assert catalog.list() == []

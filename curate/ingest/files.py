@@ -361,6 +361,23 @@ def read_with_layout(path: Path, merged: dict[str, Any], sidecar_path: Path | No
             f"are {', '.join(table.columns)}; name the time column with --column time=HEADER "
             "(columns.time in the sidecar)"
         )
+    given_roles = merged.get("columns", {}) if isinstance(merged.get("columns"), dict) else {}
+    for role in ("value", "sd", "replicate", "n"):
+        wanted = given_roles.get(role)
+        if isinstance(wanted, str) and match_column(wanted, table.columns) is None:
+            raise InputError(
+                f"{table.path}: --column {role}={wanted} (columns.{role}) names no column; the "
+                f"columns are {', '.join(table.columns)}"
+            )
+    value_header = match_column(layout.columns.value, table.columns)
+    if value_header is None and layout.layout == "auto":
+        others = [match_column(str(getattr(layout.columns, r)), table.columns) for r in ("sd", "n")]
+        if any(o is not None for o in others):
+            raise InputError(
+                f"{table.path}: no value column among {', '.join(table.columns)}, but an "
+                f"'{next(o for o in others if o)}' column, so this is not one column per replicate; "
+                "name the value column with --column value=HEADER (columns.value in the sidecar)"
+            )
     stated: dict[str, str] = {}
     for role, wanted, field in (("time", layout.columns.time, ("time", "unit")),
                                 ("value", layout.columns.value, ("observable", "unit"))):  # fmt: skip
@@ -393,6 +410,12 @@ def read_with_layout(path: Path, merged: dict[str, Any], sidecar_path: Path | No
         # wide: one column per replicate; their headers give the unit when they all state one
         named = layout.columns.replicates or [c for c in table.columns if c != time_header]
         column_units = {header_unit(c)[1] for c in named}
+        if len(column_units - {None}) > 1:
+            raise InputError(
+                f"{path}, {table.row_word} {table.header_line}: the replicate columns state "
+                f"different units ({', '.join(sorted(str(u) for u in column_units - {None}))}); "
+                "give every replicate in one unit"
+            )
         section = merged.setdefault("observable", {})
         if len(column_units) == 1 and None not in column_units and isinstance(section, dict):
             (unit,) = column_units
@@ -406,6 +429,17 @@ def read_with_layout(path: Path, merged: dict[str, Any], sidecar_path: Path | No
                     "correct one of them"
                 )
             stated["value"] = str(unit)
+    sd_header = match_column(layout.columns.sd, table.columns)
+    if sd_header is not None and (sd_unit := header_unit(sd_header)[1]) is not None:
+        value_unit = (merged.get("observable") or {}).get("unit")
+        if value_unit is not None and not _same_unit(str(value_unit), sd_unit):
+            raise InputError(
+                f"{path}, {table.row_word} {table.header_line}, column '{sd_header}': the header "
+                f"states '{sd_unit}', but the values are in '{value_unit}'; give the sd in the "
+                "values' unit (a percentage of the value: --sd-type percent and a header without "
+                "the unit)"
+            )
+        stated["sd"] = sd_unit
     if stated:
         found["header_units"] = stated
     return table, merged, found

@@ -217,6 +217,10 @@ def _dialect(path: Path, raw: bytes, default: str, layout: Layout) -> tuple[Dial
         raise InputError(f"{path}: dialect.delimiter '{layout.delimiter}': expected one character")
     dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=layout.decimal or ".",
                       thousands=layout.thousands or "", detected=tuple(detected))  # fmt: skip
+    if dialect.thousands and dialect.thousands == dialect.decimal:
+        raise InputError(
+            f"{path}: dialect.decimal and dialect.thousands are both '{dialect.decimal}'"
+        )
     if dialect.decimal == dialect.delimiter:
         raise InputError(f"{path}: the decimal mark and the delimiter are both '{delimiter}'")
     return dialect, text
