@@ -106,6 +106,18 @@ def _created_only_if_written() -> Iterator[None]:
         raise
 
 
+def _put(options: dict[str, Any], path: str, value: Any) -> None:
+    """Set ``options['a']['b'] = value`` for the dotted ``path`` 'a.b' (the sidecar's shape);
+    None sets nothing."""
+    if value is None:
+        return
+    node = options
+    *parents, last = path.split(".")
+    for part in parents:
+        node = node.setdefault(part, {})
+    node[last] = value
+
+
 def _emit_json(value: Any) -> None:
     sys.stdout.write(to_json(value) + "\n")
 
@@ -222,13 +234,7 @@ def add(
     options: dict[str, Any] = {}
 
     def put(path: str, value: Any) -> None:
-        if value is None:
-            return
-        node = options
-        *parents, last = path.split(".")
-        for part in parents:
-            node = node.setdefault(part, {})
-        node[last] = value
+        _put(options, path, value)
 
     put("observable.id", observable)
     put("observable.label", label)
@@ -334,12 +340,7 @@ def inspect(
                         ("time.unit", time_unit), ("source.lab", lab), ("sheet", sheet),
                         ("header_row", header_row), ("skip_rows", skip_rows), ("layout", layout),
                         *((f"columns.{r}", h) for r, h in parse_columns(column or []).items())):  # fmt: skip
-        if value is not None:
-            node = options
-            *parents, last = path.split(".")
-            for part in parents:
-                node = node.setdefault(part, {})
-            node[last] = value
+        _put(options, path, value)
     found = inspect_file(file, sidecar=meta, options=options)
     _show(found.to_dict(), lambda: text.inspection_text(found), as_json)
 

@@ -12,6 +12,7 @@ from rich.console import Group
 from rich.table import Table
 from rich.text import Text
 
+from curate.ingest.dialect import Dialect
 from curate.ingest.inspection import FileInspection
 from curate.ledger import AddPlan, AddResult, HistoryEntry, IntakeReport, VerifyReport
 from curate.ledger.problems import ProblemSummary
@@ -321,15 +322,9 @@ def inspection_text(found: FileInspection) -> Group:
         shown = ", ".join(f"{s['name']} ({s['rows']} rows)" for s in found.sheets)
         lines.append(Text(f"sheets: {shown}" + (f"; read: {found.sheet}" if found.sheet else "")))
     if found.dialect is not None:
-        d = found.dialect
-        names = {",": "comma", ";": "semicolon", "\t": "tab", "|": "bar"}
-        words = [f"{names.get(d['delimiter'], repr(d['delimiter']))}-separated",
-                 "decimal comma" if d["decimal"] == "," else "decimal point"]  # fmt: skip
-        if d["thousands"]:
-            words.append(f"thousands separator '{d['thousands']}'")
-        words.append(d["encoding"])
-        detected = f" (detected: {', '.join(d['detected'])})" if d["detected"] else ""
-        lines.append(Text("dialect: " + ", ".join(words) + detected))
+        dialect = Dialect(**{**found.dialect, "detected": tuple(found.dialect["detected"])})
+        detected = f" (detected: {', '.join(dialect.detected)})" if dialect.detected else ""
+        lines.append(Text("dialect: " + dialect.describe() + detected))
     if found.header_line is not None:
         lines.append(Text(f"header on line {found.header_line}, {found.rows} data rows"))
         table = plain_table(("column", "name", "unit in header", "read as"))
