@@ -23,6 +23,7 @@ from curate.errors import (
 )
 from curate.fit import FitOptions, FitResult, ModelBackend, PythonFunction
 from curate.ingest import Draft
+from curate.ingest.corrections import Correction
 from curate.ledger import (
     AddPlan,
     AddResult,
@@ -37,6 +38,7 @@ from curate.records import (
     GRADES,
     DatasetRecord,
     DatasetVersion,
+    PointMask,
     SeriesArrays,
 )
 from curate.version import __version__
@@ -49,6 +51,7 @@ __all__ = [
     "AddResult",
     "Catalog",
     "CatalogError",
+    "Correction",
     "CurateError",
     "DatasetRecord",
     "DatasetVersion",
@@ -62,6 +65,7 @@ __all__ = [
     "IntegrityError",
     "ModelBackend",
     "NotFoundError",
+    "PointMask",
     "Policy",
     "PythonFunction",
     "Selection",

@@ -41,6 +41,7 @@ __all__ = [
     "Normalisation",
     "Observable",
     "PlausibilityWarning",
+    "PointMask",
     "PretreatmentStep",
     "Protocol",
     "SeriesArrays",
@@ -49,9 +50,12 @@ __all__ = [
     "Uncertainty",
     "UncertaintyScale",
     "UncertaintyType",
+    "as_given_hash",
     "canonical_json",
     "content_hash",
+    "in_use",
     "jsonable",
+    "masked_points",
     "normalise_grade",
     "record_hash",
 ]
@@ -204,6 +208,16 @@ class PlausibilityWarning(_Record):
     message: str
 
 
+class PointMask(_Record):
+    """Points set aside at one time (all replicates, or one): kept, but out of every fit."""
+
+    time: float = Field(description="time of the masked points, seconds")
+    replicate: str | None = Field(None, description="the one replicate masked; None: all")
+    reason: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+    masked_by: str
+    masked_at: dt.datetime
+
+
 class DatasetRecord(_Record):
     """Everything about one dataset version except its arrays (which the content hash names)."""
 
@@ -224,6 +238,15 @@ class DatasetRecord(_Record):
     )
     n_points: int = Field(ge=1)
     content_hash: str
+    as_given: str | None = Field(
+        None,
+        description="content hash of the numbers as the file gave them (file units, before "
+        "conversion), from which corrections reconvert; None for versions logged before it "
+        "was kept",
+    )
+    masks: tuple[PointMask, ...] = ()
+    supersedes: str | None = Field(None, description="the dataset this one replaces")
+    superseded_by: str | None = Field(None, description="the dataset that replaces this one")
 
     @field_validator("conditions")
     @classmethod
@@ -259,6 +282,7 @@ class DatasetVersion(_Record):
             "grade": self.grade,
             "conditions": {k: v.value for k, v in rec.conditions.items()},
             "retired": rec.retired,
+            "masks": len(rec.masks),
             "warnings": [w.code for w in rec.warnings],
             "content_hash": rec.content_hash,
         }
@@ -288,6 +312,12 @@ class SeriesArrays:
     def __len__(self) -> int:
         return len(self.time)
 
+    def subset(self, keep: np.ndarray) -> SeriesArrays:
+        """Give the arrays of the points where ``keep`` is true (a boolean mask)."""
+        return SeriesArrays(
+            **{name: None if a is None else a[keep] for name, a in self.named().items()}  # type: ignore[arg-type]
+        )
+
     def named(self) -> dict[str, np.ndarray | None]:
         """Give the arrays by name, in canonical order."""
         return {
@@ -297,6 +327,27 @@ class SeriesArrays:
             "replicate": self.replicate,
             "n": self.n,
         }
+
+
+def in_use(record: DatasetRecord, arrays: SeriesArrays) -> SeriesArrays:
+    """Give the arrays without the points a mask sets aside (the arrays themselves if none)."""
+    if not record.masks:
+        return arrays
+    return arrays.subset(~masked_points(record, arrays))
+
+
+def masked_points(record: DatasetRecord, arrays: SeriesArrays) -> np.ndarray:
+    """Give, per point, whether a mask of the record sets it aside (times within 1e-9 s)."""
+    out = np.zeros(len(arrays), dtype=bool)
+    if not record.masks:
+        return out
+    labels = np.asarray(record.replicate_labels, dtype=object)
+    for mask in record.masks:
+        hit = np.isclose(arrays.time, mask.time, rtol=1e-12, atol=1e-9)
+        if mask.replicate is not None and arrays.replicate is not None and len(labels):
+            hit &= labels[arrays.replicate] == mask.replicate
+        out |= hit
+    return out
 
 
 _ARRAY_DTYPES = {"time": "<f8", "value": "<f8", "sd": "<f8", "replicate": "<i8", "n": "<i8"}
@@ -322,6 +373,12 @@ def content_hash(arrays: SeriesArrays, *, value_unit: str, time_unit: str = "sec
             digest.update(f"|{name}:".encode())
             digest.update(array_bytes(name, array))
     return digest.hexdigest()
+
+
+def as_given_hash(arrays: SeriesArrays) -> str:
+    """Give the content hash of numbers as a file gave them (no unit: a correction of the unit
+    says what they are; it does not change them)."""
+    return content_hash(arrays, value_unit="as given", time_unit="as given")
 
 
 def jsonable(value: Any) -> Any:

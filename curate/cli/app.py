@@ -32,6 +32,7 @@ from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
 from curate.ingest import build_draft
+from curate.ingest.corrections import Correction
 from curate.ingest.inspection import inspect_file
 from curate.jsontext import to_json
 from curate.ledger import DEFAULT_CATALOG, AddPlan, default_actor, restore_catalog
@@ -227,11 +228,17 @@ def add(
     dataset_id: Annotated[
         str | None, typer.Option("--id", help="dataset id (default: generated)")
     ] = None,
+    supersedes: Annotated[
+        str | None,
+        typer.Option(help="ID of the dataset this file replaces (it is retired, the link kept)"),
+    ] = None,
     as_json: JsonFlag = False,
     dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
 ) -> None:
     """Log one data file with its metadata; print the new dataset's id."""
     options: dict[str, Any] = {}
+    if supersedes is not None:
+        options["supersedes"] = supersedes
 
     def put(path: str, value: Any) -> None:
         _put(options, path, value)
@@ -462,9 +469,38 @@ def revise(
     unretire: Annotated[
         bool, typer.Option("--unretire", help="bring a retired dataset back")
     ] = False,
+    unit: Annotated[
+        str | None, typer.Option(help="the unit the values really are in (reconverted)")
+    ] = None,
+    time_unit: Annotated[
+        str | None, typer.Option(help="the unit the times really are in (reconverted)")
+    ] = None,
+    uncertainty_type: Annotated[
+        str | None,
+        typer.Option(
+            help="what the sd column really holds: sd, sem, ci, percent, estimated, assumed"
+        ),
+    ] = None,
+    sem_n: Annotated[int | None, typer.Option(help="n behind an SEM without an n column")] = None,
+    ci_level: Annotated[float | None, typer.Option(help="level of a confidence interval")] = None,
+    relative: Annotated[
+        bool | None,
+        typer.Option("--relative/--absolute", help="the values are in relative units (or not)"),
+    ] = None,
+    normalisation: Annotated[
+        str | None,
+        typer.Option(help="none, reference_time, reference_condition, peak, sum (KIND:REFERENCE)"),
+    ] = None,
 ) -> None:
-    """Correct a dataset's metadata as a new version (its data never change)."""
+    """Correct a dataset as a new version: its metadata, or how its numbers read (unit, time
+    unit, uncertainty, relative flag, normalisation: values reconverted from the numbers as the
+    file gave them)."""
+    correction = Correction(
+        unit=unit, time_unit=time_unit, uncertainty_type=uncertainty_type, sem_n=sem_n,
+        ci_level=ci_level, relative=relative, normalisation=normalisation,
+    )  # fmt: skip
     with _catalog() as catalog:
+        before = catalog.show(dataset_id).record.content_hash
         new = catalog.revise(
             dataset_id,
             reason=reason,
@@ -474,8 +510,47 @@ def revise(
             reference=reference,
             calibration_group=calibration_group,
             unretire=unretire,
+            correction=correction,
         )
-    out.print(text.revised_text(new))
+        changes = catalog.history(dataset_id)[-1].changes
+    if new.record.content_hash != before:
+        changes += ("values reconverted from the numbers as the file gave them",)
+    out.print(text.revised_text(new, changes))
+
+
+@app.command()
+def mask(
+    dataset_id: DatasetId,
+    time: Annotated[
+        list[str],
+        typer.Option(
+            help="time of the points to set aside (in the dataset's time unit, or '30 min'); repeatable"
+        ),
+    ],
+    reason: Annotated[str, typer.Option(help="why these points stay out of fits")],
+    replicate: Annotated[
+        str | None, typer.Option(help="mask only this replicate (default: every one)")
+    ] = None,
+) -> None:
+    """Set points aside as a new version: kept in the catalog, out of weights, exports, fits."""
+    with _catalog() as catalog:
+        new = catalog.mask(dataset_id, time, reason=reason, replicate=replicate)
+    out.print(text.masked_text(new))
+
+
+@app.command()
+def unmask(
+    dataset_id: DatasetId,
+    time: Annotated[
+        list[str], typer.Option(help="time of masked points to bring back; repeatable")
+    ],
+    reason: Annotated[str, typer.Option(help="why these points return")],
+    replicate: Annotated[str | None, typer.Option(help="only this replicate's mask")] = None,
+) -> None:
+    """Bring masked points back into weights, exports and fits (a new version)."""
+    with _catalog() as catalog:
+        new = catalog.mask(dataset_id, time, reason=reason, replicate=replicate, unmask=True)
+    out.print(text.masked_text(new))
 
 
 @app.command()

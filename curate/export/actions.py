@@ -17,7 +17,7 @@ from curate.export.formats import FORMATS, PREPARE, ExportInput, Prepared
 from curate.export.manifest import build_manifest, readme_text, record_run
 from curate.export.table import write_table
 from curate.ledger import Ledger
-from curate.weighting import Policy, Selection, WeightSummary, weighted_table
+from curate.weighting import Policy, Selection, WeightedTable, WeightSummary, weighted_table
 from curate.weighting.groupings import fold_groups
 from curate.weighting.splitters import training_gaps
 from curate.weighting.table import STANDARD_COLUMNS
@@ -51,14 +51,42 @@ def export(catalog: Ledger, fmt: str, outdir: str | Path, *, policy: Policy, sel
     weighted = weighted_table(catalog, policy, selection)
     prepared = PREPARE[fmt](catalog, weighted) if fmt in PREPARE else Prepared()
     prepare_folder(folder, force=force)
-    text = readme_text(catalog, policy, folder) + prepared.readme
+    text = readme_text(catalog, policy, folder) + prepared.readme + _masked_text(weighted, fmt)
     readme = {"README.txt": write_text(folder / "README.txt", text)}
     written = writer(ExportInput(catalog, weighted, fmt, dict(readme), prepared), folder)
-    files = {**written, **readme}
+    files = {**written, **readme, **_write_masked(weighted, fmt, folder)}
     manifest = build_manifest(catalog, fmt, policy, selection, weighted.versions, files,
                               {"weights": weighted.summary.to_dict(), **prepared.manifest})  # fmt: skip
     record_run(catalog, "export", policy, weighted.versions, manifest, folder=folder)
     return ExportResult(fmt, folder, files, manifest, weighted.summary)
+
+
+def _masked_name(fmt: str) -> str:
+    return "masked_points.tsv" if fmt == "petab" else "masked_points.csv"
+
+
+def _masked_text(weighted: WeightedTable, fmt: str) -> str:
+    """Give the README paragraph on points set aside by masks (empty when there are none)."""
+    aside = weighted.aside.points
+    if aside.empty:
+        return ""
+    datasets = aside["dataset_id"].nunique()
+    return (
+        f"\nMasked points: {len(aside)} point(s) of {datasets} dataset(s) were set aside by masks "
+        f"(`curate mask`) and are not in the fitted table{' or the PEtab measurement table' if fmt == 'petab' else ''}; "
+        f"{_masked_name(fmt)} lists them with masked = true and the reason (time in seconds, "
+        "value and sd in the dataset's canonical unit). Do not fit them.\n"
+    )
+
+
+def _write_masked(weighted: WeightedTable, fmt: str, folder: Path) -> dict[str, str]:
+    """Write the masked points beside the export (the annotation a fitter can read)."""
+    aside = weighted.aside.points
+    if aside.empty:
+        return {}
+    name = _masked_name(fmt)
+    text = aside.to_csv(index=False, sep="\t" if fmt == "petab" else ",", lineterminator="\n")
+    return {name: write_text(folder / name, text)}
 
 
 @dataclass

@@ -41,7 +41,7 @@ from curate.units import (
 )
 from curate.version import __version__
 from curate.weighting import WeightedTable
-from curate.weighting.table import condition_column
+from curate.weighting.table import SetAside, condition_column
 
 __all__ = ["FORMATS", "PREPARE", "ExportInput", "Prepared", "Writer", "units_description"]
 
@@ -80,7 +80,12 @@ class ExportInput:
 Writer = Callable[[ExportInput, Path], dict[str, str]]
 
 
-def _dataset_facts(versions: list[DatasetVersion]) -> dict[str, dict[str, Any]]:
+def _dataset_facts(
+    versions: list[DatasetVersion], aside: SetAside | None = None
+) -> dict[str, dict[str, Any]]:
+    """Give what the PEtab writers need of each dataset; per-point annotations without the
+    points a mask sets aside (they follow the weighted table's rows)."""
+    aside = aside or SetAside(pd.DataFrame(), {})
     facts = {}
     for version in versions:
         record = version.record
@@ -96,8 +101,10 @@ def _dataset_facts(versions: list[DatasetVersion]) -> dict[str, dict[str, Any]]:
             "time_unit": record.time_unit_original,
             "calibration_group": record.protocol.calibration_group,
             "petab": record.annotations.get("petab"),
-            "petab_rows": record.annotations.get("petab_rows"),
-            "petab_row_index": record.annotations.get("petab_row_index"),
+            "petab_rows": aside.annotation(version.id, record.annotations.get("petab_rows")),
+            "petab_row_index": aside.annotation(
+                version.id, record.annotations.get("petab_row_index")
+            ),
             # a stored problem's rows keep their cells as imported: in the unit given then
             "unit_verbatim": record.observable.unit_original,
         }
@@ -205,7 +212,7 @@ def _petab(given: ExportInput, folder: Path) -> dict[str, str]:
     if isinstance(plan, ProblemExport):
         written = write_problem_export(plan, folder)
         return {**written, **write_units(folder, problem_units_description(given.versions))}
-    written = write_petab(given.table, _dataset_facts(given.versions), folder)
+    written = write_petab(given.table, _dataset_facts(given.versions, given.weighted.aside), folder)
     return {**written, **write_units(folder, units_description(given.versions, petab=True))}
 
 
@@ -227,7 +234,9 @@ def _prepare_petab(catalog: Ledger, weighted: WeightedTable) -> Prepared:
     # the newest stored version: an edit (bounds, a corrected model) stores a new version
     # while the unchanged datasets stay linked to the one they were first imported from
     problem = catalog.problem(problem_id)
-    plan = plan_problem_export(problem, weighted.table, _dataset_facts(weighted.versions))
+    plan = plan_problem_export(
+        problem, weighted.table, _dataset_facts(weighted.versions, weighted.aside)
+    )
     return Prepared(plan.readme_text(), {"petab_problem": plan.manifest_entry()}, plan)
 
 

@@ -129,6 +129,8 @@ def trace(catalog: Ledger, outdir: str | Path) -> TraceReport:
         ]
         current = later[-1]
         what = "retired" if current.record.retired else f"now version {current.version}"
+        if current.record.superseded_by is not None:
+            what = f"superseded by {current.record.superseded_by}"
         report.changed.append(
             f"{ident} version {number}: {what} ({', '.join(kinds)} since the export)"
         )
@@ -148,12 +150,14 @@ class ImpactEntry:
     retired: bool
     changes: tuple[str, ...]
     kind: str = "export"  # export, folds (a fold set), fit or sensitivity
+    # the run used an older dataset this one supersedes (None: it used this dataset itself)
+    superseded: str | None = None
 
     def to_dict(self) -> dict[str, Any]:
         """Give the entry as plain data."""
         return {"event": self.seq, "at": self.at, "kind": self.kind, "format": self.format, "outdir": self.outdir,
                 "used_version": self.used_version, "current_version": self.current_version,
-                "retired": self.retired, "changes": list(self.changes)}  # fmt: skip
+                "retired": self.retired, "changes": list(self.changes), "superseded": self.superseded}  # fmt: skip
 
 
 def _run_kind(event_kind: str, fmt: str) -> str:
@@ -162,14 +166,35 @@ def _run_kind(event_kind: str, fmt: str) -> str:
     return event_kind
 
 
+def _predecessors(catalog: Ledger, dataset_id: str) -> list[str]:
+    """Give the datasets ``dataset_id`` supersedes, directly or through others, newest first."""
+    chain: list[str] = []
+    older = catalog.show(dataset_id).record.supersedes
+    while older is not None and older not in chain and older != dataset_id:
+        chain.append(older)
+        older = catalog.show(older).record.supersedes
+    return chain
+
+
 def impact(catalog: Ledger, dataset_id: str) -> list[ImpactEntry]:
     """Give every export, fold set, fit and sensitivity run that used a since-corrected or retired
-    version of a dataset."""
+    version of a dataset, or any version of a dataset it supersedes."""
     current = catalog.show(dataset_id)
     history = catalog.history(dataset_id)
+    older = _predecessors(catalog, dataset_id)
     found = []
     for event in catalog.events():
         if event["kind"] not in ("export", "fit", "sensitivity"):
+            continue
+        replaced = [(ident, v) for ident, v in event["payload"]["datasets"] if ident in older]
+        if replaced and not any(i == dataset_id for i, _ in event["payload"]["datasets"]):
+            ident, number = replaced[0]
+            fmt = event["payload"]["format"]
+            found.append(ImpactEntry(
+                seq=event["seq"], at=event["at"], format=fmt, outdir=event["payload"]["outdir"],
+                used_version=number, current_version=current.version, retired=current.record.retired,
+                changes=(f"superseded by {dataset_id}",), kind=_run_kind(event["kind"], fmt), superseded=ident,
+            ))  # fmt: skip
             continue
         used = [v for ident, v in event["payload"]["datasets"] if ident == dataset_id]
         if not used or used[0] >= current.version:

@@ -103,7 +103,7 @@ def _with_petab_rows(weighted: WeightedTable) -> tuple[pd.DataFrame, list[dict[s
     rows: list[dict[str, str]] = [{} for _ in range(len(table))]
     for dataset_id, group in table.groupby("dataset_id", sort=False, observed=True):
         record = by_id[str(dataset_id)].record
-        kept = record.annotations.get("petab_rows")
+        kept = weighted.aside.annotation(str(dataset_id), record.annotations.get("petab_rows"))
         if not isinstance(kept, dict) or not kept.get("measurement"):
             raise InputError(
                 f"dataset {dataset_id}: no PEtab rows were kept at import; it cannot be fitted "

@@ -36,16 +36,21 @@ from curate.records import (
     Uncertainty,
     UncertaintyScale,
     UncertaintyType,
+    as_given_hash,
     content_hash,
 )
 
 __all__ = [
+    "REFERENCE_NORMALISATIONS",
     "Draft",
     "build_draft",
+    "convert_as_given",
     "draft_from_arrays",
     "find_sidecar",
+    "nonnegative_dimension",
     "parse_condition",
     "resolve_pair",
+    "sd_converts",
 ]
 
 # annotations holding one text cell per point, kept in the same (time-sorted) order as the arrays
@@ -75,6 +80,9 @@ class Draft:
     # the content hash these data had before converted values were rounded to 15 digits
     # (None when rounding changed nothing): how a file logged earlier is still recognised
     legacy_hash: str | None = None
+    # the numbers as the file gave them (time-sorted, file units), stored when they differ
+    # from ``arrays``: corrections of a unit reconvert from these, never from converted values
+    as_given: SeriesArrays | None = None
 
     @property
     def magnitude(self) -> float:
@@ -559,32 +567,21 @@ def _assemble(
         array = raw_arrays.get(name)
         return None if array is None else np.asarray(array)[order]
 
-    given_time = take("time")
-    assert given_time is not None
-    given_value, given_sd = take("value"), take("sd")
-    sd_in_value_units = (
-        given_sd is not None
-        and uncertainty is not None
-        and uncertainty.scale is UncertaintyScale.LINEAR
-        and uncertainty.type is not UncertaintyType.PERCENT
+    given = SeriesArrays(
+        time=take("time"),  # type: ignore[arg-type]
+        value=take("value"),  # type: ignore[arg-type]
+        sd=take("sd"),
+        replicate=take("replicate"),
+        n=take("n"),
     )
-
-    def converted(rounded: bool) -> SeriesArrays:
-        sd = given_sd
-        if sd is not None and sd_in_value_units:
-            sd = units.convert_difference(sd, value_unit, rounded=rounded)
-        return SeriesArrays(
-            time=units.convert(given_time, time_unit, rounded=rounded),
-            value=units.convert(given_value, value_unit, rounded=rounded),  # type: ignore[arg-type]
-            sd=sd,
-            replicate=take("replicate"),
-            n=take("n"),
-        )
-
-    arrays = converted(rounded=True)
+    given_time, given_sd = given.time, given.sd
+    sd_in_value_units = sd_converts(given, uncertainty)
+    arrays = convert_as_given(given, value_unit, time_unit, uncertainty)
     digest = content_hash(arrays, value_unit=value_unit.canonical)
-    legacy = converted(rounded=False)
+    legacy = convert_as_given(given, value_unit, time_unit, uncertainty, rounded=False)
     legacy_hash = content_hash(legacy, value_unit=value_unit.canonical)
+    given_hash = as_given_hash(given)
+    kept = None if given_hash == as_given_hash(arrays) else given
     extras = dict(extras)
     for per_point in _PER_POINT_ANNOTATIONS:
         if per_point in extras:
@@ -636,7 +633,7 @@ def _assemble(
         arrays.value,
         arrays.sd,
         uncertainty=uncertainty.type if uncertainty else None,
-        nonnegative=value_unit.dimensionality in _NONNEGATIVE and not relative,
+        nonnegative=nonnegative_dimension(value_unit) and not relative,
         time=given_time,
         time_unit=time_unit.original,
         replicates=arrays.replicate is not None,
@@ -656,6 +653,8 @@ def _assemble(
         annotations=extras,
         n_points=len(arrays),
         content_hash=digest,
+        as_given=digest if kept is None else given_hash,
+        supersedes=meta.supersedes,
     )
     return Draft(
         record=record,
@@ -663,6 +662,44 @@ def _assemble(
         requested_id=meta.id,
         origin=origin,
         legacy_hash=legacy_hash if legacy_hash != digest else None,
+        as_given=kept,
+    )
+
+
+def nonnegative_dimension(unit: units.CanonicalUnit) -> bool:
+    """Tell whether quantities of the unit's dimension cannot be negative."""
+    return unit.dimensionality in _NONNEGATIVE
+
+
+def sd_converts(given: SeriesArrays, uncertainty: Uncertainty | None) -> bool:
+    """Tell whether a series' sd column is in the value unit (and converts with it)."""
+    return (
+        given.sd is not None
+        and uncertainty is not None
+        and uncertainty.scale is UncertaintyScale.LINEAR
+        and uncertainty.type is not UncertaintyType.PERCENT
+    )
+
+
+def convert_as_given(
+    given: SeriesArrays,
+    value_unit: units.CanonicalUnit,
+    time_unit: units.CanonicalUnit,
+    uncertainty: Uncertainty | None,
+    *,
+    rounded: bool = True,
+) -> SeriesArrays:
+    """Give the numbers as given converted to canonical units (times, values and an sd in
+    the value unit; percent and log-scale uncertainties need no conversion)."""
+    sd = given.sd
+    if sd is not None and sd_converts(given, uncertainty):
+        sd = units.convert_difference(sd, value_unit, rounded=rounded)
+    return SeriesArrays(
+        time=units.convert(given.time, time_unit, rounded=rounded),
+        value=units.convert(given.value, value_unit, rounded=rounded),
+        sd=sd,
+        replicate=given.replicate,
+        n=given.n,
     )
 
 

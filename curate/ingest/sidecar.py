@@ -116,6 +116,9 @@ class Sidecar(_Part):
 
     id: Identifier | None = Field(None, description="dataset id to use (default: generated)")
     data_file: str | None = Field(None, description="data file, relative to the sidecar's folder")
+    supersedes: Identifier | None = Field(
+        None, description="the dataset this file replaces (retired when this one is logged)"
+    )
     layout: Literal["auto", "long", "wide"] = "auto"
     sheet: str | int | None = Field(
         None,

@@ -9,7 +9,6 @@ above and call these methods (see ``curate.api`` for the catalog that has them a
 
 from __future__ import annotations
 
-import bisect
 import builtins
 import dataclasses
 import datetime as dt
@@ -25,11 +24,17 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from curate import units
 from curate.errors import InputError, NotFoundError
+from curate.ingest.corrections import Correction
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.petab import PetabImport, read_petab_import
-from curate.ingest.plausibility import Neighbour, check_against_others, typical_magnitude
+from curate.ingest.plausibility import check_against_others, typical_magnitude
+from curate.ledger.amend import Amendments
+from curate.ledger.context import (
+    ActionContext,
+    check_condition_filters,
+    version_from_row,
+)
 from curate.ledger.problems import (
     ProblemOutcome,
     ProblemSummary,
@@ -44,7 +49,6 @@ from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
     GRADES,
-    ConditionValue,
     DatasetRecord,
     DatasetVersion,
     SeriesArrays,
@@ -178,179 +182,7 @@ def describe_changes(before: dict[str, Any], after: dict[str, Any]) -> tuple[str
     return tuple(lines)
 
 
-def condition_kind(value: ConditionValue) -> str:
-    """Give the kind a condition key keeps across the catalog: 'text', 'true/false', 'number'
-    (no unit, or a dimensionless one) or the canonical unit of a quantity."""
-    if isinstance(value.value, bool):
-        return "true/false"
-    if isinstance(value.value, str):
-        return "text"
-    return value.unit if value.unit not in (None, "dimensionless") else "number"
-
-
-def check_condition_filters(
-    wanted: dict[str, ConditionValue], versions: Iterable[DatasetVersion]
-) -> None:
-    """Refuse a condition filter of another kind than the catalog stores for its key.
-
-    ``--condition dose=10`` against doses stored as quantities (nM) would match nothing in
-    silence: the filter must carry a unit then (and a text filter cannot match a number).
-    """
-    if not wanted:
-        return
-    stored: dict[str, set[str]] = {key: set() for key in wanted}
-    for version in versions:
-        for key, held in stored.items():
-            value = version.record.conditions.get(key)
-            if value is not None:
-                held.add(condition_kind(value))
-    for key, value in wanted.items():
-        kinds = stored[key]
-        if kinds and condition_kind(value) not in kinds:
-            shown = sorted(kinds)[0]
-            hint = (
-                f"; give it with its unit, e.g. {key}={value.value:g}{units.short_unit(shown)}"
-                if condition_kind(value) == "number"
-                and shown not in ("number", "text", "true/false")
-                else ""
-            )
-            raise InputError(
-                f"--condition {key}: the catalog holds {key} as {_kind_text(shown)}, "
-                f"not {_kind_text(condition_kind(value))}{hint}"
-            )
-
-
-def _kind_text(kind: str) -> str:
-    if kind in ("text", "true/false"):
-        return kind
-    if kind == "number":
-        return "a plain number"
-    return f"a quantity in {units.short_unit(kind)} ({units.dimension_of(kind)})"
-
-
-def _kind_example(kind: str) -> str:
-    examples = {"text": "text", "true/false": "true or false", "number": "a plain number"}
-    return examples.get(kind, f"a value with a unit such as '10 {units.short_unit(kind)}'")
-
-
-def _unit_text(unit: str) -> str:
-    return f"{units.short_unit(unit)} ({units.dimension_of(unit)})"
-
-
-class _ActionContext:
-    """What one user action knows about the catalog while it writes (built once per action).
-
-    Indexed so that logging N datasets costs O(N log N), not O(N^2): datasets by content hash,
-    ids, per observable and unit a sorted list of typical values for the median, the units of
-    each observable's absolute datasets and the kinds of each condition key (with the datasets
-    holding them, so that an action can name one).
-    """
-
-    def __init__(self, store: Store) -> None:
-        self.by_hash: dict[str, list[Neighbour]] = {}
-        self.by_key: dict[tuple[str, str, str, str], DatasetVersion] = {}
-        # revised datasets by what they were first logged as: a file logged again after its
-        # dataset was corrected is that dataset, not a new one
-        self.logged_as: dict[tuple[str, str, str, str], str] = {}
-        self.levels: dict[tuple[str, str], list[float]] = {}
-        self.ids: set[str] = set()
-        self.next_number: dict[str, int] = {}
-        self.units: dict[str, dict[str, list[str]]] = {}  # observable -> absolute unit -> ids
-        self.kinds: dict[str, dict[str, list[str]]] = {}  # condition key -> kind -> ids
-        latest = {row.dataset_id: row for row in store.latest_versions()}
-        for row in latest.values():
-            self.remember(version_from_row(row))
-        for row in store.first_versions_of_revised():
-            first = version_from_row(row)
-            key = self.logged_key(first.record, first.record.content_hash)
-            self.logged_as[key] = row.dataset_id
-
-    def remember(self, version: DatasetVersion) -> None:
-        """Add a version written during this action to the indexes."""
-        rec = version.record
-        conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
-        magnitude = float(rec.annotations.get("typical_magnitude", 0.0))
-        neighbour = Neighbour(
-            dataset_id=version.id, observable=rec.observable.id, unit=rec.observable.unit,
-            conditions=conditions, lab=rec.source.lab, content_hash=rec.content_hash, magnitude=magnitude,
-        )  # fmt: skip
-        self.by_hash.setdefault(rec.content_hash, []).append(neighbour)
-        if magnitude > 0:
-            bisect.insort(
-                self.levels.setdefault((rec.observable.id, rec.observable.unit), []), magnitude
-            )
-        self.by_key[(rec.content_hash, rec.observable.id, conditions, rec.source.lab)] = version
-        self.ids.add(version.id)
-        if not rec.observable.relative:
-            held = self.units.setdefault(rec.observable.id, {})
-            held.setdefault(rec.observable.unit, []).append(version.id)
-        for key, value in rec.conditions.items():
-            kinds = self.kinds.setdefault(key, {})
-            kinds.setdefault(condition_kind(value), []).append(version.id)
-
-    @staticmethod
-    def logged_key(rec: DatasetRecord, content: str) -> tuple[str, str, str, str]:
-        """Give (content hash, observable, conditions, lab): what makes two logs one dataset."""
-        conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
-        return (content, rec.observable.id, conditions, rec.source.lab)
-
-    def check_unit(self, rec: DatasetRecord, origin: str) -> None:
-        """Refuse absolute data whose unit has another dimension than the observable's
-        absolute datasets (relative data join any observable: a scale factor carries them)."""
-        if rec.observable.relative:
-            return
-        held = self.units.get(rec.observable.id, {})
-        others = [(u, ids) for u, ids in held.items() if u != rec.observable.unit and ids]
-        if others:
-            unit, ids = others[0]
-            raise InputError(
-                f"{origin}: unit '{rec.observable.unit_original}' "
-                f"({units.dimension_of(rec.observable.unit)}) does not fit observable "
-                f"'{rec.observable.id}', whose datasets are in {_unit_text(unit)}, e.g. "
-                f"{ids[0]}; one observable keeps one dimension: give a unit of that dimension, "
-                "mark relative data as relative, or log it under another observable id"
-            )
-
-    def check_conditions(
-        self, conditions: dict[str, ConditionValue], origin: str, *, dataset_id: str | None = None
-    ) -> None:
-        """Refuse a condition whose kind (text, true/false, number, quantity of a dimension)
-        differs from what the catalog's other datasets hold under the same key."""
-        for key, value in conditions.items():
-            kind = condition_kind(value)
-            for other, ids in self.kinds.get(key, {}).items():
-                holders = [i for i in ids if i != dataset_id]
-                if other != kind and holders:
-                    raise InputError(
-                        f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
-                        f"{_kind_text(kind)}, but other datasets hold '{key}' as "
-                        f"{_kind_text(other)}, e.g. {holders[0]}; a condition key keeps one "
-                        f"kind across the catalog: give {_kind_example(other)}, or use "
-                        "another key"
-                    )
-
-    def level(self, observable: str, unit: str) -> float | None:
-        """Give the median typical value of the datasets of one observable and unit."""
-        values = self.levels.get((observable, unit))
-        if not values:
-            return None
-        middle = len(values) // 2
-        return values[middle] if len(values) % 2 else 0.5 * (values[middle - 1] + values[middle])
-
-
-def version_from_row(row: VersionRow) -> DatasetVersion:
-    """Give the parsed dataset version of a stored row."""
-    record = DatasetRecord.model_validate_json(row.record_json)
-    return DatasetVersion(
-        id=row.dataset_id,
-        version=row.version,
-        created_at=dt.datetime.fromisoformat(row.created_at),
-        record=record,
-        record_hash=row.record_hash,
-    )
-
-
-class Ledger:
+class Ledger(Amendments):
     """The versioned, hash-chained datasets of one catalog file."""
 
     def __init__(self, path: str | Path, *, actor: str | None = None) -> None:
@@ -461,9 +293,9 @@ class Ledger:
             actor=self.actor,
         )
 
-    def plan_add(self, draft: Draft, context: _ActionContext | None = None) -> AddPlan:
+    def plan_add(self, draft: Draft, context: ActionContext | None = None) -> AddPlan:
         """Give what logging ``draft`` would write, against the catalog as it is now."""
-        context = context or _ActionContext(self._store)
+        context = context or ActionContext(self._store)
         rec = draft.record
         conditions = canonical_json({k: v.model_dump() for k, v in rec.conditions.items()})
         duplicate = context.by_key.get(
@@ -484,6 +316,8 @@ class Ledger:
         if duplicate is None:
             context.check_unit(rec, draft.origin)
             context.check_conditions(rec.conditions, draft.origin)
+            if rec.supersedes is not None:
+                self._check_supersedes(rec.supersedes, draft.origin, draft.requested_id)
         magnitude = typical_magnitude(draft.arrays.value)
         extra = check_against_others(
             observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
@@ -503,7 +337,7 @@ class Ledger:
             )
         return AddPlan(draft=draft, dataset_id=dataset_id, duplicate_of=duplicate, record=record)
 
-    def _new_id(self, rec: DatasetRecord, context: _ActionContext) -> str:
+    def _new_id(self, rec: DatasetRecord, context: ActionContext) -> str:
         prefix = f"{_slug(rec.source.lab, 40).split('_')[0][:16]}_{_slug(rec.observable.id, 24)}_"
         if not prefix[0].isalpha():
             prefix = "d_" + prefix
@@ -522,12 +356,15 @@ class Ledger:
         kind: str,
         payload: dict[str, Any],
         arrays: SeriesArrays | None,
+        given: SeriesArrays | None = None,
     ) -> DatasetVersion:
         created = dt.datetime.now(dt.UTC)
         record_json = canonical_json(record.model_dump(mode="json"))
         sealed = record_hash(dataset_id, version, record_json)
         if arrays is not None:
             self._store.put_series(record.content_hash, arrays)
+        if given is not None and record.as_given is not None:
+            self._store.put_series(record.as_given, given)
         self._store.put_version(
             VersionRow(
                 dataset_id=dataset_id,
@@ -553,7 +390,7 @@ class Ledger:
             id=dataset_id, version=version, created_at=created, record=record, record_hash=sealed
         )
 
-    def apply(self, plan: AddPlan, context: _ActionContext | None = None) -> AddResult:
+    def apply(self, plan: AddPlan, context: ActionContext | None = None) -> AddResult:
         """Write a plan (call inside a transaction when batching; otherwise opens one)."""
         if plan.duplicate_of is not None:
             dup = plan.duplicate_of
@@ -569,9 +406,19 @@ class Ledger:
             "origin": plan.draft.origin,
             "raw_file_sha256": plan.record.source.raw_file_sha256,
         }
+        if plan.record.supersedes is not None:
+            payload["supersedes"] = plan.record.supersedes
         version = self._write_version(
-            plan.dataset_id, 1, plan.record, kind="add", payload=payload, arrays=plan.draft.arrays
+            plan.dataset_id,
+            1,
+            plan.record,
+            kind="add",
+            payload=payload,
+            arrays=plan.draft.arrays,
+            given=plan.draft.as_given,
         )
+        if plan.record.supersedes is not None:
+            self._mark_superseded(plan.record.supersedes, by=plan.dataset_id)
         if context is not None:
             context.remember(version)
         return AddResult(
@@ -586,7 +433,7 @@ class Ledger:
     def add_drafts(self, drafts: Iterable[Draft]) -> builtins.list[AddResult]:
         """Log many drafts as one action: one transaction, all or nothing."""
         with self._store.transaction():
-            context = _ActionContext(self._store)
+            context = ActionContext(self._store)
             results = []
             for draft in drafts:
                 results.append(self.apply(self.plan_add(draft, context), context))
@@ -628,7 +475,7 @@ class Ledger:
         with self._store.transaction():
             outcome = store_problem(self._store, imported.problem, actor=self.actor)
             link = {"id": outcome.id, "version": outcome.version}
-            context = _ActionContext(self._store)
+            context = ActionContext(self._store)
             results = []
             for draft in imported.drafts:
                 record = draft.record
@@ -666,10 +513,23 @@ class Ledger:
         reason: str | None,
         update: dict[str, Any],
         payload: dict[str, Any] | None = None,
+        arrays: SeriesArrays | None = None,
+        given: SeriesArrays | None = None,
+        expected: int | None = None,
     ) -> DatasetVersion:
-        """Write a new version of a dataset with some record fields replaced."""
+        """Write a new version of a dataset with some record fields replaced (and, for a
+        correction of how its numbers read, its new arrays and the numbers as given).
+
+        ``expected`` is the version the update was computed from: a writer that got in between
+        makes this one refuse instead of silently overwriting its change.
+        """
         with self._store.transaction():
             current = self.show(dataset_id)
+            if expected is not None and current.version != expected:
+                raise InputError(
+                    f"dataset {dataset_id} changed while this change was prepared (now version "
+                    f"{current.version}); run the command again"
+                )
             merged = current.record.model_dump()
             merged.update(update)
             record = DatasetRecord.model_validate(merged)
@@ -683,7 +543,8 @@ class Ledger:
                 current.version + 1,
                 record,
                 kind=kind,
-                arrays=None,
+                arrays=arrays,
+                given=given,
                 payload={"reason": reason, "changes": list(changes), **(payload or {})},
             )
 
@@ -725,12 +586,19 @@ class Ledger:
         reference: str | None = None,
         calibration_group: str | None = None,
         unretire: bool = False,
+        correction: Correction | None = None,
     ) -> DatasetVersion:
-        """Correct a dataset's metadata as a new version (the data never change)."""
+        """Correct a dataset's metadata as a new version; with a ``correction`` of how its
+        numbers read (unit, time unit, uncertainty, relative, normalisation), its values are
+        reconverted from the numbers as the file gave them, in the same version."""
         if not reason.strip():
             raise InputError("revise: a reason is required (--reason)")
-        current = self.show(dataset_id).record
-        update: dict[str, Any] = {}
+        current_version = self.show(dataset_id)
+        fixed = None
+        if correction is not None and correction.given():
+            fixed = self.correction_update(dataset_id, correction)
+        update: dict[str, Any] = dict(fixed[0]) if fixed else {}
+        current = current_version.record.model_copy(update=update)
         if label is not None:
             update["observable"] = current.observable.model_copy(update={"label": label})
         if conditions:
@@ -740,7 +608,7 @@ class Ledger:
                     merged.pop(key, None)
                 else:
                     merged[key] = parse_condition(key, raw, origin=f"dataset {dataset_id}")
-            _ActionContext(self._store).check_conditions(
+            ActionContext(self._store).check_conditions(
                 {k: v for k, v in merged.items() if k in conditions},
                 f"dataset {dataset_id}",
                 dataset_id=dataset_id,
@@ -756,7 +624,21 @@ class Ledger:
             )
         if unretire:
             update.update({"retired": False, "retired_reason": None})
-        return self.new_version(dataset_id, kind="revise", reason=reason, update=update)
+        if fixed is None:
+            return self.new_version(
+                dataset_id, kind="revise", reason=reason, update=update,
+                expected=current_version.version,
+            )  # fmt: skip
+        assert correction is not None
+        payload: dict[str, Any] = {"correction": correction.words()}
+        if fixed[3]:
+            payload["numbers_as_given"] = (
+                "recovered from the stored values (logged before the numbers as given were kept)"
+            )
+        return self.new_version(
+            dataset_id, kind="correct", reason=reason, update=update, payload=payload,
+            arrays=fixed[1], given=fixed[2], expected=current_version.version,
+        )  # fmt: skip
 
     # -- reading ---------------------------------------------------------------------------
 
@@ -852,6 +734,9 @@ class Ledger:
         entries = []
         for event in self._store.events(dataset_id):
             payload = event.payload
+            changes = tuple(payload.get("changes", ()))
+            if payload.get("supersedes"):
+                changes += (f"supersedes {payload['supersedes']} (retired by this log)",)
             entries.append(
                 HistoryEntry(
                     seq=event.seq,
@@ -859,7 +744,7 @@ class Ledger:
                     actor=event.actor,
                     kind=event.kind,
                     version=event.version,
-                    changes=tuple(payload.get("changes", ())),
+                    changes=changes,
                     reason=payload.get("reason"),
                 )
             )

@@ -40,7 +40,7 @@ from curate.ledger.provenance import (
     verify_chain,
 )
 from curate.ledger.store import Store
-from curate.records import DatasetRecord, content_hash, record_hash
+from curate.records import DatasetRecord, as_given_hash, content_hash, record_hash
 
 __all__ = ["VerifyReport", "verify_store"]
 
@@ -96,6 +96,7 @@ def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
     report.datasets = len({r.dataset_id for r in rows})
     sealed_by_version: dict[tuple[str, int], str] = {}
     checked: dict[tuple[str, str], bool] = {}
+    checked_given: dict[str, bool] = {}
     for row in rows:
         name = f"dataset {row.dataset_id} version {row.version}"
         if record_hash(row.dataset_id, row.version, row.record_json) != row.record_hash:
@@ -134,6 +135,18 @@ def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
                 f"{name}: its measured values no longer match content hash "
                 f"{row.content_hash[:12]} (a value was changed or removed)"
             )
+        given = record.as_given
+        if given is not None and given != row.content_hash:
+            if given not in checked_given:
+                try:
+                    checked_given[given] = as_given_hash(store.series(given)) == given
+                except Exception:
+                    checked_given[given] = False
+            if not checked_given[given]:
+                report.problems.append(
+                    f"{name}: the numbers as the file gave them no longer match hash "
+                    f"{given[:12]} (a value was changed or removed)"
+                )
         sealed_by_version[(row.dataset_id, row.version)] = row.record_hash
     report.series = len({k[0] for k in checked})
     events = store.events()

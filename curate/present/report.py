@@ -36,7 +36,7 @@ from curate.present.html import (
 )
 from curate.quality.actions import check_consistency
 from curate.quality.measured import measured_sd
-from curate.records import ConditionValue
+from curate.records import ConditionValue, masked_points
 from curate.units import condition_text, short_unit
 from curate.weighting import Policy, Selection, WeightSummary, weighted_table
 
@@ -145,7 +145,8 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     rows = math.ceil(len(versions) / columns) or 1
     figure, axes = plt.subplots(rows, columns, figsize=(3.1 * columns, 2.5 * rows), squeeze=False)
     overlay = fitted["predictions"] if fitted else {}
-    thinned = []
+    thinned: list[str] = []
+    masked_series: list[str] = []
     for axis, version in zip(axes.flat, versions, strict=False):
         arrays = catalog.arrays(version.id)
         colour, marker = GRADE_STYLE.get(version.grade, GRADE_STYLE[None])
@@ -156,8 +157,16 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
         minutes = arrays.time / 60.0
         band_x, band_low, band_high = _band(minutes, arrays.value - sd, arrays.value + sd)
         axis.fill_between(band_x, band_low, band_high, color=colour, alpha=0.18, linewidth=0)
-        drawn = column_extremes(minutes, arrays.value, PANEL_PIXELS)
-        if len(drawn) < len(arrays):
+        masked = masked_points(version.record, arrays)
+        if masked.any():
+            masked_series.append(version.id)
+            axis.scatter(
+                minutes[masked], arrays.value[masked], s=14, marker=marker, facecolors="none",
+                edgecolors=colour if marker in _UNFILLED else "black", linewidths=0.8, zorder=3,
+            )  # fmt: skip
+        kept = np.flatnonzero(~masked)
+        drawn = kept[column_extremes(minutes[kept], arrays.value[kept], PANEL_PIXELS)]
+        if len(drawn) < len(kept):
             thinned.append(version.id)
         axis.scatter(
             minutes[drawn],
@@ -202,6 +211,12 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     figure.tight_layout(rect=(0, 0, 1, 0.96))
     note = ("Black lines: the newest recorded fit (relative-unit data drawn with their fitted scale factor)."
             if overlay else "No fit recorded yet: run `curate fit` to draw one over the data.")  # fmt: skip
+    if masked_series:
+        note += (
+            f" Hollow markers: points set aside by masks ({', '.join(masked_series[:5])}"
+            f"{', ...' if len(masked_series) > 5 else ''}), kept in the catalog but out of weights, "
+            "exports and fits."
+        )
     if thinned:
         note += (
             f" {len(thinned)} long series ({', '.join(thinned[:5])}{', ...' if len(thinned) > 5 else ''}) "

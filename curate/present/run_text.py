@@ -294,6 +294,10 @@ def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
         elif entry.kind == "folds":
             what = f"fold set (by {entry.format.partition(':')[2] or '?'})"
         where = f" {entry.outdir}" if entry.outdir else ""
+        if entry.superseded is not None:
+            lines.append(f"  {entry.at[:19].replace('T', ' ')}  {what}{where}: used "
+                         f"{entry.superseded} version {entry.used_version}, which {dataset_id} supersedes")  # fmt: skip
+            continue
         lines.append(f"  {entry.at[:19].replace('T', ' ')}  {what}{where}: used version "
                      f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
     return Text("\n".join(lines))

@@ -21,7 +21,7 @@ from curate.present.tables import table as plain_table
 from curate.quality.actions import ConsistencyReport, NoiseOutcome
 from curate.quality.grading import GradeSuggestion
 from curate.records import ConditionValue, DatasetVersion
-from curate.units import condition_text, short_unit
+from curate.units import condition_text, short_unit, to_unit
 
 __all__ = [
     "added_notes",
@@ -517,9 +517,29 @@ def retired_text(version: DatasetVersion) -> Text:
     return Text(f"{version.id} retired (version {version.version})")
 
 
-def revised_text(version: DatasetVersion) -> Text:
-    """Give what ``curate revise`` prints."""
-    return Text(f"{version.id} version {version.version}")
+_QUIET_CHANGES = ("annotations.", "warnings", "as_given", "content_hash")
+
+
+def revised_text(version: DatasetVersion, changes: tuple[str, ...] = ()) -> Text:
+    """Give what ``curate revise`` prints: the new version and the fields it changed."""
+    shown = [c for c in changes if not c.startswith(_QUIET_CHANGES)]
+    lines = [f"{version.id} version {version.version}"]
+    lines += [f"  {c}" for c in shown]
+    return Text("\n".join(lines))
+
+
+def masked_text(version: DatasetVersion) -> Text:
+    """Give what ``curate mask`` and ``curate unmask`` print."""
+    masks = version.record.masks
+    if not masks:
+        return Text(f"{version.id} version {version.version}: no points masked")
+    unit = version.record.time_unit_original
+    times = ", ".join(
+        f"{to_unit(m.time, 'second', unit):g} {unit}"
+        + (f" (replicate {m.replicate})" if m.replicate else "")
+        for m in masks
+    )
+    return Text(f"{version.id} version {version.version}: points masked at {times}")
 
 
 def graded_text(version: DatasetVersion) -> Text:

@@ -27,6 +27,7 @@ from curate.records import (
     TrustAssessment,
     UncertaintyScale,
     canonical_json,
+    in_use,
     jsonable,
 )
 
@@ -93,7 +94,7 @@ def estimate_noise(
     now = dt.datetime.now(dt.UTC)
     for dataset_id in dataset_ids:
         version = catalog.show(dataset_id)
-        arrays = catalog.arrays(dataset_id)
+        arrays = in_use(version.record, catalog.arrays(dataset_id))
         result = noise.choose_and_estimate(
             arrays.time,
             arrays.value,
@@ -304,7 +305,7 @@ def _time_text(seconds: float) -> str:
 
 
 def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
-    arrays = catalog.arrays(version.id, version.version)
+    arrays = in_use(version.record, catalog.arrays(version.id, version.version))
     return consistency.Series(
         id=version.id,
         lab=version.record.source.lab,
@@ -339,6 +340,8 @@ def consistency_inputs(version: DatasetVersion) -> str:
         "conditions": {k: c.model_dump(mode="json") for k, c in record.conditions.items()},
         "takes_part": not record.retired and version.grade != "X",
     }
+    if record.masks:  # only when there are some: checks made before masks keep their hash
+        read["masked"] = sorted([m.time, m.replicate or ""] for m in record.masks)
     return hashlib.sha256(canonical_json(jsonable(read)).encode()).hexdigest()
 
 

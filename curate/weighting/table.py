@@ -18,16 +18,19 @@ from curate.errors import InputError
 from curate.ledger import Ledger
 from curate.quality import noise
 from curate.quality.measured import measured_sd
-from curate.records import DatasetVersion, SeriesArrays
+from curate.records import DatasetVersion, SeriesArrays, masked_points
 from curate.weighting.policy import Policy
 from curate.weighting.selection import Selection, select
 from curate.weighting.weights import WeightSummary, apply_policy
 
 __all__ = [
+    "MASKED_COLUMNS",
     "STANDARD_COLUMNS",
+    "SetAside",
     "WeightedTable",
     "condition_column",
     "points_table",
+    "set_aside",
     "weighted_table",
 ]
 
@@ -66,8 +69,65 @@ def _sd_of(version: DatasetVersion, arrays: SeriesArrays, policy: Policy) -> tup
         return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
 
 
+MASKED_COLUMNS = ("dataset_id", "version", "observable", "lab", "time", "value", "sd", "replicate",
+                  "masked", "mask_reason", "masked_by", "masked_at")  # fmt: skip
+
+
+@dataclass(frozen=True)
+class SetAside:
+    """The points masks set aside in a selection, and where the kept points sit in each
+    dataset's arrays (for per-point annotations kept in array order, such as PEtab rows)."""
+
+    points: pd.DataFrame  # MASKED_COLUMNS, times in s
+    kept: dict[str, np.ndarray]  # dataset id -> positions of the kept points (masked ones only)
+
+    def annotation(self, dataset_id: str, cells: Any) -> Any:
+        """Give a per-point annotation ({column: [cell per point]}) without the masked points."""
+        positions = self.kept.get(dataset_id)
+        if positions is None or not isinstance(cells, dict):
+            return cells
+        return {k: [v[i] for i in positions] for k, v in cells.items()}
+
+
+def _set_aside(version: DatasetVersion, arrays: SeriesArrays, masked: np.ndarray) -> pd.DataFrame:
+    record = version.record
+    labels = np.array(record.replicate_labels, dtype=object)
+    replicate = (labels[arrays.replicate] if arrays.replicate is not None and len(labels)
+                 else np.full(len(arrays), None, dtype=object))  # fmt: skip
+    rows = []
+    for index in np.flatnonzero(masked):
+        mask = next(m for m in record.masks if np.isclose(m.time, arrays.time[index], rtol=1e-12, atol=1e-9)
+                    and m.replicate in (None, replicate[index]))  # fmt: skip
+        rows.append({
+            "dataset_id": version.id, "version": version.version, "observable": record.observable.id,
+            "lab": record.source.lab, "time": float(arrays.time[index]), "value": float(arrays.value[index]),
+            "sd": float(arrays.sd[index]) if arrays.sd is not None else np.nan, "replicate": replicate[index],
+            "masked": True, "mask_reason": mask.reason, "masked_by": mask.masked_by,
+            "masked_at": mask.masked_at.isoformat(),
+        })  # fmt: skip
+    return pd.DataFrame(rows, columns=list(MASKED_COLUMNS))
+
+
+def set_aside(catalog: Ledger, versions: list[DatasetVersion]) -> SetAside:
+    """Give the masked points of the versions and the positions of the points kept."""
+    masked_versions = [v for v in versions if v.record.masks]
+    frames, kept = [], {}
+    stored = catalog.series_many([v.record.content_hash for v in masked_versions])
+    for version in masked_versions:
+        arrays = stored[version.record.content_hash]
+        masked = masked_points(version.record, arrays)
+        kept[version.id] = np.flatnonzero(~masked)
+        frames.append(_set_aside(version, arrays, masked))
+    points = (pd.concat(frames, ignore_index=True) if frames
+              else pd.DataFrame(columns=list(MASKED_COLUMNS)))  # fmt: skip
+    return SetAside(points, kept)
+
+
 def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy) -> pd.DataFrame:
-    """Give one row per point of the versions (before weighting), built column-wise in one go."""
+    """Give one row per point of the versions (before weighting), built column-wise in one go.
+
+    Points a mask sets aside are left out (see :func:`set_aside` for them).
+    """
     per_point: dict[str, list[np.ndarray]] = {"time": [], "value": [], "sd": [], "replicate": []}
     per_dataset: dict[str, list[Any]] = {name: [] for name in (
         "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade", "sd_source", "calibration_group")}  # fmt: skip
@@ -77,6 +137,8 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
     for position, version in enumerate(versions):
         record = version.record
         arrays = stored[record.content_hash]
+        if record.masks:
+            arrays = arrays.subset(~masked_points(record, arrays))
         sd, source = _sd_of(version, arrays, policy)
         labels = np.array(record.replicate_labels, dtype=object)
         per_point["time"].append(arrays.time)
@@ -154,6 +216,7 @@ class WeightedTable:
     versions: list[DatasetVersion]
     policy: Policy
     selection: Selection
+    aside: SetAside = SetAside(pd.DataFrame(columns=list(MASKED_COLUMNS)), {})
 
 
 def weighted_table(catalog: Ledger, policy: Policy, selection: Selection) -> WeightedTable:
@@ -163,4 +226,5 @@ def weighted_table(catalog: Ledger, policy: Policy, selection: Selection) -> Wei
     condition_columns = [c for c in points.columns if c not in STANDARD_COLUMNS]
     weighted, summary = apply_policy(points, policy, conditions=condition_columns)
     ordered = [c for c in STANDARD_COLUMNS if c in weighted.columns] + sorted(condition_columns)
-    return WeightedTable(weighted[ordered], summary, versions, policy, selection)
+    aside = set_aside(catalog, versions)
+    return WeightedTable(weighted[ordered], summary, versions, policy, selection, aside)
