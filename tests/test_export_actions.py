@@ -385,7 +385,7 @@ def test_impact_names_each_kind_of_run(prepared, tmp_path):
     assert [e.kind for e in found] == ["export", "folds", "fit", "sensitivity"]
     assert [e.to_dict()["kind"] for e in found] == ["export", "folds", "fit", "sensitivity"]
     assert set(found[2].to_dict()) == {"event", "at", "kind", "format", "outdir", "used_version",
-                                       "current_version", "retired", "changes"}  # fmt: skip
+                                       "current_version", "retired", "changes", "superseded"}  # fmt: skip
     lines = impact_text(target, found).plain.splitlines()
     assert lines[0] == (
         f"1 export, 1 fold set, 1 fit, 1 sensitivity run used an outdated version of {target}:"
