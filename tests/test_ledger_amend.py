@@ -378,3 +378,43 @@ def test_cli_revise_mask_unmask_and_supersede(cli, tmp_path):
     assert run.code == 0, run.err
     listed = json.loads(cli("list", "--json", "--retired").out)
     assert {d["id"]: d["retired"] for d in listed}[dataset_id] is True
+
+
+def test_a_sidecar_sets_points_aside_and_names_what_it_replaces(catalog, tmp_path):
+    old = log(catalog, tmp_path)
+    write(tmp_path / "rerun.csv", SERIES.replace("4.5", "4.75"))
+    write(tmp_path / "rerun.toml", f"""
+        supersedes = "{old.id}"
+        masks = [{{time = 10, reason = "bubble"}}, {{time = "15 min", reason = "saturated"}}]
+        [observable]
+        id = "perk"
+        unit = "nM"
+        [time]
+        unit = "min"
+        [source]
+        lab = "lab one"
+        """)
+    new = catalog.add(tmp_path / "rerun.csv")
+    record = catalog.show(new.id).record
+    assert [(m.time, m.reason) for m in record.masks] == [(600.0, "bubble"), (900.0, "saturated")]
+    assert record.supersedes == old.id and catalog.show(old.id).record.superseded_by == new.id
+    table = catalog.weighted_table(policy=write(tmp_path / "n.toml", NEUTRAL))
+    np.testing.assert_array_equal(table["time"], [0.0, 300.0, 1200.0])
+
+
+def test_a_sidecar_mask_at_a_missing_time_names_the_sidecar(catalog, tmp_path):
+    write(tmp_path / "a.csv", SERIES)
+    write(tmp_path / "a.toml", """
+        masks = [{time = 7, reason = "bubble"}]
+        [observable]
+        id = "perk"
+        unit = "nM"
+        [time]
+        unit = "min"
+        [source]
+        lab = "lab one"
+        """)
+    with pytest.raises(InputError) as err:
+        catalog.add(tmp_path / "a.csv")
+    assert "a.toml, masks: no point at time 7 (420 s); the nearest is 5 min" in str(err.value)
+    assert catalog.list() == []

@@ -14,6 +14,7 @@ import numpy as np
 from curate import units
 from curate.errors import InputError
 from curate.ingest.headers import header_unit, match_column
+from curate.ingest.masks import mask_times
 from curate.ingest.plausibility import check_series, typical_magnitude
 from curate.ingest.sidecar import (
     ConditionSpec,
@@ -38,6 +39,7 @@ from curate.records import (
     UncertaintyType,
     as_given_hash,
     content_hash,
+    masked_points,
 )
 
 __all__ = [
@@ -656,6 +658,16 @@ def _assemble(
         as_given=digest if kept is None else given_hash,
         supersedes=meta.supersedes,
     )
+    for entry in meta.masks:
+        masks = mask_times(
+            record, arrays, [entry.time if isinstance(entry.time, str) else f"{entry.time:g}"], replicate=entry.replicate, reason=entry.reason,
+            actor=actor, now=now, origin=f"{meta_origin}, masks",
+        )  # fmt: skip
+        record = record.model_copy(update={"masks": masks})
+    if record.masks and masked_points(record, arrays).all():
+        raise InputError(
+            f"{meta_origin}, masks: they would set aside every point; a dataset needs one to keep"
+        )
     return Draft(
         record=record,
         arrays=arrays,

@@ -111,6 +111,14 @@ class SidecarTrust(_Part):
     rationale: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
 
 
+class SidecarMask(_Part):
+    """Points set aside at intake: a time (in the file's time unit, or '30 min'), a reason."""
+
+    time: float | str
+    reason: Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]
+    replicate: str | None = None
+
+
 class Sidecar(_Part):
     """Metadata for one data file (TOML sidecar and/or command-line options)."""
 
@@ -139,6 +147,9 @@ class Sidecar(_Part):
     source: SidecarSource
     protocol: SidecarProtocol = SidecarProtocol()
     trust: SidecarTrust | None = None
+    masks: list[SidecarMask] = Field(
+        default_factory=list, description="points to set aside from the start, each with a reason"
+    )
 
 
 class SidecarLayout(BaseModel):

@@ -12,7 +12,8 @@ from collections.abc import Sequence
 from typing import TYPE_CHECKING, Any
 
 from curate.errors import InputError, NotFoundError
-from curate.ingest.corrections import Correction, correct, mask_times
+from curate.ingest.corrections import Correction, correct
+from curate.ingest.masks import mask_times
 from curate.ingest.plausibility import check_against_others, typical_magnitude
 from curate.ledger.context import ActionContext
 from curate.records import DatasetVersion, SeriesArrays, canonical_json, masked_points
