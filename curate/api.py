@@ -21,6 +21,7 @@ from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
 from curate.fit.problem_runs import check_problem_model
+from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import DEFAULT_SHIFT_THRESHOLD, SensitivityResult
 from curate.fit.spec import load_spec
 from curate.ingest import PetabImport, read_petab_import
@@ -216,6 +217,28 @@ class Catalog(Ledger):
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
                             options=options, progress=progress)  # fmt: skip
+
+    def profile(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
+                problem: str | None = None, parameters: Sequence[str] = (), level: float = 0.95,
+                policy: PolicyLike = None, selection: Selection | None = None,
+                options: FitOptions | None = None, tolerances: dict[str, float] | None = None,
+                progress: Callable[[int, int, str], None] | None = None) -> ProfileResult:  # fmt: skip
+        """Fit, then give the profile likelihood of each named parameter (default: all free):
+        its confidence interval at ``level`` and its identifiability verdict (Raue et al. 2009)."""
+        chosen = resolve_policy(policy)
+        if problem is not None:
+            if model is not None:
+                raise InputError("profile: give --problem or --model, not both")
+            spec = load_spec(params, overrides=True) if params is not None else None
+            return runs.run_profile(self, problem_id=problem, spec=spec, policy=chosen,
+                                    selection=selection or Selection(), names=parameters, level=level,
+                                    options=options, tolerances=tolerances, progress=progress)  # fmt: skip
+        if model is None or params is None:
+            raise InputError("profile: give --model with --params, or --problem ID")
+        backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
+        return runs.run_profile(self, backend=backend, spec=load_spec(params), policy=chosen,
+                                selection=selection or Selection(), names=parameters, level=level,
+                                options=options, progress=progress)  # fmt: skip
 
     def sensitivity(self, *, by: str = "dataset", model: str | None = None, params: str | Path | None = None,
                     fitter_cmd: str | None = None, problem: str | None = None, method: str = "exact",

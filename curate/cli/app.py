@@ -880,6 +880,47 @@ def fit(
         out.print(text.written_text("simulations", simulations))
 
 
+@app.command()
+@selection_options
+def profile(
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
+    params: Annotated[
+        Path | None,
+        typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)"),
+    ] = None,
+    problem: ProblemOption = None,
+    parameter: Annotated[
+        list[str] | None, typer.Option(help="parameter to profile; repeatable (default: all free)")
+    ] = None,
+    level: Annotated[float, typer.Option(help="confidence level of the intervals")] = 0.95,
+    relative_tolerance: RelativeTolerance = None,
+    absolute_tolerance: AbsoluteTolerance = None,
+    *,
+    selection: Selection,
+    policy: Policy,
+    starts: Annotated[
+        int, typer.Option(help="starts of the fit the profiles begin from (Latin hypercube)")
+    ] = 1,
+    seed: Annotated[int, typer.Option(help="seed of the multi-start sampler")] = 0,
+    as_json: JsonFlag = False,
+) -> None:
+    """Profile likelihood of each parameter: its confidence interval and whether the data
+    identify it (identifiable, practically or structurally non-identifiable)."""
+    if starts < 1:
+        raise InputError(f"--starts {starts}: expected at least 1")
+    tolerances = _tolerances(relative_tolerance, absolute_tolerance, problem)
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "profiling", enabled=show_bar) as update:
+        result = catalog.profile(
+            model, params, problem=problem, parameters=parameter or (), level=level,
+            policy=policy, selection=selection, options=FitOptions(starts=starts, seed=seed),
+            tolerances=tolerances, progress=update,
+        )  # fmt: skip
+    _show(result.to_dict(), lambda: run_text.profile_text(result), as_json)
+
+
 def _tolerances(
     relative: float | None, absolute: float | None, problem: str | None
 ) -> dict[str, float] | None:

@@ -21,6 +21,7 @@ from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.problem import FitProblem
+from curate.fit.profile import ProfileResult, profile
 from curate.fit.spec import ParameterSpec, load_spec
 from curate.ledger import Ledger
 from curate.weighting import Policy, Selection, WeightedTable, weighted_table
@@ -30,6 +31,7 @@ __all__ = [
     "choose_backend",
     "run_fit",
     "run_problem_fit",
+    "run_profile",
     "run_sensitivity",
     "sensitivity_grouping",
 ]
@@ -144,6 +146,36 @@ def run_problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selecti
     summary["problem"] = {"id": fitted.problem.id, "version": fitted.problem.version,
                           "sha256": fitted.problem.content_sha256}  # fmt: skip
     _record(catalog, "fit", fitted.backend, fitted.spec, fitted.weighted, summary)
+    return result
+
+
+def run_profile(catalog: Ledger, *, backend: ModelBackend | None = None,
+                spec: ParameterSpec | None = None, problem_id: str | None = None, policy: Policy,
+                selection: Selection, names: Sequence[str] = (), level: float = 0.95,
+                options: FitOptions | None = None, tolerances: dict[str, float] | None = None,
+                progress: Callable[[int, int, str], None] | None = None) -> ProfileResult:  # fmt: skip
+    """Fit, then profile each named parameter (default: every free one); record the run."""
+    if problem_id is not None:
+        fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
+                              tolerances=tolerances)  # fmt: skip
+        backend, spec, weighted = fitted.backend, fitted.spec, fitted.weighted
+        problem = FitProblem(fitted.points, fitted.backend, fitted.spec)
+    else:
+        assert backend is not None and spec is not None
+        if backend.fits_itself:
+            raise InputError("profile: an external fitter fits by itself; profiles need --model")
+        weighted = weighted_table(catalog, policy, selection)
+        problem = FitProblem(weighted.table, backend, spec)
+    if not problem.free:
+        raise InputError(f"{spec.origin}: every parameter is fixed; there is nothing to profile")
+    best = fit(problem, options)
+    result = profile(problem, best, names or None, level=level, options=options, progress=progress)
+    result.notes += ungraded_note(weighted)
+    if not best.converged:
+        result.notes.append(f"the fit the profiles start from did not converge: {best.message}")
+    summary = {**result.to_dict(), "threshold": result.threshold, "level": level,
+               "optimum": result.optimum, "objective": result.objective}  # fmt: skip
+    _record(catalog, "profile", backend, spec, weighted, summary)
     return result
 
 

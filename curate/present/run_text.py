@@ -14,6 +14,7 @@ from rich.text import Text
 
 from curate.export import ExportResult, FoldSet, ImpactEntry, TraceReport
 from curate.fit.engine import FitResult
+from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import SensitivityResult
 from curate.ledger import IntakeReport, VerifyReport
 from curate.present.tables import table as plain_table
@@ -268,6 +269,7 @@ _IMPACT_WORDS = {
     "folds": "fold set",
     "fit": "fit",
     "sensitivity": "sensitivity run",
+    "profile": "profile run",
 }
 
 
@@ -301,6 +303,24 @@ def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
         lines.append(f"  {entry.at[:19].replace('T', ' ')}  {what}{where}: used version "
                      f"{entry.used_version}, {state} ({', '.join(entry.changes)})")  # fmt: skip
     return Text("\n".join(lines))
+
+
+def profile_text(result: ProfileResult) -> Group:
+    """Give what ``curate profile`` prints: each parameter's interval and verdict."""
+    head = Text(
+        f"profile likelihood ({result.objective}): {100 * result.level:g} % intervals where the "
+        f"profile rises {result.threshold:.3f} above the optimum {result.optimum:.6g} "
+        f"({result.refits} refits)"
+    )
+    numbers = ("value", "lower", "upper", "points")
+    table = plain_table(("parameter", "value", "lower", "upper", "verdict", "points"), right=numbers)
+    for name, found in result.parameters.items():
+        low = f"{found.lower:.6g}" if found.lower is not None else f"open ({found.lower_end})"
+        high = f"{found.upper:.6g}" if found.upper is not None else f"open ({found.upper_end})"
+        table.add_row(name, f"{found.value:.6g}", low, high, found.verdict, str(len(found.points)))
+    parts: list[Any] = [head, table]
+    parts += [Text(f"note: {note}") for note in result.notes]
+    return Group(*parts)
 
 
 def fit_text(result: FitResult) -> Group:

@@ -1,0 +1,137 @@
+"""Profile likelihoods (Raue et al. 2009, Bioinformatics 25:1923) and their verdicts.
+
+Reference for the intervals: for a model linear in its parameters with known sigma, the profile
+of the weighted sum of squares is exactly quadratic, so the likelihood-ratio interval at
+chi2(0.95, 1) is the Wald interval beta +- 1.959964 SE; statsmodels' WLS with a fixed scale
+(``cov_type="fixed scale"``, normal quantiles) gives that interval independently.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from curate import fit as fitting
+from curate.errors import InputError
+from curate.fit.profile import VERDICTS, profile, profile_threshold
+
+sm = pytest.importorskip("statsmodels.api")
+
+
+def line_points(seed=3, n=25):
+    rng = np.random.default_rng(seed)
+    t = np.linspace(0.0, 10.0, n)
+    sigma = 0.2 + 0.05 * t
+    y = 1.5 + 0.7 * t + rng.normal(0.0, sigma)
+    return pd.DataFrame({"time": t, "value": y, "weight": 1.0 / sigma**2}), t, y, sigma
+
+
+def line(params, points):
+    return params["a"] + params["b"] * points["time"].to_numpy()
+
+
+def fitted(points, model, parameters):
+    problem = fitting.FitProblem(points, model, fitting.spec_from_dict({"parameters": parameters}))
+    return problem, fitting.fit(problem, fitting.FitOptions(tolerance=1e-14))
+
+
+def test_threshold_is_the_chi2_quantile():
+    # chi2(0.95, 1) = 3.841459 (any statistics handbook table)
+    assert profile_threshold(0.95) == pytest.approx(3.841458820694124, rel=1e-12)
+    with pytest.raises(InputError, match="between 0 and 1"):
+        profile_threshold(1.5)
+
+
+def test_linear_model_profile_interval_equals_the_wald_interval():
+    points, t, y, sigma = line_points()
+    problem, best = fitted(points, line, {"a": {"start": 0.0}, "b": {"start": 0.0}})
+    result = profile(problem, best)
+    reference = sm.WLS(y, sm.add_constant(t), weights=1.0 / sigma**2).fit(cov_type="fixed scale")
+    (a_low, a_high), (b_low, b_high) = reference.conf_int(alpha=0.05)
+    for name, low, high in (("a", a_low, a_high), ("b", b_low, b_high)):
+        found = result.parameters[name]
+        assert found.verdict == "identifiable"
+        assert found.lower == pytest.approx(low, abs=1e-6)
+        assert found.upper == pytest.approx(high, abs=1e-6)
+        values = np.array([x for x, _ in found.points])
+        assert np.all(np.diff(values) > 0) and values[0] < low and values[-1] > high
+    assert result.parameters["a"].value == pytest.approx(reference.params[0], rel=1e-8)
+    # every walked point lies on the exact quadratic profile
+    se = reference.bse[1]
+    for x, objective in result.parameters["b"].points:
+        expected = result.optimum + ((x - reference.params[1]) / se) ** 2
+        assert objective == pytest.approx(expected, rel=1e-7, abs=1e-7)
+
+
+def product_model(params, points):
+    return params["k1"] * params["k2"] * (1.0 - np.exp(-points["time"].to_numpy() / 3.0))
+
+
+def test_only_a_product_identified_gives_flat_profiles():
+    points, *_ = line_points()
+    t = points["time"].to_numpy()
+    points = points.assign(value=6.0 * (1.0 - np.exp(-t / 3.0)) + 0.1 * np.sin(7 * t))
+    spec = {"k1": {"start": 1.0, "lower": 1e-3, "upper": 1e3, "log": True},
+            "k2": {"start": 2.0, "lower": 1e-3, "upper": 1e3, "log": True}}  # fmt: skip
+    problem, best = fitted(points, product_model, spec)
+    result = profile(problem, best)
+    for name in ("k1", "k2"):
+        assert result.parameters[name].verdict == "structurally non-identifiable"
+        assert result.parameters[name].lower is None and result.parameters[name].upper is None
+        values = [x for x, _ in result.parameters[name].points]
+        assert min(values) < 1e-2 and max(values) > 1e2  # walked to (near) both bounds
+
+
+def reparameterised(params, points):
+    return params["product"] * (1.0 - np.exp(-points["time"].to_numpy() / 3.0))
+
+
+def test_the_product_reparameterised_is_identifiable():
+    points, *_ = line_points()
+    t = points["time"].to_numpy()
+    points = points.assign(value=6.0 * (1.0 - np.exp(-t / 3.0)) + 0.1 * np.sin(7 * t))
+    problem, best = fitted(points, reparameterised,
+                           {"product": {"start": 1.0, "lower": 1e-3, "upper": 1e3, "log": True}})  # fmt: skip
+    found = profile(problem, best).parameters["product"]
+    assert found.verdict == "identifiable"
+    assert found.lower < found.value < found.upper
+
+
+def saturating(params, points):
+    t = points["time"].to_numpy()
+    return params["top"] * t / (params["half"] + t)
+
+
+def test_a_half_saturation_beyond_the_data_is_practically_non_identifiable():
+    """Data that never bend (times far below the half-saturation constant): the profile of
+    ``half`` rises on the low side but stays below the threshold up to the bound."""
+    t = np.linspace(0.1, 1.0, 12)
+    points = pd.DataFrame({"time": t, "value": 50.0 * t / (400.0 + t) + 0.001 * np.cos(5 * t),
+                           "weight": np.full(12, 1.0 / 0.002**2)})  # fmt: skip
+    spec = {"top": {"start": 10.0, "lower": 1e-3, "upper": 1e6, "log": True},
+            "half": {"start": 10.0, "lower": 1e-3, "upper": 1e6, "log": True}}  # fmt: skip
+    problem, best = fitted(points, saturating, spec)
+    found = profile(problem, best, ["half"]).parameters["half"]
+    assert found.verdict == "practically non-identifiable"
+    assert found.upper is None and found.lower is not None
+
+
+def test_unknown_and_fixed_parameters_are_refused():
+    points, *_ = line_points()
+    problem, best = fitted(points, line, {"a": {"start": 0.0}, "b": {"start": 0.0},
+                                          "c": {"start": 1.0, "fixed": True}})  # fmt: skip
+    with pytest.raises(InputError, match="profile --parameter c: it is fixed in the spec"):
+        profile(problem, best, ["c"])
+    with pytest.raises(InputError, match="profile --parameter zz: it is not a parameter"):
+        profile(problem, best, ["zz"])
+
+
+def test_json_shape():
+    points, *_ = line_points()
+    problem, best = fitted(points, line, {"a": {"start": 0.0}, "b": {"start": 0.0}})
+    shape = profile(problem, best, ["b"]).to_dict()
+    assert set(shape) == {"parameters"} and set(shape["parameters"]) == {"b"}
+    assert set(shape["parameters"]["b"]) == {"value", "lower", "upper", "verdict", "points"}
+    assert shape["parameters"]["b"]["verdict"] in VERDICTS
+    assert all(len(p) == 2 for p in shape["parameters"]["b"]["points"])
