@@ -277,6 +277,8 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
             "--method",
             "one-step",
         ],
+        "profile": ["profile", *model, *params, "--observable", "velarin_conc", "--observable",
+                    "glint", "--parameter", "q10"],  # fmt: skip
         "impact": ["impact", first],
         "import-petab": [
             "import-petab",

@@ -135,3 +135,34 @@ def test_json_shape():
     assert set(shape["parameters"]["b"]) == {"value", "lower", "upper", "verdict", "points"}
     assert shape["parameters"]["b"]["verdict"] in VERDICTS
     assert all(len(p) == 2 for p in shape["parameters"]["b"]["points"])
+
+
+def test_cli_profile_records_a_run_and_refuses_bad_input(cli, tmp_path):
+    import json
+
+    from conftest import add_mixed_observable, saturating_model
+
+    import curate
+
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        absolute, _ = add_mixed_observable(catalog)
+    model, params = saturating_model(tmp_path)
+    run = cli("profile", "--model", f"{model}:predict", "--params", params, "--json")
+    assert run.code == 0, run.err
+    found = json.loads(run.out)["parameters"]
+    assert set(found) == {"top", "tau"}
+    for entry in found.values():
+        assert entry["verdict"] == "identifiable" and entry["lower"] < entry["value"] < entry["upper"]
+    assert found["top"]["value"] == pytest.approx(20.0, rel=1e-6)
+    text = cli("profile", "--model", f"{model}:predict", "--params", params, "--parameter", "tau")
+    assert text.code == 0 and "tau" in text.out and "identifiable" in text.out
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        assert [e["kind"] for e in catalog.events()].count("profile") == 2
+        catalog.revise(absolute, reason="relabelled", label="concentration")
+        assert "profile" in [e.kind for e in catalog.impact(absolute)]
+    for args, message in (
+        (("--parameter", "nope"), "profile --parameter nope: it is not a parameter"),
+        (("--level", "1.2"), "confidence level 1.2"),
+    ):
+        bad = cli("profile", "--model", f"{model}:predict", "--params", params, *args)
+        assert bad.code == 2 and message in bad.err and bad.err.count("\n") == 1

@@ -21,7 +21,7 @@ from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.problem import FitProblem
-from curate.fit.profile import ProfileResult, profile
+from curate.fit.profile import ProfileResult, profile, profile_threshold
 from curate.fit.spec import ParameterSpec, load_spec
 from curate.ledger import Ledger
 from curate.weighting import Policy, Selection, WeightedTable, weighted_table
@@ -155,6 +155,7 @@ def run_profile(catalog: Ledger, *, backend: ModelBackend | None = None,
                 options: FitOptions | None = None, tolerances: dict[str, float] | None = None,
                 progress: Callable[[int, int, str], None] | None = None) -> ProfileResult:  # fmt: skip
     """Fit, then profile each named parameter (default: every free one); record the run."""
+    profile_threshold(level)  # a bad level is refused before any work
     if problem_id is not None:
         fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
                               tolerances=tolerances)  # fmt: skip
