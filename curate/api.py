@@ -20,6 +20,7 @@ from curate.errors import CatalogError, InputError
 from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
+from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult
 from curate.fit.problem_runs import check_problem_model
 from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import DEFAULT_SHIFT_THRESHOLD, SensitivityResult
@@ -217,6 +218,29 @@ class Catalog(Ledger):
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_fit(self, backend, spec, policy=chosen, selection=selection or Selection(),
                             options=options, progress=progress)  # fmt: skip
+
+    def ensemble(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
+                 problem: str | None = None, options: FitOptions | None = None,
+                 threshold: float | None = None, cut: float = DEFAULT_CUT, policy: PolicyLike = None,
+                 selection: Selection | None = None, tolerances: dict[str, float] | None = None,
+                 progress: Callable[[int, int, str], None] | None = None) -> EnsembleResult:  # fmt: skip
+        """Fit from many starts (``options.starts``, Latin hypercube, ``options.seed``); keep every
+        fit within ``threshold`` (chi2 units; default chi2(0.95, p)) of the best; cluster them."""
+        chosen = resolve_policy(policy)
+        options = options or FitOptions(starts=100)
+        if problem is not None:
+            if model is not None:
+                raise InputError("ensemble: give --problem or --model, not both")
+            spec = load_spec(params, overrides=True) if params is not None else None
+            return runs.run_ensemble(self, problem_id=problem, spec=spec, policy=chosen,
+                                     selection=selection or Selection(), options=options,
+                                     threshold=threshold, cut=cut, tolerances=tolerances, progress=progress)  # fmt: skip
+        if model is None or params is None:
+            raise InputError("ensemble: give --model with --params, or --problem ID")
+        backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
+        return runs.run_ensemble(self, backend=backend, spec=load_spec(params), policy=chosen,
+                                 selection=selection or Selection(), options=options,
+                                 threshold=threshold, cut=cut, progress=progress)  # fmt: skip
 
     def profile(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
                 problem: str | None = None, parameters: Sequence[str] = (), level: float = 0.95,

@@ -279,6 +279,8 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
         ],
         "profile": ["profile", *model, *params, "--observable", "velarin_conc", "--observable",
                     "glint", "--parameter", "q10"],  # fmt: skip
+        "ensemble": ["ensemble", *model, *params, "--observable", "velarin_conc", "--observable",
+                     "glint", "--starts", "3"],  # fmt: skip
         "impact": ["impact", first],
         "import-petab": [
             "import-petab",

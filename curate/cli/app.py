@@ -882,6 +882,47 @@ def fit(
 
 @app.command()
 @selection_options
+def ensemble(
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
+    params: Annotated[
+        Path | None,
+        typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)"),
+    ] = None,
+    problem: ProblemOption = None,
+    relative_tolerance: RelativeTolerance = None,
+    absolute_tolerance: AbsoluteTolerance = None,
+    *,
+    selection: Selection,
+    policy: Policy,
+    starts: Annotated[
+        int, typer.Option(help="number of starts (Latin hypercube within the bounds)")
+    ] = 100,
+    seed: Annotated[int, typer.Option(help="seed of the Latin hypercube")] = 0,
+    threshold: Annotated[
+        float | None,
+        typer.Option(help="keep fits within this of the best (chi2 units; default chi2(0.95, p))"),
+    ] = None,
+    cut: Annotated[
+        float, typer.Option(help="clustering cut in the optimiser's coordinates (ln p for log)")
+    ] = 0.5,
+    as_json: JsonFlag = False,
+) -> None:
+    """Fit from many starts; keep every fit about as good as the best; group them into families."""
+    tolerances = _tolerances(relative_tolerance, absolute_tolerance, problem)
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "ensemble", enabled=show_bar) as update:
+        result = catalog.ensemble(
+            model, params, problem=problem, options=FitOptions(starts=starts, seed=seed),
+            threshold=threshold, cut=cut, policy=policy, selection=selection,
+            tolerances=tolerances, progress=update,
+        )  # fmt: skip
+    _show(result.to_dict(), lambda: run_text.ensemble_text(result), as_json)
+
+
+@app.command()
+@selection_options
 def profile(
     model: Annotated[
         str | None, typer.Option(help="module:function or path/to/model.py:function")

@@ -184,7 +184,7 @@ def impact(catalog: Ledger, dataset_id: str) -> list[ImpactEntry]:
     older = _predecessors(catalog, dataset_id)
     found = []
     for event in catalog.events():
-        if event["kind"] not in ("export", "fit", "sensitivity", "profile"):
+        if event["kind"] not in ("export", "fit", "sensitivity", "profile", "ensemble"):
             continue
         replaced = [(ident, v) for ident, v in event["payload"]["datasets"] if ident in older]
         if replaced and not any(i == dataset_id for i, _ in event["payload"]["datasets"]):

@@ -42,6 +42,7 @@ __all__ = [
     "fit",
     "jacobian",
     "least_squares",
+    "start_points",
     "summarise",
 ]
 
@@ -139,6 +140,12 @@ def _start_points(problem: FitProblem, options: FitOptions) -> list[np.ndarray]:
     sampler = qmc.LatinHypercube(d=len(first), seed=options.seed)
     samples = qmc.scale(sampler.random(options.starts - 1), lo, hi)
     return [first, *list(samples)]
+
+
+def start_points(problem: FitProblem, options: FitOptions) -> list[np.ndarray]:
+    """Give the starts of a multi-start search: the spec's start, then ``options.starts - 1``
+    Latin-hypercube points over the bounds (optimiser coordinates: log scale where asked)."""
+    return _start_points(problem, options)
 
 
 def _origin(number: int, options: FitOptions) -> str:

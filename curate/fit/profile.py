@@ -182,7 +182,9 @@ def _side(
                 crossing = optimize.brentq(rise, low, high, xtol=1e-5 * (high - low), rtol=1e-10,
                                            maxiter=60)  # fmt: skip
             except (ValueError, InputError, ArithmeticError):
-                crossing = x + (target - x) * (threshold - (previous - optimum)) / (value - previous)
+                crossing = x + (target - x) * (threshold - (previous - optimum)) / (
+                    value - previous
+                )
             return points, float(crossing), "crossed"
         points.append((target, value))
         if at_edge:

@@ -20,6 +20,7 @@ from curate.export.manifest import build_manifest, record_run
 from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
+from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble
 from curate.fit.problem import FitProblem
 from curate.fit.profile import ProfileResult, profile, profile_threshold
 from curate.fit.spec import ParameterSpec, load_spec
@@ -29,6 +30,7 @@ from curate.weighting.groupings import Grouping, parse_grouping
 
 __all__ = [
     "choose_backend",
+    "run_ensemble",
     "run_fit",
     "run_problem_fit",
     "run_profile",
@@ -149,6 +151,44 @@ def run_problem_fit(catalog: Ledger, problem_id: str, *, policy: Policy, selecti
     return result
 
 
+def _chosen_problem(catalog: Ledger, *, backend: ModelBackend | None, spec: ParameterSpec | None,
+                    problem_id: str | None, policy: Policy, selection: Selection,
+                    tolerances: dict[str, float] | None, what: str,
+                    ) -> tuple[FitProblem, ModelBackend, ParameterSpec, WeightedTable]:  # fmt: skip
+    """Give the fit problem of a model and spec, or of a stored problem, on the selection."""
+    if problem_id is not None:
+        fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
+                              tolerances=tolerances)  # fmt: skip
+        problem = FitProblem(fitted.points, fitted.backend, fitted.spec)
+        backend, spec, weighted = fitted.backend, fitted.spec, fitted.weighted
+    else:
+        assert backend is not None and spec is not None
+        if backend.fits_itself:
+            raise InputError(f"{what}: an external fitter fits by itself; {what} needs --model")
+        weighted = weighted_table(catalog, policy, selection)
+        problem = FitProblem(weighted.table, backend, spec)
+    if not problem.free:
+        raise InputError(f"{spec.origin}: every parameter is fixed; there is nothing to {what}")
+    return problem, backend, spec, weighted
+
+
+def run_ensemble(catalog: Ledger, *, backend: ModelBackend | None = None,
+                 spec: ParameterSpec | None = None, problem_id: str | None = None, policy: Policy,
+                 selection: Selection, options: FitOptions, threshold: float | None = None,
+                 cut: float = DEFAULT_CUT, tolerances: dict[str, float] | None = None,
+                 progress: Callable[[int, int, str], None] | None = None) -> EnsembleResult:  # fmt: skip
+    """Run an ensemble of local fits from many starts; record it as a run (seed included)."""
+    problem, backend, spec, weighted = _chosen_problem(
+        catalog, backend=backend, spec=spec, problem_id=problem_id, policy=policy,
+        selection=selection, tolerances=tolerances, what="ensemble",
+    )  # fmt: skip
+    result = ensemble(problem, options, threshold=threshold, cut=cut, progress=progress)
+    summary = {**result.to_dict(), "seed": options.seed, "cut": cut}
+    summary.pop("objectives")
+    _record(catalog, "ensemble", backend, spec, weighted, summary)
+    return result
+
+
 def run_profile(catalog: Ledger, *, backend: ModelBackend | None = None,
                 spec: ParameterSpec | None = None, problem_id: str | None = None, policy: Policy,
                 selection: Selection, names: Sequence[str] = (), level: float = 0.95,
@@ -156,19 +196,10 @@ def run_profile(catalog: Ledger, *, backend: ModelBackend | None = None,
                 progress: Callable[[int, int, str], None] | None = None) -> ProfileResult:  # fmt: skip
     """Fit, then profile each named parameter (default: every free one); record the run."""
     profile_threshold(level)  # a bad level is refused before any work
-    if problem_id is not None:
-        fitted = _problem_fit(catalog, problem_id, policy=policy, selection=selection, spec=spec,
-                              tolerances=tolerances)  # fmt: skip
-        backend, spec, weighted = fitted.backend, fitted.spec, fitted.weighted
-        problem = FitProblem(fitted.points, fitted.backend, fitted.spec)
-    else:
-        assert backend is not None and spec is not None
-        if backend.fits_itself:
-            raise InputError("profile: an external fitter fits by itself; profiles need --model")
-        weighted = weighted_table(catalog, policy, selection)
-        problem = FitProblem(weighted.table, backend, spec)
-    if not problem.free:
-        raise InputError(f"{spec.origin}: every parameter is fixed; there is nothing to profile")
+    problem, backend, spec, weighted = _chosen_problem(
+        catalog, backend=backend, spec=spec, problem_id=problem_id, policy=policy,
+        selection=selection, tolerances=tolerances, what="profile",
+    )  # fmt: skip
     best = fit(problem, options)
     result = profile(problem, best, names or None, level=level, options=options, progress=progress)
     result.notes += ungraded_note(weighted)

@@ -14,6 +14,7 @@ from rich.text import Text
 
 from curate.export import ExportResult, FoldSet, ImpactEntry, TraceReport
 from curate.fit.engine import FitResult
+from curate.fit.ensemble import EnsembleResult
 from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import SensitivityResult
 from curate.ledger import IntakeReport, VerifyReport
@@ -270,6 +271,7 @@ _IMPACT_WORDS = {
     "fit": "fit",
     "sensitivity": "sensitivity run",
     "profile": "profile run",
+    "ensemble": "ensemble run",
 }
 
 
@@ -305,6 +307,28 @@ def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
     return Text("\n".join(lines))
 
 
+def ensemble_text(result: EnsembleResult) -> Group:
+    """Give what ``curate ensemble`` prints: the families of good fits."""
+    head = Text(
+        f"{result.starts} starts, {len(result.failed)} failed; {result.accepted} fits within "
+        f"{result.threshold:.3f} ({result.objective} units) of the best {result.best_objective:.6g}; "
+        f"{len(result.clusters)} famil{'y' if len(result.clusters) == 1 else 'ies'} "
+        f"(cut {result.cut:g} in the optimiser's coordinates)"
+    )
+    names = list(result.best_parameters)
+    numbers = ("family", "fits", "objective", *names)
+    table = plain_table(numbers, right=numbers)
+    for cluster in result.clusters:
+        table.add_row(str(cluster.id), str(cluster.size), f"{cluster.objective:.6g}",
+                      *[f"{cluster.parameters[n]['median']:.4g}" for n in names])  # fmt: skip
+    parts: list[Any] = [head, table, Text("(each parameter: the family's median)")]
+    for failure in result.failed[:3]:
+        parts.append(Text(f"failed start {failure['start']}: {failure['error']}"))
+    if len(result.failed) > 3:
+        parts.append(Text(f"... and {len(result.failed) - 3} more failed starts (see --json)"))
+    return Group(*parts)
+
+
 def profile_text(result: ProfileResult) -> Group:
     """Give what ``curate profile`` prints: each parameter's interval and verdict."""
     head = Text(
@@ -313,7 +337,9 @@ def profile_text(result: ProfileResult) -> Group:
         f"({result.refits} refits)"
     )
     numbers = ("value", "lower", "upper", "points")
-    table = plain_table(("parameter", "value", "lower", "upper", "verdict", "points"), right=numbers)
+    table = plain_table(
+        ("parameter", "value", "lower", "upper", "verdict", "points"), right=numbers
+    )
     for name, found in result.parameters.items():
         low = f"{found.lower:.6g}" if found.lower is not None else f"open ({found.lower_end})"
         high = f"{found.upper:.6g}" if found.upper is not None else f"open ({found.upper_end})"

@@ -1,0 +1,78 @@
+"""Ensembles of good fits: mirror optima found as two families of equal objective."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from scipy import stats
+
+from curate import fit as fitting
+from curate.errors import InputError
+from curate.fit.ensemble import ensemble
+
+
+def two_exponentials(params, points):
+    t = points["time"].to_numpy()
+    return np.exp(-params["k1"] * t) + np.exp(-params["k2"] * t)
+
+
+def mirror_problem():
+    """Two decays of equal amplitude: swapping k1 and k2 gives the same curve, so the fit has two
+    mirror optima of exactly equal objective (a textbook non-uniqueness; no source needed)."""
+    t = np.linspace(0.0, 20.0, 40)
+    y = np.exp(-0.1 * t) + np.exp(-1.0 * t) + 0.002 * np.sin(3 * t)
+    points = pd.DataFrame({"time": t, "value": y, "weight": np.full(len(t), 1.0 / 0.01**2)})
+    spec = fitting.spec_from_dict({"parameters": {
+        "k1": {"start": 0.05, "lower": 0.01, "upper": 10.0, "log": True},
+        "k2": {"start": 3.0, "lower": 0.01, "upper": 10.0, "log": True}}})  # fmt: skip
+    return fitting.FitProblem(points, two_exponentials, spec)
+
+
+def test_mirror_optima_are_two_clusters_of_equal_objective():
+    result = ensemble(mirror_problem(), fitting.FitOptions(starts=30, seed=0))
+    assert result.threshold == pytest.approx(stats.chi2.ppf(0.95, 2), rel=1e-12)  # 5.991
+    assert result.failed == [] and result.starts == 30
+    families = [c for c in result.clusters if c.size >= 2]
+    assert len(families) == 2
+    first, second = families
+    assert first.objective == pytest.approx(second.objective, rel=1e-8, abs=1e-8)
+    assert first.parameters["k1"]["median"] == pytest.approx(second.parameters["k2"]["median"], rel=1e-4)
+    assert first.parameters["k2"]["median"] == pytest.approx(second.parameters["k1"]["median"], rel=1e-4)
+    assert sorted([first.parameters["k1"]["median"], first.parameters["k2"]["median"]]) == pytest.approx([0.1, 1.0], rel=0.05)
+    # the same families from another seed
+    again = ensemble(mirror_problem(), fitting.FitOptions(starts=30, seed=1))
+    assert len([c for c in again.clusters if c.size >= 2]) == 2
+    shape = result.to_dict()
+    assert {"starts", "failed", "threshold", "best", "accepted", "clusters"} <= set(shape)
+    assert set(shape["best"]) == {"objective", "parameters"}
+    assert set(shape["clusters"][0]) == {"id", "size", "objective", "parameters"}
+    assert set(shape["clusters"][0]["parameters"]["k1"]) == {"median", "min", "max"}
+    json.dumps(shape, allow_nan=False)
+
+
+def failing_sometimes(params, points):
+    if params["k1"] > 3.0:
+        raise RuntimeError("solver failed")
+    return two_exponentials(params, points)
+
+
+def test_starts_where_the_model_fails_are_recorded_not_fatal():
+    problem = mirror_problem()
+    problem = fitting.FitProblem(problem.points, failing_sometimes, problem.spec)
+    result = ensemble(problem, fitting.FitOptions(starts=20, seed=0))
+    assert result.failed and all("solver failed" in f["error"] for f in result.failed)
+    assert result.accepted >= 1 and len(result.failed) + len(result.objectives) == 20
+
+
+@pytest.mark.parametrize(
+    ("kwargs", "message"),
+    [({"threshold": 0.0}, "--threshold 0.0"), ({"cut": -1.0}, "--cut -1.0")],
+)
+def test_bad_settings_are_refused(kwargs, message):
+    with pytest.raises(InputError, match=message):
+        ensemble(mirror_problem(), fitting.FitOptions(starts=5), **kwargs)
+    with pytest.raises(InputError, match="at least 2 starts"):
+        ensemble(mirror_problem(), fitting.FitOptions(starts=1))
