@@ -271,8 +271,11 @@ class Catalog(Ledger):
                     dask: str | None = None, threshold: float = DEFAULT_SHIFT_THRESHOLD,
                     policies: Sequence[PolicyLike] = (), timeout: float = 600.0,
                     workdir: str | Path | None = None, tolerances: dict[str, float] | None = None,
+                    profiles: bool = False, profile_parameters: Sequence[str] = (),
                     progress: Callable[[int, int], None] | None = None) -> SensitivityResult:  # fmt: skip
-        """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs."""
+        """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs;
+        with ``profiles``, also each parameter's profile without each group (which data
+        identify which parameter)."""
         chosen = resolve_policy(policy)
         alternatives = [resolve_policy(p) for p in policies]
         runs.sensitivity_grouping(by)
@@ -291,6 +294,7 @@ class Catalog(Ledger):
             self, backend, spec, by=by, policy=chosen, selection=selection or Selection(), method=method,
             options=options, workers=workers, dask=dask, threshold=threshold, alternative_policies=alternatives,
             workdir=workdir, progress=progress, problem_id=problem, tolerances=tolerances,
+            profiles=profiles, profile_parameters=profile_parameters,
         )  # fmt: skip
 
     # -- keeping and showing -------------------------------------------------------------------

@@ -1009,6 +1009,14 @@ def sensitivity(
     workdir: Annotated[
         Path | None, typer.Option(help="folder for the external fitter's files")
     ] = None,
+    profiles: Annotated[
+        bool,
+        typer.Option("--profiles", help="also profile each parameter without each group"),
+    ] = False,
+    profile_parameter: Annotated[
+        list[str] | None,
+        typer.Option(help="with --profiles: only this parameter; repeatable (default: all)"),
+    ] = None,
     *,
     selection: Selection,
     policy: Policy,
@@ -1031,7 +1039,7 @@ def sensitivity(
             selection=selection, workers=count, dask=dask,
             options=FitOptions(starts=starts, max_evaluations=_budget("--max-evaluations", max_evaluations)),
             threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,
-            progress=update,
+            profiles=profiles, profile_parameters=profile_parameter or (), progress=update,
         )  # fmt: skip
     if report_file is not None:
         write_sensitivity_report(result, report_file)

@@ -19,6 +19,7 @@ from curate.errors import InputError
 from curate.export.manifest import build_manifest, record_run
 from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
+from curate.fit.deciding import profiles_by_group
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble
 from curate.fit.problem import FitProblem
@@ -229,6 +230,8 @@ def run_sensitivity(
     progress: Callable[[int, int], None] | None = None,
     problem_id: str | None = None,
     tolerances: dict[str, float] | None = None,
+    profiles: bool = False,
+    profile_parameters: Sequence[str] = (),
 ) -> sensitivity.SensitivityResult:
     """Run the leave-one-group-out check (and a policy sweep); record it; give the result.
 
@@ -248,6 +251,11 @@ def run_sensitivity(
     if backend is None:
         raise InputError("sensitivity: give --model with --params, --fitter-cmd, or --problem ID")
     labels = grouping.labels(table)
+    if profiles and (backend.fits_itself or method != "exact"):
+        raise InputError(
+            "sensitivity --profiles refits and profiles each group with --model or --problem "
+            "and --method exact (profiles need the model itself, not a screen)"
+        )
     if backend.fits_itself:
         # a folder of our own is removed after a run in which every fit worked; after a failure
         # it stays, since the error messages name the logs in it; a --workdir always stays
@@ -269,6 +277,10 @@ def run_sensitivity(
         problem, full, labels, by=by, method=method, options=options, workers=workers, dask=dask,
         shift_threshold=threshold, progress=progress,
     )  # fmt: skip
+    if profiles:
+        result.profiles = profiles_by_group(
+            problem, full, labels, by=by, names=profile_parameters or None, options=options,
+        ).to_dict()  # fmt: skip
     tolerance = (options or FitOptions()).tolerance
     for alternative in alternative_policies:
         if problem_id is not None:

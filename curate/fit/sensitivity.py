@@ -119,6 +119,8 @@ class SensitivityResult:
     cook_threshold: float
     policies: list[dict[str, Any]] = field(default_factory=list)
     executor: str = "serial"
+    # the profiles without each group (``--profiles``): see curate.fit.deciding
+    profiles: dict[str, Any] | None = None
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> SensitivityResult:
@@ -135,6 +137,7 @@ class SensitivityResult:
             full=data["full"], by=data["by"], method=data["method"], groups=groups,
             jackknife_stderr=data["jackknife_stderr"], shift_threshold=data["shift_threshold"],
             cook_threshold=data["cook_threshold"], policies=data.get("policies", []), executor=data.get("executor", ""),
+            profiles=data.get("profiles"),
         )  # fmt: skip
 
     def flags(self) -> list[str]:
@@ -187,6 +190,7 @@ class SensitivityResult:
             "policies": self.policies,
             "executor": self.executor,
             "notes": self.notes(),
+            **({"profiles": self.profiles} if self.profiles is not None else {}),
         }
 
 

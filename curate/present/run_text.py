@@ -491,7 +491,51 @@ def sensitivity_text(result: SensitivityResult) -> Group:
                 f"no parameter moves more than {result.shift_threshold:g} SE when any one {result.by} is left out"
             )
         )
+    if result.profiles is not None:
+        parts += profiles_parts(result.profiles)
     parts.append(
         Text("A stable fit can still be wrong in every dataset at once: this check is not proof.")
     )
     return Group(*parts)
+
+
+_SHORT_VERDICTS = {"identifiable": "ok", "practically non-identifiable": "open",
+                   "structurally non-identifiable": "flat"}  # fmt: skip
+
+
+def profiles_parts(profiles: dict[str, Any]) -> list[Any]:
+    """Give the group x parameter matrix of ``sensitivity --profiles``: per cell the verdict
+    without the group (ok, open, flat) and how many times wider the interval is."""
+    names = list(profiles["full"])
+    by = profiles["by"]
+    parts: list[Any] = [
+        Text(f"profiles without each {by} (verdict; interval width without / with):", style="bold")
+    ]
+    table = plain_table((f"without {by}", *names))
+    row = ["(all data)"]
+    for name in names:
+        entry = profiles["full"][name]
+        row.append(_SHORT_VERDICTS.get(entry["verdict"], entry["verdict"]))
+    table.add_row(*row)
+    for group in profiles["groups"]:
+        if group["error"]:
+            table.add_row(group["group"], *["failed"] * len(names))
+            continue
+        cells = []
+        for name in names:
+            entry = group["parameters"][name]
+            widening = entry["widening"]
+            shown = (
+                "open" if entry["opens"] else (f"x{widening:.2g}" if widening is not None else "-")
+            )
+            cells.append(f"{_SHORT_VERDICTS.get(entry['verdict'], entry['verdict'])} {shown}")
+        table.add_row(group["group"], *cells)
+    parts.append(table)
+    if profiles["conclusions"]:
+        parts.append(Text("which data identify which parameter:", style="bold"))
+        parts += [Text(f"  {c}") for c in profiles["conclusions"]]
+    else:
+        parts.append(
+            Text(f"no {by} alone identifies a parameter, and none widens an interval twofold")
+        )
+    return parts
