@@ -54,6 +54,7 @@ from curate.records import (
     SeriesArrays,
     canonical_json,
     jsonable,
+    masked_points,
     normalise_grade,
     record_hash,
 )
@@ -679,6 +680,8 @@ class Ledger(Amendments):
             frame["replicate"] = labels[arrays.replicate] if len(labels) else arrays.replicate
         if arrays.n is not None:
             frame["n"] = arrays.n
+        if found.record.masks:  # every point stays; the mask says which ones fits leave out
+            frame["masked"] = masked_points(found.record, arrays)
         frame.attrs.update(
             {
                 "dataset_id": found.id,
