@@ -166,3 +166,25 @@ def test_cli_profile_records_a_run_and_refuses_bad_input(cli, tmp_path):
     ):
         bad = cli("profile", "--model", f"{model}:predict", "--params", params, *args)
         assert bad.code == 2 and message in bad.err and bad.err.count("\n") == 1
+
+
+def test_the_report_draws_the_newest_ensemble_and_profiles(cli, tmp_path):
+    from conftest import add_mixed_observable, saturating_model
+
+    import curate
+
+    report = tmp_path / "r.html"
+    with curate.open_catalog(cli.catalog, actor="tester") as catalog:
+        add_mixed_observable(catalog)
+    assert cli("report", report).code == 0
+    page = report.read_text()
+    assert "No ensemble recorded yet" in page and "No profile recorded yet" in page
+    model, params = saturating_model(tmp_path)
+    assert cli("profile", "--model", f"{model}:predict", "--params", params).code == 0
+    assert cli("ensemble", "--model", f"{model}:predict", "--params", params, "--starts", "6").code == 0
+    assert cli("report", report).code == 0
+    page = report.read_text()
+    assert '<section id="ensemble"><h2>Many good fits</h2>' in page and "6 starts (seed 0)" in page
+    assert '<section id="profiles"><h2>Profiles</h2>' in page
+    assert 'alt="waterfall' in page and "each parameter&#x27;s profile with its threshold" in page
+    assert page.count("identifiable") >= 2

@@ -185,7 +185,6 @@ def run_ensemble(catalog: Ledger, *, backend: ModelBackend | None = None,
     )  # fmt: skip
     result = ensemble(problem, options, threshold=threshold, cut=cut, progress=progress)
     summary = {**result.to_dict(), "seed": options.seed, "cut": cut}
-    summary.pop("objectives")
     _record(catalog, "ensemble", backend, spec, weighted, summary)
     return result
 

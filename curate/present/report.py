@@ -34,6 +34,7 @@ from curate.present.html import (
     sensitivity_section,
     table_html,
 )
+from curate.present.many_fits import ensemble_section, profiles_section
 from curate.quality.actions import check_consistency
 from curate.quality.measured import measured_sd
 from curate.records import ConditionValue, masked_points
@@ -509,6 +510,8 @@ def build_report(catalog: Ledger, policy: Policy) -> str:
         _consistency(catalog),
         fit_html,
         _sensitivity(catalog),
+        ensemble_section(catalog),
+        profiles_section(catalog),
         _manifest(catalog),
         CAUTIONS,
     ]
