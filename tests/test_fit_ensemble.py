@@ -76,3 +76,21 @@ def test_bad_settings_are_refused(kwargs, message):
         ensemble(mirror_problem(), fitting.FitOptions(starts=5), **kwargs)
     with pytest.raises(InputError, match="at least 2 starts"):
         ensemble(mirror_problem(), fitting.FitOptions(starts=1))
+
+
+def slow_two_exponentials(params, points):
+    import time
+
+    time.sleep(0.004)  # a model slow enough that two workers pay for their start
+    return two_exponentials(params, points)
+
+
+@pytest.mark.xdist_group("own_processes")
+def test_two_workers_give_the_serial_ensemble():
+    problem = mirror_problem()
+    problem = fitting.FitProblem(problem.points, slow_two_exponentials, problem.spec)
+    serial = ensemble(problem, fitting.FitOptions(starts=24, seed=2))
+    pooled = ensemble(problem, fitting.FitOptions(starts=24, seed=2), workers=2)
+    assert pooled.executor == "process pool (2 workers)"
+    np.testing.assert_allclose(pooled.objectives, serial.objectives, rtol=1e-10)
+    assert [c.size for c in pooled.clusters] == [c.size for c in serial.clusters]

@@ -907,16 +907,20 @@ def ensemble(
     cut: Annotated[
         float, typer.Option(help="clustering cut in the optimiser's coordinates (ln p for log)")
     ] = 0.5,
+    workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
     as_json: JsonFlag = False,
 ) -> None:
     """Fit from many starts; keep every fit about as good as the best; group them into families."""
+    if workers < 0:
+        raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
+    count = workers if workers > 0 else (os.cpu_count() or 1)
     tolerances = _tolerances(relative_tolerance, absolute_tolerance, problem)
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "ensemble", enabled=show_bar) as update:
         result = catalog.ensemble(
             model, params, problem=problem, options=FitOptions(starts=starts, seed=seed),
             threshold=threshold, cut=cut, policy=policy, selection=selection,
-            tolerances=tolerances, progress=update,
+            tolerances=tolerances, workers=count, progress=update,
         )  # fmt: skip
     _show(result.to_dict(), lambda: run_text.ensemble_text(result), as_json)
 

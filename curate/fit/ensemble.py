@@ -12,7 +12,10 @@ also grouped by objective plateau (sorted objectives closer than PLATEAU_GAP in 
 
 from __future__ import annotations
 
+import multiprocessing
+import time
 from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -21,8 +24,10 @@ from scipy import stats
 from scipy.cluster import hierarchy
 
 from curate.errors import InputError
+from curate.fit.backends import ModelBackend, rebuild
 from curate.fit.engine import FitOptions, least_squares, start_points
 from curate.fit.problem import FitProblem
+from curate.fit.spec import ParameterSpec
 
 __all__ = ["DEFAULT_CUT", "PLATEAU_GAP", "Cluster", "EnsembleResult", "ensemble"]
 
@@ -62,6 +67,7 @@ class EnsembleResult:
     cut: float
     objective: str = "chi2"
     kept: list[dict[str, Any]] = field(default_factory=list)  # start, objective, parameters
+    executor: str = "serial"
 
     def to_dict(self) -> dict[str, Any]:
         """Give ``{"starts", "failed", "threshold", "best": {"objective", "parameters"},
@@ -75,6 +81,7 @@ class EnsembleResult:
             "clusters": [c.to_dict() for c in self.clusters],
             "plateaus": self.plateaus,
             "objectives": self.objectives,
+            "executor": self.executor,
         }
 
 
@@ -89,12 +96,82 @@ def _plateaus(objectives: list[float]) -> list[dict[str, Any]]:
     return [{"objective": p["objective"], "size": p["size"]} for p in plateaus]
 
 
+_Outcome = tuple[int, float | None, np.ndarray | None, str | None]  # start, objective, theta, error
+_WORKER: dict[str, FitProblem] = {}  # the problem of this worker process (built once per worker)
+# what starting a worker process costs before its first fit (spawn, import curate, rebuild the
+# model), as in curate.fit.sensitivity
+WORKER_START_SECONDS = 2.0
+
+
+def _local_fit(problem: FitProblem, number: int, x0: np.ndarray, options: FitOptions) -> _Outcome:
+    try:
+        solution = least_squares(problem, x0, options)
+    except (InputError, ArithmeticError) as err:
+        return number, None, None, str(err).splitlines()[0] if str(err) else type(err).__name__
+    value = float(2 * solution.cost)
+    if not np.isfinite(value):
+        return number, None, None, "the objective is not a finite number"
+    return number, value, np.asarray(solution.x, dtype=float), None
+
+
+def _worker_start(backend: ModelBackend | None, description: dict[str, Any] | None,
+                  points: Any, spec: ParameterSpec) -> None:  # fmt: skip
+    model = backend if backend is not None else rebuild(description or {})
+    _WORKER["problem"] = FitProblem(points, model, spec)
+
+
+def _worker_fit(task: tuple[int, np.ndarray, FitOptions]) -> _Outcome:
+    number, x0, options = task
+    return _local_fit(_WORKER["problem"], number, x0, options)
+
+
+def _run_starts(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
+                workers: int, progress: Callable[[int, int, str], None] | None,
+                ) -> tuple[list[_Outcome], str]:  # fmt: skip
+    """Give every start's outcome, here or on a process pool (spawned workers, each building
+    the problem once), whichever is quicker."""
+    total = len(candidates)
+    outcomes = []
+    started = time.perf_counter()
+    outcomes.append(_local_fit(problem, 0, candidates[0], options))
+    took = time.perf_counter() - started
+    if progress is not None:
+        progress(1, total, "starts")
+    rest = list(enumerate(candidates))[1:]
+    here = took * len(rest)
+    if workers <= 1 or not rest or here <= WORKER_START_SECONDS + here / min(workers, len(rest)):
+        for number, x0 in rest:
+            outcomes.append(_local_fit(problem, number, x0, options))
+            if progress is not None:
+                progress(number + 1, total, "starts")
+        why = (
+            "serial"
+            if workers <= 1
+            else f"serial: a fit takes {took:.2g} s, less than starting {workers} workers would"
+        )
+        return outcomes, why
+    backend = problem.backend
+    portable = backend.portable
+    initargs = (None if portable else backend, backend.describe() if portable else None,
+                problem.points, problem.spec)  # fmt: skip
+    with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
+                             initializer=_worker_start, initargs=initargs) as pool:  # fmt: skip
+        chunk = max(1, len(rest) // (8 * workers))
+        tasks = [(number, x0, options) for number, x0 in rest]
+        for done, outcome in enumerate(pool.map(_worker_fit, tasks, chunksize=chunk)):
+            outcomes.append(outcome)
+            if progress is not None:
+                progress(done + 2, total, "starts")
+    return outcomes, f"process pool ({workers} workers)"
+
+
 def ensemble(
     problem: FitProblem,
     options: FitOptions,
     *,
     threshold: float | None = None,
     cut: float = DEFAULT_CUT,
+    workers: int = 1,
     progress: Callable[[int, int, str], None] | None = None,
 ) -> EnsembleResult:
     """Give the ensemble of ``options.starts`` local fits (the spec's start and a Latin
@@ -109,24 +186,17 @@ def ensemble(
     if not free:
         raise InputError("every parameter is fixed; there is nothing to search")
     limit = float(stats.chi2.ppf(0.95, len(free))) if threshold is None else float(threshold)
+    if workers < 1:
+        raise InputError(f"--workers {workers}: expected at least 1 worker process")
     candidates = start_points(problem, options)
+    outcomes, executor = _run_starts(problem, candidates, options, workers, progress)
     finished: list[tuple[int, float, np.ndarray]] = []
     failed: list[dict[str, Any]] = []
-    for number, x0 in enumerate(candidates):
-        if progress is not None:
-            progress(number, len(candidates), "starts")
-        try:
-            solution = least_squares(problem, x0, options)
-        except (InputError, ArithmeticError) as err:
-            failed.append(
-                {"start": number, "error": str(err).splitlines()[0] or type(err).__name__}
-            )
-            continue
-        value = float(2 * solution.cost)
-        if not np.isfinite(value):
-            failed.append({"start": number, "error": "the objective is not a finite number"})
-            continue
-        finished.append((number, value, np.asarray(solution.x, dtype=float)))
+    for number, value, theta, error in sorted(outcomes, key=lambda o: o[0]):
+        if value is None or theta is None:
+            failed.append({"start": number, "error": error or "failed"})
+        else:
+            finished.append((number, value, theta))
     if progress is not None:
         progress(len(candidates), len(candidates), "starts")
     if not finished:
@@ -173,4 +243,5 @@ def ensemble(
         kept=[
             {"start": n, "objective": v, "parameters": problem.to_natural(t)} for n, v, t in kept
         ],
+        executor=executor,
     )

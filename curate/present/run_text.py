@@ -313,7 +313,7 @@ def ensemble_text(result: EnsembleResult) -> Group:
         f"{result.starts} starts, {len(result.failed)} failed; {result.accepted} fits within "
         f"{result.threshold:.3f} ({result.objective} units) of the best {result.best_objective:.6g}; "
         f"{len(result.clusters)} famil{'y' if len(result.clusters) == 1 else 'ies'} "
-        f"(cut {result.cut:g} in the optimiser's coordinates)"
+        f"(cut {result.cut:g} in the optimiser's coordinates); {result.executor}"
     )
     names = list(result.best_parameters)
     numbers = ("family", "fits", "objective", *names)
