@@ -238,16 +238,16 @@ def test_calamine_and_openpyxl_read_a_workbook_to_the_same_cells(tmp_path):
     # openpyxl, pandas' reference engine for .xlsx, as the outside reference for calamine
     import datetime as dt
 
-    from curate.ingest.tables import _xlsx_rows
+    from curate.ingest.workbook import read_sheet
 
     rows = [["Run 3"], [], ["time", "value", "note", "when"], [0, 1.5, "first", dt.date(2026, 3, 1)],
             [5, 2, None, dt.datetime(2026, 3, 1, 10, 30)], [10, -3.25e-7, "x", None]]  # fmt: skip
     path = _workbook(tmp_path / "book.xlsx", {"empty": [], "data": rows})
     raw = path.read_bytes()
-    calamine = _xlsx_rows(path, raw, "data", engine="calamine")
-    reference = _xlsx_rows(path, raw, "data", engine="openpyxl")
+    calamine = read_sheet(path, raw, "data", engine="calamine")
+    reference = read_sheet(path, raw, "data", engine="openpyxl")
     assert calamine == reference
-    cells, lines, chosen, names = calamine
+    cells, lines, chosen, names = calamine.rows, calamine.lines, calamine.name, calamine.names
     assert lines == [1, 3, 4, 5, 6] and chosen == "data" and names == ("empty", "data")
     assert cells[2][:2] == ["0", "1.5"] and cells[4][1] == "-3.25e-07"
 
