@@ -267,7 +267,8 @@ def _dialect(path: Path, raw: bytes, default: str, layout: Layout) -> tuple[Dial
             detected.append("delimiter")
     if len(delimiter) != 1:
         raise InputError(f"{path}: dialect.delimiter '{layout.delimiter}': expected one character")
-    dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=layout.decimal or ".",
+    decimal = layout.decimal or ("," if layout.thousands == "." else ".")  # '1.234,5'
+    dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=decimal,
                       thousands=layout.thousands or "", detected=tuple(detected))  # fmt: skip
     if dialect.thousands and dialect.thousands == dialect.decimal:
         raise InputError(

@@ -141,10 +141,10 @@ class Workbook:
         """Give each row of a sheet that holds a cell: its number (from 1) and its text cells."""
         if self._calamine is not None:
             sheet = self._calamine.get_sheet_by_name(name)
-            first = sheet.start[0] if sheet.start else 0
-            values_by_row: Iterable[tuple[int, Any]] = (
-                (first + k + 1, values)
-                for k, values in enumerate(sheet.to_python(skip_empty_area=False))
+            # without skipping the empty area, calamine gives the rows from A1 (whatever its
+            # 'start', the first cell holding a value): row k of the list is sheet row k + 1
+            values_by_row: Iterable[tuple[int, Any]] = enumerate(
+                sheet.to_python(skip_empty_area=False), start=1
             )
         else:
             values_by_row = enumerate(self._openpyxl[name].iter_rows(values_only=True), start=1)
@@ -165,11 +165,11 @@ class Workbook:
                 xml = archive.read(part)
         except (zipfile.BadZipFile, KeyError, OSError, ElementTree.ParseError):
             return SheetExtras()  # the cell reader read it: what we cannot see is not there
-        merges = tuple(
+        merges = tuple(sorted(
             (int(m[2]), _column_number(m[1].decode()), int(m[4] or m[2]),
              _column_number((m[3] or m[1]).decode()))
             for m in _MERGE.finditer(xml)
-        )  # fmt: skip
+        ))  # fmt: skip
         uncomputed: list[tuple[int, str]] = []
         if _FORMULA.search(xml):
             for _, element in ElementTree.iterparse(io.BytesIO(xml)):
