@@ -91,7 +91,8 @@ def times_in_unit(cells: np.ndarray, unit: str, locate: Callable[[int], str]
         if len(back):
             index = int(back[0]) + 1
             raise InputError(
-                locate(index) + f"the clock time '{str(cells[index]).lstrip('T')}' is before the one above it "
+                locate(index)
+                + f"the clock time '{str(cells[index]).lstrip('T')}' is before the one above it "
                 "(past midnight?); give the times as dates with times, or as durations"
             )
         note = (f"the times were clock times (time of day), converted to elapsed time from the "

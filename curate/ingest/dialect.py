@@ -180,7 +180,7 @@ def _refuse_a_guess(numeric: list[str], mark: str) -> None:
         f"'{example}' may be {float(fraction):g} ('{mark}' a decimal mark) or {int(whole)} (a "
         f"thousands separator), and no other number in the file tells which; state it: "
         f"--decimal '{mark}' or --thousands '{mark}' ([dialect] decimal = \"{mark}\" or "
-        f"thousands = \"{mark}\" in the sidecar)"
+        f'thousands = "{mark}" in the sidecar)'
     )
 
 
