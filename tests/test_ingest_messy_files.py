@@ -84,6 +84,7 @@ def test_rfc4180_quoting_with_embedded_delimiters_doubled_quotes_and_line_breaks
     points, record = _add(catalog, "quoted_rfc4180.csv", observable={"id": "x", "unit": "nM"},
                           time={"unit": "s"})  # fmt: skip
     assert points["value"].tolist() == [1.5, 2.5, 3.0]
+    assert record.annotations["extra_columns"]["note"][1] == 'the "late" sample'
     reference = pd.read_csv(MESSY / "quoted_rfc4180.csv")
     assert reference["note"].tolist()[:2] == table.cells["note"].tolist()[:2]
 
