@@ -16,11 +16,11 @@ first cell of another kind. What was converted is said in the dataset's provenan
 
 from __future__ import annotations
 
-import datetime as dt
 import re
 from collections.abc import Callable
 
 import numpy as np
+import pandas as pd
 
 from curate import units
 from curate.errors import InputError
@@ -44,6 +44,9 @@ def _kind(cell: str) -> str | None:
     return None
 
 
+_PATTERNS = {"duration": _DURATION, "time of day": _TIME_OF_DAY, "date and time": _DATE_TIME}
+
+
 def times_in_unit(cells: np.ndarray, unit: str, locate: Callable[[int], str]
                   ) -> tuple[np.ndarray, str] | None:  # fmt: skip
     """Give the cells as numbers of ``unit`` with a note of the conversion, or None when the
@@ -53,57 +56,50 @@ def times_in_unit(cells: np.ndarray, unit: str, locate: Callable[[int], str]
     first = _kind(str(cells[0]))
     if first is None:
         return None
-    seconds = np.empty(len(cells), dtype=np.float64)
-    origin: dt.datetime | None = None
-    for index, raw in enumerate(cells):
-        cell = str(raw)
-        kind = _kind(cell)
-        if kind != first:
-            found = "empty" if not cell else f"'{cell}'"
-            raise InputError(
-                locate(index)
-                + f"{found}, but the first time is {_KINDS[first]} ('{cells[0]}'); expected every "
-                f"time as {_KINDS[first]} (or every time a number of '{unit}')"
-            )
-        if kind == "duration":
-            found_duration = _DURATION.match(cell)
-            assert found_duration is not None
-            value = _clock_seconds(found_duration)
-            if int(found_duration["m"]) > 59 or float(found_duration["s"] or 0) >= 60:
-                raise InputError(locate(index) + f"'{cell}' is not h:mm:ss (minutes and seconds "
-                                 "below 60); expected a duration such as 0:15:00")  # fmt: skip
-            seconds[index] = -value if found_duration["sign"] == "-" else value
-        elif kind == "time of day":
-            found_time = _TIME_OF_DAY.match(cell)
-            assert found_time is not None
-            seconds[index] = _clock_seconds(found_time)
-        else:
-            try:
-                stamp = dt.datetime.fromisoformat(cell)
-            except ValueError:
-                raise InputError(locate(index) + f"'{cell}' is not a date with a time") from None
-            origin = origin or stamp
-            seconds[index] = (stamp - origin).total_seconds()
+    text = pd.Series(cells, dtype=object).astype(str)
+    alike = text.str.match(_PATTERNS[first].pattern).to_numpy(dtype=bool)
+    if not alike.all():
+        index = int(np.argmin(alike))
+        cell = str(cells[index])
+        found = "empty" if not cell else f"'{cell}'"
+        raise InputError(
+            locate(index)
+            + f"{found}, but the first time is {_KINDS[first]} ('{cells[0]}'); expected every "
+            f"time as {_KINDS[first]} (or every time a number of '{unit}')"
+        )
+    if first == "date and time":
+        stamps = pd.to_datetime(text, format="ISO8601", errors="coerce")
+        bad = stamps.isna().to_numpy()
+        if bad.any():
+            index = int(np.argmax(bad))
+            raise InputError(locate(index) + f"'{cells[index]}' is not a date with a time")
+        seconds = ((stamps - stamps.iloc[0]) / pd.Timedelta(seconds=1)).to_numpy(dtype=np.float64)
+        note = (f"the times were clock times (dates with times), converted to elapsed time from "
+                f"the first row's {stamps.iloc[0].isoformat(sep=' ')}")  # fmt: skip
+        return seconds / units.to_unit(1.0, unit, "s"), note
+    parts = text.str.extract(_PATTERNS[first].pattern)
+    hours = parts["h"].astype(np.float64).to_numpy()
+    minutes = parts["m"].astype(np.float64).to_numpy()
+    rest = parts["s"].fillna("0").astype(np.float64).to_numpy()
+    over = (minutes > 59) | (rest >= 60)
+    if over.any():
+        index = int(np.argmax(over))
+        raise InputError(locate(index) + f"'{cells[index]}' is not h:mm:ss (minutes and seconds "
+                         "below 60); expected a duration such as 0:15:00")  # fmt: skip
+    seconds = hours * 3600.0 + minutes * 60.0 + rest
     if first == "duration":
+        seconds = np.where(parts["sign"].to_numpy() == "-", -seconds, seconds)
         note = "the times were durations (h:mm:ss), taken as written"
-    elif first == "time of day":
+    else:
         back = np.flatnonzero(np.diff(seconds) < 0)
         if len(back):
             index = int(back[0]) + 1
             raise InputError(
-                locate(index)
-                + f"the clock time '{str(cells[index]).lstrip('T')}' is before the one above it "
-                "(past midnight?); give the times as dates with times, or as durations"
+                locate(index) + f"the clock time '{str(cells[index]).lstrip('T')}' is before "
+                "the one above it (past midnight?); give the times as dates with times, or as "
+                "durations"
             )
         note = (f"the times were clock times (time of day), converted to elapsed time from the "
                 f"first row's {str(cells[0]).lstrip('T')}")  # fmt: skip
         seconds = seconds - seconds[0]
-    else:
-        assert origin is not None
-        note = (f"the times were clock times (dates with times), converted to elapsed time from "
-                f"the first row's {origin.isoformat(sep=' ')}")  # fmt: skip
     return seconds / units.to_unit(1.0, unit, "s"), note
-
-
-def _clock_seconds(found: re.Match[str]) -> float:
-    return int(found["h"]) * 3600.0 + int(found["m"]) * 60.0 + float(found["s"] or 0)

@@ -68,6 +68,14 @@ def _column_number(letters: str) -> int:
 def cell_text(value: object) -> str:
     """Give a cell value as text: numbers as Python writes them, dates and times in ISO 8601
     (a time of day with its 'T' designator, so that it is not taken for a duration)."""
+    kind = type(value)
+    if kind is str:
+        return value  # type: ignore[return-value]
+    if kind is float:  # the commonest cell: a number (calamine gives every number as a float)
+        number: float = value  # type: ignore[assignment]
+        if number.is_integer() and abs(number) < 2**53:
+            return str(int(number))
+        return repr(number)
     value = _whole(value)
     if value is None:
         return ""
@@ -116,6 +124,7 @@ class Workbook:
         self.raw = raw
         self._calamine: Any = None
         self._openpyxl: Any = None
+        self._loaded: dict[str, list[Any]] = {}
         if engine in ("auto", "calamine"):
             try:
                 from python_calamine import CalamineWorkbook
@@ -140,12 +149,12 @@ class Workbook:
     def rows(self, name: str) -> Iterator[tuple[int, list[str]]]:
         """Give each row of a sheet that holds a cell: its number (from 1) and its text cells."""
         if self._calamine is not None:
-            sheet = self._calamine.get_sheet_by_name(name)
+            if name not in self._loaded:  # read once: choosing a sheet looks at each
+                sheet = self._calamine.get_sheet_by_name(name)
+                self._loaded[name] = sheet.to_python(skip_empty_area=False)
             # without skipping the empty area, calamine gives the rows from A1 (whatever its
             # 'start', the first cell holding a value): row k of the list is sheet row k + 1
-            values_by_row: Iterable[tuple[int, Any]] = enumerate(
-                sheet.to_python(skip_empty_area=False), start=1
-            )
+            values_by_row: Iterable[tuple[int, Any]] = enumerate(self._loaded[name], start=1)
         else:
             values_by_row = enumerate(self._openpyxl[name].iter_rows(values_only=True), start=1)
         for number, values in values_by_row:
@@ -224,7 +233,7 @@ def read_sheet(path: Path, raw: bytes, sheet: str | int | None, *, engine: str =
         names = book.names
         listed = ", ".join(repr(s) for s in names)
         if sheet is None:
-            filled = [n for n in names if next(book.rows(n), None) is not None]
+            filled = [n for n in names if len(names) == 1 or next(book.rows(n), None) is not None]
             if len(filled) > 1:
                 raise InputError(
                     f"{path}: the workbook has {len(filled)} sheets with data ("
