@@ -70,7 +70,7 @@ def test_cp1252_with_micro_and_degree_signs(catalog):
 
 
 def test_title_rows_above_the_header(catalog):
-    with pytest.raises(InputError, match="--header-row"):
+    with pytest.raises(InputError, match=r"title above the header, pass --header-row 4 "):
         _add(catalog, "title_rows.csv", observable={"id": "x", "unit": "nM"}, time={"unit": "s"})
     points, _ = _add(catalog, "title_rows.csv", observable={"id": "x", "unit": "nM"},
                      time={"unit": "s"}, header_row=4)  # fmt: skip

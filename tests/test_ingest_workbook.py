@@ -172,3 +172,6 @@ def test_a_sheet_that_starts_below_a1_keeps_its_row_numbers(tmp_path):
     book.save(tmp_path / "low.xlsx")
     found = _engines_agree(tmp_path / "low.xlsx")
     assert found.lines == [3, 4] and found.rows == [["", "time", "value"], ["", "1", "2"]]
+    table = read_table(tmp_path / "low.xlsx")  # the table starts in column B
+    assert table.columns == ("time", "value") and table.cells["value"].tolist() == ["2"]
+    assert table.header_line == 3 and table.notes == ("the table starts in column B",)

@@ -372,6 +372,26 @@ def _to_footer(path: Path, rows: list[list[str]], lines: list[int], starts: list
     return rows, lines, notes, (blank - 1 if blank is not None else None)
 
 
+def _likely_header(rows: list[list[str]], lines: list[int]) -> int:
+    """Give the line of the first row of names (no numbers) above a row as wide holding a
+    number: where the header likely is below title rows (for the hint only)."""
+    for k in range(1, min(len(rows) - 1, 12)):
+        names = [c.strip() for c in rows[k]]
+        below = [c.strip() for c in rows[k + 1]]
+        wide = len([c for c in below if c]) == len(names) and any(_numeric(c) for c in below)
+        if all(names) and len(names) > 1 and wide and not any(_numeric(c) for c in names):
+            return lines[k]
+    return lines[1]
+
+
+def _numeric(text: str) -> bool:
+    try:
+        float(text.replace(",", "."))
+    except ValueError:
+        return False
+    return True
+
+
 def _to_table(
     path: Path, rows: list[list[str]], lines: list[int], row_word: str, *, require_rows: bool,
     after_blank: int | None = None,
@@ -397,10 +417,11 @@ def _to_table(
         raise InputError(f"{path}: the file has a header but no data rows")
     width = len(header)
     if body and len([c for c in body[0] if c.strip()]) > width and width == 1:
+        line = _likely_header(rows, lines)
         raise InputError(
             f"{path}, {row_word} {lines[1]}: {len(body[0])} cells, but the header ({row_word} "
             f"{lines[0]}: '{header[0][:40]}') has 1 column; if that is a title above the header, "
-            f"pass --header-row {lines[1]} (header_row = {lines[1]} in the sidecar)"
+            f"pass --header-row {line} (header_row = {line} in the sidecar)"
         )
     for index, (row, line) in enumerate(zip(body, lines[1:], strict=True)):
         if (len(row) > width and any(cell.strip() for cell in row[width:])) or (

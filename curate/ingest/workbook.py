@@ -351,6 +351,10 @@ def arrange_header(path: Path, sheet: Sheet, *, placed: bool
                 "numbered from 1"
             )
             rows = [header, *rows[1:]]
+    filled = [next((k for k, c in enumerate(r) if c.strip()), len(r)) for r in rows]
+    if rows and (lead := min(filled)) > 0:  # a table that starts right of column A
+        rows = [r[lead:] for r in rows]
+        notes.append(f"the table starts in column {column_letters(lead + 1)}")
     return rows, lines, notes
 
 
