@@ -103,6 +103,14 @@ def test_a_workbook_with_a_title_and_a_merged_header_over_replicates(catalog):
     assert sorted(set(points["time"].tolist())) == [0.0, 600.0]
 
 
+def test_inspect_names_the_replicate_columns_of_a_wide_workbook():
+    from curate.ingest.inspection import inspect_file
+
+    found = inspect_file(MESSY / "merged_headers.xlsx", options={**LAB, "observable": {"id": "p"}})
+    assert [c["role"] for c in found.columns] == ["time", *["replicate column"] * 3]
+    assert found.would_add is not None and found.would_add["points"] == 6
+
+
 def test_a_workbook_of_several_sheets_with_clock_times(catalog):
     with pytest.raises(InputError, match=r"2 sheets with data \('notes', 'series'\)"):
         _add(catalog, "several_sheets.xlsx", observable={"id": "gfp"}, time={"unit": "min"})

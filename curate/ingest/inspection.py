@@ -82,6 +82,12 @@ def inspect_file(path: str | Path, *, sidecar: str | Path | None = None,
         header = match_column(str(getattr(columns, role)), table.columns)
         if header is not None:
             roles[header] = role
+    wide = merged.get("layout", "auto") != "long" and "value" not in roles.values()
+    if wide:  # one column per replicate: the listed ones, else every column but the time
+        listed = [match_column(r, table.columns) for r in columns.replicates or []]
+        for header in listed if columns.replicates else table.columns:
+            if header is not None and header not in roles:
+                roles[header] = "replicate column"
     for header in table.columns:
         name, unit = header_unit(header)
         found.columns.append({"header": header, "name": name, "unit": unit,
