@@ -29,7 +29,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
-from bench import petab_problems  # noqa: E402
+from bench import petab_problems, workbook  # noqa: E402
 from bench.peak import export_peak, report_peak  # noqa: E402
 from bench.timing import median_time  # noqa: E402
 from curate import fit as fitting  # noqa: E402
@@ -340,6 +340,8 @@ def main() -> None:
             f"curate benchmarks ({'quick' if quick else 'full'}; {os.cpu_count()} cores)",
             flush=True,
         )
+        results["workbook_calamine"] = workbook.case_workbook_intake(folder, 10_000, repeats)
+        print(f"  workbook done (ratio {results['workbook_calamine']['ratio']:.3f})", flush=True)
         results["intake"] = case_intake(folder, n_series, repeats)
         print(f"  intake done ({results['intake']['ours_s']:.2f} s)", flush=True)
         results["export_parquet"] = case_export(folder, n_series, repeats)

@@ -36,6 +36,7 @@ __all__ = [
     "round_significant",
     "scale_factor",
     "short_unit",
+    "time_unit_spelling",
     "to_unit",
     "ucum_code",
 ]
@@ -199,6 +200,18 @@ def _conversion(original: str, canonical: str) -> tuple[float, float]:
     return one - zero, zero
 
 
+# time units as headers write them in any case ('Min', 'MIN', 'Sec', 'HRS'): in a time
+# column 'Min' is minutes, never the prefixed unit pint would read ('M' + 'in')
+_TIME_WORDS = {"s", "sec", "secs", "second", "seconds", "ms", "msec", "min", "mins", "minute",
+               "minutes", "h", "hr", "hrs", "hour", "hours", "d", "day", "days"}  # fmt: skip
+
+
+def time_unit_spelling(text: str) -> str:
+    """Give a time unit's usual spelling: 'Min' and 'MIN' as 'min', 'Hrs' as 'hrs'."""
+    stripped = text.strip()
+    return stripped.lower() if stripped.lower() in _TIME_WORDS else stripped
+
+
 @functools.lru_cache(maxsize=4096)
 def canonical_unit(
     text: str, *, role: str = "value", dimension: str | None = None
@@ -207,6 +220,8 @@ def canonical_unit(
 
     ``dimension`` is a pint dimensionality such as ``"[time]"``.
     """
+    if dimension == "[time]":
+        text = time_unit_spelling(text)
     unit = _parse(text, role=role)
     ureg = registry()
     dims = str(ureg.get_dimensionality(unit))

@@ -238,16 +238,16 @@ def test_calamine_and_openpyxl_read_a_workbook_to_the_same_cells(tmp_path):
     # openpyxl, pandas' reference engine for .xlsx, as the outside reference for calamine
     import datetime as dt
 
-    from curate.ingest.tables import _xlsx_rows
+    from curate.ingest.workbook import read_sheet
 
     rows = [["Run 3"], [], ["time", "value", "note", "when"], [0, 1.5, "first", dt.date(2026, 3, 1)],
             [5, 2, None, dt.datetime(2026, 3, 1, 10, 30)], [10, -3.25e-7, "x", None]]  # fmt: skip
     path = _workbook(tmp_path / "book.xlsx", {"empty": [], "data": rows})
     raw = path.read_bytes()
-    calamine = _xlsx_rows(path, raw, "data", engine="calamine")
-    reference = _xlsx_rows(path, raw, "data", engine="openpyxl")
+    calamine = read_sheet(path, raw, "data", engine="calamine")
+    reference = read_sheet(path, raw, "data", engine="openpyxl")
     assert calamine == reference
-    cells, lines, chosen, names = calamine
+    cells, lines, chosen, names = calamine.rows, calamine.lines, calamine.name, calamine.names
     assert lines == [1, 3, 4, 5, 6] and chosen == "data" and names == ("empty", "data")
     assert cells[2][:2] == ["0", "1.5"] and cells[4][1] == "-3.25e-07"
 
@@ -303,3 +303,136 @@ def test_what_would_be_misread_is_refused(catalog, tmp_path, name, content, opti
     with pytest.raises(InputError, match=re.escape(expected)):
         catalog.add(path, options=merged)
     assert catalog.list() == []
+
+
+# -- what a new user met with lab files ---------------------------------------------------------
+
+ABSOLUTE = {**LAB, "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "s"}}
+
+
+def test_a_number_that_reads_two_ways_with_nothing_to_tell_is_refused(catalog, tmp_path):
+    path = tmp_path / "lone.csv"
+    path.write_text("time;value\n0;1.500\n1;2\n")
+    with pytest.raises(InputError, match=re.escape(
+        "'1.500' may be 1.5 ('.' a decimal mark) or 1500 (a thousands separator), and no other "
+        "number in the file tells which; state it: --decimal '.' or --thousands '.'"
+    )):  # fmt: skip
+        catalog.add(path, options=ABSOLUTE)
+    as_decimal = catalog.add(path, options={**ABSOLUTE, "dialect": {"decimal": "."}})
+    assert catalog.points(as_decimal.id)["value"].tolist() == [1.5, 2.0]
+    path.write_text("time;value\n0;1.500\n1;2\n2;3\n")  # another file: not a duplicate
+    as_thousands = catalog.add(path, options={**ABSOLUTE, "dialect": {"thousands": "."}})
+    assert catalog.points(as_thousands.id)["value"].tolist() == [1500.0, 2.0, 3.0]
+    path.write_text("time;value\n0;1,234\n1;2,5\n")  # '2,5' tells: the comma is decimal
+    told = catalog.add(path, options=ABSOLUTE)
+    assert catalog.points(told.id)["value"].tolist() == [1.234, 2.5]
+
+
+def test_notes_below_the_data_are_refused_with_the_way_to_leave_them_out(catalog, tmp_path):
+    path = tmp_path / "stamped.csv"
+    path.write_text("time,value\n0,1\n1,2\n2,4\nExported by instrument software v2\n")
+    with pytest.raises(InputError, match=re.escape(
+        "stamped.csv, line 5: 1 cells, but the header has 2 columns; if line 5 and below are "
+        "notes under the data, pass --footer-rows 1 (footer_rows = 1 in the sidecar)"
+    )):  # fmt: skip
+        catalog.add(path, options=ABSOLUTE)
+    result = catalog.add(path, options={**ABSOLUTE, "footer_rows": 1})
+    assert catalog.points(result.id)["value"].tolist() == [1.0, 2.0, 4.0]
+    assert catalog.show(result.id).record.annotations["file_layout"] == [
+        "the last 1 line(s), from line 5, are a footer and were left out"
+    ]
+    blank = tmp_path / "blank.csv"
+    blank.write_text("time,value\n0,1\n1,2\n2,5\n\nOperator,A. N. Other\nPlate,7\n")
+    with pytest.raises(InputError, match=r"line 6, column 'time': 'Operator' is not a number; "
+                                         r"expected a time; if the lines below the blank one are "
+                                         r"notes, pass --end-at-blank"):  # fmt: skip
+        catalog.add(blank, options=ABSOLUTE)
+    ended = catalog.add(blank, options={**ABSOLUTE, "end_at_blank": True})
+    assert catalog.points(ended.id)["value"].tolist() == [1.0, 2.0, 5.0]
+
+
+@pytest.mark.parametrize("written", ["Min", "MIN", "min", "Mins"])
+def test_a_time_header_in_minutes_in_any_case(catalog, tmp_path, written):
+    path = tmp_path / "minutes.csv"
+    path.write_text(f"Time ({written}),value\n0,1\n1,2\n")
+    result = catalog.add(path, options={**LAB, "observable": {"id": "perk", "unit": "nM"}})
+    assert catalog.points(result.id)["time"].tolist() == [0.0, 60.0]  # seconds
+    assert catalog.show(result.id).record.time_unit_original == written.lower()
+
+
+def test_a_title_of_several_cells_above_the_header_hints_at_header_row(catalog, tmp_path):
+    path = tmp_path / "titled.csv"
+    path.write_text("Run 7;plate 2;reader 1\ntime;value;sd\n0;1;0,1\n1;2;0,1\n")
+    with pytest.raises(InputError, match=re.escape(
+        "line 2 holds 'time': if the rows above it are a title, pass --header-row 2 "
+        "(header_row = 2 in the sidecar)"
+    )):  # fmt: skip
+        catalog.add(path, options=ABSOLUTE)
+    assert catalog.add(path, options={**ABSOLUTE, "header_row": 2}).added
+
+
+def test_utf16_without_a_byte_order_mark_is_read_in_the_encoding_stated(catalog, tmp_path):
+    path = tmp_path / "wide.csv"
+    path.write_bytes("time;value µM\n0;1,5\n1;2,5\n".encode("utf-16-le"))
+    with pytest.raises(InputError, match="not a text file"):
+        catalog.add(path, options=ABSOLUTE)
+    result = catalog.add(path, options={**ABSOLUTE, "dialect": {"encoding": "utf-16-le"},
+                                        "columns": {"value": "value µM"}})  # fmt: skip
+    assert catalog.points(result.id)["value"].tolist() == [1.5, 2.5]
+
+
+def test_a_txt_file_is_read_with_its_delimiter_detected(catalog, tmp_path):
+    tabbed, semicolons = tmp_path / "reader.txt", tmp_path / "other.txt"
+    tabbed.write_text("time\tvalue\n0\t1.25\n1\t2.5\n")
+    semicolons.write_text("time;value\n0;1,25\n1;2,5\n2;3\n")
+    for path, delimiter in ((tabbed, "\t"), (semicolons, ";")):
+        result = catalog.add(path, options=ABSOLUTE)
+        assert catalog.points(result.id)["value"].tolist()[:2] == [1.25, 2.5]
+        assert catalog.show(result.id).record.annotations["file_dialect"]["delimiter"] == delimiter
+
+
+def test_a_sidecar_naming_a_data_file_in_a_subfolder_or_outside(cli, tmp_path):
+    (tmp_path / "raw").mkdir()
+    (tmp_path / "raw" / "run.csv").write_text("time,value\n0,1\n1,2\n")
+    sidecar = tmp_path / "run.toml"
+    body = ('observable = {id = "perk", unit = "nM"}\ntime = {unit = "s"}\n'
+            'source = {lab = "Lab Quill"}\n')  # fmt: skip
+    sidecar.write_text('data_file = "raw/run.csv"\n' + body)
+    run = cli("add", sidecar, "--json")
+    assert run.code == 0, run.err and json.loads(run.out)["added"] is True
+    sidecar.write_text('data_file = "../run.csv"\n' + body)
+    run = cli("add", sidecar)
+    assert run.code == 2 and run.err.count("\n") == 1
+    assert "field 'data_file': '../run.csv' is outside the sidecar's folder" in run.err
+
+
+def test_inspect_shows_the_columns_before_the_refusal_of_one(cli, tmp_path):
+    path = tmp_path / "lab.csv"
+    path.write_text("Time (min),pERK [nM]\n0,1\n1,2\n")
+    run = cli("inspect", path, "--column", "value=GFP", "--json")
+    found = json.loads(run.out)
+    assert [c["header"] for c in found["columns"]] == ["Time (min)", "pERK [nM]"]
+    assert "--column value=GFP (columns.value) names no column" in found["would_refuse"]
+    assert found["table_error"] is None
+    shown = cli("inspect", path, "--column", "value=GFP")
+    assert shown.out.index("pERK [nM]") < shown.out.index("add would refuse")
+
+
+def test_the_dialect_options_on_the_command_line_and_in_the_api(cli, catalog, tmp_path):
+    path = tmp_path / "odd.csv"
+    path.write_text("time|value\n0|1.234,5\n1|2.000,25\n", encoding="cp1252")
+    run = cli("add", path, "--observable", "perk", "--unit", "nM", "--time-unit", "s", "--lab",
+              "Lab Quill", "--delimiter", "|", "--decimal", ",", "--thousands", ".",
+              "--encoding", "cp1252", "--json")  # fmt: skip
+    assert run.code == 0, run.err
+    shown = cli("inspect", path, "--delimiter", "|", "--decimal", ",", "--thousands", ".",
+                "--json")  # fmt: skip
+    assert json.loads(shown.out)["dialect"]["thousands"] == "."
+    result = catalog.add(path, options={**ABSOLUTE, "dialect": {
+        "delimiter": "|", "decimal": ",", "thousands": ".", "encoding": "cp1252"}})  # fmt: skip
+    assert catalog.points(result.id)["value"].tolist() == [1234.5, 2000.25]
+    stamped = tmp_path / "stamped.csv"
+    stamped.write_text("time,value\n0,1\n1,2\nend of export\n")
+    run = cli("add", stamped, "--observable", "perk", "--unit", "nM", "--time-unit", "s",
+              "--lab", "Lab Quill", "--footer-rows", "1", "--json")  # fmt: skip
+    assert run.code == 0, run.err

@@ -21,9 +21,16 @@ from typer.core import TyperGroup
 
 from curate.api import Catalog, open_catalog, read_petab
 from curate.cli.options import (
+    DIALECT_OPTIONS,
     DatasetId,
+    Decimal,
+    Delimiter,
+    Encoding,
+    EndAtBlank,
+    FooterRows,
     ForceFlag,
     JsonFlag,
+    Thousands,
     parse_columns,
     parse_conditions,
     selection_options,
@@ -210,6 +217,12 @@ def add(
     skip_rows: Annotated[
         int | None, typer.Option(help="lines (sheet rows) at the top to leave out")
     ] = None,
+    footer_rows: FooterRows = None,
+    end_at_blank: EndAtBlank = None,
+    delimiter: Delimiter = None,
+    decimal: Decimal = None,
+    thousands: Thousands = None,
+    encoding: Encoding = None,
     method: Annotated[str | None, typer.Option(help="measurement method")] = None,
     instrument: Annotated[str | None, typer.Option(help="instrument")] = None,
     contact: Annotated[str | None, typer.Option(help="contact person or address")] = None,
@@ -262,6 +275,10 @@ def add(
     put("sheet", sheet)
     put("header_row", header_row)
     put("skip_rows", skip_rows)
+    for name, value in (("footer_rows", footer_rows), ("end_at_blank", end_at_blank),
+                        ("delimiter", delimiter), ("decimal", decimal),
+                        ("thousands", thousands), ("encoding", encoding)):  # fmt: skip
+        put(DIALECT_OPTIONS[name], value)
     for role, header in parse_columns(column or []).items():
         put(f"columns.{role}", header)
     put("protocol.calibration_group", calibration_group)
@@ -338,6 +355,12 @@ def inspect(
         int | None, typer.Option(help="lines (sheet rows) at the top to leave out")
     ] = None,
     layout: Annotated[str | None, typer.Option(help="long, wide or auto")] = None,
+    footer_rows: FooterRows = None,
+    end_at_blank: EndAtBlank = None,
+    delimiter: Delimiter = None,
+    decimal: Decimal = None,
+    thousands: Thousands = None,
+    encoding: Encoding = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Show what a data file holds (sheets, columns, units in headers, dialect) and what `add`
@@ -346,7 +369,11 @@ def inspect(
     for path, value in (("observable.id", observable), ("observable.unit", unit),
                         ("time.unit", time_unit), ("source.lab", lab), ("sheet", sheet),
                         ("header_row", header_row), ("skip_rows", skip_rows), ("layout", layout),
-                        *((f"columns.{r}", h) for r, h in parse_columns(column or []).items())):  # fmt: skip
+                        *((f"columns.{r}", h) for r, h in parse_columns(column or []).items()),
+                        *((DIALECT_OPTIONS[name], given) for name, given in (
+                            ("footer_rows", footer_rows), ("end_at_blank", end_at_blank),
+                            ("delimiter", delimiter), ("decimal", decimal),
+                            ("thousands", thousands), ("encoding", encoding)))):  # fmt: skip
         _put(options, path, value)
     found = inspect_file(file, sidecar=meta, options=options)
     _show(found.to_dict(), lambda: text.inspection_text(found), as_json)

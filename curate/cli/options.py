@@ -22,9 +22,16 @@ from curate.records import normalise_grade
 from curate.weighting import Policy, Selection, load_policy
 
 __all__ = [
+    "DIALECT_OPTIONS",
     "DatasetId",
+    "Decimal",
+    "Delimiter",
+    "Encoding",
+    "EndAtBlank",
+    "FooterRows",
     "ForceFlag",
     "JsonFlag",
+    "Thousands",
     "parse_columns",
     "parse_conditions",
     "parse_pins",
@@ -36,6 +43,29 @@ ForceFlag = Annotated[
     bool, typer.Option(help="write into a non-empty folder (other files are left alone)")
 ]
 DatasetId = Annotated[str, typer.Argument(metavar="ID", help="dataset id")]
+
+# where the table sits and how a text file is written: the same options on add and inspect,
+# each filling the sidecar field named beside it
+Delimiter = Annotated[
+    str | None, typer.Option(help="text files: the delimiter (',', ';', tab, '|')")
+]
+Decimal = Annotated[str | None, typer.Option(help="text files: the decimal mark ('.' or ',')")]
+Thousands = Annotated[
+    str | None, typer.Option(help="text files: the thousands separator ('', '.', ',', ' ', \"'\")")
+]
+Encoding = Annotated[
+    str | None, typer.Option(help="text files: the encoding (utf-8, latin-1, cp1252, utf-16 ...)")
+]
+FooterRows = Annotated[
+    int | None,
+    typer.Option(help="lines (sheet rows) at the end to leave out: notes below the data"),
+]
+EndAtBlank = Annotated[
+    bool | None, typer.Option("--end-at-blank", help="the table ends at its first blank line (row)")
+]
+DIALECT_OPTIONS = {"delimiter": "dialect.delimiter", "decimal": "dialect.decimal",
+                   "thousands": "dialect.thousands", "encoding": "dialect.encoding",
+                   "footer_rows": "footer_rows", "end_at_blank": "end_at_blank"}  # fmt: skip
 
 _KEY = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 

@@ -149,6 +149,8 @@ def detect_number_format(cells: list[str], delimiter: str) -> tuple[str, str]:
             "point, which may be a decimal point or a thousands separator); state them in the "
             'sidecar: [dialect] decimal = "," and thousands = "." (or decimal = ".")'
         )
+    if delimiter != ",":
+        _refuse_a_guess(numeric, "," if commas else ".")
     if delimiter != "," and commas and not points:
         grouped = [c for c in numeric if "." in c]
         thousands = "." if grouped and all(_THOUSANDS_POINT.match(c) for c in grouped) else ""
@@ -157,6 +159,29 @@ def detect_number_format(cells: list[str], delimiter: str) -> tuple[str, str]:
     if delimiter != "," and grouped and all(_THOUSANDS_COMMA.match(c) for c in grouped):
         return ".", ","
     return ".", ""
+
+
+_ONE_GROUP = re.compile(r"^[+-]?[1-9]\d{0,2}[.,]\d{3}$")
+
+
+def _refuse_a_guess(numeric: list[str], mark: str) -> None:
+    """Raise AmbiguousNumbers when every number with ``mark`` reads two ways ('1.500': 1.5, or
+    1500 with a thousands separator) and no other number of the file tells which."""
+    marked = [c for c in numeric if mark in c]
+    if not marked or not all(_ONE_GROUP.match(c) for c in marked):
+        return
+    other = "." if mark == "," else ","
+    if any(other in c for c in numeric):
+        return  # '1.234,5' beside '1.500' says which mark is which
+    example = marked[0]
+    whole = example.replace(mark, "")
+    fraction = example.replace(mark, ".")
+    raise AmbiguousNumbers(
+        f"'{example}' may be {float(fraction):g} ('{mark}' a decimal mark) or {int(whole)} (a "
+        f"thousands separator), and no other number in the file tells which; state it: "
+        f"--decimal '{mark}' or --thousands '{mark}' ([dialect] decimal = \"{mark}\" or "
+        f'thousands = "{mark}" in the sidecar)'
+    )
 
 
 def numbers_as_written(cells: Any, decimal: str, thousands: str) -> Any:

@@ -24,7 +24,7 @@ def header_unit(header: str) -> tuple[str, str | None]:
         return header.strip(), None
     unit = found.group("unit").strip()
     try:
-        units.canonical_unit(unit)
+        units.canonical_unit(units.time_unit_spelling(unit))  # 'MIN' too, as a time column says
     except UnitError:
         return header.strip(), None  # "Value (replicate 1)": brackets, but not a unit
     return found.group("name").strip(), unit

@@ -138,6 +138,12 @@ class Sidecar(_Part):
     skip_rows: Annotated[int, Field(ge=0)] = Field(
         0, description="lines (sheet rows) at the top to leave out before the header"
     )
+    footer_rows: Annotated[int, Field(ge=0)] = Field(
+        0, description="lines (sheet rows) at the end to leave out: notes below the data"
+    )
+    end_at_blank: bool = Field(
+        False, description="the table ends at its first blank line (sheet row) below the data"
+    )
     dialect: SidecarDialect = SidecarDialect()
     observable: SidecarObservable
     time: SidecarTime
@@ -160,6 +166,8 @@ class SidecarLayout(BaseModel):
     sheet: str | int | None = None
     header_row: Annotated[int, Field(ge=1)] | None = None
     skip_rows: Annotated[int, Field(ge=0)] = 0
+    footer_rows: Annotated[int, Field(ge=0)] = 0
+    end_at_blank: bool = False
     dialect: SidecarDialect = SidecarDialect()
     columns: SidecarColumns = SidecarColumns()
     layout: Literal["auto", "long", "wide"] = "auto"

@@ -8,17 +8,15 @@ from __future__ import annotations
 
 import csv
 import dataclasses
-import datetime as dt
 import io
-from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from curate.errors import InputError, where
+from curate.ingest.clock import times_in_unit
 from curate.ingest.dialect import (
     AmbiguousNumbers,
     Dialect,
@@ -27,6 +25,7 @@ from curate.ingest.dialect import (
     detect_number_format,
     numbers_as_written,
 )
+from curate.ingest.workbook import arrange_header, read_sheet, workbook_sheets
 
 __all__ = [
     "DATA_SUFFIXES",
@@ -39,6 +38,9 @@ __all__ = [
 ]
 
 DATA_SUFFIXES = {".csv": ",", ".tsv": "\t", ".tab": "\t", ".xlsx": None}
+# read when named (add, inspect, a sidecar's data_file) but not taken from a folder by intake,
+# where .txt files are as often notes as data; the delimiter is detected (tab if in doubt)
+NAMED_SUFFIXES = {**DATA_SUFFIXES, ".txt": "\t"}
 MAX_FILE_BYTES = 512 * 1024 * 1024  # a single measured series is never this large
 _ZIP_MAGIC = b"PK\x03\x04"
 
@@ -56,6 +58,8 @@ class Table:
     sheet: str | None = None  # the workbook sheet read
     sheets: tuple[str, ...] = ()  # every sheet of the workbook
     header_line: int = 1  # file line or sheet row of the header
+    notes: tuple[str, ...] = ()  # what was made of the layout (title rows, merged headers, footer)
+    after_blank: int | None = None  # the first data row below a blank line (row), if any
 
     def __len__(self) -> int:
         return len(self.lines)
@@ -65,6 +69,35 @@ class Table:
         if self.row_word == "line":
             return where(self.path, line=int(self.lines[index]), column=column)
         return f"{self.path}, row {int(self.lines[index])}, column '{column}': "
+
+    def footer_hint(self, index: int) -> str:
+        """Give the hint for a bad row near the end or below a blank one: notes below the data."""
+        return footer_hint(len(self), index, self.after_blank, self.row_word,
+                           int(self.lines[index]))  # fmt: skip
+
+    def header_hint(self, wanted: str) -> str:
+        """Give the hint when a column is missing but a row below the header holds its name:
+        the header is lower than the first row (a title above it)."""
+        from curate.ingest.headers import match_column
+
+        for index in range(min(len(self), 10)):
+            texts = tuple(str(self.cells[c][index]).strip() for c in self.columns)
+            if match_column(wanted, texts) is not None:
+                line = int(self.lines[index])
+                return (f"; {self.row_word} {line} holds '{wanted}': if the rows above it are "
+                        f"a title, pass --header-row {line} (header_row = {line} in the sidecar)")  # fmt: skip
+        return ""
+
+    def times(self, column: str, unit: str) -> tuple[np.ndarray, str | None]:
+        """Give the time column in ``unit``: numbers as they are, or clock times and durations
+        (cells of a workbook, text such as ``0:15:00``) converted; and a note of what was
+        converted, for the dataset's provenance (None for plain numbers)."""
+        text = pd.Series(self.cells[column], dtype=object).str.strip()
+        converted = times_in_unit(text.to_numpy(dtype=object), unit,
+                                  lambda k: self.locate(k, column))  # fmt: skip
+        if converted is None:
+            return self.numbers(column, what="a time"), None
+        return converted
 
     def numbers(
         self, column: str, *, allow_empty: bool = False, what: str = "a number"
@@ -90,7 +123,7 @@ class Table:
                 problem = f"'{cell}' is not a number; expected {what}"
             if self.dialect is not None and "encoding" in self.dialect.detected:
                 problem += f" (the file is not UTF-8 and was read as {self.dialect.encoding})"
-            raise InputError(self.locate(index, column) + problem)
+            raise InputError(self.locate(index, column) + problem + self.footer_hint(index))
         values[empty] = np.nan
         return np.asarray(values, dtype=np.float64)
 
@@ -101,10 +134,10 @@ def _check_file(path: Path, max_bytes: int) -> str:
     if not path.is_file():
         raise InputError(f"{path}: not a regular file")
     suffix = path.suffix.lower()
-    if suffix not in DATA_SUFFIXES:
+    if suffix not in NAMED_SUFFIXES:
         raise InputError(
             f"{path}: unsupported file type '{path.suffix}'; expected "
-            + ", ".join(sorted(DATA_SUFFIXES))
+            + ", ".join(sorted(NAMED_SUFFIXES))
         )
     size = path.stat().st_size
     if size == 0:
@@ -125,6 +158,8 @@ class Layout:
     sheet: str | int | None = None  # a sheet's name, or its position counted from 1
     header_row: int | None = None  # the file line (sheet row) of the header
     skip_rows: int = 0  # lines (rows) above the header to leave out
+    footer_rows: int = 0  # lines (rows) below the data to leave out: notes, export stamps
+    end_at_blank: bool = False  # the table ends at its first blank line (row)
     delimiter: str | None = None
     decimal: str | None = None
     thousands: str | None = None
@@ -155,10 +190,10 @@ def table_from_bytes(
     if sheet is not None:
         layout = Layout(**{**layout.__dict__, "sheet": sheet})
     suffix = path.suffix.lower()
-    if suffix not in DATA_SUFFIXES:
+    if suffix not in NAMED_SUFFIXES:
         raise InputError(
             f"{path}: unsupported file type '{path.suffix}'; expected "
-            + ", ".join(sorted(DATA_SUFFIXES))
+            + ", ".join(sorted(NAMED_SUFFIXES))
         )
     if suffix == ".xlsx":
         if not raw.startswith(_ZIP_MAGIC):
@@ -167,20 +202,36 @@ def table_from_bytes(
                 "save it from the spreadsheet program as .xlsx, or rename a text "
                 "file to .csv"
             )
-        rows, lines, chosen, sheets = _xlsx_rows(path, raw, layout.sheet)
-        rows, lines = _from_header(path, rows, lines, layout, "row")
-        table = _to_table(path, rows, lines, "row", require_rows=require_rows)
-        return dataclasses.replace(table, sheet=chosen, sheets=sheets)
+        if layout.delimiter or layout.decimal or layout.thousands or layout.encoding:
+            raise InputError(
+                f"{path}: a dialect (delimiter, decimal, thousands, encoding) applies to text "
+                "files only; a workbook's cells hold numbers, not text: leave [dialect] out "
+                "of the sidecar"
+            )
+        book = read_sheet(path, raw, layout.sheet)
+        rows, lines = _from_header(path, book.rows, book.lines, layout, "row")
+        placed = layout.header_row is not None or layout.skip_rows > 0
+        sheet_of = dataclasses.replace(book, rows=rows, lines=lines)
+        rows, lines, notes = arrange_header(path, sheet_of, placed=placed)
+        rows, lines, more, after_blank = _to_footer(path, rows, lines, lines, layout, "row")
+        table = _to_table(path, rows, lines, "row", require_rows=require_rows,
+                          after_blank=after_blank)  # fmt: skip
+        return dataclasses.replace(table, sheet=book.name, sheets=book.names,
+                                   notes=tuple(notes + more))  # fmt: skip
     if layout.sheet is not None:
         raise InputError(f"{path}: a sheet applies to .xlsx files only")
-    default = DATA_SUFFIXES[suffix] or ","
+    default = NAMED_SUFFIXES[suffix] or ","
     if strict_text:
-        rows, lines = _text_rows(path, raw, default)
+        rows, lines, _ = _text_rows(path, raw, default)
         return _to_table(path, rows, lines, "line", require_rows=require_rows)
     dialect, text = _dialect(path, raw, default, layout)
-    rows, lines = _rows_of_text(path, text, dialect.delimiter)
+    rows, lines, starts = _rows_of_text(path, text, dialect.delimiter)
     rows, lines = _from_header(path, rows, lines, layout, "line")
-    table = _to_table(path, rows, lines, "line", require_rows=require_rows)
+    starts = starts[len(starts) - len(lines) :]
+    rows, lines, notes, after_blank = _to_footer(path, rows, lines, starts, layout, "line")
+    table = _to_table(path, rows, lines, "line", require_rows=require_rows,
+                      after_blank=after_blank)  # fmt: skip
+    table = dataclasses.replace(table, notes=tuple(notes))
     if layout.decimal is None and layout.thousands is None:
         cells = [str(c) for column in table.cells.values() for c in column[:2000]]
         try:
@@ -198,8 +249,9 @@ def table_from_bytes(
 
 def _dialect(path: Path, raw: bytes, default: str, layout: Layout) -> tuple[Dialect, str]:
     """Give the file's dialect (as given, else detected) and its text."""
+    wide = (layout.encoding or "").lower().replace("_", "-").startswith(("utf-16", "utf-32"))
     if (
-        b"\x00" in raw[:65536] and not raw.startswith((b"\xff\xfe", b"\xfe\xff"))
+        b"\x00" in raw[:65536] and not raw.startswith((b"\xff\xfe", b"\xfe\xff")) and not wide
     ) or raw.startswith(_ZIP_MAGIC):
         raise InputError(
             f"{path}: not a text file (binary content); expected "
@@ -215,7 +267,8 @@ def _dialect(path: Path, raw: bytes, default: str, layout: Layout) -> tuple[Dial
             detected.append("delimiter")
     if len(delimiter) != 1:
         raise InputError(f"{path}: dialect.delimiter '{layout.delimiter}': expected one character")
-    dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=layout.decimal or ".",
+    decimal = layout.decimal or ("," if layout.thousands == "." else ".")  # '1.234,5'
+    dialect = Dialect(encoding=encoding, delimiter=delimiter, decimal=decimal,
                       thousands=layout.thousands or "", detected=tuple(detected))  # fmt: skip
     if dialect.thousands and dialect.thousands == dialect.decimal:
         raise InputError(
@@ -242,7 +295,8 @@ def _from_header(path: Path, rows: list[list[str]], lines: list[int], layout: La
     return [rows[k] for k in keep], [lines[k] for k in keep]
 
 
-def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]], list[int]]:
+def _text_rows(path: Path, raw: bytes, delimiter: str
+               ) -> tuple[list[list[str]], list[int], list[int]]:  # fmt: skip
     if b"\x00" in raw[:65536] or raw.startswith(_ZIP_MAGIC):
         raise InputError(
             f"{path}: not a text file (binary content); expected "
@@ -257,157 +311,91 @@ def _text_rows(path: Path, raw: bytes, delimiter: str) -> tuple[list[list[str]],
     return _rows_of_text(path, text, delimiter)
 
 
-def _rows_of_text(path: Path, text: str, delimiter: str) -> tuple[list[list[str]], list[int]]:
+def _rows_of_text(path: Path, text: str, delimiter: str
+                  ) -> tuple[list[list[str]], list[int], list[int]]:  # fmt: skip
+    """Give the rows that hold a cell, the line each ends on and the line each starts on
+    (quoted fields may span lines; RFC 4180 section 2)."""
     reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
     rows: list[list[str]] = []
     lines: list[int] = []
+    starts: list[int] = []
+    previous = 0
     try:
         for row in reader:
+            start, previous = previous + 1, reader.line_num
             if not row or all(not cell.strip() for cell in row):
                 continue
             rows.append(row)
             lines.append(reader.line_num)
+            starts.append(start)
     except csv.Error as err:
         raise InputError(where(path, line=reader.line_num) + f"unreadable row ({err})") from None
-    return rows, lines
+    return rows, lines, starts
 
 
-def _cell_text(value: object) -> str:
-    if value is None:
-        return ""
-    if isinstance(value, bool):
-        return "true" if value else "false"
-    if isinstance(value, float):
-        return repr(value)
-    if isinstance(value, dt.datetime | dt.date | dt.time):
-        return value.isoformat()
-    return str(value)
+def footer_hint(count: int, index: int, after_blank: int | None, row_word: str, line: int) -> str:
+    """Give the hint for a bad data row ``index`` of ``count`` that may be a note below the data."""
+    if after_blank is not None and index >= after_blank:
+        return (f"; if the {row_word}s below the blank one are notes, pass --end-at-blank "
+                "(end_at_blank = true in the sidecar)")  # fmt: skip
+    if index >= count - 3:
+        rest = count - index
+        return (f"; if {row_word} {line} and below are notes under the data, pass "
+                f"--footer-rows {rest} (footer_rows = {rest} in the sidecar)")  # fmt: skip
+    return ""
 
 
-_UNREADABLE = (
-    "not a readable XLSX workbook (damaged, or another format with an .xlsx name); save it "
-    "again as .xlsx, or as .csv"
-)
-
-
-class _Workbook:
-    """A workbook's sheet names and each sheet's rows as (row number, cell values).
-
-    python-calamine (Rust) reads it where it can: several times faster than openpyxl, cached
-    values of formulas; openpyxl, pandas' own engine for the format, reads what calamine
-    refuses. Either gives the same text cells (a whole number is written without '.0').
-    """
-
-    def __init__(self, path: Path, raw: bytes, *, engine: str = "auto") -> None:
-        self.path = path
-        self._calamine: Any = None
-        self._openpyxl: Any = None
-        if engine in ("auto", "calamine"):
-            try:
-                from python_calamine import CalamineWorkbook
-
-                self._calamine = CalamineWorkbook.from_filelike(io.BytesIO(raw))
-                self.names = tuple(str(n) for n in self._calamine.sheet_names)
-                self.engine = "calamine"
-                return
-            except Exception:  # calamine refuses it (or is not installed): openpyxl tries
-                if engine == "calamine":
-                    raise InputError(f"{path}: {_UNREADABLE}") from None
-        import zipfile
-
-        import openpyxl
-        from openpyxl.utils.exceptions import InvalidFileException
-
-        try:
-            self._openpyxl = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True)
-        except (zipfile.BadZipFile, InvalidFileException, KeyError, OSError, ValueError):
-            raise InputError(f"{path}: {_UNREADABLE}") from None
-        self.names = tuple(str(n) for n in self._openpyxl.sheetnames)
-        self.engine = "openpyxl"
-
-    def rows(self, name: str) -> Iterator[tuple[int, list[str]]]:
-        """Give each row of a sheet that holds a cell: its number (from 1) and its text cells."""
-        if self._calamine is not None:
-            sheet = self._calamine.get_sheet_by_name(name)
-            first = sheet.start[0] if sheet.start else 0
-            values_by_row: Iterable[tuple[int, Any]] = (
-                (first + k + 1, values)
-                for k, values in enumerate(sheet.to_python(skip_empty_area=False))
+def _to_footer(path: Path, rows: list[list[str]], lines: list[int], starts: list[int],
+               layout: Layout, row_word: str
+               ) -> tuple[list[list[str]], list[int], list[str], int | None]:  # fmt: skip
+    """Give the rows without the footer the layout names, what was left out, and the first
+    data row below a blank line (None if none is)."""
+    notes: list[str] = []
+    if layout.footer_rows < 0:
+        raise InputError(f"{path}: footer_rows counts from 0")
+    blank = next((k for k in range(2, len(rows)) if starts[k] > lines[k - 1] + 1), None)
+    if layout.end_at_blank and blank is not None:
+        notes.append(f"the table ends at the blank {row_word} above {row_word} {lines[blank]}; "
+                     f"{len(rows) - blank} {row_word}(s) below it were left out")  # fmt: skip
+        rows, lines, blank = rows[:blank], lines[:blank], None
+    if layout.footer_rows:
+        if layout.footer_rows >= len(rows) - 1:
+            raise InputError(
+                f"{path}: footer_rows = {layout.footer_rows} leaves no data rows (the table has "
+                f"{len(rows) - 1})"
             )
-        else:
-            values_by_row = enumerate(self._openpyxl[name].iter_rows(values_only=True), start=1)
-        for number, values in values_by_row:
-            cells = [_cell_text(_whole(v)) for v in values]
-            while cells and cells[-1] == "":
-                cells.pop()
-            if cells:
-                yield number, cells
-
-    def close(self) -> None:
-        """Release the file."""
-        if self._openpyxl is not None:
-            self._openpyxl.close()
+        notes.append(f"the last {layout.footer_rows} {row_word}(s), from {row_word} "
+                     f"{lines[-layout.footer_rows]}, are a footer and were left out")  # fmt: skip
+        rows, lines = rows[: -layout.footer_rows], lines[: -layout.footer_rows]
+        if blank is not None and blank >= len(rows):
+            blank = None
+    return rows, lines, notes, (blank - 1 if blank is not None else None)
 
 
-def _whole(value: object) -> object:
-    """Give a cell value as openpyxl gives it: a whole float as an int (calamine reads every
-    number as a float; openpyxl gives 1 for a cell holding 1), a date as midnight of that day."""
-    if isinstance(value, float) and value.is_integer() and abs(value) < 2**53:
-        return int(value)
-    if isinstance(value, dt.date) and not isinstance(value, dt.datetime):
-        return dt.datetime(value.year, value.month, value.day)  # as openpyxl gives a date cell
-    return value
+def _likely_header(rows: list[list[str]], lines: list[int]) -> int:
+    """Give the line of the first row of names (no numbers) above a row as wide holding a
+    number: where the header likely is below title rows (for the hint only)."""
+    for k in range(1, min(len(rows) - 1, 12)):
+        names = [c.strip() for c in rows[k]]
+        below = [c.strip() for c in rows[k + 1]]
+        wide = len([c for c in below if c]) == len(names) and any(_numeric(c) for c in below)
+        if all(names) and len(names) > 1 and wide and not any(_numeric(c) for c in names):
+            return lines[k]
+    return lines[1]
 
 
-def _xlsx_rows(path: Path, raw: bytes, sheet: str | int | None, *, engine: str = "auto"
-               ) -> tuple[list[list[str]], list[int], str, tuple[str, ...]]:  # fmt: skip
-    book = _Workbook(path, raw, engine=engine)
+def _numeric(text: str) -> bool:
     try:
-        names = book.names
-        listed = ", ".join(repr(s) for s in names)
-        if sheet is None:
-            filled = [n for n in names if next(book.rows(n), None) is not None]
-            if len(filled) > 1:
-                raise InputError(
-                    f"{path}: the workbook has {len(filled)} sheets with data ("
-                    + ", ".join(repr(s) for s in filled)
-                    + "); name one with --sheet or sheet = ... in the sidecar (a name, or its "
-                    "position from 1)"
-                )
-            chosen = filled[0] if filled else names[0]
-        elif isinstance(sheet, int) or (str(sheet).isdigit() and str(sheet) not in names):
-            position = int(sheet)
-            if not 1 <= position <= len(names):
-                raise InputError(
-                    f"{path}: no sheet {position}; the workbook has {len(names)} ({listed})"
-                )
-            chosen = names[position - 1]
-        elif sheet in names:
-            chosen = str(sheet)
-        else:
-            raise InputError(f"{path}: no sheet named '{sheet}'; the workbook has {listed}")
-        rows: list[list[str]] = []
-        lines: list[int] = []
-        for number, cells in book.rows(chosen):
-            rows.append(cells)
-            lines.append(number)
-    finally:
-        book.close()
-    return rows, lines, chosen, names
-
-
-def workbook_sheets(path: Path) -> list[tuple[str, int]]:
-    """Give each sheet of a workbook with its number of rows that hold a cell."""
-    book = _Workbook(path, path.read_bytes())
-    try:
-        return [(name, sum(1 for _ in book.rows(name))) for name in book.names]
-    finally:
-        book.close()
+        float(text.replace(",", "."))
+    except ValueError:
+        return False
+    return True
 
 
 def _to_table(
-    path: Path, rows: list[list[str]], lines: list[int], row_word: str, *, require_rows: bool
-) -> Table:
+    path: Path, rows: list[list[str]], lines: list[int], row_word: str, *, require_rows: bool,
+    after_blank: int | None = None,
+) -> Table:  # fmt: skip
     if not rows:
         raise InputError(f"{path}: the file holds no rows; expected a header row and data rows")
     header = [cell.strip() for cell in rows[0]]
@@ -429,19 +417,19 @@ def _to_table(
         raise InputError(f"{path}: the file has a header but no data rows")
     width = len(header)
     if body and len([c for c in body[0] if c.strip()]) > width and width == 1:
+        line = _likely_header(rows, lines)
         raise InputError(
             f"{path}, {row_word} {lines[1]}: {len(body[0])} cells, but the header ({row_word} "
             f"{lines[0]}: '{header[0][:40]}') has 1 column; if that is a title above the header, "
-            f"pass --header-row {lines[1]} (header_row = {lines[1]} in the sidecar)"
+            f"pass --header-row {line} (header_row = {line} in the sidecar)"
         )
-    for row, line in zip(body, lines[1:], strict=True):
-        if len(row) > width and any(cell.strip() for cell in row[width:]):
+    for index, (row, line) in enumerate(zip(body, lines[1:], strict=True)):
+        if (len(row) > width and any(cell.strip() for cell in row[width:])) or (
+            len(row) < width and row_word == "line"
+        ):
             raise InputError(
                 f"{path}, {row_word} {line}: {len(row)} cells, but the header has {width} columns"
-            )
-        if len(row) < width and row_word == "line":
-            raise InputError(
-                f"{path}, {row_word} {line}: {len(row)} cells, but the header has {width} columns"
+                + footer_hint(len(body), index, after_blank, row_word, line)
             )
     padded = [(row + [""] * width)[:width] for row in body]
     matrix = np.array(padded, dtype=object).reshape(len(body), width)
@@ -453,4 +441,5 @@ def _to_table(
         lines=np.asarray(lines[1:], dtype=np.int64),
         row_word=row_word,
         header_line=int(lines[0]),
+        after_blank=after_blank,
     )

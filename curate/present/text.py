@@ -332,6 +332,7 @@ def inspection_text(found: FileInspection) -> Group:
             table.add_row(column["header"], column["name"], column["unit"] or "-",
                           column["role"] or "(kept as an extra column)")  # fmt: skip
         lines.append(table)
+    lines += [Text(f"layout: {note}") for note in found.layout_notes]
     if found.would_add is not None:
         w = found.would_add
         lines.append(Text(
@@ -339,6 +340,8 @@ def inspection_text(found: FileInspection) -> Group:
             + (" (relative)" if w["relative"] else "")
             + f", time in {w['time_unit']}, {w['points']} points, lab {w['lab']}"
         ))  # fmt: skip
+        if w.get("time_cells"):
+            lines.append(Text(f"  {w['time_cells']}"))
         lines += [Text(f"  warning: {message}") for message in w["warnings"]]
     elif found.would_refuse is not None:
         lines.append(Text(f"add would refuse: {found.would_refuse}"))
