@@ -5,6 +5,7 @@ from __future__ import annotations
 import copy
 import datetime as dt
 import hashlib
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -13,6 +14,13 @@ import numpy as np
 
 from curate import units
 from curate.errors import InputError
+from curate.ingest.censoring import (
+    CensoringRules,
+    censoring_codes,
+    censoring_note,
+    refuse_censored_cells,
+    value_column,
+)
 from curate.ingest.headers import header_unit, match_column
 from curate.ingest.plausibility import check_series, typical_magnitude
 from curate.ingest.sidecar import (
@@ -78,8 +86,9 @@ class Draft:
 
     @property
     def magnitude(self) -> float:
-        """Give the series' median absolute value."""
-        return typical_magnitude(self.arrays.value)
+        """Give the series' median absolute value (of its observed points: a limit is no value)."""
+        observed = self.arrays.observed().value
+        return typical_magnitude(observed if len(observed) else self.arrays.value)
 
 
 def find_sidecar(data_path: Path) -> Path | None:
@@ -193,6 +202,10 @@ def _arrays_from_table(
     table: Table, meta: Sidecar
 ) -> tuple[dict[str, np.ndarray | None], tuple[str, ...], dict[str, Any]]:
     columns = meta.columns
+    rules = CensoringRules.from_section(
+        meta.censoring, value_unit=meta.observable.unit, origin=str(table.path)
+    )
+    written: Counter[str] = Counter()
 
     def find(name: str) -> str | None:
         return match_column(name, table.columns)
@@ -217,11 +230,13 @@ def _arrays_from_table(
                 "(columns.value in the sidecar)"
             )
         time = table.numbers(time_col, what="a time")
-        value = table.numbers(value_col, what="a measured value")
+        read = value_column(table, value_col, rules, what="a measured value")
+        value, censored, written = read.values, read.codes, read.written
         sd = n = replicate = None
         labels: tuple[str, ...] = ()
         used = {time_col, value_col}
         if (sd_col := find(columns.sd)) is not None:
+            refuse_censored_cells(table, sd_col, rules, role="sd")
             sd = table.numbers(sd_col, allow_empty=True, what="an uncertainty (or an empty cell)")
             negative = np.flatnonzero(sd < 0)
             if len(negative):
@@ -254,11 +269,14 @@ def _arrays_from_table(
         rest = [c for c in table.columns if c not in used]
         if rest:
             extras["extra_columns"] = {c: [str(x) for x in table.cells[c]] for c in rest}
+        if censored is not None:
+            extras["censoring"] = censoring_note(censored, written)
         return (
-            {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n},
+            {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n,
+             "censored": censored},
             labels,
             extras,
-        )
+        )  # fmt: skip
     # wide: one column per replicate, empty cells are missing points
     names = meta.columns.replicates
     if names is None:
@@ -276,13 +294,19 @@ def _arrays_from_table(
             f"'{columns.value}' column or one column per replicate"
         )
     time = table.numbers(time_col, what="a time")
-    times, values, codes_list = [], [], []
+    times, values, codes_list, censored_list = [], [], [], []
     for code, col in enumerate(rep_cols):
-        column = table.numbers(col, allow_empty=True, what="a measured value (or an empty cell)")
+        read = value_column(
+            table, col, rules, allow_empty=True, what="a measured value (or an empty cell)"
+        )
+        column = read.values
         present = np.isfinite(column)
         times.append(time[present])
         values.append(column[present])
         codes_list.append(np.full(int(present.sum()), code, dtype=np.int64))
+        codes = np.zeros(len(column), np.int8) if read.codes is None else read.codes
+        censored_list.append(codes[present])
+        written.update(read.written)
     value = np.concatenate(values)
     if len(value) == 0:
         raise InputError(f"{table.path}: every value cell is empty")
@@ -292,7 +316,12 @@ def _arrays_from_table(
         "sd": None,
         "replicate": np.concatenate(codes_list),
         "n": None,
+        "censored": None,
     }
+    all_censored = np.concatenate(censored_list)
+    if all_censored.any():
+        order_input["censored"] = all_censored
+        extras["censoring"] = censoring_note(all_censored, written)
     extras["layout"] = "wide"
     return order_input, tuple(rep_cols), extras
 
@@ -461,13 +490,18 @@ def draft_from_arrays(
     sd: np.ndarray | None = None,
     replicate: np.ndarray | None = None,
     n: np.ndarray | None = None,
+    censored: np.ndarray | None = None,
     replicate_labels: tuple[str, ...] = (),
     annotations: dict[str, Any] | None = None,
     actor: str,
     now: dt.datetime | None = None,
     origin: str = "arrays",
 ) -> Draft:
-    """Give the validated draft for arrays already in memory (the API and the PEtab reader)."""
+    """Give the validated draft for arrays already in memory (the API and the PEtab reader).
+
+    ``censored``: per point '' (observed), 'below' or 'above' (or the codes 0, 1, 2); the
+    value of a censored point is its limit.
+    """
     meta = validate_sidecar(metadata, origin=origin, sidecar=None)
     arrays: dict[str, np.ndarray | None] = {}
     for name, given in (("time", time), ("value", value)):
@@ -505,11 +539,18 @@ def draft_from_arrays(
                 f"{origin}, field 'sd': point {bad + 1} is {sd_data[bad]:g}; "
                 "expected a finite uncertainty >= 0"
             )
+    extras = dict(annotations or {})
+    arrays["censored"] = None
+    if censored is not None:
+        codes = censoring_codes(censored, length=len(arrays["time"]), origin=origin)
+        if codes.any():
+            arrays["censored"] = codes
+            extras["censoring"] = censoring_note(codes, Counter(arrays=int(codes.astype(bool).sum())))
     return _assemble(
         meta,
         arrays,
         replicate_labels,
-        annotations or {},
+        extras,
         actor=actor,
         now=now,
         origin=origin,
@@ -579,6 +620,7 @@ def _assemble(
             sd=sd,
             replicate=take("replicate"),
             n=take("n"),
+            censored=take("censored"),
         )
 
     arrays = converted(rounded=True)
@@ -632,15 +674,17 @@ def _assemble(
             assigned_by=actor,
             assigned_at=now,
         )
+    observed = arrays.observed()  # a censored point's value is a limit, not a measurement
+    keep = ~arrays.censored_mask()
     warnings = check_series(
-        arrays.value,
-        arrays.sd,
+        observed.value,
+        observed.sd,
         uncertainty=uncertainty.type if uncertainty else None,
         nonnegative=value_unit.dimensionality in _NONNEGATIVE and not relative,
-        time=given_time,
+        time=given_time[keep],
         time_unit=time_unit.original,
         replicates=arrays.replicate is not None,
-        sd_as_given=given_sd,
+        sd_as_given=None if given_sd is None else given_sd[keep],
         sd_unit=value_unit.original if sd_in_value_units else "",
     )
     record = DatasetRecord(

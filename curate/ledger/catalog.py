@@ -436,9 +436,14 @@ class Ledger:
         sd: Sequence[float] | np.ndarray | None = None,
         replicate: Sequence[int] | np.ndarray | None = None,
         conditions: dict[str, Any] | None = None,
+        censored: Sequence[str | int] | np.ndarray | None = None,
         **metadata: Any,
     ) -> Draft:
-        """Give the validated draft of arrays in memory (the other fields as in a sidecar)."""
+        """Give the validated draft of arrays in memory (the other fields as in a sidecar).
+
+        ``censored``: per point '' (observed), 'below' or 'above' its limit, which is then the
+        point's ``value``.
+        """
         meta: dict[str, Any] = {
             "observable": {"id": observable, "unit": unit, **metadata.pop("observable", {})},
             "time": {"unit": time_unit},
@@ -458,6 +463,7 @@ class Ledger:
             sd=None if sd is None else np.asarray(sd),
             replicate=rep,
             replicate_labels=labels,
+            censored=None if censored is None else np.asarray(censored, dtype=object),
             actor=self.actor,
         )
 
