@@ -73,7 +73,8 @@ class CensoringRules:
             if own_unit is None:
                 return float(number)
             try:
-                return units.to_unit(float(number), own_unit, value_unit)
+                converted = units.to_unit(float(number), own_unit, value_unit)
+                return float(units.round_significant(np.array([converted]))[0])
             except Exception:
                 raise InputError(
                     f"{origin}, field '{field}': the limit's unit '{own_unit}' cannot be "

@@ -447,6 +447,8 @@ def consistency_text(result: ConsistencyReport) -> Group:
                 )
             )
         parts.append(Text(""))
+    for note in result.notes:
+        parts.append(Text(f"note: {note}"))
     if result.labs:
         parts.append(Text("labs against the consensus", style="bold"))
         table = plain_table(("lab", "Birge R", "dof", "grades", "flag"), right=("Birge R", "dof"))
