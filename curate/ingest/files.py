@@ -199,11 +199,11 @@ def _duration_seconds(raw: str | float | None, *, origin: str) -> float | None:
 
 
 def _arrays_from_table(
-    table: Table, meta: Sidecar
+    table: Table, meta: Sidecar, meta_origin: str | None = None
 ) -> tuple[dict[str, np.ndarray | None], tuple[str, ...], dict[str, Any]]:
     columns = meta.columns
     rules = CensoringRules.from_section(
-        meta.censoring, value_unit=meta.observable.unit, origin=str(table.path)
+        meta.censoring, value_unit=meta.observable.unit, origin=meta_origin or str(table.path)
     )
     written: Counter[str] = Counter()
 
@@ -349,7 +349,7 @@ def build_draft(
         )
     table, merged, found = read_with_layout(path, merged, sidecar_path)
     meta = validate_sidecar(merged, origin=str(path), sidecar=sidecar_path)
-    raw_arrays, labels, extras = _arrays_from_table(table, meta)
+    raw_arrays, labels, extras = _arrays_from_table(table, meta, str(sidecar_path or path))
     extras.update(found)
     raw = path.read_bytes()
     return _assemble(

@@ -490,7 +490,7 @@ class Ledger:
         if duplicate is None:
             context.check_unit(rec, draft.origin)
             context.check_conditions(rec.conditions, draft.origin)
-        magnitude = typical_magnitude(draft.arrays.value)
+        magnitude = draft.magnitude  # of the observed points: a limit is no value
         extra = check_against_others(
             observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
             conditions=conditions, content_hash=rec.content_hash, magnitude=magnitude,
