@@ -310,7 +310,7 @@ class SeriesArrays:
         """Give True for every censored point (all False when none is)."""
         if self.censored is None:
             return np.zeros(len(self.time), dtype=bool)
-        return np.asarray(self.censored) != OBSERVED
+        return np.asarray(np.asarray(self.censored) != OBSERVED, dtype=bool)
 
     def observed(self) -> SeriesArrays:
         """Give the arrays of the observed points only (itself when none is censored).

@@ -131,12 +131,27 @@ CASES = [
         "line 3, column 'value': 'BLQ' is not a number; expected a measured value (a value below "
         "a limit is written '<0.5'; a lab's own word for it is named with --censored-token",
     ),
-    ("comparison without limit", "q.csv", "time,value\n0,1\n1,<\n", [],
-     "line 3, column 'value': '<' names no limit; expected a comparison with its limit, e.g. '<0.5'"),  # fmt: skip
-    ("two comparison marks", "q2.csv", "time,value\n0,1\n1,<<2\n", [],
-     "line 3, column 'value': '<<2' has two comparison marks"),  # fmt: skip
-    ("comparison with a word", "q3.csv", "time,value\n0,1\n1,<abc\n", [],
-     "line 3, column 'value': 'abc' is not a number"),  # fmt: skip
+    (
+        "comparison without limit",
+        "q.csv",
+        "time,value\n0,1\n1,<\n",
+        [],
+        "line 3, column 'value': '<' names no limit; expected a comparison with its limit, e.g. '<0.5'",
+    ),
+    (
+        "two comparison marks",
+        "q2.csv",
+        "time,value\n0,1\n1,<<2\n",
+        [],
+        "line 3, column 'value': '<<2' has two comparison marks",
+    ),
+    (
+        "comparison with a word",
+        "q3.csv",
+        "time,value\n0,1\n1,<abc\n",
+        [],
+        "line 3, column 'value': 'abc' is not a number",
+    ),
     (
         "censored sd",
         "r.csv",
@@ -248,11 +263,17 @@ SIDECAR_CASES = [
         SIDECAR + '[censoring]\ntokens = ["n.d."]\nlimit = 0.5\nunit = "s"\n',
         "field 'censoring.limit': the limit's unit 's' cannot be expressed in the values' unit",
     ),
-    ("censoring limit not a number", SIDECAR + '[censoring]\nlimit = "low"\n',
-     "field 'censoring.limit'"),  # fmt: skip
+    (
+        "censoring limit not a number",
+        SIDECAR + '[censoring]\nlimit = "low"\n',
+        "field 'censoring.limit'",
+    ),
     ("censoring limit infinite", SIDECAR + "[censoring]\nlimit = inf\n", "field 'censoring.limit'"),
-    ("unknown censoring field", SIDECAR + "[censoring]\nlod = 1\n",
-     "field 'censoring.lod': unknown field"),  # fmt: skip
+    (
+        "unknown censoring field",
+        SIDECAR + "[censoring]\nlod = 1\n",
+        "field 'censoring.lod': unknown field",
+    ),
 ]
 
 

@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy.special import log_ndtr
 
-__all__ = ["censoring_codes", "censored_terms", "fit_points", "residuals_with_censoring"]
+__all__ = ["censored_terms", "censoring_codes", "fit_points", "residuals_with_censoring"]
 
 _CODE = {"below": 1, "above": 2}
 
@@ -56,7 +56,9 @@ def residuals_with_censoring(residual: np.ndarray, codes: np.ndarray) -> np.ndar
     return result
 
 
-def fit_points(table: pd.DataFrame, mode: Literal["likelihood", "omit"]) -> tuple[pd.DataFrame, list[str]]:
+def fit_points(
+    table: pd.DataFrame, mode: Literal["likelihood", "omit"]
+) -> tuple[pd.DataFrame, list[str]]:
     """Give the rows a fit uses under the policy's ``censored`` mode, and a note saying so."""
     codes = censoring_codes(table)
     count = int(np.count_nonzero(codes))
@@ -64,8 +66,8 @@ def fit_points(table: pd.DataFrame, mode: Literal["likelihood", "omit"]) -> tupl
         return table, []
     if mode == "omit":
         kept = table.loc[codes == 0].reset_index(drop=True)
-        return kept, [f"{count} censored points left out of the fit (policy: censored = \"omit\")"]
+        return kept, [f'{count} censored points left out of the fit (policy: censored = "omit")']
     return table, [
         f"{count} censored points enter as the probability beyond their limit "
-        "(censored-normal likelihood; policy: censored = \"likelihood\")"
+        '(censored-normal likelihood; policy: censored = "likelihood")'
     ]

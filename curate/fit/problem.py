@@ -33,8 +33,8 @@ import pandas as pd
 
 from curate.errors import InputError
 from curate.fit import likelihood
-from curate.fit.censored import censoring_codes, residuals_with_censoring
 from curate.fit.backends import ModelBackend, PointEvaluation, PythonFunction
+from curate.fit.censored import censoring_codes, residuals_with_censoring
 from curate.fit.spec import ParameterSpec
 
 __all__ = ["FitProblem"]
@@ -87,7 +87,7 @@ class FitProblem:
         if self.noise_model and self.censored.any():
             raise InputError(
                 f"{int(np.count_nonzero(self.censored))} censored points: a PEtab problem's "
-                "likelihood has no censored term in curate; set censored = \"omit\" in the "
+                'likelihood has no censored term in curate; set censored = "omit" in the '
                 "policy to fit without them"
             )
         self._observed = self.censored == 0

@@ -61,9 +61,7 @@ class CensoringRules:
     origin: str = ""  # where the rules were written, for messages
 
     @classmethod
-    def from_section(
-        cls, section: Any, *, value_unit: str, origin: str
-    ) -> CensoringRules:
+    def from_section(cls, section: Any, *, value_unit: str, origin: str) -> CensoringRules:
         """Give the rules of a validated sidecar ``[censoring]`` section (or None: no tokens)."""
         if section is None:
             return cls(origin=origin)
@@ -84,7 +82,9 @@ class CensoringRules:
 
         return cls(
             tokens=tuple(str(t).strip() for t in section.tokens if str(t).strip()),
-            limit=None if section.limit is None else in_value_unit(section.limit, "censoring.limit"),
+            limit=None
+            if section.limit is None
+            else in_value_unit(section.limit, "censoring.limit"),
             limits={
                 column: in_value_unit(number, f"censoring.limits.{column}")
                 for column, number in section.limits.items()
@@ -164,8 +164,11 @@ def value_column(
                 table.locate(first, column)
                 + f"'{token}' marks a value below a limit, but no limit is stated; give it "
                 "with --detection-limit X or 'limit = X' in the sidecar's [censoring] section"
-                + (f" ('limits.{column}' for this column alone)" if column in rules.limits or
-                   rules.limits else "")
+                + (
+                    f" ('limits.{column}' for this column alone)"
+                    if column in rules.limits or rules.limits
+                    else ""
+                )
             )
         for index in np.flatnonzero(tokened):
             written[folded[str(cells[index]).casefold()]] += 1
@@ -174,8 +177,8 @@ def value_column(
             token_limit[int(index)] = limit
     stand_in = dataclasses.replace(table, cells={**table.cells, column: cells})
     values = _numbers(stand_in, column, allow_empty, what)
-    for index, limit in token_limit.items():
-        values[index] = limit
+    for position, stated in token_limit.items():
+        values[position] = stated
     return CensoredColumn(values, codes if (codes != OBSERVED).any() else None, written)
 
 

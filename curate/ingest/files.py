@@ -545,7 +545,9 @@ def draft_from_arrays(
         codes = censoring_codes(censored, length=len(arrays["time"]), origin=origin)
         if codes.any():
             arrays["censored"] = codes
-            extras["censoring"] = censoring_note(codes, Counter(arrays=int(codes.astype(bool).sum())))
+            extras["censoring"] = censoring_note(
+                codes, Counter(arrays=int(codes.astype(bool).sum()))
+            )
     return _assemble(
         meta,
         arrays,

@@ -84,7 +84,9 @@ class SidecarCensoring(_Part):
         default_factory=list, description="cells meaning 'below the limit': 'n.d.', 'LOD', 'BLQ'"
     )
     limit: float | None = Field(
-        None, allow_inf_nan=False, description="the limit a token stands for (value unit unless 'unit')"
+        None,
+        allow_inf_nan=False,
+        description="the limit a token stands for (value unit unless 'unit')",
     )
     unit: str | None = Field(None, description="unit of the limits (default: the values' unit)")
     limits: dict[str, Annotated[float, Field(allow_inf_nan=False)]] = Field(

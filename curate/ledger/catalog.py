@@ -29,7 +29,7 @@ from curate import units
 from curate.errors import InputError, NotFoundError
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.petab import PetabImport, read_petab_import
-from curate.ingest.plausibility import Neighbour, check_against_others, typical_magnitude
+from curate.ingest.plausibility import Neighbour, check_against_others
 from curate.ledger.problems import (
     ProblemOutcome,
     ProblemSummary,

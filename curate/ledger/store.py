@@ -329,7 +329,9 @@ class Store:
     def put_series(self, content_hash: str, arrays: SeriesArrays) -> None:
         """Store the arrays under their content hash (a no-op if already there)."""
         blobs = {
-            name: (None if a is None or (name == "censored" and not a.any()) else array_bytes(name, a))
+            name: (
+                None if a is None or (name == "censored" and not a.any()) else array_bytes(name, a)
+            )
             for name, a in arrays.named().items()
         }
         self.db.execute(
