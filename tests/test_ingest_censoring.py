@@ -60,6 +60,10 @@ def test_cli_stores_censored_points_with_kind_and_limit(cli, tmp_path):
         "below": 3, "above": 2, "written_as": {"<": 1, "<=": 1, ">": 1, "n.d.": 1, "\u2265": 1}
     }  # fmt: skip
     assert cli("verify").code == 0
+    points = catalog.points(version.id)
+    assert points["censored"].tolist() == ["below", "", "below", "above", "", "below", "above"]
+    shown = cli("show", version.id).out
+    assert "censored: the point lies below (above) its limit" in shown
     # the plausibility checks and the typical magnitude read the observed points only
     assert version.record.annotations["typical_magnitude"] == pytest.approx(1.85)
 

@@ -43,6 +43,7 @@ from curate.ledger.provenance import ChainHead, head_problem, text_sha256
 from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
+    CENSORED_WORDS,
     GRADES,
     ConditionValue,
     DatasetRecord,
@@ -792,7 +793,8 @@ class Ledger:
         return self._store.series(self.show(dataset_id, version).record.content_hash)
 
     def points(self, dataset_id: str, version: int | None = None) -> pd.DataFrame:
-        """Give a dataset version's points as a DataFrame (canonical units, time-sorted)."""
+        """Give a dataset version's points as a DataFrame (canonical units, time-sorted; a
+        ``censored`` column when some point is censored: 'below' or 'above' the limit in value)."""
         found = self.show(dataset_id, version)
         arrays = self._store.series(found.record.content_hash)
         frame = pd.DataFrame({"time": arrays.time, "value": arrays.value})
@@ -803,6 +805,9 @@ class Ledger:
             frame["replicate"] = labels[arrays.replicate] if len(labels) else arrays.replicate
         if arrays.n is not None:
             frame["n"] = arrays.n
+        if arrays.censored is not None and arrays.censored.any():
+            # 'below' / 'above': value is the limit, not a measurement
+            frame["censored"] = [CENSORED_WORDS[int(code)] for code in arrays.censored]
         frame.attrs.update(
             {
                 "dataset_id": found.id,

@@ -223,6 +223,8 @@ def show_text(
     parts.append(table)
     if len(points) > limit:
         parts.append(Text(f"… {len(points) - limit} more points (--points shows all)"))
+    if "censored" in points.columns:
+        parts.append(Text("censored: the point lies below (above) its limit, shown as its value"))
     return Group(*parts)
 
 
