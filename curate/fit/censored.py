@@ -45,6 +45,19 @@ def censored_terms(z: np.ndarray, codes: np.ndarray) -> np.ndarray:
     return np.asarray(-log_ndtr(signed), dtype=float)
 
 
+def censored_curvature(z: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """Give d^2/dz^2 of each point's term: 1 for an observed point (0.5 z^2), and for a
+    censored one lambda (lambda + u) with u = z (below) or -z (above) and lambda = phi(u) /
+    Phi(u), the inverse Mills ratio (the second derivative of -log Phi(u))."""
+    curvature = np.ones(len(z))
+    censored = codes != 0
+    if censored.any():
+        u = np.where(codes[censored] == 2, -z[censored], z[censored])
+        mills = np.exp(-0.5 * u * u - 0.5 * np.log(2 * np.pi) - log_ndtr(u))
+        curvature[censored] = np.maximum(mills * (mills + u), 0.0)
+    return curvature
+
+
 def residuals_with_censoring(residual: np.ndarray, codes: np.ndarray) -> np.ndarray:
     """Give the residuals with each censored point's replaced by sqrt(-2 log Phi(.))."""
     censored = codes != 0

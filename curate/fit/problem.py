@@ -247,8 +247,13 @@ class FitProblem:
                 )
         return result
 
-    def residual(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+    def residual(
+        self, theta: np.ndarray, rows: np.ndarray | None = None, *, raw: bool = False
+    ) -> np.ndarray:
         """Give sqrt(w) (y - s h) with the scale factors projected out.
+
+        A censored point's entry is sqrt(-2 log Phi(z)) unless ``raw``, which gives every
+        point's z-like sqrt(w) (y - s h) (what the covariance's curvature is taken along).
 
         With a noise-model backend: [r, q], the scaled and the noise residuals, so that half
         their sum of squares is the nllh up to a constant.
@@ -286,6 +291,8 @@ class FitProblem:
         y = self.y if rows is None else self.y[rows]
         sqrt_w = self.sqrt_w if rows is None else self.sqrt_w[rows]
         residual = np.asarray(sqrt_w * (y - factor * prediction), dtype=float)
+        if raw:
+            return residual
         return residuals_with_censoring(
             residual, self.censored if rows is None else self.censored[rows]
         )
