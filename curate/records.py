@@ -31,8 +31,12 @@ from pydantic import (
 )
 
 __all__ = [
+    "ABOVE",
+    "BELOW",
+    "CENSORED_WORDS",
     "EXCLUSION_GRADE",
     "GRADES",
+    "OBSERVED",
     "ConditionValue",
     "DatasetRecord",
     "DatasetVersion",
@@ -293,7 +297,9 @@ class SeriesArrays:
     """The measured arrays of a dataset, in canonical units, sorted by time (stably).
 
     ``sd`` may hold NaN where a point has no reported uncertainty. ``replicate`` holds integer
-    codes into the record's ``replicate_labels``.
+    codes into the record's ``replicate_labels``. ``censored`` (None when no point is) holds
+    :data:`OBSERVED`, :data:`BELOW` (left-censored: the true value lies below the limit) or
+    :data:`ABOVE` (right-censored) per point; a censored point's ``value`` is its limit.
     """
 
     time: np.ndarray
@@ -301,10 +307,11 @@ class SeriesArrays:
     sd: np.ndarray | None = None
     replicate: np.ndarray | None = None
     n: np.ndarray | None = None
+    censored: np.ndarray | None = None
 
     def __post_init__(self) -> None:
         length = len(self.time)
-        for name in ("value", "sd", "replicate", "n"):
+        for name in ("value", "sd", "replicate", "n", "censored"):
             array = getattr(self, name)
             if array is not None and len(array) != length:
                 raise ValueError(f"array '{name}' has {len(array)} entries, time has {length}")
@@ -326,7 +333,32 @@ class SeriesArrays:
             "sd": self.sd,
             "replicate": self.replicate,
             "n": self.n,
+            "censored": self.censored,
         }
+
+    def censored_mask(self) -> np.ndarray:
+        """Give True for every censored point (all False when none is)."""
+        if self.censored is None:
+            return np.zeros(len(self.time), dtype=bool)
+        return np.asarray(np.asarray(self.censored) != OBSERVED, dtype=bool)
+
+    def observed(self) -> SeriesArrays:
+        """Give the arrays of the observed points only (itself when none is censored).
+
+        Noise estimates, consistency and plausibility checks speak of measured numbers; a
+        censored point's value is a limit, not a measurement.
+        """
+        mask = self.censored_mask()
+        if not mask.any():
+            return self
+        keep = ~mask
+        return SeriesArrays(
+            time=self.time[keep],
+            value=self.value[keep],
+            sd=None if self.sd is None else self.sd[keep],
+            replicate=None if self.replicate is None else self.replicate[keep],
+            n=None if self.n is None else self.n[keep],
+        )
 
 
 def in_use(record: DatasetRecord, arrays: SeriesArrays) -> SeriesArrays:
@@ -350,7 +382,13 @@ def masked_points(record: DatasetRecord, arrays: SeriesArrays) -> np.ndarray:
     return out
 
 
-_ARRAY_DTYPES = {"time": "<f8", "value": "<f8", "sd": "<f8", "replicate": "<i8", "n": "<i8"}
+# censoring codes of SeriesArrays.censored, and the words exports write for them
+OBSERVED, BELOW, ABOVE = 0, 1, 2
+CENSORED_WORDS = {OBSERVED: "", BELOW: "below", ABOVE: "above"}
+
+_ARRAY_DTYPES = {
+    "time": "<f8", "value": "<f8", "sd": "<f8", "replicate": "<i8", "n": "<i8", "censored": "<i1",
+}  # fmt: skip
 
 
 def array_bytes(name: str, array: np.ndarray) -> bytes:
@@ -363,10 +401,16 @@ def array_bytes(name: str, array: np.ndarray) -> bytes:
 
 
 def content_hash(arrays: SeriesArrays, *, value_unit: str, time_unit: str = "second") -> str:
-    """Give the sha256 hex digest over the canonical bytes of the arrays and their units."""
+    """Give the sha256 hex digest over the canonical bytes of the arrays and their units.
+
+    The censoring codes are hashed only when some point is censored, so that every series
+    logged before censoring existed keeps its hash.
+    """
     digest = hashlib.sha256()
     digest.update(f"curate-series-1|{value_unit}|{time_unit}|{len(arrays)}".encode())
     for name, array in arrays.named().items():
+        if name == "censored" and (array is None or not np.any(array)):
+            continue  # series without censoring keep the hash they always had
         if array is None:
             digest.update(f"|{name}:none".encode())
         else:

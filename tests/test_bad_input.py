@@ -108,6 +108,57 @@ CASES = [
     ),
     ("unsupported type", "n.dat", "time,value\n0,1\n", [], "unsupported file type '.dat'"),
     ("duplicate header", "o.csv", "time,value,value\n0,1,2\n", [], "column 'value' appears twice"),
+    (
+        "censoring token with no limit",
+        "p.csv",
+        "time,value\n0,1\n1,n.d.\n",
+        ["--censored-token", "n.d."],
+        "p.csv, line 3, column 'value': 'n.d.' marks a value below a limit, but no limit is "
+        "stated; give it with --detection-limit X",
+    ),
+    (
+        "censoring token with no limit, wide",
+        "p2.csv",
+        "time,r1,r2\n0,1,2\n1,3,LOD\n",
+        ["--censored-token", "LOD", "--layout", "wide"],
+        "p2.csv, line 3, column 'r2': 'LOD' marks a value below a limit, but no limit is stated",
+    ),
+    (
+        "unknown censoring word",
+        "p3.csv",
+        "time,value\n0,1\n1,BLQ\n",
+        [],
+        "line 3, column 'value': 'BLQ' is not a number; expected a measured value (a value below "
+        "a limit is written '<0.5'; a lab's own word for it is named with --censored-token",
+    ),
+    (
+        "comparison without limit",
+        "q.csv",
+        "time,value\n0,1\n1,<\n",
+        [],
+        "line 3, column 'value': '<' names no limit; expected a comparison with its limit, e.g. '<0.5'",
+    ),
+    (
+        "two comparison marks",
+        "q2.csv",
+        "time,value\n0,1\n1,<<2\n",
+        [],
+        "line 3, column 'value': '<<2' has two comparison marks",
+    ),
+    (
+        "comparison with a word",
+        "q3.csv",
+        "time,value\n0,1\n1,<abc\n",
+        [],
+        "line 3, column 'value': 'abc' is not a number",
+    ),
+    (
+        "censored sd",
+        "r.csv",
+        "time,value,sd\n0,1,0.1\n1,<0.5,<0.1\n",
+        [],
+        "r.csv, line 3, column 'sd': '<0.1' is a censored cell in the sd column",
+    ),
 ]
 
 
@@ -206,6 +257,22 @@ SIDECAR_CASES = [
         "bad duration",
         SIDECAR + '[[protocol.pretreatment]]\nstep = "x"\nduration = "soon"\n',
         "'soon' is not a duration",
+    ),
+    (
+        "censoring limit in a unit of another kind",
+        SIDECAR + '[censoring]\ntokens = ["n.d."]\nlimit = 0.5\nunit = "s"\n',
+        "field 'censoring.limit': the limit's unit 's' cannot be expressed in the values' unit",
+    ),
+    (
+        "censoring limit not a number",
+        SIDECAR + '[censoring]\nlimit = "low"\n',
+        "field 'censoring.limit'",
+    ),
+    ("censoring limit infinite", SIDECAR + "[censoring]\nlimit = inf\n", "field 'censoring.limit'"),
+    (
+        "unknown censoring field",
+        SIDECAR + "[censoring]\nlod = 1\n",
+        "field 'censoring.lod': unknown field",
     ),
 ]
 

@@ -278,9 +278,9 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
             "one-step",
         ],
         "profile": ["profile", *model, *params, "--observable", "velarin_conc", "--observable",
-                    "glint", "--parameter", "q10"],  # fmt: skip
+                    "glint", "--parameter", "q10"],
         "ensemble": ["ensemble", *model, *params, "--observable", "velarin_conc", "--observable",
-                     "glint", "--starts", "3"],  # fmt: skip
+                     "glint", "--starts", "3"],
         "impact": ["impact", first],
         "import-petab": [
             "import-petab",

@@ -67,7 +67,7 @@ def test_intervals_without_a_group_equal_the_wald_interval_of_the_rest():
         keep = labels != row.group
         reference = sm.WLS(y[keep], sm.add_constant(t[keep]), weights=1.0 / sigma[keep] ** 2).fit(
             cov_type="fixed scale")
-        (a_low, a_high), (b_low, b_high) = reference.conf_int(alpha=0.05)
+        (a_low, _a_high), (_b_low, b_high) = reference.conf_int(alpha=0.05)
         assert row.parameters["a"]["lower"] == pytest.approx(a_low, abs=1e-6)
         assert row.parameters["b"]["upper"] == pytest.approx(b_high, abs=1e-6)
         # a third of the data gone: the interval widens by about sqrt(3/2)

@@ -275,3 +275,65 @@ def test_fuzz_layouts_end_in_a_table_or_one_line(rows, titles, footer, blank, fo
             table.times(table.columns[0], "s")
         except InputError as err:
             _one_line(err)
+
+
+# censored cells: comparisons (with and without spaces, unicode marks, nothing after them,
+# doubled), the lab's tokens in any case, with or without a stated limit, in value, replicate
+# and sd columns
+limits = st.one_of(st.floats(-1e6, 1e6, allow_nan=False).map(repr), st.sampled_from(["", "abc", "1e999", "0"]))
+censored_cells = st.one_of(
+    numbers,
+    st.tuples(st.sampled_from(["<", "<=", ">", ">=", "\u2264", "\u2265", "< ", "<<", "> ="]), limits).map("".join),
+    st.sampled_from(["n.d.", "N.D.", "LOD", "lod", "BLQ", " BLQ ", "n.d", "<LOD"]),
+)  # fmt: skip
+CENSORED_EXAMPLES = 300
+
+
+@settings(SETTINGS, max_examples=CENSORED_EXAMPLES)
+@given(header=st.sampled_from([["time", "value"], ["time", "value", "sd"], ["time", "r1", "r2"]]),
+       rows=st.lists(st.lists(censored_cells, min_size=1, max_size=3), min_size=1, max_size=6),
+       tokens=st.lists(st.sampled_from(["n.d.", "LOD", "BLQ", ""]), max_size=2),
+       limit=st.one_of(st.none(), st.floats(-10, 10, allow_nan=False)))  # fmt: skip
+def test_fuzz_censored_cells(capsys, header, rows, tokens, limit):
+    with tempfile.TemporaryDirectory() as name:
+        folder = Path(name)
+        data = folder / "data.csv"
+        lines = [",".join(header)] + [",".join(["0", *row]) for row in rows]
+        data.write_text("\n".join(lines) + "\n", encoding="utf-8")
+        extra = [part for token in tokens for part in ("--censored-token", token)]
+        if limit is not None:
+            extra += ["--detection-limit", repr(limit)]
+        check(capsys, folder, data, extra)
+
+
+@settings(SETTINGS, max_examples=CENSORED_EXAMPLES)
+@given(points=st.lists(st.tuples(st.sampled_from(["", "<", "<=", ">", ">=", "\u2264", "\u2265", "< ", "token"]),
+                                 st.floats(-1e6, 1e6, allow_nan=False, allow_infinity=False)),
+                       min_size=1, max_size=12),
+       limit=st.floats(0.001, 100.0))  # fmt: skip
+def test_censored_cells_round_trip(capsys, points, limit):
+    # every censored cell comes back as its kind and limit, every other cell as its number
+    import numpy as np
+
+    from curate import Catalog
+
+    marks = {"": 0, "token": 1, "<": 1, "<=": 1, "\u2264": 1, "< ": 1, ">": 2, ">=": 2, "\u2265": 2}
+    with tempfile.TemporaryDirectory() as name:
+        folder = Path(name)
+        data = folder / "data.csv"
+        cells = ["BLQ" if mark == "token" else f"{mark}{value!r}" for mark, value in points]
+        rows = [f"{t},{cell}" for t, cell in enumerate(cells)]
+        data.write_text("time,value\n" + "\n".join(rows) + "\n", encoding="utf-8")
+        catalog = folder / "fuzz.db"
+        run = run_main(capsys, ["--catalog", str(catalog), "add", str(data), *OPTIONS,
+                                "--censored-token", "BLQ", "--detection-limit", repr(limit)])  # fmt: skip
+        assert run.code == 0, run.err
+        opened = Catalog(catalog)
+        arrays = opened.arrays(opened.list()[0].id)
+        expected_codes = [marks[mark] for mark, _ in points]
+        expected_values = [limit if mark == "token" else value for mark, value in points]
+        codes = [0] * len(points) if arrays.censored is None else arrays.censored.tolist()
+        assert codes == expected_codes
+        assert np.array_equal(arrays.value, np.array(expected_values))
+        assert opened.verify().ok
+        opened.close()

@@ -188,7 +188,7 @@ def test_verify_names_a_changed_number_as_given(tmp_path):
 @settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 @given(
     values=st.lists(st.floats(1e-3, 1e6, allow_nan=False).map(lambda x: float(f"{x:.6g}")),
-                    min_size=3, max_size=12),  # fmt: skip
+                    min_size=3, max_size=12),
     first=st.sampled_from(["pM", "nM", "uM", "mM", "M"]),
     second=st.sampled_from(["pM", "nM", "uM", "mM", "M"]),
     third=st.sampled_from(["pM", "nM", "uM", "mM", "M"]),

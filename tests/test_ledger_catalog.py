@@ -61,7 +61,9 @@ def test_open_catalog_uses_environment(tmp_path, monkeypatch):
 def test_wal_mode_and_migrations(catalog):
     mode = catalog.store.db.execute("PRAGMA journal_mode").fetchone()[0]
     assert mode == "wal"
-    assert catalog.store.applied_migrations() == ["0001_initial", "0002_policies", "0003_problems"]
+    assert catalog.store.applied_migrations() == [
+        "0001_initial", "0002_policies", "0003_problems", "0004_censored",
+    ]  # fmt: skip
     assert len(catalog.catalog_id) == 36
 
 
@@ -74,6 +76,7 @@ def test_reopening_keeps_catalog_id(tmp_path):
             "0001_initial",
             "0002_policies",
             "0003_problems",
+            "0004_censored",
         ]
 
 

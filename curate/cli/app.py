@@ -245,6 +245,14 @@ def add(
         str | None,
         typer.Option(help="ID of the dataset this file replaces (it is retired, the link kept)"),
     ] = None,
+    censored_token: Annotated[
+        list[str] | None,
+        typer.Option(help="a cell meaning 'below the limit', e.g. n.d., LOD, BLQ (repeatable)"),
+    ] = None,
+    detection_limit: Annotated[
+        float | None,
+        typer.Option(help="the limit a censored token stands for, in the values' unit"),
+    ] = None,
     as_json: JsonFlag = False,
     dry_run: Annotated[bool, typer.Option(help="validate and show what would be written")] = False,
 ) -> None:
@@ -284,6 +292,9 @@ def add(
     put("protocol.calibration_group", calibration_group)
     put("protocol.normalisation.kind", normalisation)
     put("id", dataset_id)
+    if censored_token:
+        put("censoring.tokens", list(censored_token))
+    put("censoring.limit", detection_limit)
     if grade is not None or reason is not None:
         if grade is None or not (reason or "").strip():
             raise InputError("--grade and --reason go together: a grade needs its reason")

@@ -14,7 +14,7 @@ from typing import Any
 from curate.errors import InputError
 from curate.export.files import prepare_folder, write_json, write_text
 from curate.export.formats import FORMATS, PREPARE, ExportInput, Prepared
-from curate.export.manifest import build_manifest, readme_text, record_run
+from curate.export.manifest import build_manifest, censoring_readme, readme_text, record_run
 from curate.export.table import write_table
 from curate.ledger import Ledger
 from curate.weighting import Policy, Selection, WeightedTable, WeightSummary, weighted_table
@@ -51,7 +51,8 @@ def export(catalog: Ledger, fmt: str, outdir: str | Path, *, policy: Policy, sel
     weighted = weighted_table(catalog, policy, selection)
     prepared = PREPARE[fmt](catalog, weighted) if fmt in PREPARE else Prepared()
     prepare_folder(folder, force=force)
-    text = readme_text(catalog, policy, folder) + prepared.readme + _masked_text(weighted, fmt)
+    text = (readme_text(catalog, policy, folder) + censoring_readme(weighted.table, fmt)
+            + prepared.readme + _masked_text(weighted, fmt))  # fmt: skip
     readme = {"README.txt": write_text(folder / "README.txt", text)}
     written = writer(ExportInput(catalog, weighted, fmt, dict(readme), prepared), folder)
     files = {**written, **readme, **_write_masked(weighted, fmt, folder)}

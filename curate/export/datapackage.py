@@ -33,6 +33,8 @@ _DESCRIPTIONS = {
     "sd_source": "where sd came from",
     "replicate": "replicate label",
     "calibration_group": "points sharing one scale factor and noise level",
+    "censored": "'below' or 'above': the true value lies beyond a limit, and value holds that "
+    "limit (not a measurement); empty: an observed point",
 }
 
 
@@ -50,6 +52,8 @@ def _fields(frame: pd.DataFrame, units: dict[str, str | None]) -> list[dict[str,
             constraints["required"] = True
         if column in ("sd", "sigma", "weight"):
             constraints["minimum"] = 0
+        if column == "censored":
+            constraints["enum"] = ["", "below", "above"]
         if constraints:
             field["constraints"] = constraints
         if column == "time":

@@ -14,6 +14,8 @@ import json
 from pathlib import Path
 from typing import Any
 
+import pandas as pd
+
 from curate.errors import InputError
 from curate.export.files import now_utc, write_json
 from curate.jsontext import finite
@@ -115,6 +117,20 @@ def readme_text(catalog: Ledger, policy: Policy, outdir: Path) -> str:
     )  # fmt: skip
 
 
+def censoring_readme(points: pd.DataFrame, fmt: str) -> str:
+    """Give the README paragraph on censored points (empty when the table holds none)."""
+    if "censored" not in points.columns:
+        return ""
+    words = points["censored"].astype(str)
+    below, above = int((words == "below").sum()), int((words == "above").sum())
+    if below + above == 0:
+        return ""
+    text = CENSORED_README.format(below=below, above=above)
+    if fmt == "petab":
+        text += CENSORED_PETAB_README
+    return text
+
+
 def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[DatasetVersion],
                manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
@@ -134,6 +150,21 @@ def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[Datase
             "datasets": [[v.id, v.version] for v in versions], **(extra or {}),
         })  # fmt: skip
 
+
+CENSORED_README = """
+Censored points: {below} below and {above} above a limit. Their rows have censored = below
+(or above), and value holds the limit, not a measured number; sd, sigma and weight are the
+noise at the limit. Do not fit them as numbers: a point below L adds -log Phi((L - f) / sigma)
+to the negative log-likelihood (above: -log Phi((f - L) / sigma)), the censored-normal model
+(Tobin 1958), as `curate fit` does; or leave them out.
+"""
+
+CENSORED_PETAB_README = """\
+PEtab 1 has no censored measurements: measurements.tsv holds the observed points only, and
+censored_measurements.tsv (not named in problem.yaml, so PEtab tools do not read it) lists the
+censored ones with their limit (curateLimit) and kind (curateCensored). A PEtab fitter that
+uses measurements.tsv alone fits without them.
+"""
 
 FITTER_README = """\
 Exported by curate {version} on {date} from catalog {catalog_id}.

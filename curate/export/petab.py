@@ -31,9 +31,20 @@ from typing import Any
 
 import pandas as pd
 
+from curate.errors import InputError
 from curate.export.files import write_text
 
-__all__ = ["petab_tables", "write_petab"]
+__all__ = ["CENSORED_FILE", "petab_tables", "write_petab"]
+
+# the censored points of a PEtab export, beside (not in) the measurement table
+CENSORED_FILE = "censored_measurements.tsv"
+
+
+def _censored_rows(points: pd.DataFrame) -> Any:
+    """Give True for every censored row of a weighted table (a numpy bool array)."""
+    if "censored" not in points.columns:
+        return pd.Series(False, index=points.index).to_numpy()
+    return (points["censored"].astype(str) != "").to_numpy()
 
 
 def _parameter_id(text: str) -> str:
@@ -196,7 +207,21 @@ def write_petab(
     """Write the PEtab tables and problem.yaml into ``outdir``; give file name -> sha256."""
     import yaml
 
+    censored = _censored_rows(points)
     tables = petab_tables(points, datasets)
+    if censored.any():
+        # PEtab 1 has no censored measurements: the observed rows are the measurement table,
+        # the censored ones an annotation beside it that PEtab tools do not read
+        if censored.all():
+            raise InputError(
+                "petab export: every selected point is censored (a limit, not a measurement) "
+                "and PEtab 1 has no censored measurements; export the table format instead"
+            )
+        tables["measurements"] = petab_tables(points.loc[~censored], datasets)["measurements"]
+        beside = petab_tables(points.loc[censored], datasets)["measurements"]
+        beside.insert(len(beside.columns), "curateCensored",
+                      points.loc[censored, "censored"].astype(str).to_numpy())  # fmt: skip
+        beside = beside.rename(columns={"measurement": "curateLimit"})
     names = {
         "measurements": "measurements.tsv",
         "conditions": "conditions.tsv",
@@ -204,6 +229,8 @@ def write_petab(
         "parameters": "parameters.tsv",
     }
     written = {name: write_text(outdir / name, _tsv(tables[key])) for key, name in names.items()}
+    if censored.any():
+        written[CENSORED_FILE] = write_text(outdir / CENSORED_FILE, _tsv(beside))
     problem = {
         "format_version": 1,
         "parameter_file": names["parameters"],

@@ -12,7 +12,10 @@ are reported by calibration group.
   global search by differential evolution (Storn & Price 1997) polished by least_squares.
 - Covariance (J^T J)^-1 from the Jacobian of the projected residual at the optimum, mapped to
   natural parameters (dp = p d ln p for log parameters); optionally scaled by the reduced
-  chi2 when the sigmas are only relative.
+  chi2 when the sigmas are only relative. With censored points each row is the Jacobian of
+  z = sqrt(w) (y - s h) times the square root of its term's second derivative in z, so that
+  J^T J is the curvature of the censored-normal objective (for a model linear in the
+  parameters, the observed information exactly).
 - A budget: ``max_evaluations`` caps the model evaluations of the search (global search and
   every start together, each Jacobian's finite differences counted; the global search stops
   after the generation that spends it, later starts get what is left); the final standard
@@ -32,6 +35,7 @@ from scipy import optimize
 from scipy.stats import qmc
 
 from curate.errors import InputError
+from curate.fit.censored import censored_curvature
 from curate.fit.problem import FitProblem
 
 __all__ = [
@@ -206,8 +210,10 @@ def least_squares(
     )  # fmt: skip
 
 
-def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
-    """Give the Jacobian of the projected residual by central differences.
+def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = None,
+             *, raw: bool = False) -> np.ndarray:  # fmt: skip
+    """Give the Jacobian of the projected residual by central differences (``raw``: of
+    :meth:`FitProblem.residual` with ``raw``, censored points as plain z).
 
     Steps of eps^(1/3) relative size balance truncation and rounding (about 1e-10 relative
     error for smooth models), better than the optimiser's own forward differences; eps is the
@@ -218,15 +224,15 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
         1.0, np.abs(theta)
     )
     if len(theta) == 0:  # nothing free: no columns
-        return np.zeros((len(problem.residual(theta, rows)), 0))
+        return np.zeros((len(problem.residual(theta, rows, raw=raw)), 0))
     columns = []
     centre: np.ndarray | None = None
     for k in range(len(theta)):
         e = np.zeros(len(theta))
         e[k] = step[k]
         plus, minus = (
-            _try_residual(problem, theta + e, rows),
-            _try_residual(problem, theta - e, rows),
+            _try_residual(problem, theta + e, rows, raw),
+            _try_residual(problem, theta - e, rows, raw),
         )
         if plus is not None and minus is not None:
             columns.append((plus - minus) / (2 * step[k]))
@@ -234,7 +240,7 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
         # the model fails on one side (a bound where a steady state stops existing, say):
         # a one-sided difference, or no column at all (that parameter gets no standard error)
         if centre is None:
-            centre = problem.residual(theta, rows)
+            centre = problem.residual(theta, rows, raw=raw)
         if plus is not None:
             columns.append((plus - centre) / step[k])
         elif minus is not None:
@@ -244,11 +250,21 @@ def jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None = N
     return np.column_stack(columns)
 
 
+def _curvature_jacobian(problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None,
+                        codes: np.ndarray) -> np.ndarray:  # fmt: skip
+    """Give the Jacobian of each point's z = sqrt(w) (y - s h), each row times the square root
+    of its term's second derivative in z (1 for an observed point): J'J is then the curvature
+    of the objective, as the Gauss-Newton J'J is for observed points alone."""
+    z = problem.residual(theta, rows, raw=True)
+    curvature = np.sqrt(censored_curvature(z, codes))
+    return np.asarray(jacobian(problem, theta, rows, raw=True) * curvature[:, None], dtype=float)
+
+
 def _try_residual(
-    problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None
+    problem: FitProblem, theta: np.ndarray, rows: np.ndarray | None, raw: bool = False
 ) -> np.ndarray | None:
     try:
-        return problem.residual(theta, rows)
+        return problem.residual(theta, rows, raw=raw)
     except InputError:
         return None
 
@@ -280,6 +296,11 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
     n_points = len(residual)
     nllh = problem.nllh(theta, rows)
     dof = n_points - len(theta) - problem.n_scale_factors(rows)
+    codes = problem.censored if rows is None else problem.censored[rows]
+    if codes.any() and not problem.noise_model:
+        # censored terms: the Gauss-Newton J'J of sqrt(-2 log Phi) rows is not their curvature;
+        # take each point's own second derivative along its z (exact for a model linear in theta)
+        jacobian = _curvature_jacobian(problem, theta, rows, codes)
     internal = covariance_from_jacobian(jacobian)
     if options.scale_covariance and dof > 0:
         internal = internal * (chi2 / dof)

@@ -13,6 +13,12 @@ perhaps with estimated noise parameters) is fitted by its negative log-likelihoo
 and the noise residuals, with sigma_eff = sigma_model * sqrt(inflation / balance) (trust acts on
 sigma; the weight column is not used). :meth:`FitProblem.residual_index` maps point rows to
 residual rows in either case.
+
+Censored points (a ``censored`` column: 'below' or 'above' the limit held in ``value``) enter
+with the censored-normal term of :mod:`curate.fit.censored`, r = sqrt(-2 log Phi(z)); they take
+no part in the closed-form scale factors (a limit is not a measured level), which are solved
+from the observed points and then applied to the censored ones too. A noise-model backend
+refuses them: its PEtab likelihood has no censored term here.
 """
 
 from __future__ import annotations
@@ -28,6 +34,7 @@ import pandas as pd
 from curate.errors import InputError
 from curate.fit import likelihood
 from curate.fit.backends import ModelBackend, PointEvaluation, PythonFunction
+from curate.fit.censored import censoring_codes, residuals_with_censoring
 from curate.fit.spec import ParameterSpec
 
 __all__ = ["FitProblem"]
@@ -76,6 +83,14 @@ class FitProblem:
         index = {name: k for k, name in enumerate(self._group_names)}
         self._groups = np.array([index.get(label, -1) for label in labels])
         self.noise_model = bool(self.backend.noise_model)
+        self.censored = censoring_codes(self.points)
+        if self.noise_model and self.censored.any():
+            raise InputError(
+                f"{int(np.count_nonzero(self.censored))} censored points: a PEtab problem's "
+                'likelihood has no censored term in curate; set censored = "omit" in the '
+                "policy to fit without them"
+            )
+        self._observed = self.censored == 0
         # trust acts on sigma: sigma_eff = sigma_model * sqrt(v_grade / b_d)
         inflation = (
             self.points["inflation"].to_numpy(dtype=float) if "inflation" in self.points else 1.0
@@ -197,7 +212,9 @@ class FitProblem:
                 y, found.simulation, found.sigma, found.transformation, found.distribution
             )
         residual = self.residual(theta, rows)
-        w = self.w if rows is None else self.w[rows]
+        # a censored point's term is a probability, -log Phi(z): no density constant of its own
+        observed = self._observed if rows is None else self._observed[rows]
+        w = (self.w if rows is None else self.w[rows])[observed]
         return float(0.5 * residual @ residual - 0.5 * np.sum(np.log(w))
                      + 0.5 * len(w) * math.log(2 * math.pi))  # fmt: skip
 
@@ -217,6 +234,7 @@ class FitProblem:
         groups = self._groups if rows is None else self._groups[rows]
         y = self.y if rows is None else self.y[rows]
         w = self.w if rows is None else self.w[rows]
+        w = w * (self._observed if rows is None else self._observed[rows])  # limits do not count
         result = np.ones(len(self._group_names))
         for k in range(len(self._group_names)):
             part = groups == k
@@ -229,8 +247,13 @@ class FitProblem:
                 )
         return result
 
-    def residual(self, theta: np.ndarray, rows: np.ndarray | None = None) -> np.ndarray:
+    def residual(
+        self, theta: np.ndarray, rows: np.ndarray | None = None, *, raw: bool = False
+    ) -> np.ndarray:
         """Give sqrt(w) (y - s h) with the scale factors projected out.
+
+        A censored point's entry is sqrt(-2 log Phi(z)) unless ``raw``, which gives every
+        point's z-like sqrt(w) (y - s h) (what the covariance's curvature is taken along).
 
         With a noise-model backend: [r, q], the scaled and the noise residuals, so that half
         their sum of squares is the nllh up to a constant.
@@ -267,7 +290,12 @@ class FitProblem:
             factor[has] = scale[groups[has]]
         y = self.y if rows is None else self.y[rows]
         sqrt_w = self.sqrt_w if rows is None else self.sqrt_w[rows]
-        return np.asarray(sqrt_w * (y - factor * prediction), dtype=float)
+        residual = np.asarray(sqrt_w * (y - factor * prediction), dtype=float)
+        if raw:
+            return residual
+        return residuals_with_censoring(
+            residual, self.censored if rows is None else self.censored[rows]
+        )
 
     def group_index(self, rows: np.ndarray | None = None) -> np.ndarray:
         """Give each row's scale-group number (-1 for rows without a scale factor)."""

@@ -19,6 +19,7 @@ from curate.errors import InputError
 from curate.export.manifest import build_manifest, record_run
 from curate.fit import sensitivity
 from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
+from curate.fit.censored import fit_points
 from curate.fit.deciding import profiles_by_group
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble
@@ -82,8 +83,9 @@ def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, poli
             "fit: an external fitter fits by itself; use `curate sensitivity --fitter-cmd`"
         )
     weighted = weighted_table(catalog, policy, selection)
-    result = fit(FitProblem(weighted.table, backend, spec), options, progress=progress)
-    result.notes += ungraded_note(weighted)
+    points, censored_notes = fit_points(weighted.table, policy.censored)
+    result = fit(FitProblem(points, backend, spec), options, progress=progress)
+    result.notes += ungraded_note(weighted) + censored_notes
     _record(catalog, "fit", backend, spec, weighted,
             {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
     return result
@@ -247,7 +249,7 @@ def run_sensitivity(
         backend, spec, weighted, table = fitted.backend, fitted.spec, fitted.weighted, fitted.points
     else:
         weighted = weighted_table(catalog, policy, selection)
-        table = weighted.table
+        table, _ = fit_points(weighted.table, policy.censored)
     if backend is None:
         raise InputError("sensitivity: give --model with --params, --fitter-cmd, or --problem ID")
     labels = grouping.labels(table)
@@ -288,7 +290,9 @@ def run_sensitivity(
                                  spec=spec, tolerances=tolerances)  # fmt: skip
             other_points = again.points
         else:
-            other_points = weighted_table(catalog, alternative, selection).table
+            other_points = fit_points(
+                weighted_table(catalog, alternative, selection).table, alternative.censored
+            )[0]
         refit = fit(FitProblem(other_points, backend, spec), FitOptions(tolerance=tolerance))
         shifts = {}
         for name in full.free:

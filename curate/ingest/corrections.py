@@ -113,6 +113,7 @@ def numbers_as_given(
         sd=sd,
         replicate=stored.replicate,
         n=stored.n,
+        censored=stored.censored,
     )
     return given, True
 
@@ -214,15 +215,17 @@ def correct(
     )
     warnings = [w for w in record.warnings if w.code not in SERIES_WARNINGS]
     sd_unit = value_unit.original if sd_converts(given, uncertainty) else ""
+    keep = ~arrays.censored_mask()  # a censored point's value is a limit, not a measurement
+    observed = arrays.observed()
     warnings[:0] = check_series(
-        arrays.value,
-        arrays.sd,
+        observed.value,
+        observed.sd,
         uncertainty=uncertainty.type if uncertainty else None,
         nonnegative=nonnegative_dimension(value_unit) and not relative,
-        time=given.time,
+        time=given.time[keep],
         time_unit=time_unit.original,
         replicates=arrays.replicate is not None,
-        sd_as_given=given.sd,
+        sd_as_given=None if given.sd is None else given.sd[keep],
         sd_unit=sd_unit,
     )
     update: dict[str, Any] = {

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import datetime as dt
 import hashlib
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -12,6 +13,13 @@ import numpy as np
 
 from curate import units
 from curate.errors import InputError
+from curate.ingest.censoring import (
+    CensoringRules,
+    censoring_codes,
+    censoring_note,
+    refuse_censored_cells,
+    value_column,
+)
 from curate.ingest.headers import match_column
 from curate.ingest.masks import mask_times
 from curate.ingest.plausibility import check_series, typical_magnitude
@@ -87,8 +95,9 @@ class Draft:
 
     @property
     def magnitude(self) -> float:
-        """Give the series' median absolute value."""
-        return typical_magnitude(self.arrays.value)
+        """Give the series' median absolute value (of its observed points: a limit is no value)."""
+        observed = self.arrays.observed().value
+        return typical_magnitude(observed if len(observed) else self.arrays.value)
 
 
 def find_sidecar(data_path: Path) -> Path | None:
@@ -199,9 +208,13 @@ def _duration_seconds(raw: str | float | None, *, origin: str) -> float | None:
 
 
 def _arrays_from_table(
-    table: Table, meta: Sidecar
+    table: Table, meta: Sidecar, meta_origin: str | None = None
 ) -> tuple[dict[str, np.ndarray | None], tuple[str, ...], dict[str, Any]]:
     columns = meta.columns
+    rules = CensoringRules.from_section(
+        meta.censoring, value_unit=meta.observable.unit, origin=meta_origin or str(table.path)
+    )
+    written: Counter[str] = Counter()
 
     def find(name: str) -> str | None:
         return match_column(name, table.columns)
@@ -228,11 +241,13 @@ def _arrays_from_table(
         time, converted = table.times(time_col, meta.time.unit)
         if converted:
             extras["time_cells"] = converted
-        value = table.numbers(value_col, what="a measured value")
+        read = value_column(table, value_col, rules, what="a measured value")
+        value, censored, written = read.values, read.codes, read.written
         sd = n = replicate = None
         labels: tuple[str, ...] = ()
         used = {time_col, value_col}
         if (sd_col := find(columns.sd)) is not None:
+            refuse_censored_cells(table, sd_col, rules, role="sd")
             sd = table.numbers(sd_col, allow_empty=True, what="an uncertainty (or an empty cell)")
             negative = np.flatnonzero(sd < 0)
             if len(negative):
@@ -265,11 +280,14 @@ def _arrays_from_table(
         rest = [c for c in table.columns if c not in used]
         if rest:
             extras["extra_columns"] = {c: [str(x) for x in table.cells[c]] for c in rest}
+        if censored is not None:
+            extras["censoring"] = censoring_note(censored, written)
         return (
-            {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n},
+            {"time": time, "value": value, "sd": sd, "replicate": replicate, "n": n,
+             "censored": censored},
             labels,
             extras,
-        )
+        )  # fmt: skip
     # wide: one column per replicate, empty cells are missing points
     names = meta.columns.replicates
     if names is None:
@@ -289,13 +307,19 @@ def _arrays_from_table(
     time, converted = table.times(time_col, meta.time.unit)
     if converted:
         extras["time_cells"] = converted
-    times, values, codes_list = [], [], []
+    times, values, codes_list, censored_list = [], [], [], []
     for code, col in enumerate(rep_cols):
-        column = table.numbers(col, allow_empty=True, what="a measured value (or an empty cell)")
+        read = value_column(
+            table, col, rules, allow_empty=True, what="a measured value (or an empty cell)"
+        )
+        column = read.values
         present = np.isfinite(column)
         times.append(time[present])
         values.append(column[present])
         codes_list.append(np.full(int(present.sum()), code, dtype=np.int64))
+        codes = np.zeros(len(column), np.int8) if read.codes is None else read.codes
+        censored_list.append(codes[present])
+        written.update(read.written)
     value = np.concatenate(values)
     if len(value) == 0:
         raise InputError(f"{table.path}: every value cell is empty")
@@ -305,7 +329,12 @@ def _arrays_from_table(
         "sd": None,
         "replicate": np.concatenate(codes_list),
         "n": None,
+        "censored": None,
     }
+    all_censored = np.concatenate(censored_list)
+    if all_censored.any():
+        order_input["censored"] = all_censored
+        extras["censoring"] = censoring_note(all_censored, written)
     extras["layout"] = "wide"
     return order_input, tuple(rep_cols), extras
 
@@ -333,7 +362,7 @@ def build_draft(
         )
     table, merged, found = read_with_layout(path, merged, sidecar_path)
     meta = validate_sidecar(merged, origin=str(path), sidecar=sidecar_path)
-    raw_arrays, labels, extras = _arrays_from_table(table, meta)
+    raw_arrays, labels, extras = _arrays_from_table(table, meta, str(sidecar_path or path))
     extras.update(found)
     raw = path.read_bytes()
     return _assemble(
@@ -358,13 +387,18 @@ def draft_from_arrays(
     sd: np.ndarray | None = None,
     replicate: np.ndarray | None = None,
     n: np.ndarray | None = None,
+    censored: np.ndarray | None = None,
     replicate_labels: tuple[str, ...] = (),
     annotations: dict[str, Any] | None = None,
     actor: str,
     now: dt.datetime | None = None,
     origin: str = "arrays",
 ) -> Draft:
-    """Give the validated draft for arrays already in memory (the API and the PEtab reader)."""
+    """Give the validated draft for arrays already in memory (the API and the PEtab reader).
+
+    ``censored``: per point '' (observed), 'below' or 'above' (or the codes 0, 1, 2); the
+    value of a censored point is its limit.
+    """
     meta = validate_sidecar(metadata, origin=origin, sidecar=None)
     arrays: dict[str, np.ndarray | None] = {}
     for name, given in (("time", time), ("value", value)):
@@ -402,11 +436,20 @@ def draft_from_arrays(
                 f"{origin}, field 'sd': point {bad + 1} is {sd_data[bad]:g}; "
                 "expected a finite uncertainty >= 0"
             )
+    extras = dict(annotations or {})
+    arrays["censored"] = None
+    if censored is not None:
+        codes = censoring_codes(censored, length=len(arrays["time"]), origin=origin)
+        if codes.any():
+            arrays["censored"] = codes
+            extras["censoring"] = censoring_note(
+                codes, Counter(arrays=int(codes.astype(bool).sum()))
+            )
     return _assemble(
         meta,
         arrays,
         replicate_labels,
-        annotations or {},
+        extras,
         actor=actor,
         now=now,
         origin=origin,
@@ -462,6 +505,7 @@ def _assemble(
         sd=take("sd"),
         replicate=take("replicate"),
         n=take("n"),
+        censored=take("censored"),
     )
     given_time, given_sd = given.time, given.sd
     sd_in_value_units = sd_converts(given, uncertainty)
@@ -518,15 +562,17 @@ def _assemble(
             assigned_by=actor,
             assigned_at=now,
         )
+    observed = arrays.observed()  # a censored point's value is a limit, not a measurement
+    keep = ~arrays.censored_mask()
     warnings = check_series(
-        arrays.value,
-        arrays.sd,
+        observed.value,
+        observed.sd,
         uncertainty=uncertainty.type if uncertainty else None,
         nonnegative=nonnegative_dimension(value_unit) and not relative,
-        time=given_time,
+        time=given_time[keep],
         time_unit=time_unit.original,
         replicates=arrays.replicate is not None,
-        sd_as_given=given_sd,
+        sd_as_given=None if given_sd is None else given_sd[keep],
         sd_unit=value_unit.original if sd_in_value_units else "",
     )
     record = DatasetRecord(
@@ -599,6 +645,7 @@ def convert_as_given(
         sd=sd,
         replicate=given.replicate,
         n=given.n,
+        censored=given.censored,  # a censored point's value is its limit: converted with it
     )
 
 

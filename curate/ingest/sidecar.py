@@ -26,6 +26,7 @@ from curate.records import Identifier, Normalisation, Uncertainty, normalise_gra
 
 __all__ = [
     "Sidecar",
+    "SidecarCensoring",
     "SidecarDialect",
     "SidecarLayout",
     "deep_merge",
@@ -74,6 +75,23 @@ class SidecarDialect(_Part):
         None, description="the thousands separator ('' for none)"
     )
     encoding: str | None = Field(None, description="'utf-8', 'latin-1', 'utf-16', 'cp1252' ...")
+
+
+class SidecarCensoring(_Part):
+    """The lab's own tokens for a value below a limit, and the limits they stand for."""
+
+    tokens: list[Annotated[str, StringConstraints(min_length=1, strip_whitespace=True)]] = Field(
+        default_factory=list, description="cells meaning 'below the limit': 'n.d.', 'LOD', 'BLQ'"
+    )
+    limit: float | None = Field(
+        None,
+        allow_inf_nan=False,
+        description="the limit a token stands for (value unit unless 'unit')",
+    )
+    unit: str | None = Field(None, description="unit of the limits (default: the values' unit)")
+    limits: dict[str, Annotated[float, Field(allow_inf_nan=False)]] = Field(
+        default_factory=dict, description="one limit per column header (wide layout)"
+    )
 
 
 class ConditionSpec(_Part):
@@ -156,6 +174,7 @@ class Sidecar(_Part):
     masks: list[SidecarMask] = Field(
         default_factory=list, description="points to set aside from the start, each with a reason"
     )
+    censoring: SidecarCensoring | None = None
 
 
 class SidecarLayout(BaseModel):

@@ -28,7 +28,7 @@ from curate.errors import InputError, NotFoundError
 from curate.ingest.corrections import Correction
 from curate.ingest.files import Draft, build_draft, draft_from_arrays, parse_condition
 from curate.ingest.petab import PetabImport, read_petab_import
-from curate.ingest.plausibility import check_against_others, typical_magnitude
+from curate.ingest.plausibility import check_against_others
 from curate.ledger.amend import Amendments
 from curate.ledger.context import (
     ActionContext,
@@ -48,6 +48,7 @@ from curate.ledger.provenance import ChainHead, head_problem, text_sha256
 from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
+    CENSORED_WORDS,
     GRADES,
     DatasetRecord,
     DatasetVersion,
@@ -269,9 +270,14 @@ class Ledger(Amendments):
         sd: Sequence[float] | np.ndarray | None = None,
         replicate: Sequence[int] | np.ndarray | None = None,
         conditions: dict[str, Any] | None = None,
+        censored: Sequence[str | int] | np.ndarray | None = None,
         **metadata: Any,
     ) -> Draft:
-        """Give the validated draft of arrays in memory (the other fields as in a sidecar)."""
+        """Give the validated draft of arrays in memory (the other fields as in a sidecar).
+
+        ``censored``: per point '' (observed), 'below' or 'above' its limit, which is then the
+        point's ``value``.
+        """
         meta: dict[str, Any] = {
             "observable": {"id": observable, "unit": unit, **metadata.pop("observable", {})},
             "time": {"unit": time_unit},
@@ -291,6 +297,7 @@ class Ledger(Amendments):
             sd=None if sd is None else np.asarray(sd),
             replicate=rep,
             replicate_labels=labels,
+            censored=None if censored is None else np.asarray(censored, dtype=object),
             actor=self.actor,
         )
 
@@ -319,7 +326,7 @@ class Ledger(Amendments):
             context.check_conditions(rec.conditions, draft.origin)
             if rec.supersedes is not None:
                 self._check_supersedes(rec.supersedes, draft.origin, draft.requested_id)
-        magnitude = typical_magnitude(draft.arrays.value)
+        magnitude = draft.magnitude  # of the observed points: a limit is no value
         extra = check_against_others(
             observable=rec.observable.id, unit=rec.observable.unit, relative=rec.observable.relative,
             conditions=conditions, content_hash=rec.content_hash, magnitude=magnitude,
@@ -669,7 +676,8 @@ class Ledger(Amendments):
         return self._store.series(self.show(dataset_id, version).record.content_hash)
 
     def points(self, dataset_id: str, version: int | None = None) -> pd.DataFrame:
-        """Give a dataset version's points as a DataFrame (canonical units, time-sorted)."""
+        """Give a dataset version's points as a DataFrame (canonical units, time-sorted; a
+        ``censored`` column when some point is censored: 'below' or 'above' the limit in value)."""
         found = self.show(dataset_id, version)
         arrays = self._store.series(found.record.content_hash)
         frame = pd.DataFrame({"time": arrays.time, "value": arrays.value})
@@ -682,6 +690,9 @@ class Ledger(Amendments):
             frame["n"] = arrays.n
         if found.record.masks:  # every point stays; the mask says which ones fits leave out
             frame["masked"] = masked_points(found.record, arrays)
+        if arrays.censored is not None and arrays.censored.any():
+            # 'below' / 'above': value is the limit, not a measurement
+            frame["censored"] = [CENSORED_WORDS[int(code)] for code in arrays.censored]
         frame.attrs.update(
             {
                 "dataset_id": found.id,

@@ -179,11 +179,17 @@ def _problems(db: sqlite_utils.Database) -> None:
     )
 
 
+def _censored(db: sqlite_utils.Database) -> None:
+    # int8 codes per point (0 observed, 1 below its limit, 2 above); NULL: nothing censored
+    db.execute("ALTER TABLE series ADD COLUMN censored BLOB")
+
+
 # Named, ordered schema steps. Append only: a released step is never edited.
 MIGRATIONS: list[tuple[str, Callable[[sqlite_utils.Database], None]]] = [
     ("0001_initial", _initial_schema),
     ("0002_policies", _policies),
     ("0003_problems", _problems),
+    ("0004_censored", _censored),
 ]
 
 
@@ -323,12 +329,14 @@ class Store:
     def put_series(self, content_hash: str, arrays: SeriesArrays) -> None:
         """Store the arrays under their content hash (a no-op if already there)."""
         blobs = {
-            name: (None if a is None else array_bytes(name, a))
+            name: (
+                None if a is None or (name == "censored" and not a.any()) else array_bytes(name, a)
+            )
             for name, a in arrays.named().items()
         }
         self.db.execute(
-            "INSERT OR IGNORE INTO series(content_hash, n_points, time, value, sd, replicate, n)"
-            " VALUES (?,?,?,?,?,?,?)",
+            "INSERT OR IGNORE INTO series(content_hash, n_points, time, value, sd, replicate, n,"
+            " censored) VALUES (?,?,?,?,?,?,?,?)",
             [
                 content_hash,
                 len(arrays),
@@ -337,13 +345,14 @@ class Store:
                 blobs["sd"],
                 blobs["replicate"],
                 blobs["n"],
+                blobs["censored"],
             ],
         )
 
     def series(self, content_hash: str) -> SeriesArrays:
         """Give the arrays stored under a content hash."""
         row = self.db.execute(
-            "SELECT time, value, sd, replicate, n FROM series WHERE content_hash = ?",
+            "SELECT time, value, sd, replicate, n, censored FROM series WHERE content_hash = ?",
             [content_hash],
         ).fetchone()
         if row is None:
@@ -360,7 +369,7 @@ class Store:
             chunk = wanted[start : start + 500]
             marks = ",".join("?" * len(chunk))
             rows = self.db.execute(
-                f"SELECT content_hash, time, value, sd, replicate, n FROM series WHERE content_hash IN ({marks})",
+                f"SELECT content_hash, time, value, sd, replicate, n, censored FROM series WHERE content_hash IN ({marks})",
                 chunk,
             ).fetchall()
             for row in rows:
@@ -373,7 +382,7 @@ class Store:
     def iter_series(self) -> Iterator[tuple[str, int, SeriesArrays]]:
         """Give every stored (content_hash, n_points, arrays)."""
         cursor = self.db.execute(
-            "SELECT content_hash, n_points, time, value, sd, replicate, n FROM series"
+            "SELECT content_hash, n_points, time, value, sd, replicate, n, censored FROM series"
         )
         for row in cursor:
             yield str(row[0]), int(row[1]), _decode_series(row[2:])
@@ -591,6 +600,8 @@ def _decode_series(row: Any) -> SeriesArrays:
 
     time_, value = floats(row[0]), floats(row[1])
     assert time_ is not None and value is not None  # NOT NULL columns
+    censored = None if row[5] is None else np.frombuffer(row[5], dtype="<i1").astype(np.int8)
     return SeriesArrays(
-        time=time_, value=value, sd=floats(row[2]), replicate=ints(row[3]), n=ints(row[4])
-    )
+        time=time_, value=value, sd=floats(row[2]), replicate=ints(row[3]), n=ints(row[4]),
+        censored=censored,
+    )  # fmt: skip

@@ -37,7 +37,7 @@ from curate.present.html import (
 from curate.present.many_fits import ensemble_section, profiles_section
 from curate.quality.actions import check_consistency
 from curate.quality.measured import measured_sd
-from curate.records import ConditionValue, masked_points
+from curate.records import ABOVE, BELOW, ConditionValue, SeriesArrays, masked_points
 from curate.units import condition_text, short_unit
 from curate.weighting import Policy, Selection, WeightSummary, weighted_table
 
@@ -148,8 +148,10 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     overlay = fitted["predictions"] if fitted else {}
     thinned: list[str] = []
     masked_series: list[str] = []
+    any_censored = False
     for axis, version in zip(axes.flat, versions, strict=False):
-        arrays = catalog.arrays(version.id)
+        stored = catalog.arrays(version.id)
+        arrays = stored.observed()  # censored points are drawn apart, at their limits
         colour, marker = GRADE_STYLE.get(version.grade, GRADE_STYLE[None])
         try:
             sd = measured_sd(version, arrays)
@@ -180,6 +182,9 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
             linewidths=0.3 if marker not in _UNFILLED else 1.0,
             zorder=3,
         )
+        if stored.censored is not None:
+            any_censored = True
+            _censored_markers(axis, stored, colour)
         if version.id in overlay:
             line = overlay[version.id]
             axis.plot(
@@ -193,7 +198,7 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
         axis.tick_params(labelsize=7)
         axis.set_xlabel("time (min)", fontsize=7)
         axis.set_ylabel(short_unit(version.record.observable.unit), fontsize=7)
-        del arrays, sd, minutes
+        del arrays, stored, sd, minutes
     for axis in list(axes.flat)[len(versions) :]:
         axis.axis("off")
     from matplotlib.lines import Line2D
@@ -201,6 +206,9 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
     key = [Line2D([], [], linestyle="none", marker=marker, color=colour, markeredgecolor="black", markersize=7,
                   label=f"grade {grade}" if grade else "ungraded")
            for grade, (colour, marker) in GRADE_STYLE.items()]  # fmt: skip
+    if any_censored:
+        key += [Line2D([], [], linestyle="none", marker=shape, color="black", markersize=9,
+                       label=label) for shape, label in _CENSORED_KEY]  # fmt: skip
     figure.legend(
         handles=key,
         loc="upper center",
@@ -217,6 +225,11 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
             f" Hollow markers: points set aside by masks ({', '.join(masked_series[:5])}"
             f"{', ...' if len(masked_series) > 5 else ''}), kept in the catalog but out of weights, "
             "exports and fits."
+        )
+    if any_censored:
+        note += (
+            " Arrows: censored points, drawn at their limit and pointing where the true value "
+            "lies (down: below the limit, up: above it); the band leaves them out."
         )
     if thinned:
         note += (
@@ -236,6 +249,18 @@ def _series(catalog: Ledger, fitted: dict[str, Any] | None) -> str:
 
 
 _UNFILLED = {"x", "+", "1", "2", "3", "4", "|", "_"}
+# censored points: an arrow from the limit towards where the true value lies (no grade uses it)
+_CENSORED_KEY = ((r"$\downarrow$", "below a limit"), (r"$\uparrow$", "above a limit"))
+
+
+def _censored_markers(axis: Any, arrays: SeriesArrays, colour: str) -> None:
+    """Draw a series' censored points as arrows from their limits."""
+    codes = np.asarray(arrays.censored)
+    for code, (shape, _) in zip((BELOW, ABOVE), _CENSORED_KEY, strict=True):
+        chosen = codes == code
+        if chosen.any():
+            axis.scatter(arrays.time[chosen] / 60.0, arrays.value[chosen], s=60, marker=shape,
+                         color=colour, linewidths=0.5, zorder=3)  # fmt: skip
 
 
 def _band(

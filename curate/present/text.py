@@ -223,6 +223,8 @@ def show_text(
     parts.append(table)
     if len(points) > limit:
         parts.append(Text(f"… {len(points) - limit} more points (--points shows all)"))
+    if "censored" in points.columns:
+        parts.append(Text("censored: the point lies below (above) its limit, shown as its value"))
     return Group(*parts)
 
 
@@ -450,6 +452,8 @@ def consistency_text(result: ConsistencyReport) -> Group:
                 )
             )
         parts.append(Text(""))
+    for note in result.notes:
+        parts.append(Text(f"note: {note}"))
     if result.labs:
         parts.append(Text("labs against the consensus", style="bold"))
         table = plain_table(("lab", "Birge R", "dof", "grades", "flag"), right=("Birge R", "dof"))

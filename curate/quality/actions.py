@@ -8,6 +8,7 @@ events.
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 import hashlib
 from collections.abc import Iterator
@@ -94,15 +95,22 @@ def estimate_noise(
     now = dt.datetime.now(dt.UTC)
     for dataset_id in dataset_ids:
         version = catalog.show(dataset_id)
-        arrays = in_use(version.record, catalog.arrays(dataset_id))
+        stored = in_use(version.record, catalog.arrays(dataset_id))
+        arrays = stored.observed()  # a censored value is a limit: no noise is read from it
+        left_out = len(stored) - len(arrays)
         result = noise.choose_and_estimate(
             arrays.time,
             arrays.value,
             method=method,
             replicate=arrays.replicate,
             reported_sd=reported_sd(version, arrays),
-            origin=f"dataset {dataset_id}",
+            origin=f"dataset {dataset_id}"
+            + (f" ({left_out} censored points left out)" if left_out else ""),
         )
+        if left_out:
+            result = dataclasses.replace(
+                result, warnings=(*result.warnings, _censored_note(left_out, len(stored)))
+            )
         scale = (
             version.record.uncertainty.scale
             if (result.method == "reported" and version.record.uncertainty)
@@ -276,6 +284,7 @@ class ConsistencyReport:
     tolerance: float = 0.01
     alpha: float = 0.05
     at: float | None = None  # the time (s) of the summary values; None: the late level
+    notes: list[str] = field(default_factory=list)  # e.g. censored points left out
 
     @property
     def summary_of(self) -> str:
@@ -293,6 +302,7 @@ class ConsistencyReport:
             "labs": [lab.to_dict() for lab in self.labs],
             "suggestions": [s.to_dict() for s in self.suggestions],
             "unmatched": self.single,
+            "notes": self.notes,
         }
 
 
@@ -304,8 +314,17 @@ def _time_text(seconds: float) -> str:
     return f"{seconds:g} s"
 
 
+def _censored_note(left_out: int, total: int) -> str:
+    """Say that censored points were left out of a computation on measured numbers."""
+    return (
+        f"{left_out} of {total} points are censored (a limit, not a measured value) and were "
+        "left out"
+    )
+
+
 def _series(catalog: Ledger, version: DatasetVersion) -> consistency.Series:
-    arrays = in_use(version.record, catalog.arrays(version.id, version.version))
+    stored = in_use(version.record, catalog.arrays(version.id, version.version))
+    arrays = stored.observed()  # a censored value is a limit: it takes no part in a comparison
     return consistency.Series(
         id=version.id,
         lab=version.record.source.lab,
@@ -390,6 +409,11 @@ def check_consistency(
         for m in members:
             inputs[m] = group_inputs
         series = [_series(catalog, by_id[m]) for m in members]
+        for m in members:
+            total = by_id[m].record.n_points
+            left_out = total - len(next(s for s in series if s.id == m).time)
+            if left_out:
+                report.notes.append(f"dataset {m}: {_censored_note(left_out, total)}")
         results = consistency.against_consensus(series, alpha=alpha)
         summary = lab_summary = None
         try:

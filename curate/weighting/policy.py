@@ -42,6 +42,8 @@ class Policy:
     origin: str
     text: str
     sha256: str
+    # censored points in a fit: the censored-normal term ("likelihood") or left out ("omit")
+    censored: Literal["likelihood", "omit"] = "likelihood"
 
     @property
     def is_likelihood(self) -> bool:
@@ -61,6 +63,7 @@ class Policy:
                 "default_relative_sd": self.default_relative_sd,
             },
             "balance": {"mode": self.balance, "lab_cap": self.lab_cap},
+            "censored": self.censored,
             "origin": self.origin,
             "sha256": self.sha256,
         }
@@ -107,7 +110,8 @@ def load_policy(path: str | Path | None = None) -> Policy:
         content = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise InputError(f"{origin}: not valid TOML ({err})") from None
-    known = {"name", "inflation", "exclude", "ungraded", "floors", "unknown_noise", "balance"}
+    known = {"name", "inflation", "exclude", "ungraded", "floors", "unknown_noise", "balance",
+             "censored"}  # fmt: skip
     for key in content:
         if key not in known:
             raise InputError(
@@ -168,7 +172,13 @@ def load_policy(path: str | Path | None = None) -> Policy:
         raise InputError(
             f"{origin}, field 'balance.lab_cap': {lab_cap}; expected 0 (no cap) or a share below 1"
         )
-    normalised = {
+    censored = content.get("censored", "likelihood")
+    if censored not in ("likelihood", "omit"):
+        raise InputError(
+            f"{origin}, field 'censored': {censored!r}; expected 'likelihood' (a censored point "
+            "adds the probability beyond its limit) or 'omit' (left out of fits)"
+        )
+    normalised: dict[str, Any] = {
         "inflation": inflation,
         "exclude": sorted(exclude),
         "ungraded": ungraded,
@@ -179,6 +189,9 @@ def load_policy(path: str | Path | None = None) -> Policy:
                                                          unknown.get("default_relative_sd", shipped["unknown_noise"]["default_relative_sd"]), strict=True)},
         "balance": {"mode": mode, "lab_cap": lab_cap},
     }  # fmt: skip
+    if censored != "likelihood":
+        # written only when not the default, so every policy hashed before stays the same key
+        normalised["censored"] = censored
     # the hash covers what the policy does, not its comments or layout
     sha256 = hashlib.sha256(canonical_json(normalised).encode()).hexdigest()
     return Policy(
@@ -195,6 +208,7 @@ def load_policy(path: str | Path | None = None) -> Policy:
         origin=origin,
         text=text,
         sha256=sha256,
+        censored=censored,
     )
 
 

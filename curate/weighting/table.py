@@ -3,7 +3,14 @@
 Columns (their meanings are written down in every export's README): dataset_id, version,
 observable, unit, unit_ucum, relative, lab, grade, grade_used, time (s), value (canonical
 unit), sd (measured or estimated noise), sd_source, inflation, balance, sigma (after trust
-inflation), weight = 1/sigma^2, replicate, calibration_group, then one column per condition.
+inflation), weight = 1/sigma^2, replicate, calibration_group, censored (only when the
+selection holds a censored point: 'below' or 'above' its limit, which is then the row's value;
+empty for an observed point), then one column per condition.
+
+A censored point keeps its row: the fit gives it the censored-normal term (or leaves it out,
+as the policy's ``censored`` says), the exports write it with its limit. Its sigma is the
+dataset's noise at the limit: a reported sd in its row, else the noise estimate, else what the
+policy does with unknown noise, worked out from the observed points only.
 """
 
 from __future__ import annotations
@@ -18,7 +25,7 @@ from curate.errors import InputError
 from curate.ledger import Ledger
 from curate.quality import noise
 from curate.quality.measured import measured_sd
-from curate.records import DatasetVersion, SeriesArrays, masked_points
+from curate.records import CENSORED_WORDS, DatasetVersion, SeriesArrays, masked_points
 from curate.weighting.policy import Policy
 from curate.weighting.selection import Selection, select
 from curate.weighting.weights import WeightSummary, apply_policy
@@ -37,7 +44,7 @@ __all__ = [
 STANDARD_COLUMNS = (
     "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade",
     "grade_used", "time", "value", "sd", "sd_source", "inflation", "balance", "sigma", "weight",
-    "replicate", "calibration_group",
+    "replicate", "calibration_group", "censored",
 )  # fmt: skip
 
 
@@ -55,18 +62,42 @@ def _sd_of(version: DatasetVersion, arrays: SeriesArrays, policy: Policy) -> tup
             return sd, "reported"
         return sd, f"noise estimate ({record.noise.method if record.noise else '?'})"
     except InputError:
-        if policy.unknown_noise == "refuse":
-            raise InputError(
-                f"dataset {version.id}: no uncertainty is known and the policy refuses to guess; run `curate noise {version.id}`"
-            ) from None
-        if policy.unknown_noise == "default":
-            return policy.default_relative_sd * np.abs(
-                arrays.value
-            ), f"policy default ({policy.default_relative_sd:g} of |y|)"
-        result = noise.choose_and_estimate(
-            arrays.time, arrays.value, replicate=arrays.replicate, origin=f"dataset {version.id}"
-        )
-        return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
+        censored = arrays.censored_mask()
+        if not censored.any() or censored.all():
+            return _unknown_sd(version, arrays, policy)
+        # the observed points keep their own sd; a censored point without one takes the
+        # noise the policy finds for unknown noise (from the observed points)
+        observed_sd, source = _sd_of(version, arrays.observed(), policy)
+        full = np.empty(len(arrays))
+        full[~censored] = observed_sd
+        fallback, fallback_source = _unknown_sd(version, arrays, policy)
+        own = arrays.sd[censored] if arrays.sd is not None else np.full(int(censored.sum()), np.nan)
+        full[censored] = np.where(np.isfinite(own), own, fallback[censored])
+        if fallback_source != source and not np.isfinite(own).all():
+            source = f"{source}; censored points: {fallback_source}"
+        return full, source
+
+
+def _unknown_sd(
+    version: DatasetVersion, arrays: SeriesArrays, policy: Policy
+) -> tuple[np.ndarray, str]:
+    """Give each point's SD as the policy decides for unknown noise (estimated from the
+    observed points: a censored point's value is a limit, not a measurement)."""
+    if policy.unknown_noise == "refuse":
+        raise InputError(
+            f"dataset {version.id}: no uncertainty is known and the policy refuses to guess; run `curate noise {version.id}`"
+        ) from None
+    if policy.unknown_noise == "default":
+        return policy.default_relative_sd * np.abs(
+            arrays.value
+        ), f"policy default ({policy.default_relative_sd:g} of |y|)"
+    observed = arrays.observed()
+    left_out = len(arrays) - len(observed)
+    result = noise.choose_and_estimate(
+        observed.time, observed.value, replicate=observed.replicate,
+        origin=f"dataset {version.id}" + (f" ({left_out} censored points left out)" if left_out else ""),
+    )  # fmt: skip
+    return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
 
 
 MASKED_COLUMNS = ("dataset_id", "version", "observable", "lab", "time", "value", "sd", "replicate",
@@ -128,7 +159,8 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
 
     Points a mask sets aside are left out (see :func:`set_aside` for them).
     """
-    per_point: dict[str, list[np.ndarray]] = {"time": [], "value": [], "sd": [], "replicate": []}
+    per_point: dict[str, list[np.ndarray]] = {"time": [], "value": [], "sd": [], "replicate": [],
+                                              "censored": []}  # fmt: skip
     per_dataset: dict[str, list[Any]] = {name: [] for name in (
         "dataset_id", "version", "observable", "unit", "unit_ucum", "relative", "lab", "grade", "sd_source", "calibration_group")}  # fmt: skip
     conditions: dict[str, list[Any]] = {}
@@ -144,6 +176,8 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
         per_point["time"].append(arrays.time)
         per_point["value"].append(arrays.value)
         per_point["sd"].append(np.asarray(sd, dtype=float))
+        per_point["censored"].append(arrays.censored_mask() if arrays.censored is None else
+                                     np.asarray(arrays.censored, dtype=np.int8))  # fmt: skip
         per_point["replicate"].append(labels[arrays.replicate] if (arrays.replicate is not None and len(labels))
                                       else np.full(len(arrays), None, dtype=object))  # fmt: skip
         for name, value in (("dataset_id", version.id), ("version", version.version), ("observable", record.observable.id),
@@ -180,6 +214,10 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
     columns["calibration_group"] = np.repeat(
         np.asarray(per_dataset["calibration_group"], dtype=object), counts
     )
+    codes = np.concatenate(per_point["censored"]).astype(np.int8) if versions else np.array([])
+    if codes.any():  # only then: a selection without censoring keeps the columns it always had
+        words = [CENSORED_WORDS[k] for k in sorted(CENSORED_WORDS)]
+        columns["censored"] = pd.Categorical.from_codes(codes, categories=words)
     for column, values in conditions.items():
         kinds = {type(v) for v in values if v is not None}
         if kinds == {float}:

@@ -229,6 +229,9 @@ def _footing(
         return _Footing(multiplier, scale, kind)
     order = np.argsort(inverse, kind="stable")
     rows_of = np.split(order, np.cumsum(np.bincount(inverse, minlength=count))[:-1])
+    if "censored" in frame.columns:  # a censored value is a limit: no footing is read from it
+        observed = (frame["censored"].astype(str) == "").to_numpy()
+        rows_of = [rows[observed[rows]] if observed[rows].any() else rows for rows in rows_of]
     relative = frame["relative"].to_numpy(dtype=bool)
     value = frame["value"].to_numpy(dtype=float)
     time = frame["time"].to_numpy(dtype=float) if "time" in frame.columns else None
