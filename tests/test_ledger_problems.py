@@ -188,7 +188,7 @@ def test_a_catalog_from_before_stored_problems_gains_them_on_open(tmp_path, monk
             old.add(write(tmp_path / "a.csv", LONG_CSV), options=OPTIONS)
             assert "problems" not in old.store.db.table_names()
     with curate.open_catalog(path, actor="tester") as reopened:
-        assert reopened.store.applied_migrations()[-1] == "0003_problems"
+        assert reopened.store.applied_migrations()[2:] == ["0003_problems", "0004_censored"]
         assert reopened.problems() == [] and reopened.models() == []
         reopened.import_petab(problem_path("Boehm_JProteomeRes2014"))
         report = reopened.verify()

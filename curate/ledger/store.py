@@ -334,19 +334,13 @@ class Store:
             )
             for name, a in arrays.named().items()
         }
+        names = ["time", "value", "sd", "replicate", "n"]
+        if blobs["censored"] is not None:  # the column is named only when something is censored
+            names.append("censored")
         self.db.execute(
-            "INSERT OR IGNORE INTO series(content_hash, n_points, time, value, sd, replicate, n,"
-            " censored) VALUES (?,?,?,?,?,?,?,?)",
-            [
-                content_hash,
-                len(arrays),
-                blobs["time"],
-                blobs["value"],
-                blobs["sd"],
-                blobs["replicate"],
-                blobs["n"],
-                blobs["censored"],
-            ],
+            f"INSERT OR IGNORE INTO series(content_hash, n_points, {', '.join(names)})"
+            f" VALUES (?,?,{','.join('?' * len(names))})",
+            [content_hash, len(arrays), *(blobs[name] for name in names)],
         )
 
     def series(self, content_hash: str) -> SeriesArrays:
