@@ -418,3 +418,38 @@ def test_a_sidecar_mask_at_a_missing_time_names_the_sidecar(catalog, tmp_path):
         catalog.add(tmp_path / "a.csv")
     assert "a.toml, masks: no point at time 7 (420 s); the nearest is 5 min" in str(err.value)
     assert catalog.list() == []
+
+
+def test_clock_times_cannot_be_given_another_time_unit(catalog, tmp_path):
+    """Times read from clock cells carry their own unit: a --time-unit correction would read the
+    elapsed hours as minutes (found by a trial user); it is refused."""
+    import datetime as dt
+
+    import openpyxl
+
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["time", "value"])
+    for k in range(5):
+        sheet.append([dt.datetime(2026, 5, 4, 9, 0) + dt.timedelta(minutes=15 * k), 1.0 + k])
+    book.save(tmp_path / "clock.xlsx")
+    added = catalog.add(tmp_path / "clock.xlsx", options={
+        "observable": {"id": "perk", "unit": "nM"}, "time": {"unit": "h"}, "source": {"lab": "lab one"}})  # fmt: skip
+    np.testing.assert_allclose(catalog.points(added.id)["time"], [0.0, 900.0, 1800.0, 2700.0, 3600.0])
+    with pytest.raises(InputError, match="clock times or durations"):
+        catalog.revise(added.id, reason="min", correction=Correction(time_unit="min"))
+    assert catalog.show(added.id).version == 1
+
+
+def test_censored_points_without_an_sd_take_the_noise_noise_would_report(catalog, tmp_path):
+    """The sigma of a censored point without its own sd is the policy's automatic noise choice
+    on the observed points, the same that `curate noise` reports (found by a trial user: the
+    export estimated it from differences while `noise` took the reported sds)."""
+    text = "time,value,sd\n0,<0.5,\n10,1.5,0.3\n20,2.5,0.4\n30,3.1,0.3\n40,<0.5,\n50,3.4,0.2\n"
+    added = log(catalog, tmp_path, text=text)
+    table = catalog.weighted_table(policy=write(tmp_path / "n.toml", NEUTRAL))
+    censored = table[table["censored"] == "below"]
+    pooled = np.sqrt(np.mean(np.array([0.3, 0.4, 0.3, 0.2]) ** 2))  # the reported sds, pooled
+    np.testing.assert_allclose(censored["sd"], pooled, rtol=1e-12)
+    (outcome,) = catalog.estimate_noise([added.id])
+    assert outcome.version.record.noise.sd == pytest.approx(pooled, rel=1e-12)

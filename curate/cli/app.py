@@ -316,6 +316,8 @@ def add(
         _emit_json(result.to_dict())
         return
     out.print(text.added_text(result))
+    if result.added and draft.record.supersedes is not None:
+        out.print(f"retired {draft.record.supersedes}: superseded by {result.id}")
     for note in text.added_notes(result):
         err_console.print(note)
 

@@ -180,6 +180,12 @@ def correct(
     origin: str,
 ) -> Corrected:
     """Give the new version's record fields and arrays for a correction of how the numbers read."""
+    if correction.time_unit is not None and record.annotations.get("time_cells"):
+        raise InputError(
+            f"{origin}: its times were read from clock times or durations "
+            f"({record.annotations['time_cells']}), which carry their own unit; --time-unit "
+            "cannot change them (log the file again if its times were misread)"
+        )
     given, recovered = numbers_as_given(record, stored, kept)
     try:
         value_unit = units.canonical_unit(correction.unit or record.observable.unit_original)

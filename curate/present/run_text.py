@@ -289,7 +289,11 @@ def impact_text(dataset_id: str, found: list[ImpactEntry]) -> Text:
     counts = [
         _count(sum(e.kind == kind for e in found), _IMPACT_WORDS[kind]) for kind in _IMPACT_WORDS
     ]
-    lines = [f"{', '.join(c for c in counts if c)} used an outdated version of {dataset_id}:"]
+    what_used = f"an outdated version of {dataset_id}"
+    if any(e.superseded for e in found):
+        what_used = (f"a dataset {dataset_id} supersedes" if all(e.superseded for e in found)
+                     else f"{what_used} or a dataset it supersedes")  # fmt: skip
+    lines = [f"{', '.join(c for c in counts if c)} used {what_used}:"]
     for entry in found:
         state = "retired" if entry.retired else f"now version {entry.current_version}"
         what = _IMPACT_WORDS.get(entry.kind, entry.kind)

@@ -24,7 +24,7 @@ import pandas as pd
 from curate.errors import InputError
 from curate.ledger import Ledger
 from curate.quality import noise
-from curate.quality.measured import measured_sd
+from curate.quality.measured import measured_sd, reported_sd
 from curate.records import CENSORED_WORDS, DatasetVersion, SeriesArrays, masked_points
 from curate.weighting.policy import Policy
 from curate.weighting.selection import Selection, select
@@ -93,8 +93,9 @@ def _unknown_sd(
         ), f"policy default ({policy.default_relative_sd:g} of |y|)"
     observed = arrays.observed()
     left_out = len(arrays) - len(observed)
+    reported = reported_sd(version, observed)  # the observed points' own sds, where given
     result = noise.choose_and_estimate(
-        observed.time, observed.value, replicate=observed.replicate,
+        observed.time, observed.value, replicate=observed.replicate, reported_sd=reported,
         origin=f"dataset {version.id}" + (f" ({left_out} censored points left out)" if left_out else ""),
     )  # fmt: skip
     return np.full(len(arrays), result.sd), f"estimated at export ({result.method})"
