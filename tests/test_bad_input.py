@@ -126,10 +126,9 @@ CASES = [
     (
         "unknown censoring word",
         "p3.csv",
-        "time,value\n0,1\n1,BLQ\n",
+        "time,value\n0,1\n1,BLQ\n2,3\n",
         [],
-        "line 3, column 'value': 'BLQ' is not a number; expected a measured value (a value below "
-        "a limit is written '<0.5'; a lab's own word for it is named with --censored-token",
+        "if it marks a value below a limit, write it '<0.5', or name the word with --censored-token",
     ),
     (
         "comparison without limit",

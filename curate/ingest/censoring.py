@@ -190,8 +190,8 @@ def _numbers(table: Table, column: str, allow_empty: bool, what: str) -> np.ndar
         message = str(err)
         if "is not a number" in message:
             message += (
-                " (a value below a limit is written '<0.5'; a lab's own word for it is named "
-                "with --censored-token and its limit with --detection-limit)"
+                "; if it marks a value below a limit, write it '<0.5', or name the word with "
+                "--censored-token and its limit with --detection-limit"
             )
         raise InputError(message) from None
 

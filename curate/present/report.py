@@ -50,6 +50,8 @@ SECTIONS = (
     "consistency",
     "fit",
     "sensitivity",
+    "ensemble",
+    "profiles",
     "manifest",
     "cautions",
 )
