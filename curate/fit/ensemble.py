@@ -27,6 +27,9 @@ from curate.errors import InputError
 from curate.fit.backends import ModelBackend, rebuild
 from curate.fit.engine import FitOptions, least_squares, start_points
 from curate.fit.problem import FitProblem
+
+# what starting a worker costs before its first fit: the same estimate as for refits
+from curate.fit.sensitivity import WORKER_START_SECONDS
 from curate.fit.spec import ParameterSpec
 
 __all__ = ["DEFAULT_CUT", "PLATEAU_GAP", "Cluster", "EnsembleResult", "ensemble"]
@@ -98,9 +101,6 @@ def _plateaus(objectives: list[float]) -> list[dict[str, Any]]:
 
 _Outcome = tuple[int, float | None, np.ndarray | None, str | None]  # start, objective, theta, error
 _WORKER: dict[str, FitProblem] = {}  # the problem of this worker process (built once per worker)
-# what starting a worker process costs before its first fit (spawn, import curate, rebuild the
-# model), as in curate.fit.sensitivity
-WORKER_START_SECONDS = 2.0
 
 
 def _local_fit(problem: FitProblem, number: int, x0: np.ndarray, options: FitOptions) -> _Outcome:

@@ -63,11 +63,7 @@ class Correction:
 
     def given(self) -> bool:
         """Tell whether anything is to be corrected."""
-        return any(
-            v is not None
-            for v in (self.unit, self.time_unit, self.uncertainty_type, self.relative,
-                      self.normalisation, self.sem_n, self.ci_level)
-        )  # fmt: skip
+        return bool(self.words())
 
     def words(self) -> dict[str, Any]:
         """Give what was asked for, for the event's payload."""
