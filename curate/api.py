@@ -21,6 +21,7 @@ from curate.fit import runs
 from curate.fit.backends import ModelBackend, PythonFunction
 from curate.fit.engine import FitOptions, FitResult
 from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult
+from curate.fit.predict import PredictionBand
 from curate.fit.problem_runs import check_problem_model
 from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import DEFAULT_SHIFT_THRESHOLD, SensitivityResult
@@ -244,6 +245,31 @@ class Catalog(Ledger):
                                  selection=selection or Selection(), options=options,
                                  threshold=threshold, cut=cut, workers=workers, progress=progress)  # fmt: skip
 
+    def predict(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
+                conditions: dict[str, str], times: Sequence[float], time_unit: str = "s",
+                observable: str | None = None, by: str | None = "dataset",
+                problem: str | None = None, options: FitOptions | None = None,
+                threshold: float | None = None, cut: float = DEFAULT_CUT, policy: PolicyLike = None,
+                selection: Selection | None = None, workers: int = 1,
+                progress: Callable[[int, int, str], None] | None = None) -> PredictionBand:  # fmt: skip
+        """Give the band of an ensemble's kept fits at new conditions and times (``time_unit``),
+        and which left-out group (``by``; None: none) widens it most."""
+        chosen = resolve_policy(policy)
+        options = options or FitOptions(starts=100)
+        backend: ModelBackend | None = None
+        spec = None
+        if problem is None:
+            if model is None or params is None:
+                raise InputError("predict: give --model with --params")
+            backend = (
+                model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
+            )
+            spec = load_spec(params)
+        return runs.run_predict(self, backend=backend, spec=spec, problem_id=problem, policy=chosen,
+                                selection=selection or Selection(), conditions=conditions, times=times,
+                                time_unit=time_unit, observable=observable, by=by, options=options,
+                                threshold=threshold, cut=cut, workers=workers, progress=progress)  # fmt: skip
+
     def profile(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
                 problem: str | None = None, parameters: Sequence[str] = (), level: float = 0.95,
                 policy: PolicyLike = None, selection: Selection | None = None,
@@ -274,10 +300,12 @@ class Catalog(Ledger):
                     policies: Sequence[PolicyLike] = (), timeout: float = 600.0,
                     workdir: str | Path | None = None, tolerances: dict[str, float] | None = None,
                     profiles: bool = False, profile_parameters: Sequence[str] = (),
+                    ensemble: FitOptions | None = None,
                     progress: Callable[[int, int], None] | None = None) -> SensitivityResult:  # fmt: skip
         """Leave each group out in turn and refit; give shifts, Cook distances, jackknife SEs;
         with ``profiles``, also each parameter's profile without each group (which data
-        identify which parameter)."""
+        identify which parameter); with ``ensemble`` (its starts and seed), the ensemble's
+        families without each group (which data decide between the families of good fits)."""
         chosen = resolve_policy(policy)
         alternatives = [resolve_policy(p) for p in policies]
         runs.sensitivity_grouping(by)
@@ -296,7 +324,7 @@ class Catalog(Ledger):
             self, backend, spec, by=by, policy=chosen, selection=selection or Selection(), method=method,
             options=options, workers=workers, dask=dask, threshold=threshold, alternative_policies=alternatives,
             workdir=workdir, progress=progress, problem_id=problem, tolerances=tolerances,
-            profiles=profiles, profile_parameters=profile_parameters,
+            profiles=profiles, profile_parameters=profile_parameters, ensemble_options=ensemble,
         )  # fmt: skip
 
     # -- keeping and showing -------------------------------------------------------------------

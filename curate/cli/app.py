@@ -38,6 +38,7 @@ from curate.cli.options import (
 from curate.demo import run_demo
 from curate.errors import CurateError, InputError
 from curate.fit import FitOptions
+from curate.fit.new_points import parse_times
 from curate.ingest import build_draft
 from curate.ingest.corrections import Correction
 from curate.ingest.inspection import inspect_file
@@ -951,9 +952,7 @@ def ensemble(
     as_json: JsonFlag = False,
 ) -> None:
     """Fit from many starts; keep every fit about as good as the best; group them into families."""
-    if workers < 0:
-        raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
-    count = workers if workers > 0 else (os.cpu_count() or 1)
+    count = _worker_count(workers)
     tolerances = _tolerances(relative_tolerance, absolute_tolerance, problem)
     show_bar = not as_json and err_console.is_terminal
     with _catalog() as catalog, progress_bar(err_console, "ensemble", enabled=show_bar) as update:
@@ -963,6 +962,67 @@ def ensemble(
             tolerances=tolerances, workers=count, progress=update,
         )  # fmt: skip
     _show(result.to_dict(), lambda: run_text.ensemble_text(result), as_json)
+
+
+@app.command()
+@selection_options
+def predict(
+    model: Annotated[
+        str | None, typer.Option(help="module:function or path/to/model.py:function")
+    ] = None,
+    params: Annotated[
+        Path | None,
+        typer.Option(help="parameter spec TOML (start, lower, upper, log, fixed)"),
+    ] = None,
+    conditions: Annotated[
+        list[str] | None,
+        typer.Option(
+            "--conditions",
+            help="a condition to predict, KEY=VALUE with its unit "
+            "(dose=5uM); repeatable (--condition selects datasets)",
+        ),
+    ] = None,
+    times: Annotated[
+        list[str] | None, typer.Option(help="times to predict, e.g. 0,10,30,60; repeatable")
+    ] = None,
+    time_unit: Annotated[str, typer.Option(help="unit of --times")] = "s",
+    by: Annotated[
+        str, typer.Option(help="leave out each dataset, lab or condition:KEY; 'none' to skip")
+    ] = "dataset",
+    problem: ProblemOption = None,
+    *,
+    selection: Selection,
+    policy: Policy,
+    starts: Annotated[
+        int, typer.Option(help="starts of the ensemble (Latin hypercube within the bounds)")
+    ] = 100,
+    seed: Annotated[int, typer.Option(help="seed of the Latin hypercube")] = 0,
+    threshold: Annotated[
+        float | None,
+        typer.Option(help="keep fits within this of the best (chi2 units; default chi2(0.95, p))"),
+    ] = None,
+    cut: Annotated[
+        float, typer.Option(help="clustering cut in the optimiser's coordinates (ln p for log)")
+    ] = 0.5,
+    workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
+    as_json: JsonFlag = False,
+) -> None:
+    """Predict new conditions with every good fit of an ensemble: the band, and which left-out
+    dataset (lab, condition) widens it most."""
+    count = _worker_count(workers)
+    wanted = parse_conditions(conditions, "--conditions")
+    chosen_times = parse_times(times or [])
+    show_bar = not as_json and err_console.is_terminal
+    with _catalog() as catalog, progress_bar(err_console, "predicting", enabled=show_bar) as update:
+        result = catalog.predict(
+            model, params, problem=problem, conditions=wanted, times=chosen_times,
+            time_unit=time_unit, by=None if by == "none" else by,
+            # a model that reads an 'observable' column predicts the one selected
+            observable=selection.observables[0] if len(selection.observables) == 1 else None,
+            options=FitOptions(starts=starts, seed=seed), threshold=threshold, cut=cut,
+            policy=policy, selection=selection, workers=count, progress=update,
+        )  # fmt: skip
+    _show(result.to_dict(), lambda: run_text.prediction_text(result, time_unit), as_json)
 
 
 @app.command()
@@ -1004,6 +1064,20 @@ def profile(
             tolerances=tolerances, progress=update,
         )  # fmt: skip
     _show(result.to_dict(), lambda: run_text.profile_text(result), as_json)
+
+
+def _worker_count(workers: int) -> int:
+    """Give the worker processes asked for: 0 is every core; more than the cores is refused
+    (processes beyond the cores only queue for them and multiply the memory)."""
+    cores = os.cpu_count() or 1
+    if workers < 0:
+        raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
+    if workers > cores:
+        raise InputError(
+            f"--workers {workers}: this machine has {cores} cores; ask for at most {cores} "
+            "(or 0 for every core; --dask ADDRESS reaches more machines)"
+        )
+    return workers if workers > 0 else cores
 
 
 def _tolerances(
@@ -1061,6 +1135,14 @@ def sensitivity(
         list[str] | None,
         typer.Option(help="with --profiles: only this parameter; repeatable (default: all)"),
     ] = None,
+    with_ensemble: Annotated[
+        bool,
+        typer.Option("--ensemble", help="also run an ensemble and refit it without each group"),
+    ] = False,
+    ensemble_starts: Annotated[
+        int, typer.Option(help="with --ensemble: starts of the full ensemble")
+    ] = 50,
+    seed: Annotated[int, typer.Option(help="with --ensemble: seed of its Latin hypercube")] = 0,
     *,
     selection: Selection,
     policy: Policy,
@@ -1069,9 +1151,7 @@ def sensitivity(
     as_json: JsonFlag = False,
 ) -> None:
     """Leave each dataset, lab or condition out in turn: does any conclusion hinge on it?"""
-    if workers < 0:
-        raise InputError(f"--workers {workers}: expected 0 (every core) or a number of processes")
-    count = workers if workers > 0 else (os.cpu_count() or 1)
+    count = _worker_count(workers)
     if report_file is not None and not report_file.parent.is_dir():  # before hours of refits
         raise InputError(f"{report_file.parent}: no such folder for --report; create it first")
     show_bar = not as_json and err_console.is_terminal
@@ -1084,6 +1164,7 @@ def sensitivity(
             options=FitOptions(starts=starts, max_evaluations=_budget("--max-evaluations", max_evaluations)),
             threshold=threshold, policies=policies or [], timeout=timeout, workdir=workdir,
             profiles=profiles, profile_parameters=profile_parameter or (), progress=update,
+            ensemble=FitOptions(starts=ensemble_starts, seed=seed) if with_ensemble else None,
         )  # fmt: skip
     if report_file is not None:
         write_sensitivity_report(result, report_file)

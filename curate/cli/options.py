@@ -72,7 +72,7 @@ _KEY = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 Command = TypeVar("Command", bound=Callable[..., Any])
 
 
-def parse_conditions(pairs: list[str] | None) -> dict[str, str]:
+def parse_conditions(pairs: list[str] | None, option: str = "--condition") -> dict[str, str]:
     """Give {key: value} of repeated ``--condition KEY=VALUE`` options (keys checked, each once)."""
     result: dict[str, str] = {}
     given: dict[str, str] = {}
@@ -80,15 +80,15 @@ def parse_conditions(pairs: list[str] | None) -> dict[str, str]:
         key, sep, value = pair.partition("=")
         key = key.strip()
         if not sep:
-            raise InputError(f"--condition '{pair}': expected KEY=VALUE, e.g. temperature=25degC")
+            raise InputError(f"{option} '{pair}': expected KEY=VALUE, e.g. temperature=25degC")
         if not _KEY.match(key):
             raise InputError(
-                f"--condition '{pair}': key '{key}' is not a valid identifier; use "
+                f"{option} '{pair}': key '{key}' is not a valid identifier; use "
                 "letters, digits and '_', not starting with a digit"
             )
         if key in given:
             raise InputError(
-                f"--condition '{pair}': key '{key}' is given twice (also '{given[key]}'); "
+                f"{option} '{pair}': key '{key}' is given twice (also '{given[key]}'); "
                 "give each condition key once"
             )
         given[key] = pair

@@ -12,6 +12,7 @@ also grouped by objective plateau (sorted objectives closer than PLATEAU_GAP in 
 
 from __future__ import annotations
 
+import math
 import multiprocessing
 import time
 from collections.abc import Callable
@@ -20,22 +21,34 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import optimize, stats
 from scipy.cluster import hierarchy
 
 from curate.errors import InputError
 from curate.fit.backends import ModelBackend, rebuild
-from curate.fit.engine import FitOptions, least_squares, start_points
+from curate.fit.engine import DEFAULT_GENERATIONS, FitOptions, least_squares, start_points
 from curate.fit.problem import FitProblem
 
 # what starting a worker costs before its first fit: the same estimate as for refits
 from curate.fit.sensitivity import WORKER_START_SECONDS
 from curate.fit.spec import ParameterSpec
 
-__all__ = ["DEFAULT_CUT", "PLATEAU_GAP", "Cluster", "EnsembleResult", "ensemble"]
+__all__ = [
+    "DEFAULT_CUT",
+    "MAX_REJECTED",
+    "PLATEAU_GAP",
+    "Cluster",
+    "EnsembleResult",
+    "Outcome",
+    "ensemble",
+    "families",
+    "global_population",
+    "refine",
+]
 
 DEFAULT_CUT = 0.5  # in the optimiser's coordinates: a factor e^0.5 = 1.65 for a log parameter
 PLATEAU_GAP = 0.1  # chi2 units between sorted objectives that still share a plateau
+MAX_REJECTED = 10  # families of finished fits beyond the threshold that are kept for comparison
 
 
 @dataclass
@@ -47,6 +60,9 @@ class Cluster:
     objective: float  # the best in the family
     parameters: dict[str, dict[str, float]]  # NAME -> median, min, max
     members: list[int]  # start numbers
+    # optimiser coordinates: the family's median point and its best member (not in the JSON)
+    centre: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
+    best: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         """Give the JSON shape of one cluster."""
@@ -71,6 +87,11 @@ class EnsembleResult:
     objective: str = "chi2"
     kept: list[dict[str, Any]] = field(default_factory=list)  # start, objective, parameters
     executor: str = "serial"
+    # the best families of finished fits beyond the threshold (ids after the kept ones): what a
+    # leave-one-group-out ensemble asks about ("which data rule this family out")
+    rejected: list[Cluster] = field(default_factory=list)
+    kept_theta: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)), repr=False)
+    origin: str = "latin hypercube"
 
     def to_dict(self) -> dict[str, Any]:
         """Give ``{"starts", "failed", "threshold", "best": {"objective", "parameters"},
@@ -85,7 +106,14 @@ class EnsembleResult:
             "plateaus": self.plateaus,
             "objectives": self.objectives,
             "executor": self.executor,
+            "rejected": [c.to_dict() for c in self.rejected],
+            "origin": self.origin,
         }
+
+    @property
+    def families(self) -> list[Cluster]:
+        """Give the kept families, then the rejected ones."""
+        return [*self.clusters, *self.rejected]
 
 
 def _plateaus(objectives: list[float]) -> list[dict[str, Any]]:
@@ -99,7 +127,8 @@ def _plateaus(objectives: list[float]) -> list[dict[str, Any]]:
     return [{"objective": p["objective"], "size": p["size"]} for p in plateaus]
 
 
-_Outcome = tuple[int, float | None, np.ndarray | None, str | None]  # start, objective, theta, error
+Outcome = tuple[int, float | None, np.ndarray | None, str | None]  # start, objective, theta, error
+_Outcome = Outcome
 _WORKER: dict[str, FitProblem] = {}  # the problem of this worker process (built once per worker)
 
 
@@ -125,11 +154,11 @@ def _worker_fit(task: tuple[int, np.ndarray, FitOptions]) -> _Outcome:
     return _local_fit(_WORKER["problem"], number, x0, options)
 
 
-def _run_starts(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
-                workers: int, progress: Callable[[int, int, str], None] | None,
-                ) -> tuple[list[_Outcome], str]:  # fmt: skip
-    """Give every start's outcome, here or on a process pool (spawned workers, each building
-    the problem once), whichever is quicker."""
+def refine(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
+           workers: int = 1, progress: Callable[[int, int, str], None] | None = None,
+           ) -> tuple[list[Outcome], str]:  # fmt: skip
+    """Give every start's local optimum, here or on a process pool (spawned workers, each
+    building the problem once), whichever is quicker; and which it was."""
     total = len(candidates)
     outcomes = []
     started = time.perf_counter()
@@ -165,6 +194,74 @@ def _run_starts(problem: FitProblem, candidates: list[np.ndarray], options: FitO
     return outcomes, f"process pool ({workers} workers)"
 
 
+def global_population(problem: FitProblem, options: FitOptions) -> list[np.ndarray]:
+    """Give the spec's start and the final population of a differential-evolution search
+    (scipy, ``options.starts - 1`` members, ``options.generations`` generations): starts
+    spread over the good region rather than the whole box."""
+    lower, upper = problem.bounds()
+    if not (np.all(np.isfinite(lower)) and np.all(np.isfinite(upper))):
+        raise InputError("--global needs finite lower and upper bounds for every free parameter")
+    dimension = len(problem.free)
+    wanted = options.starts - 1
+    # scipy's population is popsize * dimension members (at least 5 in all)
+    size = max(1, math.ceil(max(wanted, 5) / dimension))
+
+    def objective(theta: np.ndarray) -> float:
+        try:
+            value = float(np.sum(problem.residual(theta) ** 2))
+        except (InputError, ArithmeticError):
+            return math.inf
+        return value if math.isfinite(value) else math.inf
+
+    found = optimize.differential_evolution(
+        objective, list(zip(lower, upper, strict=True)), seed=options.seed, polish=False,
+        tol=1e-8, maxiter=options.generations or DEFAULT_GENERATIONS, popsize=size,
+    )  # fmt: skip
+    order = np.argsort(found.population_energies)
+    population = [np.asarray(found.population[k], dtype=float) for k in order[:wanted]]
+    return [problem.to_internal({p.name: p.start for p in problem.free}), *population]
+
+
+def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cut: float,
+             first_id: int = 1) -> list[Cluster]:  # fmt: skip
+    """Give the families of fits (start, objective, optimiser coordinates): scipy's
+    average-linkage clusters cut at ``cut``, best family first, numbered from ``first_id``."""
+    if not found:
+        return []
+    free = [p.name for p in problem.free]
+    coordinates = np.array([theta for _, _, theta in found])
+    if len(found) > 1:
+        labels = hierarchy.fcluster(
+            hierarchy.linkage(coordinates, method="average"), t=cut, criterion="distance"
+        )
+    else:
+        labels = np.array([1])
+    groups = []
+    for label in np.unique(labels):
+        rows = np.flatnonzero(labels == label)
+        members = [found[k] for k in rows]
+        natural = [problem.to_natural(theta) for _, _, theta in members]
+        summary = {}
+        for name in free:
+            values = np.array([n[name] for n in natural])
+            summary[name] = {"median": float(np.median(values)), "min": float(values.min()),
+                             "max": float(values.max())}  # fmt: skip
+        best = min(members, key=lambda m: m[1])
+        groups.append((best[1], len(members), summary, [n for n, _, _ in members],
+                       np.median(coordinates[rows], axis=0), best[2]))  # fmt: skip
+    groups.sort(key=lambda g: (g[0], -g[1]))
+    return [
+        Cluster(first_id + k, size, value, summary, members, centre=centre, best=best)
+        for k, (value, size, summary, members, centre, best) in enumerate(groups)
+    ]
+
+
+def _candidates(problem: FitProblem, options: FitOptions) -> tuple[list[np.ndarray], str]:
+    if options.global_search:
+        return global_population(problem, options), "final population of the global search"
+    return start_points(problem, options), "latin hypercube"
+
+
 def ensemble(
     problem: FitProblem,
     options: FitOptions,
@@ -173,14 +270,16 @@ def ensemble(
     cut: float = DEFAULT_CUT,
     workers: int = 1,
     progress: Callable[[int, int, str], None] | None = None,
+    candidates: list[np.ndarray] | None = None,
 ) -> EnsembleResult:
     """Give the ensemble of ``options.starts`` local fits (the spec's start and a Latin
-    hypercube over the bounds, log scale where the spec says so)."""
+    hypercube over the bounds, log scale where the spec says so; or the final population of a
+    global search with ``options.global_search``; or the ``candidates`` given)."""
     if threshold is not None and not threshold > 0:
         raise InputError(f"--threshold {threshold}: expected a positive number (chi2 units)")
     if not cut > 0:
         raise InputError(f"--cut {cut}: expected a positive distance")
-    if options.starts < 2:
+    if candidates is None and options.starts < 2:
         raise InputError(f"--starts {options.starts}: an ensemble needs at least 2 starts")
     free = [p.name for p in problem.free]
     if not free:
@@ -188,8 +287,10 @@ def ensemble(
     limit = float(stats.chi2.ppf(0.95, len(free))) if threshold is None else float(threshold)
     if workers < 1:
         raise InputError(f"--workers {workers}: expected at least 1 worker process")
-    candidates = start_points(problem, options)
-    outcomes, executor = _run_starts(problem, candidates, options, workers, progress)
+    origin = "given starts"
+    if candidates is None:
+        candidates, origin = _candidates(problem, options)
+    outcomes, executor = refine(problem, candidates, options, workers, progress)
     finished: list[tuple[int, float, np.ndarray]] = []
     failed: list[dict[str, Any]] = []
     for number, value, theta, error in sorted(outcomes, key=lambda o: o[0]):
@@ -206,25 +307,9 @@ def ensemble(
         )
     best = min(finished, key=lambda item: item[1])
     kept = [item for item in finished if item[1] - best[1] <= limit]
-    coordinates = np.array([theta for _, _, theta in kept])
-    if len(kept) > 1:
-        labels = hierarchy.fcluster(
-            hierarchy.linkage(coordinates, method="average"), t=cut, criterion="distance"
-        )
-    else:
-        labels = np.array([1])
-    clusters = []
-    for label in np.unique(labels):
-        members = [kept[k] for k in np.flatnonzero(labels == label)]
-        natural = [problem.to_natural(theta) for _, _, theta in members]
-        summary = {}
-        for name in free:
-            values = np.array([n[name] for n in natural])
-            summary[name] = {"median": float(np.median(values)), "min": float(values.min()),
-                             "max": float(values.max())}  # fmt: skip
-        clusters.append((min(v for _, v, _ in members), len(members), summary,
-                         [n for n, _, _ in members]))  # fmt: skip
-    clusters.sort(key=lambda c: (c[0], -c[1]))
+    beyond = [item for item in finished if item[1] - best[1] > limit]
+    clusters = families(problem, kept, cut)
+    rejected = families(problem, beyond, cut, first_id=len(clusters) + 1)[:MAX_REJECTED]
     return EnsembleResult(
         starts=len(candidates),
         failed=failed,
@@ -232,10 +317,7 @@ def ensemble(
         best_objective=best[1],
         best_parameters={k: v for k, v in problem.to_natural(best[2]).items() if k in free},
         accepted=len(kept),
-        clusters=[
-            Cluster(k + 1, size, value, summary, members)
-            for k, (value, size, summary, members) in enumerate(clusters)
-        ],
+        clusters=clusters,
         plateaus=_plateaus([v for _, v, _ in kept]),
         objectives=sorted(v for _, v, _ in finished),
         cut=cut,
@@ -244,4 +326,7 @@ def ensemble(
             {"start": n, "objective": v, "parameters": problem.to_natural(t)} for n, v, t in kept
         ],
         executor=executor,
+        rejected=rejected,
+        kept_theta=np.array([t for _, _, t in kept]),
+        origin=origin,
     )

@@ -23,6 +23,9 @@ from curate.fit.censored import fit_points
 from curate.fit.deciding import profiles_by_group
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
 from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble
+from curate.fit.families import families_by_group
+from curate.fit.new_points import new_points
+from curate.fit.predict import PredictionBand, prediction_band
 from curate.fit.problem import FitProblem
 from curate.fit.profile import ProfileResult, profile, profile_threshold
 from curate.fit.spec import ParameterSpec, load_spec
@@ -34,6 +37,7 @@ __all__ = [
     "choose_backend",
     "run_ensemble",
     "run_fit",
+    "run_predict",
     "run_problem_fit",
     "run_profile",
     "run_sensitivity",
@@ -169,7 +173,8 @@ def _chosen_problem(catalog: Ledger, *, backend: ModelBackend | None, spec: Para
         if backend.fits_itself:
             raise InputError(f"{what}: an external fitter fits by itself; {what} needs --model")
         weighted = weighted_table(catalog, policy, selection)
-        problem = FitProblem(weighted.table, backend, spec)
+        # the policy's censored-point rule applies here as in a fit
+        problem = FitProblem(fit_points(weighted.table, policy.censored)[0], backend, spec)
     if not problem.free:
         raise InputError(f"{spec.origin}: every parameter is fixed; there is nothing to {what}")
     return problem, backend, spec, weighted
@@ -189,6 +194,45 @@ def run_ensemble(catalog: Ledger, *, backend: ModelBackend | None = None,
                       progress=progress)  # fmt: skip
     summary = {**result.to_dict(), "seed": options.seed, "cut": cut}
     _record(catalog, "ensemble", backend, spec, weighted, summary)
+    return result
+
+
+def run_predict(catalog: Ledger, *, backend: ModelBackend | None = None,
+                spec: ParameterSpec | None = None, problem_id: str | None = None, policy: Policy,
+                selection: Selection, conditions: dict[str, str], times: Sequence[float],
+                time_unit: str = "s", observable: str | None = None, by: str | None = "dataset",
+                options: FitOptions, threshold: float | None = None, cut: float = DEFAULT_CUT,
+                workers: int = 1, progress: Callable[[int, int, str], None] | None = None,
+                ) -> PredictionBand:  # fmt: skip
+    """Give the ensemble's prediction band at new conditions and, unless ``by`` is None, which
+    left-out group widens it most; record the run."""
+    if problem_id is not None:
+        raise InputError(
+            "predict: a stored PEtab problem predicts only its own conditions; predictions at "
+            "new conditions need --model with --params"
+        )
+    grouping = sensitivity_grouping(by) if by is not None else None
+    problem, backend, spec, weighted = _chosen_problem(
+        catalog, backend=backend, spec=spec, problem_id=None, policy=policy,
+        selection=selection, tolerances=None, what="predict",
+    )  # fmt: skip
+    points, notes = new_points(weighted.versions, conditions, times, time_unit=time_unit,
+                               observable=observable)  # fmt: skip
+    table, censored_notes = fit_points(weighted.table, policy.censored)
+    whole = ensemble(problem, options, threshold=threshold, cut=cut, workers=workers,
+                     progress=progress)  # fmt: skip
+    labels = grouping.labels(table) if grouping is not None else None
+    result = prediction_band(
+        problem, whole, points, labels, by=by or "", options=options, workers=workers,
+        progress=(lambda d, t: progress(d, t, "groups")) if progress else None,
+    )  # fmt: skip
+    result.notes += notes + censored_notes + ungraded_note(weighted)
+    if any(weighted.table["relative"]) if "relative" in weighted.table else False:
+        result.notes.append("some datasets are in relative units: the band is the model's own "
+                            "output, before any dataset's scale factor")  # fmt: skip
+    summary = {**result.to_dict(), "starts": whole.starts, "seed": options.seed,
+               "threshold": whole.threshold, "conditions": conditions, "time_unit": time_unit}  # fmt: skip
+    _record(catalog, "prediction", backend, spec, weighted, summary)
     return result
 
 
@@ -234,6 +278,7 @@ def run_sensitivity(
     tolerances: dict[str, float] | None = None,
     profiles: bool = False,
     profile_parameters: Sequence[str] = (),
+    ensemble_options: FitOptions | None = None,
 ) -> sensitivity.SensitivityResult:
     """Run the leave-one-group-out check (and a policy sweep); record it; give the result.
 
@@ -257,6 +302,15 @@ def run_sensitivity(
         raise InputError(
             "sensitivity --profiles refits and profiles each group with --model or --problem "
             "and --method exact (profiles need the model itself, not a screen)"
+        )
+    if ensemble_options is not None and (backend.fits_itself or method != "exact"):
+        raise InputError(
+            "sensitivity --ensemble refits the ensemble without each group with --model or "
+            "--problem and --method exact (families need the model itself, not a screen)"
+        )
+    if ensemble_options is not None and ensemble_options.starts < 2:
+        raise InputError(
+            f"--ensemble-starts {ensemble_options.starts}: an ensemble needs at least 2 starts"
         )
     if backend.fits_itself:
         # a folder of our own is removed after a run in which every fit worked; after a failure
@@ -283,6 +337,14 @@ def run_sensitivity(
         result.profiles = profiles_by_group(
             problem, full, labels, by=by, names=profile_parameters or None, options=options,
         ).to_dict()  # fmt: skip
+    if ensemble_options is not None:
+        whole = ensemble(problem, ensemble_options, workers=workers)
+        result.families = {
+            **families_by_group(problem, whole, labels, by=by, options=ensemble_options,
+                                workers=workers).to_dict(),
+            "starts": whole.starts, "seed": ensemble_options.seed, "cut": whole.cut,
+            "objectives": whole.objectives,
+        }  # fmt: skip
     tolerance = (options or FitOptions()).tolerance
     for alternative in alternative_policies:
         if problem_id is not None:

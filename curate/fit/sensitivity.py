@@ -121,6 +121,8 @@ class SensitivityResult:
     executor: str = "serial"
     # the profiles without each group (``--profiles``): see curate.fit.deciding
     profiles: dict[str, Any] | None = None
+    # the ensemble's families without each group (``--ensemble``): see curate.fit.families
+    families: dict[str, Any] | None = None
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> SensitivityResult:
@@ -137,7 +139,7 @@ class SensitivityResult:
             full=data["full"], by=data["by"], method=data["method"], groups=groups,
             jackknife_stderr=data["jackknife_stderr"], shift_threshold=data["shift_threshold"],
             cook_threshold=data["cook_threshold"], policies=data.get("policies", []), executor=data.get("executor", ""),
-            profiles=data.get("profiles"),
+            profiles=data.get("profiles"), families=data.get("families"),
         )  # fmt: skip
 
     def flags(self) -> list[str]:
@@ -191,6 +193,7 @@ class SensitivityResult:
             "executor": self.executor,
             "notes": self.notes(),
             **({"profiles": self.profiles} if self.profiles is not None else {}),
+            **({"families": self.families} if self.families is not None else {}),
         }
 
 

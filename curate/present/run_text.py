@@ -15,6 +15,7 @@ from rich.text import Text
 from curate.export import ExportResult, FoldSet, ImpactEntry, TraceReport
 from curate.fit.engine import FitResult
 from curate.fit.ensemble import EnsembleResult
+from curate.fit.predict import PredictionBand
 from curate.fit.profile import ProfileResult
 from curate.fit.sensitivity import SensitivityResult
 from curate.ledger import IntakeReport, VerifyReport
@@ -30,6 +31,7 @@ __all__ = [
     "fit_text",
     "folds_text",
     "impact_text",
+    "prediction_text",
     "sensitivity_text",
     "trace_text",
     "weights_text",
@@ -497,6 +499,8 @@ def sensitivity_text(result: SensitivityResult) -> Group:
         )
     if result.profiles is not None:
         parts += profiles_parts(result.profiles)
+    if result.families is not None:
+        parts += families_parts(result.families)
     parts.append(
         Text("A stable fit can still be wrong in every dataset at once: this check is not proof.")
     )
@@ -543,3 +547,70 @@ def profiles_parts(profiles: dict[str, Any]) -> list[Any]:
             Text(f"no {by} alone identifies a parameter, and none widens an interval twofold")
         )
     return parts
+
+
+def families_parts(families: dict[str, Any]) -> list[Any]:
+    """Give the group x family table of ``sensitivity --ensemble``: per cell whether the family
+    fits without the group, and how far above the best it then lies."""
+    by, threshold = families["by"], families["threshold"]
+    listed = families["families"]
+    parts: list[Any] = [
+        Text(
+            f"families of good fits without each {by} ({families['starts']} starts, seed "
+            f"{families['seed']}; fits: within {threshold:.2f} of the best; * kept with all data):",
+            style="bold",
+        )
+    ]
+    table = plain_table((f"without {by}", *[f"{f['id']}{'*' if f['kept'] else ''}" for f in listed],
+                         "new"))  # fmt: skip
+    for group in families["groups"]:
+        if group["error"]:
+            table.add_row(group["group"], *["failed"] * len(listed), "")
+            continue
+        cells = []
+        for family in listed:
+            cell = group["families"][str(family["id"])]
+            if cell["delta"] is None:
+                cells.append("-")
+            else:
+                cells.append(("fits " if cell["fits"] else "") + f"+{cell['delta']:.3g}")
+        table.add_row(group["group"], *cells, str(len(group["new"])))
+    parts.append(table)
+    parts.append(Text("(each cell: the family's best refit above the best without the group; "
+                      "- none of its refits stayed in it)"))  # fmt: skip
+    if families["conclusions"]:
+        parts.append(Text("which data decide between the families:", style="bold"))
+        parts += [Text(f"  {c}") for c in families["conclusions"]]
+    else:
+        parts.append(Text(f"leaving out any one {by} leaves the same families fitting"))
+    return parts
+
+
+def prediction_text(result: PredictionBand, time_unit: str = "s") -> Group:
+    """Give what ``curate predict`` prints: the band at each new time, and what it rests on."""
+    from curate import units
+
+    head = Text(f"prediction band of {result.fits} good fit{'s' if result.fits != 1 else ''} "
+                "(pointwise min, median, max; the spread between fits, not a new experiment's noise)")  # fmt: skip
+    scale = units.to_unit(1.0, "second", units.time_unit_spelling(time_unit))
+    extra = [c for c in result.points.columns if c != "time"]
+    columns = (f"time ({time_unit})", *extra, "lower", "median", "upper")
+    table = plain_table(columns, right=(columns[0], "lower", "median", "upper"))
+    for k, row in result.points.iterrows():
+        table.add_row(f"{row['time'] * scale:g}", *[str(row[c]) for c in extra],
+                      f"{result.lower[k]:.5g}", f"{result.median[k]:.5g}", f"{result.upper[k]:.5g}")  # fmt: skip
+    parts: list[Any] = [head, table]
+    if result.groups:
+        side = plain_table((f"without {result.by}", "fits", "band width (x)", "widest (x)"),
+                           right=("fits", "band width (x)", "widest (x)"))  # fmt: skip
+        for group in sorted(result.groups, key=lambda g: -(g.get("widening") or 0)):
+            if group.get("error"):
+                side.add_row(group["group"], "failed", group["error"][:60], "")
+                continue
+            side.add_row(group["group"], str(group["fits"]),
+                         "-" if group["widening"] is None else f"{group['widening']:.3g}",
+                         "-" if group["max_widening"] is None else f"{group['max_widening']:.3g}")  # fmt: skip
+        parts.append(side)
+    parts += [Text(c, style="bold") for c in result.conclusions]
+    parts += [Text(f"note: {n}") for n in result.notes]
+    return Group(*parts)
