@@ -281,6 +281,9 @@ def test_every_json_output_is_strict_json(cli, tmp_path):
                     "glint", "--parameter", "q10"],
         "ensemble": ["ensemble", *model, *params, "--observable", "velarin_conc", "--observable",
                      "glint", "--starts", "3"],
+        "predict": ["predict", *model, *params, "--observable", "velarin_conc", "--conditions",
+                    "dose=10uM", "--conditions", "temperature=37degC", "--times", "0,60",
+                    "--time-unit", "min", "--starts", "3", "--by", "none"],
         "impact": ["impact", first],
         "import-petab": [
             "import-petab",

@@ -119,3 +119,8 @@ def test_cli_sensitivity_profiles_names_the_deciding_dataset(cli, tmp_path):
     assert "which data identify which parameter:" in text and "open" in text
     bad = cli(*args, "--method", "one-step")
     assert bad.code == 2 and "--method exact" in bad.err
+    report = tmp_path / "report.html"
+    assert cli("report", report).code == 0
+    page = report.read_text()
+    assert "group x parameter: each parameter&#x27;s verdict and interval widening without each dataset" in page
+    assert "without dataset early, tau is no longer identifiable" in page

@@ -170,39 +170,59 @@ def _row(group: str, n_points: int, refitted: Refitted, full: EnsembleResult,
     return GroupFamilies(group, n_points, refitted.best, refitted.joined[best_k], cells, new)
 
 
+def _ids(ids: list[int]) -> str:
+    return f"family {ids[0]}" if len(ids) == 1 else "families " + ", ".join(map(str, ids))
+
+
 def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> list[str]:
+    """Say, per group, which kept families rest on it and which rejected ones it alone rules out
+    (several families in one sentence, so a group that changes everything reads as one line)."""
     said: list[str] = []
     kept_ids = {c.id for c in full.clusters}
     threshold = full.threshold
+    usable = [r for r in rows if r.error is None]
+    only: dict[str, list[int]] = {}
+    also: dict[str, list[int]] = {}
     for family in full.families:
-        key = str(family.id)
         if family.id in kept_ids:
-            for row in rows:
-                cell = row.families.get(key)
-                if row.error or cell is None or cell["fits"]:
-                    continue
-                why = (f"it rises {cell['delta']:.2f} above the best, beyond {threshold:.2f}"
-                       if cell["delta"] is not None else "its fits slide into other families")  # fmt: skip
-                said.append(f"without {by} {row.group}, family {family.id} no longer fits ({why}): "
-                            f"it rests on {by} {row.group}")  # fmt: skip
             continue
-        openers = [r for r in rows if not r.error and r.families[key]["fits"]]
-        if len(openers) == 1:
-            row = openers[0]
-            said.append(f"only {by} {row.group} rules out family {family.id}: without it the family "
-                        f"fits ({row.families[key]['delta']:.2f} above the best, within {threshold:.2f})")  # fmt: skip
-        else:
-            for row in openers:
-                said.append(f"without {by} {row.group}, family {family.id} fits too")
-    for row in rows:
-        if row.error is None and row.best_family not in (None, 1) and full.clusters:
+        openers = [r for r in usable if r.families[str(family.id)]["fits"]]
+        target = only if len(openers) == 1 else also
+        for row in openers:
+            target.setdefault(row.group, []).append(family.id)
+    for row in usable:
+        lost = [c.id for c in full.clusters if not row.families[str(c.id)]["fits"]]
+        if len(lost) == 1:
+            cell = row.families[str(lost[0])]
+            why = (f"it rises {cell['delta']:.2f} above the best, beyond {threshold:.2f}"
+                   if cell["delta"] is not None else "its refits slide into other families")  # fmt: skip
+            said.append(f"without {by} {row.group}, family {lost[0]} no longer fits ({why}): "
+                        f"it rests on {by} {row.group}")  # fmt: skip
+        elif lost:
+            said.append(f"without {by} {row.group}, {_ids(lost)} no longer fit: they rest on "
+                        f"{by} {row.group}")  # fmt: skip
+        ruled = only.get(row.group, [])
+        if len(ruled) == 1:
+            cell = row.families[str(ruled[0])]
+            said.append(f"only {by} {row.group} rules out family {ruled[0]}: without it the "
+                        f"family fits ({cell['delta']:.2f} above the best, within {threshold:.2f})")  # fmt: skip
+        elif ruled:
+            said.append(f"only {by} {row.group} rules out {_ids(ruled)}: without it they fit "
+                        f"within {threshold:.2f} of the best")  # fmt: skip
+        if also.get(row.group):
+            said.append(f"without {by} {row.group}, {_ids(also[row.group])} (ruled out by "
+                        f"more than one {by}) fit too")  # fmt: skip
+        if row.best_family not in (None, 1) and full.clusters:
             said.append(f"without {by} {row.group}, family {row.best_family} fits best "
                         f"(family 1 with all the data)")  # fmt: skip
-        for new in row.new:
+        if row.new:
+            best = min(row.new, key=lambda n: n["objective"])
             values = ", ".join(f"{name} {p['median']:.4g}" for name, p in
-                               list(new["parameters"].items())[:4])  # fmt: skip
-            said.append(f"without {by} {row.group}, a family not seen with all the data fits "
-                        f"({values}; {new['objective'] - (row.best_objective or 0):.2f} above the best)")  # fmt: skip
+                               list(best["parameters"].items())[:4])  # fmt: skip
+            above = best["objective"] - (row.best_objective or 0.0)
+            what = ("a family not seen with all the data fits" if len(row.new) == 1 else
+                    f"{len(row.new)} families not seen with all the data fit; the best")  # fmt: skip
+            said.append(f"without {by} {row.group}, {what} ({values}; {above:.2f} above the best)")
     return said
 
 

@@ -81,13 +81,15 @@ class PredictionBand:
         return {"group": top["group"], "widening": top["widening"]}
 
     def to_dict(self) -> dict[str, Any]:
-        """Give ``{"points", "fits", "band": [{"time", ..., "lower", "median", "upper"}], "by",
-        "groups", "rests_on", "conclusions", "notes"}``."""
+        """Give ``{"points", "fits", "time_unit", "band": [{"time", ..., "lower", "median",
+        "upper"}], "by", "groups", "rests_on", "conclusions", "notes"}`` (times in seconds, the
+        catalog's unit; conditions in the data's units)."""
         band = []
         for k, row in enumerate(self.points.to_dict("records")):
             band.append({**row, "lower": float(self.lower[k]), "median": float(self.median[k]),
                          "upper": float(self.upper[k])})  # fmt: skip
-        return {"points": len(self.points), "fits": self.fits, "band": band, "by": self.by,
+        return {"points": len(self.points), "fits": self.fits, "time_unit": "s", "band": band,
+                "by": self.by,
                 "groups": self.groups, "rests_on": self.rests_on(),
                 "conclusions": self.conclusions, "notes": self.notes}  # fmt: skip
 

@@ -227,7 +227,7 @@ def run_predict(catalog: Ledger, *, backend: ModelBackend | None = None,
         progress=(lambda d, t: progress(d, t, "groups")) if progress else None,
     )  # fmt: skip
     result.notes += notes + censored_notes + ungraded_note(weighted)
-    if any(weighted.table["relative"]) if "relative" in weighted.table else False:
+    if "relative" in weighted.table and bool(weighted.table["relative"].any()):
         result.notes.append("some datasets are in relative units: the band is the model's own "
                             "output, before any dataset's scale factor")  # fmt: skip
     summary = {**result.to_dict(), "starts": whole.starts, "seed": options.seed,

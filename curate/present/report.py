@@ -34,7 +34,7 @@ from curate.present.html import (
     sensitivity_section,
     table_html,
 )
-from curate.present.many_fits import ensemble_section, profiles_section
+from curate.present.many_fits import deciding_section, ensemble_section, profiles_section
 from curate.quality.actions import check_consistency
 from curate.quality.measured import measured_sd
 from curate.records import ABOVE, BELOW, ConditionValue, SeriesArrays, masked_points
@@ -52,6 +52,7 @@ SECTIONS = (
     "sensitivity",
     "ensemble",
     "profiles",
+    "deciding",
     "manifest",
     "cautions",
 )
@@ -539,6 +540,7 @@ def build_report(catalog: Ledger, policy: Policy) -> str:
         _sensitivity(catalog),
         ensemble_section(catalog),
         profiles_section(catalog),
+        deciding_section(catalog),
         _manifest(catalog),
         CAUTIONS,
     ]
