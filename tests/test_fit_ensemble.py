@@ -98,3 +98,15 @@ def test_two_workers_give_the_serial_ensemble(monkeypatch):
     assert pooled.executor == "process pool (2 workers)"
     np.testing.assert_allclose(pooled.objectives, serial.objectives, rtol=1e-10)
     assert [c.size for c in pooled.clusters] == [c.size for c in serial.clusters]
+
+
+def test_past_the_clustering_limit_the_rest_join_the_nearest_family(monkeypatch):
+    from curate.fit import ensemble as module
+
+    whole = ensemble(mirror_problem(), fitting.FitOptions(starts=30, seed=0))
+    monkeypatch.setattr(module, "MAX_CLUSTERED", 8)  # linkage over 8 fits, the others assigned
+    sampled = ensemble(mirror_problem(), fitting.FitOptions(starts=30, seed=0))
+    assert sampled.accepted == whole.accepted > 8
+    assert sorted(c.size for c in sampled.clusters) == sorted(c.size for c in whole.clusters)
+    for a, b in zip(sampled.clusters, whole.clusters, strict=True):
+        assert a.parameters["k1"]["median"] == pytest.approx(b.parameters["k1"]["median"], rel=1e-6)

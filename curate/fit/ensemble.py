@@ -35,6 +35,7 @@ from curate.fit.spec import ParameterSpec
 
 __all__ = [
     "DEFAULT_CUT",
+    "MAX_CLUSTERED",
     "MAX_REJECTED",
     "PLATEAU_GAP",
     "Cluster",
@@ -49,6 +50,7 @@ __all__ = [
 DEFAULT_CUT = 0.5  # in the optimiser's coordinates: a factor e^0.5 = 1.65 for a log parameter
 PLATEAU_GAP = 0.1  # chi2 units between sorted objectives that still share a plateau
 MAX_REJECTED = 10  # families of finished fits beyond the threshold that are kept for comparison
+MAX_CLUSTERED = 2000  # fits clustered by linkage (quadratic memory); the rest join the nearest
 
 
 @dataclass
@@ -222,6 +224,35 @@ def global_population(problem: FitProblem, options: FitOptions) -> list[np.ndarr
     return [problem.to_internal({p.name: p.start for p in problem.free}), *population]
 
 
+def _labels(coordinates: np.ndarray, objectives: np.ndarray, cut: float) -> np.ndarray:
+    """Give each fit's cluster label: average linkage over at most MAX_CLUSTERED fits (spread
+    evenly over the objective ranks; linkage needs memory quadratic in the fits), every other
+    fit joining the cluster whose median lies nearest."""
+    n = len(coordinates)
+    if n == 1:
+        return np.array([1])
+    if n <= MAX_CLUSTERED:
+        return np.asarray(
+            hierarchy.fcluster(
+                hierarchy.linkage(coordinates, method="average"), t=cut, criterion="distance"
+            )
+        )
+    order = np.argsort(objectives, kind="stable")
+    sample = np.unique(order[np.linspace(0, n - 1, MAX_CLUSTERED).astype(int)])
+    sampled = hierarchy.fcluster(
+        hierarchy.linkage(coordinates[sample], method="average"), t=cut, criterion="distance"
+    )
+    names = np.unique(sampled)
+    centres = np.array([np.median(coordinates[sample][sampled == name], axis=0) for name in names])
+    labels = np.empty(n, dtype=int)
+    for begin in range(0, n, 4096):  # in blocks: distances to every centre at once, bounded
+        block = coordinates[begin : begin + 4096]
+        distances = np.linalg.norm(block[:, None, :] - centres[None, :, :], axis=2)
+        labels[begin : begin + 4096] = names[np.argmin(distances, axis=1)]
+    labels[sample] = sampled
+    return labels
+
+
 def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cut: float,
              first_id: int = 1) -> list[Cluster]:  # fmt: skip
     """Give the families of fits (start, objective, optimiser coordinates): scipy's
@@ -230,12 +261,7 @@ def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cu
         return []
     free = [p.name for p in problem.free]
     coordinates = np.array([theta for _, _, theta in found])
-    if len(found) > 1:
-        labels = hierarchy.fcluster(
-            hierarchy.linkage(coordinates, method="average"), t=cut, criterion="distance"
-        )
-    else:
-        labels = np.array([1])
+    labels = _labels(coordinates, np.array([value for _, value, _ in found]), cut)
     groups = []
     for label in np.unique(labels):
         rows = np.flatnonzero(labels == label)

@@ -192,15 +192,22 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
             target.setdefault(row.group, []).append(family.id)
     for row in usable:
         lost = [c.id for c in full.clusters if not row.families[str(c.id)]["fits"]]
-        if len(lost) == 1:
-            cell = row.families[str(lost[0])]
-            why = (f"it rises {cell['delta']:.2f} above the best, beyond {threshold:.2f}"
-                   if cell["delta"] is not None else "its refits slide into other families")  # fmt: skip
-            said.append(f"without {by} {row.group}, family {lost[0]} no longer fits ({why}): "
-                        f"it rests on {by} {row.group}")  # fmt: skip
-        elif lost:
-            said.append(f"without {by} {row.group}, {_ids(lost)} no longer fit: they rest on "
-                        f"{by} {row.group}")  # fmt: skip
+        risen = [f for f in lost if row.families[str(f)]["delta"] is not None]
+        moved = [f for f in lost if row.families[str(f)]["delta"] is None]
+        if len(risen) == 1:
+            delta = row.families[str(risen[0])]["delta"]
+            said.append(f"without {by} {row.group}, family {risen[0]} no longer fits (it rises "
+                        f"{delta:.2f} above the best, beyond {threshold:.2f}): it rests on {by} "
+                        f"{row.group}")  # fmt: skip
+        elif risen:
+            said.append(f"without {by} {row.group}, {_ids(risen)} no longer fit (they rise beyond "
+                        f"{threshold:.2f} above the best): they rest on {by} {row.group}")  # fmt: skip
+        if moved:
+            one = len(moved) == 1
+            said.append(f"without {by} {row.group}, the refits from {_ids(moved)} move out of "
+                        f"{'it' if one else 'them'} (beyond the cut {full.cut:g}): where "
+                        f"{'that family lies' if one else 'those families lie'} rests on {by} "
+                        f"{row.group}")  # fmt: skip
         ruled = only.get(row.group, [])
         if len(ruled) == 1:
             cell = row.families[str(ruled[0])]
