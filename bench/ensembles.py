@@ -16,6 +16,7 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 import tracemalloc
@@ -60,10 +61,8 @@ def case_overhead(starts: int) -> dict[str, Any]:
 
     def bare() -> None:
         for x0 in candidates:
-            try:
+            with contextlib.suppress(ArithmeticError):
                 least_squares(problem, x0, options)
-            except ArithmeticError:
-                pass
 
     bare_s, _ = median_time(bare, 1)
     ours_s, _ = median_time(lambda: ensembles.ensemble(problem, options, workers=1), 1)
