@@ -79,6 +79,7 @@ class Refitted:
     joined: list[int | None]  # the full family each refit lies in (None: none of them)
     best: float
     errors: list[str]
+    origins: list[int] = field(default_factory=list)  # the full family each refit started from
 
     def kept(self, threshold: float) -> list[int]:
         """Give the refits within ``threshold`` of the best."""
@@ -93,7 +94,7 @@ def refit_without(problem: FitProblem, keep: np.ndarray, full: EnsembleResult,
     sub = FitProblem(points, problem.backend, problem.spec)
     if len(sub.y) <= len(sub.free):
         raise InputError(f"{len(sub.y)} points left cannot determine {len(sub.free)} parameters")
-    starts, _ = warm_starts(full)
+    starts, origins = warm_starts(full)
     outcomes, _ = refine(sub, starts, dataclasses.replace(options, starts=len(starts)), workers)
     outcomes.sort(key=lambda o: o[0])
     objectives = np.array([math.nan if o[1] is None else o[1] for o in outcomes])
@@ -102,7 +103,8 @@ def refit_without(problem: FitProblem, keep: np.ndarray, full: EnsembleResult,
     if not np.isfinite(objectives).any():
         raise InputError("no refit finished: " + "; ".join(errors[:2]))
     joined = [None if t is None else assign(t, full) for t in thetas]
-    return Refitted(sub, objectives, thetas, joined, float(np.nanmin(objectives)), errors)
+    return Refitted(sub, objectives, thetas, joined, float(np.nanmin(objectives)), errors,
+                    origins)  # fmt: skip
 
 
 @dataclass
@@ -165,9 +167,16 @@ def _row(group: str, n_points: int, refitted: Refitted, full: EnsembleResult,
     found = [(k, float(v), t) for k, (v, t, j) in
              enumerate(zip(refitted.objectives, refitted.thetas, refitted.joined, strict=True))
              if j is None and t is not None and math.isfinite(v) and v - refitted.best <= threshold]  # fmt: skip
-    new = [{"size": c.size, "objective": c.objective, "parameters": c.parameters}
+    new = [{"size": c.size, "objective": c.objective, "parameters": c.parameters,
+            "from": sorted({refitted.origins[k] for k in c.members} if refitted.origins else [])}
            for c in families(refitted.problem, found, full.cut)]  # fmt: skip
     return GroupFamilies(group, n_points, refitted.best, refitted.joined[best_k], cells, new)
+
+
+def _values(found: dict[str, Any]) -> str:
+    return ", ".join(
+        f"{name} {p['median']:.4g}" for name, p in list(found["parameters"].items())[:4]
+    )
 
 
 def _ids(ids: list[int]) -> str:
@@ -202,12 +211,20 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
         elif risen:
             said.append(f"without {by} {row.group}, {_ids(risen)} no longer fit (they rise beyond "
                         f"{threshold:.2f} above the best): they rest on {by} {row.group}")  # fmt: skip
-        if moved:
-            one = len(moved) == 1
-            said.append(f"without {by} {row.group}, the refits from {_ids(moved)} move out of "
-                        f"{'it' if one else 'them'} (beyond the cut {full.cut:g}): where "
-                        f"{'that family lies' if one else 'those families lie'} rests on {by} "
-                        f"{row.group}")  # fmt: skip
+        explained: set[int] = set()
+        for family_id in moved:
+            landed = [k for k, n in enumerate(row.new) if family_id in n["from"]]
+            if landed:
+                explained.update(landed)
+                where = min((row.new[k] for k in landed), key=lambda n: n["objective"])
+                said.append(f"without {by} {row.group}, the refits from family {family_id} move to "
+                            f"{_values(where)} ({where['objective'] - (row.best_objective or 0.0):.2f} "
+                            f"above the best): where family {family_id} lies rests on {by} "
+                            f"{row.group}")  # fmt: skip
+            else:
+                said.append(f"without {by} {row.group}, the refits from family {family_id} move "
+                            f"out of it (beyond the cut {full.cut:g}) into other families: where "
+                            f"it lies rests on {by} {row.group}")  # fmt: skip
         ruled = only.get(row.group, [])
         if len(ruled) == 1:
             cell = row.families[str(ruled[0])]
@@ -222,14 +239,14 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
         if row.best_family not in (None, 1) and full.clusters:
             said.append(f"without {by} {row.group}, family {row.best_family} fits best "
                         f"(family 1 with all the data)")  # fmt: skip
-        if row.new:
-            best = min(row.new, key=lambda n: n["objective"])
-            values = ", ".join(f"{name} {p['median']:.4g}" for name, p in
-                               list(best["parameters"].items())[:4])  # fmt: skip
+        unexplained = [n for k, n in enumerate(row.new) if k not in explained]
+        if unexplained:
+            best = min(unexplained, key=lambda n: n["objective"])
             above = best["objective"] - (row.best_objective or 0.0)
-            what = ("a family not seen with all the data fits" if len(row.new) == 1 else
-                    f"{len(row.new)} families not seen with all the data fit; the best")  # fmt: skip
-            said.append(f"without {by} {row.group}, {what} ({values}; {above:.2f} above the best)")
+            what = ("a family not seen with all the data fits" if len(unexplained) == 1 else
+                    f"{len(unexplained)} families not seen with all the data fit; the best")  # fmt: skip
+            said.append(f"without {by} {row.group}, {what} ({_values(best)}; {above:.2f} above "
+                        f"the best)")  # fmt: skip
     return said
 
 
