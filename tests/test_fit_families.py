@@ -135,7 +135,7 @@ def test_warm_starts_cover_every_family_and_assign_finds_them(aliasing):
     assert assign(far, full) is None
 
 
-def test_the_prediction_between_the_samples_rests_on_the_dataset_that_pins_the_frequency():
+def test_the_prediction_between_the_samples_rests_on_the_data_taken_between_them():
     problem = tug_of_war_problem()
     full = ensemble(problem, fitting.FitOptions(starts=40, seed=0))
     half = pd.DataFrame({"time": [10.5, 11.5]})
@@ -148,5 +148,10 @@ def test_the_prediction_between_the_samples_rests_on_the_dataset_that_pins_the_f
     groups = {g["group"]: g for g in band.groups}
     # without B or C one frequency alone fits: the band closes (no widening)
     assert groups["B"]["widening"] < 0.2 and groups["C"]["widening"] < 0.2
-    assert band.rests_on()["group"] == "A"
+    # leaving out B (or C) settles the sign there: one edge jumps to the other, 2 a |sin(0.5 t)|
+    jump = float(np.max(2 * a * np.abs(np.sin(0.5 * half["time"]))))
+    assert groups["B"]["moves"] == pytest.approx(jump, rel=0.03)
+    assert groups["C"]["moves"] == pytest.approx(jump, rel=0.03)
+    assert band.rests_on()["group"] in {"B", "C"}
+    assert band.conclusions[-1].startswith(f"the prediction rests most on dataset {band.rests_on()['group']}")
     json.dumps(band.to_dict(), allow_nan=False)

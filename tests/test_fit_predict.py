@@ -44,7 +44,8 @@ def test_predict_gives_the_band_in_the_data_units_and_records_a_run(cli, two_lab
     assert run.code == 0, run.err
     found = json.loads(run.out)
     assert set(found) == {"points", "fits", "band", "by", "groups", "rests_on", "conclusions",
-                          "notes", "time_unit"}  # fmt: skip
+                          "notes", "time_unit", "units"}  # fmt: skip
+    assert found["units"] == {"dose": "nM", "temperature": "°C"}
     assert found["points"] == 3 and found["time_unit"] == "s" and found["by"] == "lab"
     band = found["band"]
     assert [row["time"] for row in band] == [0.0, 1800.0, 36000.0]  # minutes given, seconds kept

@@ -62,6 +62,7 @@ def new_points(
     *,
     time_unit: str = "s",
     observable: str | None = None,
+    last_time: float | None = None,
 ) -> tuple[pd.DataFrame, list[str]]:
     """Give the new points (time in seconds, one column per condition) and notes."""
     try:
@@ -72,6 +73,7 @@ def new_points(
     held = _held(versions)
     columns: dict[str, Any] = {"time": seconds}
     notes: list[str] = []
+    shown: dict[str, str] = {}  # column -> the unit its values are in
     for key, raw in conditions.items():
         if key not in held:
             known = ", ".join(sorted(held)) or "none"
@@ -94,6 +96,8 @@ def new_points(
                     f"{key}; the data hold it in {units.short_unit(expected)}"
                 )
         columns[condition_column(key)] = value.value
+        if value.unit:
+            shown[condition_column(key)] = units.short_unit(value.unit)
     for key, values in held.items():
         if key in conditions:
             continue
@@ -104,8 +108,36 @@ def new_points(
                 f"give its value, e.g. --conditions {key}=VALUE"
             )
         columns[condition_column(key)] = values[0].value
+        if values[0].unit:
+            shown[condition_column(key)] = units.short_unit(values[0].unit)
         notes.append(f"condition {key} is {units.condition_text(values[0])} in every dataset "
                      "of the selection; the prediction uses it")  # fmt: skip
     if observable is not None:
         columns["observable"] = observable
-    return pd.DataFrame(columns), notes
+    notes += _outside(held, conditions, columns, last_time, seconds)
+    frame = pd.DataFrame(columns)
+    frame.attrs["units"] = shown
+    return frame, notes
+
+
+def _outside(held: dict[str, list[Any]], conditions: dict[str, str], columns: dict[str, Any],
+             last: float | None, seconds: np.ndarray) -> list[str]:  # fmt: skip
+    """Say where a prediction leaves the measured range: a numeric condition outside the
+    values the data hold, times after the last measured one."""
+    said = []
+    for key in conditions:
+        measured = [float(c.value) for c in held[key] if isinstance(c.value, int | float)]
+        value = columns[condition_column(key)]
+        if (
+            measured
+            and isinstance(value, int | float)
+            and not min(measured) <= value <= max(measured)
+        ):
+            unit = next((c.unit for c in held[key] if c.unit), None)
+            shown = f" {units.short_unit(unit)}" if unit else ""
+            said.append(f"{key} {value:g}{shown} lies outside the measured {min(measured):g} to "
+                        f"{max(measured):g}{shown}: the band there rests on the model, which no "
+                        "leave-one-out can test")  # fmt: skip
+    if last is not None and float(np.max(seconds)) > last:
+        said.append(f"times after {last:g} s, the last measured, are extrapolated by the model")
+    return said

@@ -216,8 +216,9 @@ def run_predict(catalog: Ledger, *, backend: ModelBackend | None = None,
         catalog, backend=backend, spec=spec, problem_id=None, policy=policy,
         selection=selection, tolerances=None, what="predict",
     )  # fmt: skip
+    last = float(weighted.table["time"].max()) if len(weighted.table) else None
     points, notes = new_points(weighted.versions, conditions, times, time_unit=time_unit,
-                               observable=observable)  # fmt: skip
+                               observable=observable, last_time=last)  # fmt: skip
     table, censored_notes = fit_points(weighted.table, policy.censored)
     whole = ensemble(problem, options, threshold=threshold, cut=cut, workers=workers,
                      progress=progress)  # fmt: skip
@@ -227,6 +228,7 @@ def run_predict(catalog: Ledger, *, backend: ModelBackend | None = None,
         progress=(lambda d, t: progress(d, t, "groups")) if progress else None,
     )  # fmt: skip
     result.notes += notes + censored_notes + ungraded_note(weighted)
+    result.units = dict(points.attrs.get("units", {}))
     if "relative" in weighted.table and bool(weighted.table["relative"].any()):
         result.notes.append("some datasets are in relative units: the band is the model's own "
                             "output, before any dataset's scale factor")  # fmt: skip

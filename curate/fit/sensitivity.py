@@ -58,6 +58,7 @@ __all__ = [
     "jackknife_stderr",
     "leave_one_group_out",
     "leave_one_group_out_external",
+    "small_directions",
 ]
 
 DEFAULT_SHIFT_THRESHOLD = 2.0
@@ -417,7 +418,7 @@ def leave_one_group_out(
     moving: dict[str, np.ndarray] = {}  # group -> mask of the other parameters (refitted)
     weak: dict[str, str] = {}  # group -> the flag of parameters the rest no longer identify
     conditions = [c for c in problem.points.columns if c not in STANDARD_COLUMNS]
-    already_lost = _small_directions(jacobian, np.arange(len(jacobian)))[0]
+    already_lost = small_directions(jacobian, np.arange(len(jacobian)))[0]
     for group in unique:
         held = labels == group
         keep = np.flatnonzero(~held)
@@ -428,7 +429,7 @@ def leave_one_group_out(
         gap = _too_few(len(keep), len(ident))
         plans[group] = (keep, np.flatnonzero(held), gap)
         if gap is None:
-            lost, weights = _small_directions(jacobian[:, ident], kept_rows)
+            lost, weights = small_directions(jacobian[:, ident], kept_rows)
             if lost > already_lost:
                 involved = [
                     names[k]
@@ -546,7 +547,7 @@ def _determined_step(j: np.ndarray, r: np.ndarray) -> np.ndarray:
     return np.asarray(scaled_step / norm, dtype=float)
 
 
-def _small_directions(jacobian: np.ndarray, keep: np.ndarray) -> tuple[int, np.ndarray]:
+def small_directions(jacobian: np.ndarray, keep: np.ndarray) -> tuple[int, np.ndarray]:
     """Give (how many parameter directions the kept rows barely determine, each parameter's
     squared share in them, one row per direction, smallest first)."""
     norm = np.linalg.norm(jacobian, axis=0)

@@ -594,20 +594,23 @@ def prediction_text(result: PredictionBand, time_unit: str = "s") -> Group:
                 "(pointwise min, median, max; the spread between fits, not a new experiment's noise)")  # fmt: skip
     scale = units.to_unit(1.0, "second", units.time_unit_spelling(time_unit))
     extra = [c for c in result.points.columns if c != "time"]
-    columns = (f"time ({time_unit})", *extra, "lower", "median", "upper")
+    named = [f"{c} ({result.units[c]})" if c in result.units else c for c in extra]
+    columns = (f"time ({time_unit})", *named, "lower", "median", "upper")
     table = plain_table(columns, right=(columns[0], "lower", "median", "upper"))
     for k, row in result.points.iterrows():
-        table.add_row(f"{row['time'] * scale:g}", *[str(row[c]) for c in extra],
+        table.add_row(f"{row['time'] * scale:g}", *[f"{row[c]:g}" if isinstance(row[c], float)
+                                                    else str(row[c]) for c in extra],
                       f"{result.lower[k]:.5g}", f"{result.median[k]:.5g}", f"{result.upper[k]:.5g}")  # fmt: skip
     parts: list[Any] = [head, table]
     if result.groups:
-        side = plain_table((f"without {result.by}", "fits", "band width (x)", "widest (x)"),
-                           right=("fits", "band width (x)", "widest (x)"))  # fmt: skip
-        for group in sorted(result.groups, key=lambda g: -(g.get("widening") or 0)):
+        side = plain_table((f"without {result.by}", "fits", "moves by", "width (x)", "widest (x)"),
+                           right=("fits", "moves by", "width (x)", "widest (x)"))  # fmt: skip
+        for group in sorted(result.groups, key=lambda g: -(g.get("moves") or 0)):
             if group.get("error"):
-                side.add_row(group["group"], "failed", group["error"][:60], "")
+                side.add_row(group["group"], "failed", group["error"][:60], "", "")
                 continue
             side.add_row(group["group"], str(group["fits"]),
+                         "-" if group["moves"] is None else f"{group['moves']:.3g}",
                          "-" if group["widening"] is None else f"{group['widening']:.3g}",
                          "-" if group["max_widening"] is None else f"{group['max_widening']:.3g}")  # fmt: skip
         parts.append(side)
