@@ -109,7 +109,8 @@ def test_new_points_convert_units_and_parse_times():
                                    observable="x")  # fmt: skip
     assert points["time"].tolist() == [3600.0, 7200.0]
     assert points["dose"].tolist() == pytest.approx([2000.0, 2000.0])  # nM
-    assert points["observable"].tolist() == ["x", "x"] and notes == []
+    assert points["observable"].tolist() == ["x", "x"] and points.attrs["units"] == {"dose": "nM"}
+    assert len(notes) == 1 and notes[0].startswith("dose 2000 nM lies outside the measured 5000 to 5000 nM")
 
 
 def test_sensitivity_with_ensembles_gives_the_group_by_family_table(cli, two_labs):
@@ -127,7 +128,7 @@ def test_sensitivity_with_ensembles_gives_the_group_by_family_table(cli, two_lab
     assert len(families["groups"]) == 2
     for group in families["groups"]:
         assert group["error"] is None and group["families"][str(kept[0]["id"])]["fits"] is True
-    assert families["conclusions"] == []
+    assert families["conclusions"] == []  # one kept family: nothing to decide between
     text = cli("sensitivity", "--model", f"{model}:predict", "--params", params, "--by", "lab",
                "--ensemble", "--ensemble-starts", "3")  # fmt: skip
     assert text.code == 0 and "families of good fits without each lab" in text.out

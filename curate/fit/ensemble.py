@@ -275,7 +275,9 @@ def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cu
         best = min(members, key=lambda m: m[1])
         groups.append((best[1], len(members), summary, [n for n, _, _ in members],
                        np.median(coordinates[rows], axis=0), best[2]))  # fmt: skip
-    groups.sort(key=lambda g: (g[0], -g[1]))
+    # best first; families of equal objective (mirror optima) in the order of their centres, so
+    # the numbering does not depend on which start found which
+    groups.sort(key=lambda g: (round(g[0], 6), -g[1], tuple(np.round(g[4], 6))))
     return [
         Cluster(first_id + k, size, value, summary, members, centre=centre, best=best)
         for k, (value, size, summary, members, centre, best) in enumerate(groups)

@@ -174,9 +174,13 @@ def _row(group: str, n_points: int, refitted: Refitted, full: EnsembleResult,
 
 
 def _values(found: dict[str, Any]) -> str:
-    return ", ".join(
-        f"{name} {p['median']:.4g}" for name, p in list(found["parameters"].items())[:4]
-    )
+    shown = list(found["parameters"].items())
+    text = ", ".join(f"{name} {p['median']:.4g}" for name, p in shown[:8])
+    return text + (f" and {len(shown) - 8} more" if len(shown) > 8 else "")
+
+
+def _above(delta: float) -> str:
+    return "as good as the best" if abs(delta) < 0.005 else f"{delta:.2f} above the best"
 
 
 def _ids(ids: list[int]) -> str:
@@ -218,8 +222,8 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
                 explained.update(landed)
                 where = min((row.new[k] for k in landed), key=lambda n: n["objective"])
                 said.append(f"without {by} {row.group}, the refits from family {family_id} move to "
-                            f"{_values(where)} ({where['objective'] - (row.best_objective or 0.0):.2f} "
-                            f"above the best): where family {family_id} lies rests on {by} "
+                            f"{_values(where)} ({_above(where['objective'] - (row.best_objective or 0.0))}"
+                            f"): where family {family_id} lies rests on {by} "
                             f"{row.group}")  # fmt: skip
             else:
                 said.append(f"without {by} {row.group}, the refits from family {family_id} move "
@@ -229,7 +233,7 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
         if len(ruled) == 1:
             cell = row.families[str(ruled[0])]
             said.append(f"only {by} {row.group} rules out family {ruled[0]}: without it the "
-                        f"family fits ({cell['delta']:.2f} above the best, within {threshold:.2f})")  # fmt: skip
+                        f"family fits ({_above(cell['delta'])}, within {threshold:.2f})")  # fmt: skip
         elif ruled:
             said.append(f"only {by} {row.group} rules out {_ids(ruled)}: without it they fit "
                         f"within {threshold:.2f} of the best")  # fmt: skip
@@ -245,8 +249,15 @@ def _conclusions(by: str, rows: list[GroupFamilies], full: EnsembleResult) -> li
             above = best["objective"] - (row.best_objective or 0.0)
             what = ("a family not seen with all the data fits" if len(unexplained) == 1 else
                     f"{len(unexplained)} families not seen with all the data fit; the best")  # fmt: skip
-            said.append(f"without {by} {row.group}, {what} ({_values(best)}; {above:.2f} above "
-                        f"the best)")  # fmt: skip
+            said.append(f"without {by} {row.group}, {what} ({_values(best)}; {_above(above)})")
+    kept = [c.id for c in full.clusters]
+    if (
+        len(kept) > 1
+        and usable
+        and all(row.families[str(f)]["fits"] for row in usable for f in kept)
+    ):
+        said.append(f"no single {by} decides between {_ids(kept)}: every one fits without any "
+                    f"one {by}; the choice rests on the model and on which data you trust")  # fmt: skip
     return said
 
 
