@@ -28,7 +28,7 @@ from curate.export.petab_problem import (
     write_problem_export,
 )
 from curate.export.prov import write_prov
-from curate.export.table import write_table, write_units
+from curate.export.table import write_table, write_table_batches, write_units
 from curate.ledger import Ledger
 from curate.records import DatasetVersion
 from curate.units import (
@@ -41,9 +41,18 @@ from curate.units import (
 )
 from curate.version import __version__
 from curate.weighting import WeightedTable
+from curate.weighting.stream import WeightedStream
 from curate.weighting.table import SetAside, condition_column
 
-__all__ = ["FORMATS", "PREPARE", "ExportInput", "Prepared", "Writer", "units_description"]
+__all__ = [
+    "FORMATS",
+    "PREPARE",
+    "STREAMED",
+    "ExportInput",
+    "Prepared",
+    "Writer",
+    "units_description",
+]
 
 
 @dataclass(frozen=True)
@@ -61,7 +70,7 @@ class ExportInput:
     """What a writer may use: the weighted selection and the catalog it came from."""
 
     catalog: Ledger
-    weighted: WeightedTable
+    weighted: WeightedTable | WeightedStream  # a stream for the formats in STREAMED
     fmt: str
     files: dict[str, str]  # written so far (the README), for writers that describe the folder
     prepared: Prepared = Prepared()
@@ -164,7 +173,11 @@ def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[st
 
 
 def _table(given: ExportInput, folder: Path) -> dict[str, str]:
-    written = write_table(given.table, folder)
+    weighted = given.weighted
+    if isinstance(weighted, WeightedStream):
+        written = write_table_batches(weighted.schema, weighted.batches(), folder)
+    else:
+        written = write_table(given.table, folder)
     return {**written, **write_units(folder, units_description(given.versions, petab=False))}
 
 
@@ -282,6 +295,9 @@ def _prov(given: ExportInput, folder: Path) -> dict[str, str]:
         draft, _version_facts(given.catalog, given.versions), folder, tool_version=__version__
     )
 
+
+# the formats whose writer takes the weighted table as a stream of record batches
+STREAMED = frozenset({"table"})
 
 # what runs before anything is written: a refused export leaves no files behind
 PREPARE: dict[str, Callable[[Ledger, WeightedTable], Prepared]] = {"petab": _prepare_petab}

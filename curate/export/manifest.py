@@ -28,6 +28,8 @@ __all__ = [
     "FITTER_README",
     "MANIFEST",
     "build_manifest",
+    "censoring_readme",
+    "censoring_text",
     "read_manifest",
     "readme_text",
     "record_run",
@@ -122,7 +124,11 @@ def censoring_readme(points: pd.DataFrame, fmt: str) -> str:
     if "censored" not in points.columns:
         return ""
     words = points["censored"].astype(str)
-    below, above = int((words == "below").sum()), int((words == "above").sum())
+    return censoring_text(int((words == "below").sum()), int((words == "above").sum()), fmt)
+
+
+def censoring_text(below: int, above: int, fmt: str) -> str:
+    """Give the README paragraph on ``below`` and ``above`` censored points (empty for none)."""
     if below + above == 0:
         return ""
     text = CENSORED_README.format(below=below, above=above)
