@@ -153,6 +153,8 @@ class WeightedStream:
                 floored = _floored(sd, arrays.value, floor, policy)
                 if np.any(floored <= 0):
                     first_bad.setdefault("zero", position)
+                    bases.append(np.empty(0))
+                    continue
                 bases.append(1.0 / (floored**2 * dataset.inflation))
                 if record.observable.id in relative_observables:
                     kept[position] = (arrays.time, arrays.value, codes)
@@ -300,17 +302,25 @@ class WeightedStream:
         self._category_cache = result
         return result
 
+    @cached_property
     def _prototype(self) -> pd.DataFrame:
         """Give one row per dataset with points, typed as the whole table (its schema's source)."""
         present = [k for k, d in enumerate(self._datasets) if d.points > 0]
         return self._frame(present, {k: 1 for k in present}, prototype=True)
+
+    def _typed(self, frame: pd.DataFrame) -> pd.DataFrame:
+        """Give a part typed as the whole table (pandas infers text columns per frame: a part
+        whose grades are all missing would keep them as objects)."""
+        wanted = self._prototype.dtypes
+        differ = {c: wanted[c] for c in frame.columns if frame[c].dtype != wanted[c]}
+        return frame.astype(differ) if differ else frame
 
     @cached_property
     def schema(self) -> pa.Schema:
         """Give the Arrow schema of the batches (with the pandas metadata the whole frame gets)."""
         import pyarrow as pa
 
-        return pa.Schema.from_pandas(unit_symbols(self._prototype()), preserve_index=False)
+        return pa.Schema.from_pandas(unit_symbols(self._prototype), preserve_index=False)
 
     def _frame(self, positions: list[int], lengths: dict[int, int], *, prototype: bool = False,
                stored: dict[str, SeriesArrays] | None = None) -> pd.DataFrame:  # fmt: skip
@@ -411,10 +421,10 @@ class WeightedStream:
             group.append(k)
             rows += dataset.points
             if rows >= self.rows_per_batch:
-                yield self._frame(group, {j: self._datasets[j].points for j in group})
+                yield self._typed(self._frame(group, {j: self._datasets[j].points for j in group}))
                 group, rows = [], 0
         if group:
-            yield self._frame(group, {j: self._datasets[j].points for j in group})
+            yield self._typed(self._frame(group, {j: self._datasets[j].points for j in group}))
 
     def batches(self) -> Iterator[pa.RecordBatch]:
         """Give the weighted table as Arrow record batches of :attr:`schema`, unit column as
