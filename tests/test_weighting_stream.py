@@ -65,8 +65,13 @@ def varied_catalog(catalog):
     drafts.append(catalog.draft(minutes, np.linspace(2, 9, 20), sd=np.full(20, 0.2), observable="front_speed",
                                 unit="um/s", time_unit="min", lab="Lab East", uncertainty={"type": "sd"},
                                 conditions={"passage": 2.0}))  # fmt: skip
+    gaps = np.full(20, 0.3)
+    gaps[[3, 9]] = np.nan  # sds the lab left out: the noise estimate stands in there
+    drafts.append(catalog.draft(minutes, np.linspace(5, 1, 20) + rng.normal(0, 0.2, 20), sd=gaps,
+                                observable="velarin_conc", unit="nM", time_unit="min", lab="Lab East",
+                                uncertainty={"type": "sd"}, conditions={"cell_line": "HK-2"}))  # fmt: skip
     added = catalog.add_drafts(drafts)
-    catalog.estimate_noise([added[4].id])
+    catalog.estimate_noise([added[4].id, added[7].id])
     catalog.mask(added[0].id, ["4", "10"], reason="bubble in the well")
     catalog.retire(added[2].id, reason="superseded by a re-run")
     return catalog
@@ -90,7 +95,9 @@ def csv_and_parquet_of_batches(stream, folder):
 def test_the_stream_gives_the_whole_table_and_its_files(catalog, tmp_path, rows_per_batch, policy_text):
     varied_catalog(catalog)
     policy = resolve_policy(None) if policy_text is None else load_policy_text(tmp_path, policy_text)
-    for selection in (Selection(), Selection(include_retired=True), Selection(observables=("front_speed",))):
+    selections = (Selection(), Selection(include_retired=True), Selection(observables=("front_speed",)),
+                  Selection(conditions=(("cell_line", "HK-2"),)), Selection(labs=("Lab East", "Lab North"), grades=("C",)))  # fmt: skip
+    for selection in selections:
         whole, stream = old_and_new(catalog, policy, selection, rows_per_batch)
         pd.testing.assert_frame_equal(stream.table, whole.table, check_exact=True)
         assert stream.summary.to_dict() == whole.summary.to_dict()

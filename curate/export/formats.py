@@ -10,7 +10,7 @@ entry in :data:`FORMATS`.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,7 +19,7 @@ import pandas as pd
 
 from curate.errors import InputError
 from curate.export.datapackage import write_datapackage
-from curate.export.manifest import build_manifest
+from curate.export.manifest import NamedVersion, build_manifest
 from curate.export.petab import write_petab
 from curate.export.petab_problem import (
     ProblemExport,
@@ -82,8 +82,11 @@ class ExportInput:
 
     @property
     def versions(self) -> list[DatasetVersion]:
-        """Give the dataset versions in the table."""
-        return self.weighted.versions
+        """Give the dataset versions in the table (parsed whole; a stream parses them here)."""
+        weighted = self.weighted
+        return (
+            weighted.full_versions() if isinstance(weighted, WeightedStream) else weighted.versions
+        )
 
 
 Writer = Callable[[ExportInput, Path], dict[str, str]]
@@ -136,7 +139,7 @@ def _version_facts(catalog: Ledger, versions: list[DatasetVersion]) -> list[dict
     ]  # fmt: skip
 
 
-def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[str, Any]:
+def units_description(versions: Sequence[NamedVersion], *, petab: bool) -> dict[str, Any]:
     """Give what ``units.json`` says: the unit of time, of the values, of each condition column.
 
     A condition key has one kind across the catalog (see the ledger), so its column has one
@@ -178,7 +181,7 @@ def _table(given: ExportInput, folder: Path) -> dict[str, str]:
         written = write_table_batches(weighted.schema, weighted.batches(), folder)
     else:
         written = write_table(given.table, folder)
-    return {**written, **write_units(folder, units_description(given.versions, petab=False))}
+    return {**written, **write_units(folder, units_description(weighted.versions, petab=False))}
 
 
 def _verbatim_unit(original: str | None, canonical: str | None) -> dict[str, str | None]:

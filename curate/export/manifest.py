@@ -11,8 +11,9 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 import pandas as pd
 
@@ -20,13 +21,14 @@ from curate.errors import InputError
 from curate.export.files import now_utc, write_json
 from curate.jsontext import finite
 from curate.ledger import Ledger
-from curate.records import DatasetVersion, canonical_json
+from curate.records import ConditionValue, canonical_json
 from curate.version import __version__
 from curate.weighting import Policy, Selection
 
 __all__ = [
     "FITTER_README",
     "MANIFEST",
+    "NamedVersion",
     "build_manifest",
     "censoring_readme",
     "censoring_text",
@@ -37,6 +39,31 @@ __all__ = [
 ]
 
 MANIFEST = "manifest.json"
+
+
+class _NamedRecord(Protocol):
+    @property
+    def content_hash(self) -> str: ...
+
+    @property
+    def conditions(self) -> Mapping[str, ConditionValue]: ...
+
+
+class NamedVersion(Protocol):
+    """What a manifest, a run's event and ``units.json`` read of a dataset version: a
+    :class:`curate.records.DatasetVersion`, or the facts a streamed table reads instead."""
+
+    @property
+    def id(self) -> str: ...
+
+    @property
+    def version(self) -> int: ...
+
+    @property
+    def record_hash(self) -> str: ...
+
+    @property
+    def record(self) -> _NamedRecord: ...
 
 
 def seal_manifest(manifest: dict[str, Any]) -> dict[str, Any]:
@@ -63,7 +90,7 @@ def read_manifest(outdir: Path) -> dict[str, Any]:
     return manifest
 
 
-def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selection, versions: list[DatasetVersion],
+def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selection, versions: Sequence[NamedVersion],
                    files: dict[str, str], extra: dict[str, Any] | None = None) -> dict[str, Any]:  # fmt: skip
     """Give the sealed manifest of an export or run."""
     seq, head = catalog.head()
@@ -137,7 +164,7 @@ def censoring_text(below: int, above: int, fmt: str) -> str:
     return text
 
 
-def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[DatasetVersion],
+def record_run(catalog: Ledger, kind: str, policy: Policy, versions: Sequence[NamedVersion],
                manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
     in one transaction: what ``trace`` and ``impact`` later read.

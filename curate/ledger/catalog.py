@@ -13,6 +13,7 @@ import builtins
 import dataclasses
 import datetime as dt
 import getpass
+import json
 import os
 import re
 from collections.abc import Iterable, Iterator, Sequence
@@ -236,6 +237,24 @@ class Ledger(Amendments):
     def series_many(self, content_hashes: builtins.list[str]) -> dict[str, SeriesArrays]:
         """Give the arrays of many content hashes in one read."""
         return self._store.series_many(content_hashes)
+
+    def series_bytes(self, content_hashes: builtins.list[str]) -> dict[str, tuple[Any, ...]]:
+        """Give the stored bytes of many content hashes: (time, value, sd, replicate, n,
+        censored), little-endian float64 / int64 / int8, None where a column is empty."""
+        return self._store.series_bytes(content_hashes)
+
+    def latest_fields(
+        self, paths: tuple[str, ...]
+    ) -> builtins.list[tuple[str, int, str, str, builtins.list[Any]]]:
+        """Give (id, version, record hash, content hash, [the record's value at each JSON
+        path]) of every dataset's newest version, ordered by id, without parsing whole records
+        (a path such as ``$.observable.unit``; a missing one gives None)."""
+        return [
+            (ident, version, record_hash, content_hash, json.loads(values))
+            for ident, version, record_hash, content_hash, values in self._store.latest_version_fields(
+                paths
+            )
+        ]
 
     def verify(self, head: ChainHead | tuple[int, str] | None = None) -> VerifyReport:
         """Give the result of recomputing every content hash, record hash, policy text and the

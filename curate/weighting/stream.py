@@ -1,21 +1,26 @@
 """The weighted long table as a stream of Arrow record batches, never held whole.
 
-Two passes over the stored arrays. The first works out, dataset by dataset, what the weights
-depend on across the selection (each dataset's sum of base weights, its footing, the balancing
-factors, the weight summary) and keeps no more than one float per point (the weights Kish's
-n_eff reads) until the summary is made; the second reads the arrays again, a few datasets at a
-time, and gives them as record batches with the columns, types and values of
-:func:`curate.weighting.table.weighted_table` (which :mod:`curate.export.table` writes
-straight into pyarrow's CSV and Parquet writers).
+The columns, types and values are those of :func:`curate.weighting.table.weighted_table`
+(:mod:`curate.export.table` writes the batches straight into pyarrow's CSV and Parquet
+writers). Two passes over the stored arrays:
 
-The footing of relative-unit data (see :mod:`curate.weighting.weights`) compares a dataset
-with the absolute datasets of its observable point by point, so the arrays of the observables
-that hold relative data are kept for the first pass; a selection of absolute data keeps none.
+1. what every weight depends on across the selection: each dataset's sum of base weights,
+   its footing, the balancing factors and the weight summary. It keeps one float per point
+   (the weights Kish's n_eff reads whole, summed as the table sums them) until the summary is
+   made, and the arrays of the observables that hold relative-unit data (their footing
+   compares datasets point by point);
+2. the arrays again, a few datasets at a time (a dataset is never split), as record batches.
+
+Records are not parsed whole: SQLite reads the fields the table needs from each record's
+JSON. A dataset whose sd is the lab's reported SD as stored (no masks, no per-point n, a
+linear scale, every sd finite) is computed column-wise over the batch; any other dataset is
+parsed and goes through the table's own per-dataset code (:func:`_sd_of`). Sums are the
+table's sums (``np.bincount`` in row order), so the numbers are the same to the last digit.
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import TYPE_CHECKING, Any
@@ -25,9 +30,17 @@ import pandas as pd
 
 from curate.errors import InputError
 from curate.ledger import Ledger
-from curate.records import CENSORED_WORDS, DatasetVersion, SeriesArrays, masked_points
+from curate.records import (
+    CENSORED_WORDS,
+    ConditionValue,
+    DatasetVersion,
+    SeriesArrays,
+    masked_points,
+    normalise_grade,
+)
+from curate.units import short_unit
 from curate.weighting.policy import Policy
-from curate.weighting.selection import Selection, select
+from curate.weighting.selection import Selection, nothing_selected, select
 from curate.weighting.table import (
     STANDARD_COLUMNS,
     SetAside,
@@ -49,203 +62,410 @@ from curate.weighting.weights import (
 if TYPE_CHECKING:
     import pyarrow as pa
 
-__all__ = ["ROWS_PER_BATCH", "WeightedStream", "weighted_stream"]
+__all__ = [
+    "ROWS_PER_BATCH",
+    "RecordFacts",
+    "VersionFacts",
+    "WeightedStream",
+    "weighted_stream",
+]
 
-ROWS_PER_BATCH = 131_072  # about 13 MB a batch: one Parquet row group each
+ROWS_PER_BATCH = 131_072  # one Parquet row group each; about 13 MB of columns
+_CHUNK = 2000  # datasets read at once in the first pass
 
 _LABELS = ("dataset_id", "observable", "unit", "unit_ucum", "lab", "sd_source", "calibration_group")
 _CENSORED_CATEGORIES = [CENSORED_WORDS[k] for k in sorted(CENSORED_WORDS)]
+_PLAIN_SD = ("sd", "estimated", "assumed")  # reported kinds that are the SD as they stand
+_FIELDS = ("$.observable.id", "$.observable.unit", "$.observable.ucum", "$.observable.relative",
+           "$.source.lab", "$.protocol.calibration_group", "$.conditions", "$.replicate_labels",
+           "$.masks", "$.uncertainty", "$.trust.grade", "$.retired")  # fmt: skip
+
+
+@dataclass(frozen=True)
+class RecordFacts:
+    """The fields of a record the weighted table reads."""
+
+    content_hash: str
+    observable: str
+    unit: str
+    ucum: str
+    relative: bool
+    lab: str
+    calibration_group: str | None
+    conditions: Mapping[str, ConditionValue]
+    replicate_labels: tuple[str, ...]
+    masked: bool  # whether any mask sets points aside
+    plain_sd: bool  # the reported uncertainty is an SD of the value as stored (linear, no n)
+    retired: bool
+
+
+@dataclass(frozen=True)
+class VersionFacts:
+    """One dataset version as the weighted table reads it (no whole record parsed)."""
+
+    id: str
+    version: int
+    record_hash: str
+    grade: str | None
+    record: RecordFacts
+
+    @classmethod
+    def of(cls, version: DatasetVersion) -> VersionFacts:
+        """Give the facts of a parsed version."""
+        r = version.record
+        u = r.uncertainty
+        plain = (u is not None and u.type.value in _PLAIN_SD and u.n is None
+                 and u.scale.value == "linear")  # fmt: skip
+        return cls(version.id, version.version, version.record_hash, version.grade, RecordFacts(
+            r.content_hash, r.observable.id, r.observable.unit, r.observable.ucum or "",
+            r.observable.relative, r.source.lab, r.protocol.calibration_group, dict(r.conditions),
+            tuple(r.replicate_labels), bool(r.masks), plain, r.retired,
+        ))  # fmt: skip
+
+    @classmethod
+    def read(cls, ident: str, version: int, record_hash: str, content_hash: str,
+             values: list[Any]) -> VersionFacts:  # fmt: skip
+        """Give the facts from the record fields :data:`_FIELDS` as the store reads them."""
+        (observable, unit, ucum, relative, lab, group, conditions, labels, masks, uncertainty,
+         grade, retired) = values  # fmt: skip
+        plain = (uncertainty is not None and uncertainty.get("type", "sd") in _PLAIN_SD
+                 and uncertainty.get("n") is None and uncertainty.get("scale", "linear") == "linear")  # fmt: skip
+        return cls(ident, version, record_hash, grade, RecordFacts(
+            content_hash, observable, unit, ucum or "", bool(relative), lab, group,
+            {k: ConditionValue.model_construct(**c) for k, c in (conditions or {}).items()},  # validated when stored
+            tuple(labels or ()), bool(masks), plain, bool(retired),
+        ))  # fmt: skip
+
+
+def select_facts(catalog: Ledger, selection: Selection, policy: Policy) -> list[VersionFacts]:
+    """Give the facts of the versions :func:`select` gives, in its order. Filters the
+    searchable fields answer without parsing; conditions and pinned versions parse records."""
+    if selection.conditions or selection.versions:
+        return [VersionFacts.of(v) for v in select(catalog, selection, policy)]
+    for ident in selection.ids:
+        catalog.show(ident)  # NotFoundError names an unknown id
+    wanted_grades = {normalise_grade(g) for g in selection.grades}
+    chosen = []
+    for row in catalog.latest_fields(_FIELDS):
+        facts = VersionFacts.read(*row)
+        record = facts.record
+        if selection.ids and facts.id not in selection.ids:
+            continue
+        if record.retired and not selection.include_retired:
+            continue
+        if selection.observables and record.observable not in selection.observables:
+            continue
+        if selection.labs and record.lab not in selection.labs:
+            continue
+        grade = facts.grade or policy.ungraded
+        if (
+            wanted_grades
+            and (facts.grade or "none") not in wanted_grades
+            and grade not in wanted_grades
+        ):
+            continue
+        if grade in policy.exclude:
+            continue
+        chosen.append(facts)
+    if not chosen:
+        raise nothing_selected(selection, policy)
+    return chosen
 
 
 @dataclass
 class _Dataset:
     """What the first pass learns of one dataset version (in selection order)."""
 
-    version: DatasetVersion
-    points: int
-    sd_source: str
+    facts: VersionFacts
     grade_used: str
     inflation: float
     floor: float  # the absolute noise floor that applies (0 for relative units)
-    replicates: bool  # whether its points carry replicate labels
-    labels: dict[str, str] = field(default_factory=dict)  # label column -> its value
+    points: int = 0
+    sd_source: str = "reported"
+    column_wise: bool = True  # computed over the batch; else through the table's own code
+    replicates: bool = False  # whether its points carry replicate labels
+    full: DatasetVersion | None = None
 
 
-def _arrays(catalog_arrays: SeriesArrays, version: DatasetVersion) -> SeriesArrays:
-    """Give the arrays a computation reads: masked points set aside."""
-    record = version.record
-    if record.masks:
-        return catalog_arrays.subset(~masked_points(record, catalog_arrays))
-    return catalog_arrays
+@dataclass
+class _Part:
+    """The arrays of a run of whole datasets, in table order (the datasets' own, masks applied)."""
+
+    members: list[int]
+    counts: np.ndarray
+    time: np.ndarray
+    value: np.ndarray
+    sd: np.ndarray  # measured, before the floors
+    censored: np.ndarray
+    replicate: list[np.ndarray | None] = field(default_factory=list)
+
+    @property
+    def row_dataset(self) -> np.ndarray:
+        """Give each row's position in ``members``."""
+        return np.repeat(np.arange(len(self.members)), self.counts)
 
 
 def _codes(arrays: SeriesArrays) -> np.ndarray:
-    return (arrays.censored_mask() if arrays.censored is None
-            else np.asarray(arrays.censored, dtype=np.int8)).astype(np.int8)  # fmt: skip
+    """Give each point's censoring code (0: observed)."""
+    if arrays.censored is None:
+        return np.zeros(len(arrays), dtype=np.int8)
+    return np.asarray(arrays.censored, dtype=np.int8)
 
 
-def _floored(sd: np.ndarray, value: np.ndarray, floor: float, policy: Policy) -> np.ndarray:
-    """Give the sd after the policy's noise floors (as :func:`apply_policy` floors it)."""
-    floored: np.ndarray = np.maximum(np.maximum(sd, floor), policy.relative_floor * np.abs(value))
-    return floored
-
-
-def _sequential_sum(values: np.ndarray) -> float:
-    """Give the sum in row order, as ``np.bincount(..., weights=)`` adds the whole table's rows
-    (np.sum adds pairwise, which differs in the last digits)."""
-    return float(np.bincount(np.zeros(len(values), dtype=np.intp), weights=values, minlength=1)[0])
+def _concatenated(parts: list[np.ndarray], dtype: Any) -> np.ndarray:
+    return np.concatenate(parts) if parts else np.array([], dtype=dtype)
 
 
 class WeightedStream:
     """The weighted long table of a selection as record batches, beside its weight summary,
-    the versions it holds and the points masks set aside.
+    the versions it holds (as :class:`VersionFacts`) and the points masks set aside.
 
-    ``batches()`` reads the catalog again on every call; ``table`` gives the whole DataFrame
-    (built from the batches, the same frame :func:`weighted_table` gives).
+    ``batches()`` reads the catalog again on every call; ``table`` gives the whole DataFrame,
+    the frame :func:`curate.weighting.table.weighted_table` gives.
     """
 
     def __init__(self, catalog: Ledger, policy: Policy, selection: Selection,
                  rows_per_batch: int = ROWS_PER_BATCH) -> None:  # fmt: skip
         self.catalog, self.policy, self.selection = catalog, policy, selection
         self.rows_per_batch = rows_per_batch
-        self.versions: list[DatasetVersion] = select(catalog, selection, policy)
-        self._datasets: list[_Dataset] = []
+        self.versions: list[VersionFacts] = select_facts(catalog, selection, policy)
+        self._datasets = [self._dataset(f) for f in self.versions]
         self.censored_counts: dict[str, int] = {"below": 0, "above": 0}
+        self._balance = np.ones(len(self._datasets))
+        self._per_dataset: set[int] = set()  # datasets whose sd needs the table's own code
         self.summary: WeightSummary = self._first_pass()
-        self.aside: SetAside = set_aside(catalog, self.versions)
+        masked = [self._full(k) for k, d in enumerate(self._datasets) if d.facts.record.masked]
+        self.aside: SetAside = set_aside(catalog, masked)
+
+    def _dataset(self, facts: VersionFacts) -> _Dataset:
+        policy = self.policy
+        grade = str(facts.grade if facts.grade is not None else policy.ungraded)
+        floor = 0.0 if facts.record.relative else policy.absolute_floor
+        return _Dataset(facts, grade, float(policy.inflation.get(grade, np.nan)), floor)
+
+    def _full(self, k: int) -> DatasetVersion:
+        """Give the parsed version of dataset ``k`` (read once)."""
+        dataset = self._datasets[k]
+        if dataset.full is None:
+            dataset.full = self.catalog.show(dataset.facts.id, dataset.facts.version)
+        return dataset.full
+
+    def full_versions(self) -> list[DatasetVersion]:
+        """Give every version parsed whole (what writers other than the table's need)."""
+        return [self._full(k) for k in range(len(self._datasets))]
+
+    # -- reading the arrays ----------------------------------------------------------------
+
+    def _read(self, members: list[int]) -> _Part:
+        """Give the arrays of whole datasets (masks applied), their measured sd, censoring
+        codes and replicate codes; note each dataset's points and sd source.
+
+        A dataset whose sd stands as stored is joined byte for byte with the others; a dataset
+        found to hold a non-finite sd then goes the per-dataset way (and the read is redone).
+        """
+        stored = self.catalog.series_bytes(
+            [self._datasets[k].facts.record.content_hash for k in members]
+        )
+        while True:
+            times: list[bytes] = []
+            values: list[bytes] = []
+            sds: list[bytes] = []
+            codes: list[bytes] = []
+            replicate: list[np.ndarray | None] = []
+            for k in members:
+                dataset = self._datasets[k]
+                record = dataset.facts.record
+                time, value, sd, codes_of, n, censored = stored[record.content_hash]
+                dataset.column_wise = (record.plain_sd and not record.masked and sd is not None
+                                       and n is None and k not in self._per_dataset)  # fmt: skip
+                if dataset.column_wise:
+                    points = len(time) // 8
+                    times.append(time)
+                    values.append(value)
+                    sds.append(sd)
+                    codes.append(bytes(points) if censored is None else censored)
+                    replicates = codes_of is not None and len(record.replicate_labels) > 0
+                    replicate.append(np.frombuffer(codes_of, dtype="<i8") if replicates else None)
+                else:
+                    arrays = self._arrays_of(k)
+                    points = len(arrays)
+                    sd_measured, dataset.sd_source = _sd_of(self._full(k), arrays, self.policy)
+                    replicates = arrays.replicate is not None and len(record.replicate_labels) > 0
+                    times.append(arrays.time.tobytes())
+                    values.append(arrays.value.tobytes())
+                    sds.append(np.asarray(sd_measured, dtype="<f8").tobytes())
+                    codes.append(_codes(arrays).tobytes())
+                    replicate.append(arrays.replicate if replicates else None)
+                dataset.points, dataset.replicates = points, replicates
+            counts = np.asarray([self._datasets[k].points for k in members], dtype=np.intp)
+            sd_all = np.frombuffer(b"".join(sds), dtype="<f8")
+            rows = np.repeat(np.arange(len(members)), counts)
+            gaps = np.bincount(rows[~np.isfinite(sd_all)], minlength=len(members))
+            redo = {k for j, k in enumerate(members) if gaps[j] and self._datasets[k].column_wise}
+            if not redo:
+                break
+            self._per_dataset |= redo  # an sd the lab left out: the noise estimate stands in
+        for k in members:
+            if self._datasets[k].column_wise:
+                self._datasets[k].sd_source = "reported"
+        return _Part(members, counts, np.frombuffer(b"".join(times), dtype="<f8"),
+                     np.frombuffer(b"".join(values), dtype="<f8"), sd_all,
+                     np.frombuffer(b"".join(codes), dtype="<i1"), replicate)  # fmt: skip
+
+    def _arrays_of(self, k: int) -> SeriesArrays:
+        """Give dataset ``k``'s arrays with masked points set aside (the per-dataset way)."""
+        content = self._datasets[k].facts.record.content_hash
+        arrays = self.catalog.series_many([content])[content]
+        version = self._full(k)
+        if version.record.masks:
+            arrays = arrays.subset(~masked_points(version.record, arrays))
+        return arrays
+
+    def _floored(self, part: _Part) -> np.ndarray:
+        """Give the sd after the policy's noise floors (as :func:`apply_policy` floors it)."""
+        floors = np.repeat([self._datasets[k].floor for k in part.members], part.counts)
+        floored: np.ndarray = np.maximum(
+            np.maximum(part.sd, floors), self.policy.relative_floor * np.abs(part.value)
+        )
+        return floored
+
+    def _base(self, part: _Part, floored: np.ndarray) -> np.ndarray:
+        inflation = np.repeat([self._datasets[k].inflation for k in part.members], part.counts)
+        with np.errstate(divide="ignore", invalid="ignore"):  # refused before it is used
+            base: np.ndarray = 1.0 / (floored**2 * inflation)
+        return base
 
     # -- the first pass: what every weight depends on -------------------------------------
 
     def _first_pass(self) -> WeightSummary:
-        policy, catalog = self.policy, self.catalog
-        relative_observables = {v.record.observable.id for v in self.versions
-                                if v.record.observable.relative}  # fmt: skip
-        bases: list[np.ndarray] = []
+        relative_observables = {
+            d.facts.record.observable for d in self._datasets if d.facts.record.relative
+        }
+        parts: list[tuple[list[int], np.ndarray, np.ndarray]] = []  # members, counts, base
         kept: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}  # for the footing
-        first_bad: dict[str, int] = {}  # kind -> position of the first dataset with it
-        codes_seen = np.zeros(len(CENSORED_WORDS), dtype=np.int64)
-        for chunk in _chunks(self.versions, 500):
-            stored = catalog.series_many([v.record.content_hash for v in chunk])
-            for version in chunk:
-                record = version.record
-                arrays = _arrays(stored[record.content_hash], version)
-                sd, source = _sd_of(version, arrays, policy)
-                sd = np.asarray(sd, dtype=float)
-                grade = str(version.grade if version.grade is not None else policy.ungraded)
-                position = len(self._datasets)
-                relative = bool(record.observable.relative)
-                floor = 0.0 if relative else policy.absolute_floor
-                dataset = _Dataset(
-                    version, len(arrays), source, grade,
-                    float(policy.inflation.get(grade, np.nan)), floor,
-                    arrays.replicate is not None and len(record.replicate_labels) > 0,
-                )  # fmt: skip
-                dataset.labels = _label_values(version, source)
-                self._datasets.append(dataset)
-                codes = _codes(arrays)
-                codes_seen += np.bincount(codes, minlength=len(CENSORED_WORDS))[: len(codes_seen)]
-                if grade in policy.exclude:
-                    first_bad.setdefault("excluded", position)
-                if not np.all(np.isfinite(sd)) or np.any(sd < 0):
-                    first_bad.setdefault("sd", position)
-                    bases.append(np.empty(0))
-                    continue
-                floored = _floored(sd, arrays.value, floor, policy)
-                if np.any(floored <= 0):
-                    first_bad.setdefault("zero", position)
-                    bases.append(np.empty(0))
-                    continue
-                bases.append(1.0 / (floored**2 * dataset.inflation))
-                if record.observable.id in relative_observables:
-                    kept[position] = (arrays.time, arrays.value, codes)
-        self.censored_counts = {CENSORED_WORDS[k]: int(codes_seen[k]) for k in sorted(CENSORED_WORDS)
-                                if CENSORED_WORDS[k]}  # fmt: skip
-        self._has_censored = bool(codes_seen[1:].any())
+        first_bad: dict[str, int] = {}
+        seen = np.zeros(len(CENSORED_WORDS), dtype=np.int64)
+        for start in range(0, len(self._datasets), _CHUNK):
+            part = self._read(list(range(start, min(start + _CHUNK, len(self._datasets)))))
+            seen += np.bincount(part.censored, minlength=len(seen))[: len(seen)]
+            floored = self._floored(part)
+            unusable = np.bincount(part.row_dataset, weights=~np.isfinite(part.sd) | (part.sd < 0),
+                                   minlength=len(part.members))  # fmt: skip
+            zero = np.bincount(part.row_dataset, weights=floored <= 0, minlength=len(part.members))
+            for j, k in enumerate(part.members):
+                if self._datasets[k].grade_used in self.policy.exclude:
+                    first_bad.setdefault("excluded", k)
+                if unusable[j]:
+                    first_bad.setdefault("sd", k)
+                elif zero[j]:
+                    first_bad.setdefault("zero", k)
+            parts.append((part.members, part.counts, self._base(part, floored)))
+            ends = np.cumsum(part.counts)
+            for j, k in enumerate(part.members):
+                if self._datasets[k].facts.record.observable in relative_observables:
+                    rows = slice(ends[j] - part.counts[j], ends[j])
+                    kept[k] = (
+                        part.time[rows].copy(),
+                        part.value[rows].copy(),
+                        part.censored[rows].copy(),
+                    )
+        self.censored_counts = {
+            CENSORED_WORDS[k]: int(seen[k]) for k in sorted(CENSORED_WORDS) if CENSORED_WORDS[k]
+        }
+        self._has_censored = bool(seen[1:].any())
         self._refuse(first_bad)
-        return self._summarise(bases, kept)
+        return self._summarise(parts, kept)
 
     def _refuse(self, first_bad: dict[str, int]) -> None:
         """Refuse as :func:`apply_policy` refuses, naming the dataset it would name."""
         if sum(d.points for d in self._datasets) == 0:
             raise InputError("nothing to weight: the selection holds no points")
         if "excluded" in first_bad:
-            ident = self._datasets[first_bad["excluded"]].version.id
-            raise InputError(f"dataset {ident}: its grade is excluded by the policy")
-        if "sd" in first_bad:
-            ident = self._datasets[first_bad["sd"]].version.id
-            raise InputError(f"dataset {ident}: a point has no usable sd")
-        if "zero" in first_bad:
-            dataset = self._datasets[first_bad["zero"]]
-            version = dataset.version
-            content = version.record.content_hash
-            arrays = _arrays(self.catalog.series_many([content])[content], version)
-            sd, _ = _sd_of(version, arrays, self.policy)
-            floored = _floored(
-                np.asarray(sd, dtype=float), arrays.value, dataset.floor, self.policy
+            raise InputError(
+                f"dataset {self._datasets[first_bad['excluded']].facts.id}: its grade is excluded by the policy"
             )
-            bad = floored <= 0
-            rows = pd.DataFrame({"dataset_id": version.id, "time": arrays.time[bad],
-                                 "value": arrays.value[bad], "unit": version.record.observable.unit})  # fmt: skip
+        if "sd" in first_bad:
+            raise InputError(
+                f"dataset {self._datasets[first_bad['sd']].facts.id}: a point has no usable sd"
+            )
+        if "zero" in first_bad:
+            k = first_bad["zero"]
+            part = self._read([k])
+            bad = self._floored(part) <= 0
+            facts = self._datasets[k].facts
+            rows = pd.DataFrame({"dataset_id": facts.id, "time": part.time[bad], "value": part.value[bad],
+                                 "unit": facts.record.unit})  # fmt: skip
             raise InputError(zero_sd_message(rows, self.policy))
 
-    def _summarise(self, bases: list[np.ndarray],
+    def _summarise(self, parts: list[tuple[list[int], np.ndarray, np.ndarray]],
                    kept: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]]) -> WeightSummary:  # fmt: skip
-        present = [k for k, d in enumerate(self._datasets) if d.points > 0]
-        order = sorted(present, key=lambda k: self._datasets[k].version.id)  # the summary's order
-        ids = np.asarray([self._datasets[k].version.id for k in order], dtype=object)
-        sizes = np.asarray([self._datasets[k].points for k in order])
-        totals = np.asarray([_sequential_sum(bases[k]) for k in order])
-        labs = np.asarray(
-            [self._datasets[k].version.record.source.lab for k in order], dtype=object
-        )
-        observable_of = np.asarray(
-            [self._datasets[k].version.record.observable.id for k in order]
-        ).astype(str)
-        footing = self._footing(order, bases, kept, observable_of)
+        datasets = self._datasets
+        totals_of = np.zeros(len(datasets))
+        for members, counts, base in parts:  # sums in row order, as the table's bincount
+            totals_of[members] = np.bincount(np.repeat(np.arange(len(members)), counts), weights=base,
+                                             minlength=len(members))  # fmt: skip
+        present = [k for k, d in enumerate(datasets) if d.points > 0]
+        order = sorted(present, key=lambda k: datasets[k].facts.id)  # the summary's order
+        sizes = np.asarray([datasets[k].points for k in order])
+        labs = np.asarray([datasets[k].facts.record.lab for k in order], dtype=object)
+        observable_of = np.asarray([datasets[k].facts.record.observable for k in order]).astype(str)
+        footing = self._footing(order, parts, kept, observable_of)
         factors = balance_factors(
-            totals * footing.multiplier, sizes, labs, observable_of, self.policy
+            totals_of[order] * footing.multiplier, sizes, labs, observable_of, self.policy
         )
-        self._balance = {order[j]: float(factors[j]) for j in range(len(order))}
-        weights = {order[j]: (bases[order[j]] * factors[j]) * footing.multiplier[j]
-                   for j in range(len(order))}  # fmt: skip
-        parts = DatasetParts(
-            ids=ids, sizes=sizes, observable=observable_of, lab=labs.astype(str),
-            grade=np.asarray([self._datasets[k].grade_used for k in order]).astype(str),
-            inflation=np.asarray([self._datasets[k].inflation for k in order], dtype=float),
-            balance=factors,
-            weight=np.asarray([_sequential_sum(weights[k]) for k in order]),
-            weight_squared=np.asarray([_sequential_sum(weights[k] ** 2) for k in order]),
+        multiplier = np.ones(len(datasets))
+        self._balance[order], multiplier[order] = factors, footing.multiplier
+        weight_of, squared_of = np.zeros(len(datasets)), np.zeros(len(datasets))
+        pieces: dict[str, list[np.ndarray]] = {}
+        for members, counts, base in parts:
+            rows = np.repeat(np.arange(len(members)), counts)
+            weight = (base * self._balance[members][rows]) * multiplier[members][rows]
+            weight_of[members] = np.bincount(rows, weights=weight, minlength=len(members))
+            squared_of[members] = np.bincount(rows, weights=weight**2, minlength=len(members))
+            names, codes = np.unique(
+                [datasets[k].facts.record.observable for k in members], return_inverse=True
+            )
+            observable_rows = codes.reshape(-1)[rows]
+            for code, observable in enumerate(names):
+                pieces.setdefault(str(observable), []).append(weight[observable_rows == code])
+        summary_parts = DatasetParts(
+            ids=np.asarray([datasets[k].facts.id for k in order], dtype=object), sizes=sizes,
+            observable=observable_of, lab=labs.astype(str),
+            grade=np.asarray([datasets[k].grade_used for k in order]).astype(str),
+            inflation=np.asarray([datasets[k].inflation for k in order], dtype=float),
+            balance=factors, weight=weight_of[order], weight_squared=squared_of[order],
         )  # fmt: skip
-        by_observable = {
-            obs: np.concatenate([weights[k] for k in present
-                                 if self._datasets[k].version.record.observable.id == obs])
-            for obs in np.unique(observable_of)
-        }  # fmt: skip
-        return summarise_parts(self.policy, parts, by_observable, footing)
+        by_observable = {obs: np.concatenate(pieces[obs]) for obs in np.unique(observable_of)}
+        return summarise_parts(self.policy, summary_parts, by_observable, footing)
 
-    def _footing(self, order: list[int], bases: list[np.ndarray],
+    def _footing(self, order: list[int], parts: list[tuple[list[int], np.ndarray, np.ndarray]],
                  kept: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]],
                  observable_of: np.ndarray) -> Footing:  # fmt: skip
         """Give each dataset's footing, computed on the rows of the observables with relative
-        data only (a dataset's footing reads its own observable's rows alone)."""
+        data alone (a dataset's footing reads its own observable's rows only)."""
         count = len(order)
         footing = Footing(np.ones(count), [None] * count, ["absolute"] * count)
         members = [j for j, k in enumerate(order) if k in kept]
-        if not any(self._datasets[order[j]].version.record.observable.relative for j in members):
+        if not any(self._datasets[order[j]].facts.record.relative for j in members):
             return footing
+        bases: dict[int, np.ndarray] = {}
+        for chunk, chunk_counts, base in parts:
+            ends = np.cumsum(chunk_counts)
+            for j, k in enumerate(chunk):
+                if k in kept:
+                    bases[k] = base[ends[j] - chunk_counts[j] : ends[j]]
         in_table = sorted(members, key=lambda j: order[j])  # rows in selection order
         counts = [self._datasets[order[j]].points for j in in_table]
-        local = {j: n for n, j in enumerate(sorted(members))}  # sorted by id, as the table's codes
-        conditions = self._conditions()
+        local = {j: n for n, j in enumerate(sorted(members))}  # by id, as the table's codes
         columns: dict[str, Any] = {
-            "relative": np.repeat([self._datasets[order[j]].version.record.observable.relative
-                                   for j in in_table], counts).astype(bool),
+            "relative": np.repeat([self._datasets[order[j]].facts.record.relative for j in in_table], counts).astype(bool),
             "value": np.concatenate([kept[order[j]][1] for j in in_table]),
             "time": np.concatenate([kept[order[j]][0] for j in in_table]),
         }  # fmt: skip
         if self._has_censored:
             codes = np.concatenate([kept[order[j]][2] for j in in_table])
             columns["censored"] = pd.Categorical.from_codes(codes, categories=_CENSORED_CATEGORIES)
+        conditions = self._conditions
         for column, (values, _) in conditions.items():
             columns[column] = np.repeat(values[[order[j] for j in in_table]], counts)
         frame = pd.DataFrame(columns)
@@ -255,23 +475,24 @@ class WeightedStream:
         for j in members:
             n = local[j]
             footing.multiplier[j], footing.scale[j], footing.kind[j] = (
-                sub.multiplier[n], sub.scale[n], sub.kind[n])  # fmt: skip
+                sub.multiplier[n],
+                sub.scale[n],
+                sub.kind[n],
+            )
         return footing
 
     # -- the columns -----------------------------------------------------------------------
 
+    @cached_property
     def _conditions(self) -> dict[str, tuple[np.ndarray, str]]:
         """Give each condition column's per-dataset values (in selection order), typed as the
         whole table types them, and their kind ('float', 'text' or 'object')."""
-        if hasattr(self, "_condition_cache"):
-            return self._condition_cache  # type: ignore[has-type, no-any-return]
-        found: dict[str, list[Any]] = {}
+        by_key: dict[str, dict[int, Any]] = {}
         for position, dataset in enumerate(self._datasets):
-            for key, condition in dataset.version.record.conditions.items():
-                found.setdefault(condition_column(key), [None] * position).append(condition.value)
-            for values in found.values():
-                if len(values) == position:
-                    values.append(None)
+            for key, condition in dataset.facts.record.conditions.items():
+                by_key.setdefault(condition_column(key), {})[position] = condition.value
+        count = len(self._datasets)
+        found = {column: [held.get(k) for k in range(count)] for column, held in by_key.items()}
         typed: dict[str, tuple[np.ndarray, str]] = {}
         for column, values in found.items():
             kinds = {type(v) for v in values if v is not None}
@@ -287,132 +508,76 @@ class WeightedStream:
                 )
             else:
                 typed[column] = (np.array(values, dtype=object), "object")
-        self._condition_cache = typed
         return typed
 
+    @cached_property
     def _categories(self) -> dict[str, tuple[list[str], np.ndarray]]:
-        """Give each label column's categories (sorted, as the table's) and every dataset's code."""
-        if hasattr(self, "_category_cache"):
-            return self._category_cache  # type: ignore[has-type, no-any-return]
+        """Give each label column's categories (sorted, as the table's) and each dataset's code."""
+        values: dict[str, list[str]] = {name: [] for name in _LABELS}
+        for d in self._datasets:
+            r = d.facts.record
+            for name, value in zip(_LABELS, (d.facts.id, r.observable, r.unit, r.ucum, r.lab, d.sd_source,
+                                             r.calibration_group or d.facts.id), strict=True):  # fmt: skip
+                values[name].append(str(value))
         result = {}
         for name in _LABELS:
-            values = np.asarray([d.labels[name] for d in self._datasets], dtype=str)
-            labels, codes = np.unique(values, return_inverse=True)
-            result[name] = ([str(v) for v in labels], np.asarray(codes))
-        self._category_cache = result
+            labels, codes = np.unique(np.asarray(values[name], dtype=str), return_inverse=True)
+            result[name] = ([str(v) for v in labels], np.asarray(codes).reshape(-1))
         return result
 
     @cached_property
     def _prototype(self) -> pd.DataFrame:
-        """Give one row per dataset with points, typed as the whole table (its schema's source)."""
+        """Give one row per dataset with points, typed as the whole table (the schema's source:
+        pandas and pyarrow type a column by what its values are)."""
         present = [k for k, d in enumerate(self._datasets) if d.points > 0]
-        return self._frame(present, {k: 1 for k in present}, prototype=True)
-
-    def _typed(self, frame: pd.DataFrame) -> pd.DataFrame:
-        """Give a part typed as the whole table (pandas infers text columns per frame: a part
-        whose grades are all missing would keep them as objects)."""
-        wanted = self._prototype.dtypes
-        differ = {c: wanted[c] for c in frame.columns if frame[c].dtype != wanted[c]}
-        return frame.astype(differ) if differ else frame
+        take = np.asarray(present, dtype=np.intp)
+        ones = np.ones(len(present))
+        columns: dict[str, Any] = {}
+        for name, (labels, codes) in self._categories.items():
+            columns[name] = pd.Categorical.from_codes(codes[take], categories=labels)
+        columns["version"] = np.asarray(
+            [self._datasets[k].facts.version for k in present], dtype=np.int64
+        )
+        columns["relative"] = np.asarray(
+            [self._datasets[k].facts.record.relative for k in present], dtype=bool
+        )
+        columns["grade"] = np.asarray(
+            [self._datasets[k].facts.grade for k in present], dtype=object
+        )
+        columns["grade_used"] = np.asarray(
+            [self._datasets[k].grade_used for k in present], dtype=object
+        )
+        for name in ("time", "value", "sd", "inflation", "balance", "sigma", "weight"):
+            columns[name] = ones
+        columns["replicate"] = np.asarray(
+            ["" if self._datasets[k].replicates else None for k in present], dtype=object
+        )
+        if self._has_censored:
+            columns["censored"] = pd.Categorical.from_codes(
+                np.zeros(len(present), np.int8), categories=_CENSORED_CATEGORIES
+            )
+        for column, (values, _) in self._conditions.items():
+            columns[column] = values[take]
+        ordered = [c for c in STANDARD_COLUMNS if c in columns] + sorted(self._conditions)
+        return pd.DataFrame({c: columns[c] for c in ordered})
 
     @cached_property
     def schema(self) -> pa.Schema:
-        """Give the Arrow schema of the batches (with the pandas metadata the whole frame gets)."""
+        """Give the Arrow schema of the batches, unit column as symbols (with the pandas
+        metadata the whole frame gets, so readers give back the same frame)."""
         import pyarrow as pa
 
         return pa.Schema.from_pandas(unit_symbols(self._prototype), preserve_index=False)
 
-    def _frame(self, positions: list[int], lengths: dict[int, int], *, prototype: bool = False,
-               stored: dict[str, SeriesArrays] | None = None) -> pd.DataFrame:  # fmt: skip
-        """Give the weighted rows of the datasets at ``positions`` as a DataFrame; the prototype
-        takes each dataset's first point only."""
-        counts = np.asarray([lengths[k] for k in positions], dtype=np.intp)
-        columns: dict[str, Any] = {}
-        per_point: dict[str, list[np.ndarray]] = {n: [] for n in ("time", "value", "sd", "replicate", "censored",
-                                                                  "inflation", "balance", "weight")}  # fmt: skip
-        categories = self._categories()
-        if stored is None and not prototype:
-            stored = self.catalog.series_many(
-                [self._datasets[k].version.record.content_hash for k in positions]
-            )
-        for k in positions:
-            dataset = self._datasets[k]
-            version = dataset.version
-            if prototype:  # one stand-in point: only the types count
-                per_point["time"].append(np.ones(1))
-                per_point["value"].append(np.ones(1))
-                per_point["sd"].append(np.ones(1))
-                per_point["weight"].append(np.ones(1))
-                per_point["censored"].append(np.zeros(1, dtype=np.int8))
-                per_point["replicate"].append(
-                    np.array(["" if dataset.replicates else None], dtype=object)
-                )
-                continue
-            assert stored is not None
-            arrays = _arrays(stored[version.record.content_hash], version)
-            sd, _ = _sd_of(version, arrays, self.policy)
-            floored = _floored(
-                np.asarray(sd, dtype=float), arrays.value, dataset.floor, self.policy
-            )
-            base = 1.0 / (floored**2 * dataset.inflation)
-            weight = base * self._balance[k]
-            labels = np.array(version.record.replicate_labels, dtype=object)
-            per_point["time"].append(arrays.time)
-            per_point["value"].append(arrays.value)
-            per_point["sd"].append(floored)
-            per_point["weight"].append(weight)
-            per_point["censored"].append(_codes(arrays))
-            per_point["replicate"].append(labels[arrays.replicate] if dataset.replicates
-                                          else np.full(len(arrays), None, dtype=object))  # fmt: skip
-        take = np.asarray(positions, dtype=np.intp)
-        for name in ("dataset_id", "observable", "unit", "unit_ucum", "lab"):
-            labels_, codes = categories[name]
-            columns[name] = pd.Categorical.from_codes(
-                np.repeat(codes[take], counts), categories=labels_
-            )
-        columns["version"] = np.repeat(np.asarray([self._datasets[k].version.version for k in positions],
-                                                  dtype=np.int64), counts)  # fmt: skip
-        columns["relative"] = np.repeat(np.asarray([self._datasets[k].version.record.observable.relative
-                                                    for k in positions], dtype=bool), counts)  # fmt: skip
-        columns["grade"] = np.repeat(np.asarray([self._datasets[k].version.grade for k in positions],
-                                                dtype=object), counts)  # fmt: skip
-        columns["grade_used"] = np.repeat(np.asarray([self._datasets[k].grade_used for k in positions],
-                                                     dtype=object), counts)  # fmt: skip
-        for name in ("time", "value", "sd"):
-            columns[name] = (
-                np.concatenate(per_point[name]) if positions else np.array([], dtype=float)
-            )
-        labels_, codes = categories["sd_source"]
-        columns["sd_source"] = pd.Categorical.from_codes(
-            np.repeat(codes[take], counts), categories=labels_
-        )
-        columns["inflation"] = np.repeat(np.asarray([self._datasets[k].inflation for k in positions],
-                                                    dtype=float), counts)  # fmt: skip
-        columns["balance"] = np.repeat(
-            np.asarray([self._balance[k] for k in positions], dtype=float), counts
-        )
-        weight = np.concatenate(per_point["weight"]) if positions else np.array([], dtype=float)
-        columns["sigma"] = 1.0 / np.sqrt(weight)
-        columns["weight"] = weight
-        columns["replicate"] = (np.concatenate(per_point["replicate"]) if positions
-                                else np.array([], dtype=object))  # fmt: skip
-        labels_, codes = categories["calibration_group"]
-        columns["calibration_group"] = pd.Categorical.from_codes(np.repeat(codes[take], counts),
-                                                                 categories=labels_)  # fmt: skip
-        if self._has_censored:
-            columns["censored"] = pd.Categorical.from_codes(
-                np.concatenate(per_point["censored"]), categories=_CENSORED_CATEGORIES)  # fmt: skip
-        conditions = self._conditions()
-        for column in sorted(conditions):
-            columns[column] = np.repeat(conditions[column][0][take], counts)
-        ordered = [c for c in STANDARD_COLUMNS if c in columns] + sorted(conditions)
-        return pd.DataFrame({c: columns[c] for c in ordered})
+    @cached_property
+    def _canonical_schema(self) -> pa.Schema:
+        import pyarrow as pa
+
+        return pa.Schema.from_pandas(self._prototype, preserve_index=False)
 
     # -- the second pass -------------------------------------------------------------------
 
-    def frames(self) -> Iterator[pd.DataFrame]:
-        """Give the weighted table as DataFrames of about ``rows_per_batch`` rows, in order
-        (a dataset is never split; units are canonical names, as in :attr:`table`)."""
+    def _groups(self) -> Iterator[list[int]]:
         group: list[int] = []
         rows = 0
         for k, dataset in enumerate(self._datasets):
@@ -421,43 +586,106 @@ class WeightedStream:
             group.append(k)
             rows += dataset.points
             if rows >= self.rows_per_batch:
-                yield self._typed(self._frame(group, {j: self._datasets[j].points for j in group}))
+                yield group
                 group, rows = [], 0
         if group:
-            yield self._typed(self._frame(group, {j: self._datasets[j].points for j in group}))
+            yield group
 
-    def batches(self) -> Iterator[pa.RecordBatch]:
-        """Give the weighted table as Arrow record batches of :attr:`schema`, unit column as
-        symbols ('nM'), as the table export writes it."""
+    def batches(self, *, unit_symbols: bool = True) -> Iterator[pa.RecordBatch]:
+        """Give the weighted table as Arrow record batches of :attr:`schema` (about
+        ``rows_per_batch`` rows each), the unit column as symbols ('nM') as the table export
+        writes it, or as canonical names (``unit_symbols=False``) as :attr:`table` has it."""
+        schema = self.schema if unit_symbols else self._canonical_schema
+        for group in self._groups():
+            yield self._batch(group, schema, symbols=unit_symbols)
+
+    def _batch(self, members: list[int], schema: pa.Schema, *, symbols: bool) -> pa.RecordBatch:
         import pyarrow as pa
 
-        schema = self.schema
-        for frame in self.frames():
-            yield pa.RecordBatch.from_pandas(
-                unit_symbols(frame), schema=schema, preserve_index=False
+        part = self._read(members)
+        rows = part.row_dataset
+        take = np.asarray(members, dtype=np.intp)
+        floored = self._floored(part)
+        weight = self._base(part, floored) * self._balance[take][rows]
+        datasets = [self._datasets[k] for k in members]
+        index = pa.array(rows.astype(np.int32))
+
+        def per_dataset(values: list[Any], name: str) -> pa.Array:
+            return pa.array(values, type=schema.field(name).type, from_pandas=True).take(index)
+
+        def floats(values: np.ndarray) -> pa.Array:
+            return pa.array(
+                values, type=pa.float64(), from_pandas=True
+            )  # NaN as null, as pandas gives it
+
+        def labels(name: str) -> pa.Array:
+            categories, codes = self._categories[name]
+            if name == "unit" and symbols:
+                categories = [short_unit(c) for c in categories]
+                if len(set(categories)) < len(categories):  # symbols that coincide: plain text
+                    return per_dataset([categories[c] for c in codes[take]], name)
+            kind = schema.field(name).type
+            indices = pa.array(
+                codes[take][rows].astype(kind.index_type.to_pandas_dtype()), type=kind.index_type
             )
+            return pa.DictionaryArray.from_arrays(
+                indices, pa.array(categories, type=kind.value_type)
+            )
+
+        columns: dict[str, pa.Array] = {name: labels(name) for name in _LABELS}
+        columns["version"] = pa.array(
+            np.repeat([d.facts.version for d in datasets], part.counts).astype(np.int64)
+        )
+        columns["relative"] = pa.array(
+            np.repeat([d.facts.record.relative for d in datasets], part.counts).astype(bool)
+        )
+        columns["grade"] = per_dataset([d.facts.grade for d in datasets], "grade")
+        columns["grade_used"] = per_dataset([d.grade_used for d in datasets], "grade_used")
+        columns["time"], columns["value"], columns["sd"] = (
+            floats(part.time),
+            floats(part.value),
+            floats(floored),
+        )
+        columns["inflation"] = floats(np.repeat([d.inflation for d in datasets], part.counts))
+        columns["balance"] = floats(self._balance[take][rows])
+        columns["sigma"], columns["weight"] = floats(1.0 / np.sqrt(weight)), floats(weight)
+        columns["replicate"] = self._replicates(datasets, part, schema.field("replicate").type)
+        if self._has_censored:
+            kind = schema.field("censored").type
+            columns["censored"] = pa.DictionaryArray.from_arrays(
+                pa.array(part.censored, type=kind.index_type), pa.array(_CENSORED_CATEGORIES, type=kind.value_type))  # fmt: skip
+        for column, (values, _) in self._conditions.items():
+            columns[column] = per_dataset(list(values[take]), column)
+        return pa.RecordBatch.from_arrays([columns[name] for name in schema.names], schema=schema)
+
+    @staticmethod
+    def _replicates(datasets: list[_Dataset], part: _Part, kind: pa.DataType) -> pa.Array:
+        """Give each point's replicate label (null where its dataset has none)."""
+        import pyarrow as pa
+
+        words: list[str | None] = [None]
+        indices = []
+        for dataset, codes, count in zip(datasets, part.replicate, part.counts, strict=True):
+            if codes is None:
+                indices.append(np.zeros(count, dtype=np.int64))
+                continue
+            indices.append(np.asarray(codes, dtype=np.int64) + len(words))
+            words.extend(dataset.facts.record.replicate_labels)
+        return pa.array(words, type=kind).take(pa.array(_concatenated(indices, np.int64)))
 
     @cached_property
     def table(self) -> pd.DataFrame:
-        """Give the whole weighted table as one DataFrame (canonical unit names)."""
-        frames = list(self.frames())
-        if len(frames) == 1:
-            return frames[0]
-        return pd.concat(frames, ignore_index=True)
+        """Give the whole weighted table as one DataFrame (canonical unit names), typed as
+        :func:`curate.weighting.table.weighted_table` types it."""
+        import pyarrow as pa
 
-
-def _label_values(version: DatasetVersion, source: str) -> dict[str, str]:
-    record = version.record
-    return {
-        "dataset_id": version.id, "observable": record.observable.id, "unit": record.observable.unit,
-        "unit_ucum": record.observable.ucum or "", "lab": record.source.lab, "sd_source": source,
-        "calibration_group": record.protocol.calibration_group or version.id,
-    }  # fmt: skip
-
-
-def _chunks(items: list[DatasetVersion], size: int) -> Iterator[list[DatasetVersion]]:
-    for start in range(0, len(items), size):
-        yield items[start : start + size]
+        whole = pa.Table.from_batches(
+            list(self.batches(unit_symbols=False)), schema=self._canonical_schema
+        )
+        frame = whole.to_pandas()
+        wanted = self._prototype.dtypes
+        differ = {c: wanted[c] for c in frame.columns if frame[c].dtype != wanted[c]}
+        return frame.astype(differ) if differ else frame
 
 
 def weighted_stream(catalog: Ledger, policy: Policy, selection: Selection, *,
