@@ -21,7 +21,7 @@ from curate.errors import InputError
 from curate.export.files import now_utc, write_json
 from curate.jsontext import finite
 from curate.ledger import Ledger
-from curate.records import ConditionValue, canonical_json
+from curate.records import canonical_json
 from curate.version import __version__
 from curate.weighting import Policy, Selection
 
@@ -41,12 +41,20 @@ __all__ = [
 MANIFEST = "manifest.json"
 
 
+class _Condition(Protocol):
+    @property
+    def value(self) -> float | bool | str: ...
+
+    @property
+    def unit(self) -> str | None: ...
+
+
 class _NamedRecord(Protocol):
     @property
     def content_hash(self) -> str: ...
 
     @property
-    def conditions(self) -> Mapping[str, ConditionValue]: ...
+    def conditions(self) -> Mapping[str, _Condition]: ...
 
 
 class NamedVersion(Protocol):

@@ -64,6 +64,7 @@ if TYPE_CHECKING:
 
 __all__ = [
     "ROWS_PER_BATCH",
+    "ConditionFacts",
     "RecordFacts",
     "VersionFacts",
     "WeightedStream",
@@ -82,6 +83,15 @@ _FIELDS = ("$.observable.id", "$.observable.unit", "$.observable.ucum", "$.obser
 
 
 @dataclass(frozen=True)
+class ConditionFacts:
+    """One condition as a stored record holds it (validated when it was written)."""
+
+    value: float | bool | str
+    unit: str | None = None
+    unit_original: str | None = None
+
+
+@dataclass(frozen=True)
 class RecordFacts:
     """The fields of a record the weighted table reads."""
 
@@ -92,7 +102,7 @@ class RecordFacts:
     relative: bool
     lab: str
     calibration_group: str | None
-    conditions: Mapping[str, ConditionValue]
+    conditions: Mapping[str, ConditionValue | ConditionFacts]
     replicate_labels: tuple[str, ...]
     masked: bool  # whether any mask sets points aside
     plain_sd: bool  # the reported uncertainty is an SD of the value as stored (linear, no n)
@@ -132,7 +142,7 @@ class VersionFacts:
                  and uncertainty.get("n") is None and uncertainty.get("scale", "linear") == "linear")  # fmt: skip
         return cls(ident, version, record_hash, grade, RecordFacts(
             content_hash, observable, unit, ucum or "", bool(relative), lab, group,
-            {k: ConditionValue.model_construct(**c) for k, c in (conditions or {}).items()},  # validated when stored
+            {k: ConditionFacts(c["value"], c.get("unit"), c.get("unit_original")) for k, c in (conditions or {}).items()},
             tuple(labels or ()), bool(masks), plain, bool(retired),
         ))  # fmt: skip
 

@@ -393,22 +393,22 @@ def summarise_parts(
         parts.inflation,
         parts.balance,
     )
+    # column-wise, then as Python values once (a numpy scalar per field and dataset is slow)
+    share = per_dataset / np.asarray([totals[obs] for obs in observable_of], dtype=float)
+    n_eff_of = per_dataset**2 / per_dataset_sq
+    columns = zip(
+        [str(i) for i in ids], np.asarray(observable_of).astype(str).tolist(),
+        np.asarray(lab_of).astype(str).tolist(), np.asarray(grade_of).astype(str).tolist(),
+        np.asarray(sizes).astype(int).tolist(), np.asarray(inflation_of, dtype=float).tolist(),
+        np.asarray(balance_of, dtype=float).tolist(), share.tolist(), n_eff_of.tolist(),
+        footing.scale, footing.kind, strict=True,
+    )  # fmt: skip
     rows = [
-        DatasetWeight(
-            id=str(ident),
-            observable=str(observable_of[k]),
-            lab=str(lab_of[k]),
-            grade=str(grade_of[k]),
-            n_points=int(sizes[k]),
-            inflation=float(inflation_of[k]),
-            balance=float(balance_of[k]),
-            share=float(per_dataset[k] / totals[observable_of[k]]),
-            n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
-            scale=footing.scale[k],
-            footing=footing.kind[k],
-        )
-        for k, ident in enumerate(ids)
-    ]
+        DatasetWeight(id=ident, observable=observable, lab=lab, grade=grade, n_points=size,
+                      inflation=inflation, balance=balance, share=part, n_eff=n_eff_k,
+                      scale=scale, footing=kind)
+        for ident, observable, lab, grade, size, inflation, balance, part, n_eff_k, scale, kind in columns
+    ]  # fmt: skip
     lab_shares: dict[str, dict[str, float]] = {}
     for row in rows:
         shares = lab_shares.setdefault(row.observable, {})
