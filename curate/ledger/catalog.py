@@ -245,16 +245,12 @@ class Ledger(Amendments):
 
     def latest_fields(
         self, paths: tuple[str, ...]
-    ) -> builtins.list[tuple[str, int, str, str, builtins.list[Any]]]:
+    ) -> Iterator[tuple[str, int, str, str, builtins.list[Any]]]:
         """Give (id, version, record hash, content hash, [the record's value at each JSON
-        path]) of every dataset's newest version, ordered by id, without parsing whole records
-        (a path such as ``$.observable.unit``; a missing one gives None)."""
-        return [
-            (ident, version, record_hash, content_hash, json.loads(values))
-            for ident, version, record_hash, content_hash, values in self._store.latest_version_fields(
-                paths
-            )
-        ]
+        path]) of every dataset's newest version, ordered by id, one at a time, without parsing
+        whole records (a path such as ``$.observable.unit``; a missing one gives None)."""
+        for ident, version, sealed, content, values in self._store.latest_version_fields(paths):
+            yield ident, version, sealed, content, json.loads(values)
 
     def verify(self, head: ChainHead | tuple[int, str] | None = None) -> VerifyReport:
         """Give the result of recomputing every content hash, record hash, policy text and the

@@ -443,18 +443,21 @@ class Store:
             " GROUP BY dataset_id) ORDER BY dataset_id"
         )
 
-    def latest_version_fields(self, paths: tuple[str, ...]) -> list[tuple[str, int, str, str, str]]:
+    def latest_version_fields(
+        self, paths: tuple[str, ...]
+    ) -> Iterator[tuple[str, int, str, str, str]]:
         """Give (dataset id, version, record hash, content hash, JSON array of the record's
-        values at ``paths``) of the newest version of every dataset, ordered by dataset id:
-        SQLite reads the record JSON, so no whole record is parsed in Python."""
+        values at ``paths``) of the newest version of every dataset, ordered by dataset id, one
+        row at a time: SQLite reads the record JSON, so no whole record is parsed in Python."""
         marks = ", ".join("?" * len(paths))  # several paths: one JSON array, JSON types kept
-        rows = self.db.execute(
+        cursor = self.db.execute(
             f"SELECT dataset_id, version, record_hash, content_hash, json_extract(record_json, {marks})"
             " FROM versions WHERE (dataset_id, version) IN (SELECT dataset_id, MAX(version)"
             " FROM versions GROUP BY dataset_id) ORDER BY dataset_id",
             list(paths),
-        ).fetchall()
-        return [(str(r[0]), int(r[1]), str(r[2]), str(r[3]), str(r[4])) for r in rows]
+        )
+        for r in cursor:
+            yield str(r[0]), int(r[1]), str(r[2]), str(r[3]), str(r[4])
 
     def first_versions_of_revised(self) -> list[VersionRow]:
         """Give version 1 of every dataset that has later versions (what it was logged as)."""

@@ -22,7 +22,8 @@ from __future__ import annotations
 
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
-from functools import cached_property
+from functools import cached_property, lru_cache
+from sys import intern
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -71,8 +72,8 @@ __all__ = [
     "weighted_stream",
 ]
 
-ROWS_PER_BATCH = 131_072  # one Parquet row group each; about 13 MB of columns
-_CHUNK = 2000  # datasets read at once in the first pass
+ROWS_PER_BATCH = 65_536  # one Parquet row group each; about 6 MB of columns
+_CHUNK = 500  # datasets read at once in the first pass
 
 _LABELS = ("dataset_id", "observable", "unit", "unit_ucum", "lab", "sd_source", "calibration_group")
 _CENSORED_CATEGORIES = [CENSORED_WORDS[k] for k in sorted(CENSORED_WORDS)]
@@ -82,7 +83,7 @@ _FIELDS = ("$.observable.id", "$.observable.unit", "$.observable.ucum", "$.obser
            "$.masks", "$.uncertainty", "$.trust.grade", "$.retired")  # fmt: skip
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class ConditionFacts:
     """One condition as a stored record holds it (validated when it was written)."""
 
@@ -91,7 +92,7 @@ class ConditionFacts:
     unit_original: str | None = None
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class RecordFacts:
     """The fields of a record the weighted table reads."""
 
@@ -109,7 +110,7 @@ class RecordFacts:
     retired: bool
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, slots=True)
 class VersionFacts:
     """One dataset version as the weighted table reads it (no whole record parsed)."""
 
@@ -140,11 +141,29 @@ class VersionFacts:
          grade, retired) = values  # fmt: skip
         plain = (uncertainty is not None and uncertainty.get("type", "sd") in _PLAIN_SD
                  and uncertainty.get("n") is None and uncertainty.get("scale", "linear") == "linear")  # fmt: skip
-        return cls(ident, version, record_hash, grade, RecordFacts(
-            content_hash, observable, unit, ucum or "", bool(relative), lab, group,
-            {k: ConditionFacts(c["value"], c.get("unit"), c.get("unit_original")) for k, c in (conditions or {}).items()},
+        # words many datasets share are kept once (a catalog of 10^5 small datasets repeats them)
+        return cls(ident, version, record_hash, grade and intern(grade), RecordFacts(
+            content_hash, intern(observable), intern(unit), intern(ucum or ""), bool(relative), intern(lab),
+            group and intern(group),
+            {intern(k): _condition(c) for k, c in (conditions or {}).items()},
             tuple(labels or ()), bool(masks), plain, bool(retired),
         ))  # fmt: skip
+
+
+@lru_cache(maxsize=4096)
+def _condition_of(
+    key: tuple[type, str], value: Any, unit: str | None, original: str | None
+) -> ConditionFacts:
+    return ConditionFacts(value, unit, original)
+
+
+def _condition(stored: dict[str, Any]) -> ConditionFacts:
+    """Give a stored condition's facts, one object for each distinct condition (told apart by
+    type and exact text, so True is not 1.0 and -0.0 is not 0.0)."""
+    value = stored["value"]
+    return _condition_of(
+        (type(value), repr(value)), value, stored.get("unit"), stored.get("unit_original")
+    )
 
 
 def select_facts(catalog: Ledger, selection: Selection, policy: Policy) -> list[VersionFacts]:
@@ -182,7 +201,7 @@ def select_facts(catalog: Ledger, selection: Selection, policy: Policy) -> list[
     return chosen
 
 
-@dataclass
+@dataclass(slots=True)
 class _Dataset:
     """What the first pass learns of one dataset version (in selection order)."""
 
@@ -426,18 +445,32 @@ class WeightedStream:
         multiplier = np.ones(len(datasets))
         self._balance[order], multiplier[order] = factors, footing.multiplier
         weight_of, squared_of = np.zeros(len(datasets)), np.zeros(len(datasets))
-        pieces: dict[str, list[np.ndarray]] = {}
-        for members, counts, base in parts:
+        # each observable's weights in table order, written in place; each part's base weights
+        # are let go once used, so the pass holds about one float per point
+        points_of: dict[str, int] = {}
+        for d in datasets:
+            points_of[d.facts.record.observable] = (
+                points_of.get(d.facts.record.observable, 0) + d.points
+            )
+        by_observable = {obs: np.empty(n) for obs, n in points_of.items() if n}
+        filled = dict.fromkeys(by_observable, 0)
+        for position, (members, counts, base) in enumerate(parts):
             rows = np.repeat(np.arange(len(members)), counts)
             weight = (base * self._balance[members][rows]) * multiplier[members][rows]
+            parts[position] = (members, counts, np.empty(0))
+            del base
             weight_of[members] = np.bincount(rows, weights=weight, minlength=len(members))
             squared_of[members] = np.bincount(rows, weights=weight**2, minlength=len(members))
             names, codes = np.unique(
                 [datasets[k].facts.record.observable for k in members], return_inverse=True
             )
             observable_rows = codes.reshape(-1)[rows]
-            for code, observable in enumerate(names):
-                pieces.setdefault(str(observable), []).append(weight[observable_rows == code])
+            for code, observable in enumerate(names.tolist()):
+                taken = weight[observable_rows == code]
+                by_observable[observable][filled[observable] : filled[observable] + len(taken)] = (
+                    taken
+                )
+                filled[observable] += len(taken)
         summary_parts = DatasetParts(
             ids=np.asarray([datasets[k].facts.id for k in order], dtype=object), sizes=sizes,
             observable=observable_of, lab=labs.astype(str),
@@ -445,7 +478,6 @@ class WeightedStream:
             inflation=np.asarray([datasets[k].inflation for k in order], dtype=float),
             balance=factors, weight=weight_of[order], weight_squared=squared_of[order],
         )  # fmt: skip
-        by_observable = {obs: np.concatenate(pieces[obs]) for obs in np.unique(observable_of)}
         return summarise_parts(self.policy, summary_parts, by_observable, footing)
 
     def _footing(self, order: list[int], parts: list[tuple[list[int], np.ndarray, np.ndarray]],
