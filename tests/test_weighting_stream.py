@@ -175,3 +175,13 @@ def test_the_stream_of_the_example_data_is_their_table(catalog, examples, tmp_pa
     frame = unit_symbols(whole.table)
     assert csv == table_bytes(frame, "csv")
     assert parquet.equals(pq.read_table(pa.BufferReader(table_bytes(frame, "parquet"))))
+
+
+def test_the_catalog_gives_the_weighted_table_as_record_batches(catalog):
+    varied_catalog(catalog)
+    batches = catalog.weighted_batches(rows_per_batch=25)
+    first = next(batches)
+    assert first.num_rows >= 25 and first.schema.names == list(catalog.weighted_table().columns)
+    frame = pa.Table.from_batches([first, *batches]).to_pandas()
+    pd.testing.assert_frame_equal(frame, catalog.weighted_table(), check_exact=True)
+    assert catalog.weights().to_dict() == weighted_table(catalog, resolve_policy(None), Selection()).summary.to_dict()
