@@ -73,14 +73,15 @@ __all__ = [
 ]
 
 ROWS_PER_BATCH = 65_536  # one Parquet row group each; about 6 MB of columns
-_CHUNK = 500  # datasets read at once in the first pass
+_CHUNK = 500  # at most this many datasets read at once in the first pass
+_CHUNK_ROWS = 4 * ROWS_PER_BATCH  # and about this many points
 
 _LABELS = ("dataset_id", "observable", "unit", "unit_ucum", "lab", "sd_source", "calibration_group")
 _CENSORED_CATEGORIES = [CENSORED_WORDS[k] for k in sorted(CENSORED_WORDS)]
 _PLAIN_SD = ("sd", "estimated", "assumed")  # reported kinds that are the SD as they stand
 _FIELDS = ("$.observable.id", "$.observable.unit", "$.observable.ucum", "$.observable.relative",
            "$.source.lab", "$.protocol.calibration_group", "$.conditions", "$.replicate_labels",
-           "$.masks", "$.uncertainty", "$.trust.grade", "$.retired")  # fmt: skip
+           "$.masks", "$.uncertainty", "$.trust.grade", "$.retired", "$.n_points")  # fmt: skip
 
 
 @dataclass(frozen=True, slots=True)
@@ -108,6 +109,7 @@ class RecordFacts:
     masked: bool  # whether any mask sets points aside
     plain_sd: bool  # the reported uncertainty is an SD of the value as stored (linear, no n)
     retired: bool
+    n_points: int  # as stored, before masks
 
 
 @dataclass(frozen=True, slots=True)
@@ -130,7 +132,7 @@ class VersionFacts:
         return cls(version.id, version.version, version.record_hash, version.grade, RecordFacts(
             r.content_hash, r.observable.id, r.observable.unit, r.observable.ucum or "",
             r.observable.relative, r.source.lab, r.protocol.calibration_group, dict(r.conditions),
-            tuple(r.replicate_labels), bool(r.masks), plain, r.retired,
+            tuple(r.replicate_labels), bool(r.masks), plain, r.retired, r.n_points,
         ))  # fmt: skip
 
     @classmethod
@@ -138,7 +140,7 @@ class VersionFacts:
              values: list[Any]) -> VersionFacts:  # fmt: skip
         """Give the facts from the record fields :data:`_FIELDS` as the store reads them."""
         (observable, unit, ucum, relative, lab, group, conditions, labels, masks, uncertainty,
-         grade, retired) = values  # fmt: skip
+         grade, retired, n_points) = values  # fmt: skip
         plain = (uncertainty is not None and uncertainty.get("type", "sd") in _PLAIN_SD
                  and uncertainty.get("n") is None and uncertainty.get("scale", "linear") == "linear")  # fmt: skip
         # words many datasets share are kept once (a catalog of 10^5 small datasets repeats them)
@@ -146,7 +148,7 @@ class VersionFacts:
             content_hash, intern(observable), intern(unit), intern(ucum or ""), bool(relative), intern(lab),
             group and intern(group),
             {intern(k): _condition(c) for k, c in (conditions or {}).items()},
-            tuple(labels or ()), bool(masks), plain, bool(retired),
+            tuple(labels or ()), bool(masks), plain, bool(retired), int(n_points or 0),
         ))  # fmt: skip
 
 
@@ -374,8 +376,8 @@ class WeightedStream:
         kept: dict[int, tuple[np.ndarray, np.ndarray, np.ndarray]] = {}  # for the footing
         first_bad: dict[str, int] = {}
         seen = np.zeros(len(CENSORED_WORDS), dtype=np.int64)
-        for start in range(0, len(self._datasets), _CHUNK):
-            part = self._read(list(range(start, min(start + _CHUNK, len(self._datasets)))))
+        for members in self._chunks():
+            part = self._read(members)
             seen += np.bincount(part.censored, minlength=len(seen))[: len(seen)]
             floored = self._floored(part)
             unusable = np.bincount(part.row_dataset, weights=~np.isfinite(part.sd) | (part.sd < 0),
@@ -404,6 +406,20 @@ class WeightedStream:
         self._has_censored = bool(seen[1:].any())
         self._refuse(first_bad)
         return self._summarise(parts, kept)
+
+    def _chunks(self) -> Iterator[list[int]]:
+        """Give runs of whole datasets of about :data:`_CHUNK_ROWS` points (their stored
+        counts) and at most :data:`_CHUNK` datasets: what the first pass reads at once."""
+        members: list[int] = []
+        rows = 0
+        for k, dataset in enumerate(self._datasets):
+            members.append(k)
+            rows += dataset.facts.record.n_points
+            if rows >= _CHUNK_ROWS or len(members) >= _CHUNK:
+                yield members
+                members, rows = [], 0
+        if members:
+            yield members
 
     def _refuse(self, first_bad: dict[str, int]) -> None:
         """Refuse as :func:`apply_policy` refuses, naming the dataset it would name."""
