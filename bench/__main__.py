@@ -162,6 +162,23 @@ def case_export(folder: Path, n_series: int, repeats: int) -> dict[str, Any]:
             "export_folder_s": folder_s, "export_folder_ratio": folder_s / baseline_s}  # fmt: skip
 
 
+def long_series_catalog(folder: Path, n_series: int, points: int) -> Path:
+    """Log ``n_series`` series of ``points`` points each (added 100 at a time); give the file."""
+    path = folder / f"long_{n_series}x{points}.db"
+    fresh(folder, path.name)
+    rng = np.random.default_rng(1)
+    t = np.arange(points, dtype=float) * 3.0
+    with curate.open_catalog(path, actor="bench") as catalog:
+        for start in range(0, n_series, 100):
+            catalog.add_drafts([
+                catalog.draft(t, 20 * (1 - np.exp(-t / 900.0)) + rng.normal(0, 0.5, points), sd=np.full(points, 0.5),
+                              observable="velarin_conc", unit="nM", time_unit="s", lab=f"Lab {k % 8}",
+                              conditions={"dose": float(k % 50), "temperature": 37.0})
+                for k in range(start, min(start + 100, n_series))
+            ])  # fmt: skip
+    return path
+
+
 def case_export_memory(folder: Path, catalogs: list[Path], whole_up_to: int) -> dict[str, Any]:
     """Peak memory of the streamed Parquet export against the raw float64 data (time, value,
     sd), each size in a fresh process; today's whole-frame way beside it up to
@@ -413,7 +430,9 @@ def main() -> None:
         million = folder / "ours_scale10000.db"
         if not million.exists():
             ours_intake(folder, synthetic_series(10000, seed=10000), "scale10000")
-        sizes = [million] if quick else [million, folder / "ours_scale100000.db"]
+        sizes = [million, long_series_catalog(folder, 100, 10_000)]
+        if not quick:
+            sizes += [folder / "ours_scale100000.db", long_series_catalog(folder, 1000, 10_000)]
         results["export_memory"] = case_export_memory(folder, sizes, whole_up_to=1_000_000)
         print("  export memory done", flush=True)
         results["report"] = case_report(folder, 1_000_000 if quick else 10_000_000)
