@@ -13,7 +13,6 @@ import builtins
 import dataclasses
 import datetime as dt
 import getpass
-import json
 import os
 import re
 from collections.abc import Iterable, Iterator, Sequence
@@ -248,9 +247,11 @@ class Ledger(Amendments):
     ) -> Iterator[tuple[str, int, str, str, builtins.list[Any]]]:
         """Give (id, version, record hash, content hash, [the record's value at each JSON
         path]) of every dataset's newest version, ordered by id, one at a time, without parsing
-        whole records (a path such as ``$.observable.unit``; a missing one gives None)."""
-        for ident, version, sealed, content, values in self._store.latest_version_fields(paths):
-            yield ident, version, sealed, content, json.loads(values)
+        whole records (a path such as ``$.observable.unit``; a missing one gives None). A
+        number, text or null comes as itself (true and false as 1 and 0), an object or array
+        as its JSON text, for the caller to read only where it needs to."""
+        for row in self._store.latest_version_fields(paths):
+            yield str(row[0]), int(row[1]), str(row[2]), str(row[3]), list(row[4:])
 
     def verify(self, head: ChainHead | tuple[int, str] | None = None) -> VerifyReport:
         """Give the result of recomputing every content hash, record hash, policy text and the

@@ -443,21 +443,20 @@ class Store:
             " GROUP BY dataset_id) ORDER BY dataset_id"
         )
 
-    def latest_version_fields(
-        self, paths: tuple[str, ...]
-    ) -> Iterator[tuple[str, int, str, str, str]]:
-        """Give (dataset id, version, record hash, content hash, JSON array of the record's
-        values at ``paths``) of the newest version of every dataset, ordered by dataset id, one
-        row at a time: SQLite reads the record JSON, so no whole record is parsed in Python."""
-        marks = ", ".join("?" * len(paths))  # several paths: one JSON array, JSON types kept
+    def latest_version_fields(self, paths: tuple[str, ...]) -> Iterator[tuple[Any, ...]]:
+        """Give (dataset id, version, record hash, content hash, then the record's value at each
+        of ``paths``) of the newest version of every dataset, ordered by dataset id, one row at
+        a time: SQLite reads the record JSON, so no whole record is parsed in Python. A number,
+        text or null comes as that SQL value (true and false as 1 and 0), an object or array as
+        its JSON text."""
+        columns = ", ".join(["json_extract(record_json, ?)"] * len(paths))
         cursor = self.db.execute(
-            f"SELECT dataset_id, version, record_hash, content_hash, json_extract(record_json, {marks})"
+            f"SELECT dataset_id, version, record_hash, content_hash, {columns}"
             " FROM versions WHERE (dataset_id, version) IN (SELECT dataset_id, MAX(version)"
             " FROM versions GROUP BY dataset_id) ORDER BY dataset_id",
             list(paths),
         )
-        for r in cursor:
-            yield str(r[0]), int(r[1]), str(r[2]), str(r[3]), str(r[4])
+        yield from cursor
 
     def first_versions_of_revised(self) -> list[VersionRow]:
         """Give version 1 of every dataset that has later versions (what it was logged as)."""

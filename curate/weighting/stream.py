@@ -20,6 +20,7 @@ table's sums (``np.bincount`` in row order), so the numbers are the same to the 
 
 from __future__ import annotations
 
+import json
 from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from functools import cached_property, lru_cache
@@ -141,6 +142,11 @@ class VersionFacts:
         """Give the facts from the record fields :data:`_FIELDS` as the store reads them."""
         (observable, unit, ucum, relative, lab, group, conditions, labels, masks, uncertainty,
          grade, retired, n_points) = values  # fmt: skip
+        # objects and arrays come as JSON text: read only those that are not empty
+        conditions = json.loads(conditions) if conditions not in (None, "{}") else {}
+        labels = json.loads(labels) if labels not in (None, "[]") else ()
+        uncertainty = json.loads(uncertainty) if uncertainty is not None else None
+        masks = masks not in (None, "[]")
         plain = (uncertainty is not None and uncertainty.get("type", "sd") in _PLAIN_SD
                  and uncertainty.get("n") is None and uncertainty.get("scale", "linear") == "linear")  # fmt: skip
         # words many datasets share are kept once (a catalog of 10^5 small datasets repeats them)
