@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import builtins
 import os
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import pandas as pd
 
@@ -42,6 +43,10 @@ from curate.quality import actions as quality
 from curate.quality.grading import GradeSuggestion
 from curate.records import DatasetVersion
 from curate.weighting import PolicyLike, Selection, WeightSummary, resolve_policy, weighted_table
+from curate.weighting.stream import ROWS_PER_BATCH, weighted_stream
+
+if TYPE_CHECKING:
+    import pyarrow as pa
 
 __all__ = ["Catalog", "open_catalog", "read_petab"]
 
@@ -150,11 +155,24 @@ class Catalog(Ledger):
         """Give the weighted long table of a selection as a DataFrame (no files written)."""
         return weighted_table(self, resolve_policy(policy), selection or Selection()).table
 
+    def weighted_batches(
+        self, *, policy: PolicyLike = None, selection: Selection | None = None,
+        rows_per_batch: int = ROWS_PER_BATCH,
+    ) -> Iterator[pa.RecordBatch]:  # fmt: skip
+        """Give the weighted long table as Arrow record batches, never held whole: the columns
+        and values of :meth:`weighted_table` (``pa.Table.from_batches(...).to_pandas()`` is that
+        frame), about ``rows_per_batch`` rows each. The weights are worked out before the first
+        batch (a bad selection or policy is refused then)."""
+        stream = weighted_stream(self, resolve_policy(policy), selection or Selection(),
+                                 rows_per_batch=rows_per_batch)  # fmt: skip
+        return stream.batches(unit_symbols=False)
+
     def weights(
         self, *, policy: PolicyLike = None, selection: Selection | None = None
     ) -> WeightSummary:
         """Give each dataset's share of the total weight, Kish n_eff and warnings."""
-        return weighted_table(self, resolve_policy(policy), selection or Selection()).summary
+        # the first pass of the streamed table: the summary without building the table
+        return weighted_stream(self, resolve_policy(policy), selection or Selection()).summary
 
     def export(self, fmt: str, outdir: str | Path, *, policy: PolicyLike = None,
                selection: Selection | None = None, force: bool = False) -> exporting.ExportResult:  # fmt: skip

@@ -13,13 +13,20 @@ from typing import Any
 
 from curate.errors import InputError
 from curate.export.files import prepare_folder, write_json, write_text
-from curate.export.formats import FORMATS, PREPARE, ExportInput, Prepared
-from curate.export.manifest import build_manifest, censoring_readme, readme_text, record_run
+from curate.export.formats import FORMATS, PREPARE, STREAMED, ExportInput, Prepared
+from curate.export.manifest import (
+    build_manifest,
+    censoring_readme,
+    censoring_text,
+    readme_text,
+    record_run,
+)
 from curate.export.table import write_table
 from curate.ledger import Ledger
 from curate.weighting import Policy, Selection, WeightedTable, WeightSummary, weighted_table
 from curate.weighting.groupings import fold_groups
 from curate.weighting.splitters import training_gaps
+from curate.weighting.stream import WeightedStream, weighted_stream
 from curate.weighting.table import STANDARD_COLUMNS
 
 __all__ = ["ExportResult", "FoldSet", "export", "write_folds"]
@@ -48,11 +55,24 @@ def export(catalog: Ledger, fmt: str, outdir: str | Path, *, policy: Policy, sel
     if writer is None:
         raise InputError(f"unknown export format '{fmt}'; expected one of {', '.join(FORMATS)}")
     folder = Path(outdir)
-    weighted = weighted_table(catalog, policy, selection)
-    prepared = PREPARE[fmt](catalog, weighted) if fmt in PREPARE else Prepared()
+    weighted: WeightedTable | WeightedStream
+    if fmt in STREAMED:  # the table never held whole: record batches into the writers
+        weighted = weighted_stream(catalog, policy, selection)
+        censoring = censoring_text(
+            weighted.censored_counts["below"], weighted.censored_counts["above"], fmt
+        )
+        prepared = Prepared()
+    else:
+        weighted = weighted_table(catalog, policy, selection)
+        censoring = censoring_readme(weighted.table, fmt)
+        prepared = PREPARE[fmt](catalog, weighted) if fmt in PREPARE else Prepared()
     prepare_folder(folder, force=force)
-    text = (readme_text(catalog, policy, folder) + censoring_readme(weighted.table, fmt)
-            + prepared.readme + _masked_text(weighted, fmt))  # fmt: skip
+    text = (
+        readme_text(catalog, policy, folder)
+        + censoring
+        + prepared.readme
+        + _masked_text(weighted, fmt)
+    )
     readme = {"README.txt": write_text(folder / "README.txt", text)}
     written = writer(ExportInput(catalog, weighted, fmt, dict(readme), prepared), folder)
     files = {**written, **readme, **_write_masked(weighted, fmt, folder)}
@@ -66,7 +86,7 @@ def _masked_name(fmt: str) -> str:
     return "masked_points.tsv" if fmt == "petab" else "masked_points.csv"
 
 
-def _masked_text(weighted: WeightedTable, fmt: str) -> str:
+def _masked_text(weighted: WeightedTable | WeightedStream, fmt: str) -> str:
     """Give the README paragraph on points set aside by masks (empty when there are none)."""
     aside = weighted.aside.points
     if aside.empty:
@@ -80,7 +100,9 @@ def _masked_text(weighted: WeightedTable, fmt: str) -> str:
     )
 
 
-def _write_masked(weighted: WeightedTable, fmt: str, folder: Path) -> dict[str, str]:
+def _write_masked(
+    weighted: WeightedTable | WeightedStream, fmt: str, folder: Path
+) -> dict[str, str]:
     """Write the masked points beside the export (the annotation a fitter can read)."""
     aside = weighted.aside.points
     if aside.empty:

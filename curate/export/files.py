@@ -6,6 +6,8 @@ import datetime as dt
 import hashlib
 import os
 import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from typing import Any
 
@@ -13,6 +15,7 @@ from curate.errors import InputError
 from curate.jsontext import to_json
 
 __all__ = [
+    "atomic_file",
     "now_utc",
     "prepare_folder",
     "sha256_file",
@@ -33,6 +36,29 @@ def prepare_folder(outdir: Path, *, force: bool) -> None:
     outdir.mkdir(parents=True, exist_ok=True)
 
 
+@contextmanager
+def atomic_file(path: Path) -> Iterator[Path]:
+    """Give a temporary file beside ``path`` to write (by a library that writes files itself);
+    it becomes ``path`` when the block ends, and is removed if the block fails."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    handle, name = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    os.close(handle)
+    temporary = Path(name)
+    try:
+        yield temporary
+        _share(temporary)
+        os.replace(temporary, path)
+    except BaseException:
+        temporary.unlink(missing_ok=True)
+        raise
+
+
+def _share(path: Path) -> None:
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(path, 0o666 & ~umask)  # mkstemp makes files private; exports are for sharing
+
+
 def write_bytes(path: Path, data: bytes, *, make_folders: bool = True) -> str:
     """Write a file atomically (temporary file, then rename); give its sha256.
 
@@ -49,9 +75,7 @@ def write_bytes(path: Path, data: bytes, *, make_folders: bool = True) -> str:
     try:
         with os.fdopen(handle, "wb") as stream:
             stream.write(data)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(temporary, 0o666 & ~umask)  # mkstemp makes files private; exports are for sharing
+        _share(Path(temporary))
         os.replace(temporary, path)
     except BaseException:
         Path(temporary).unlink(missing_ok=True)

@@ -10,7 +10,7 @@ entry in :data:`FORMATS`.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -19,7 +19,7 @@ import pandas as pd
 
 from curate.errors import InputError
 from curate.export.datapackage import write_datapackage
-from curate.export.manifest import build_manifest
+from curate.export.manifest import NamedVersion, build_manifest
 from curate.export.petab import write_petab
 from curate.export.petab_problem import (
     ProblemExport,
@@ -28,7 +28,7 @@ from curate.export.petab_problem import (
     write_problem_export,
 )
 from curate.export.prov import write_prov
-from curate.export.table import write_table, write_units
+from curate.export.table import write_table, write_table_batches, write_units
 from curate.ledger import Ledger
 from curate.records import DatasetVersion
 from curate.units import (
@@ -41,9 +41,18 @@ from curate.units import (
 )
 from curate.version import __version__
 from curate.weighting import WeightedTable
+from curate.weighting.stream import WeightedStream
 from curate.weighting.table import SetAside, condition_column
 
-__all__ = ["FORMATS", "PREPARE", "ExportInput", "Prepared", "Writer", "units_description"]
+__all__ = [
+    "FORMATS",
+    "PREPARE",
+    "STREAMED",
+    "ExportInput",
+    "Prepared",
+    "Writer",
+    "units_description",
+]
 
 
 @dataclass(frozen=True)
@@ -61,7 +70,7 @@ class ExportInput:
     """What a writer may use: the weighted selection and the catalog it came from."""
 
     catalog: Ledger
-    weighted: WeightedTable
+    weighted: WeightedTable | WeightedStream  # a stream for the formats in STREAMED
     fmt: str
     files: dict[str, str]  # written so far (the README), for writers that describe the folder
     prepared: Prepared = Prepared()
@@ -73,8 +82,11 @@ class ExportInput:
 
     @property
     def versions(self) -> list[DatasetVersion]:
-        """Give the dataset versions in the table."""
-        return self.weighted.versions
+        """Give the dataset versions in the table (parsed whole; a stream parses them here)."""
+        weighted = self.weighted
+        return (
+            weighted.full_versions() if isinstance(weighted, WeightedStream) else weighted.versions
+        )
 
 
 Writer = Callable[[ExportInput, Path], dict[str, str]]
@@ -127,7 +139,7 @@ def _version_facts(catalog: Ledger, versions: list[DatasetVersion]) -> list[dict
     ]  # fmt: skip
 
 
-def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[str, Any]:
+def units_description(versions: Sequence[NamedVersion], *, petab: bool) -> dict[str, Any]:
     """Give what ``units.json`` says: the unit of time, of the values, of each condition column.
 
     A condition key has one kind across the catalog (see the ledger), so its column has one
@@ -164,8 +176,12 @@ def units_description(versions: list[DatasetVersion], *, petab: bool) -> dict[st
 
 
 def _table(given: ExportInput, folder: Path) -> dict[str, str]:
-    written = write_table(given.table, folder)
-    return {**written, **write_units(folder, units_description(given.versions, petab=False))}
+    weighted = given.weighted
+    if isinstance(weighted, WeightedStream):
+        written = write_table_batches(weighted.schema, weighted.batches(), folder)
+    else:
+        written = write_table(given.table, folder)
+    return {**written, **write_units(folder, units_description(weighted.versions, petab=False))}
 
 
 def _verbatim_unit(original: str | None, canonical: str | None) -> dict[str, str | None]:
@@ -282,6 +298,9 @@ def _prov(given: ExportInput, folder: Path) -> dict[str, str]:
         draft, _version_facts(given.catalog, given.versions), folder, tool_version=__version__
     )
 
+
+# the formats whose writer takes the weighted table as a stream of record batches
+STREAMED = frozenset({"table"})
 
 # what runs before anything is written: a refused export leaves no files behind
 PREPARE: dict[str, Callable[[Ledger, WeightedTable], Prepared]] = {"petab": _prepare_petab}

@@ -11,8 +11,9 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Mapping, Sequence
 from pathlib import Path
-from typing import Any
+from typing import Any, Protocol
 
 import pandas as pd
 
@@ -20,14 +21,17 @@ from curate.errors import InputError
 from curate.export.files import now_utc, write_json
 from curate.jsontext import finite
 from curate.ledger import Ledger
-from curate.records import DatasetVersion, canonical_json
+from curate.records import canonical_json
 from curate.version import __version__
 from curate.weighting import Policy, Selection
 
 __all__ = [
     "FITTER_README",
     "MANIFEST",
+    "NamedVersion",
     "build_manifest",
+    "censoring_readme",
+    "censoring_text",
     "read_manifest",
     "readme_text",
     "record_run",
@@ -35,6 +39,39 @@ __all__ = [
 ]
 
 MANIFEST = "manifest.json"
+
+
+class _Condition(Protocol):
+    @property
+    def value(self) -> float | bool | str: ...
+
+    @property
+    def unit(self) -> str | None: ...
+
+
+class _NamedRecord(Protocol):
+    @property
+    def content_hash(self) -> str: ...
+
+    @property
+    def conditions(self) -> Mapping[str, _Condition]: ...
+
+
+class NamedVersion(Protocol):
+    """What a manifest, a run's event and ``units.json`` read of a dataset version: a
+    :class:`curate.records.DatasetVersion`, or the facts a streamed table reads instead."""
+
+    @property
+    def id(self) -> str: ...
+
+    @property
+    def version(self) -> int: ...
+
+    @property
+    def record_hash(self) -> str: ...
+
+    @property
+    def record(self) -> _NamedRecord: ...
 
 
 def seal_manifest(manifest: dict[str, Any]) -> dict[str, Any]:
@@ -61,7 +98,7 @@ def read_manifest(outdir: Path) -> dict[str, Any]:
     return manifest
 
 
-def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selection, versions: list[DatasetVersion],
+def build_manifest(catalog: Ledger, fmt: str, policy: Policy, selection: Selection, versions: Sequence[NamedVersion],
                    files: dict[str, str], extra: dict[str, Any] | None = None) -> dict[str, Any]:  # fmt: skip
     """Give the sealed manifest of an export or run."""
     seq, head = catalog.head()
@@ -122,7 +159,11 @@ def censoring_readme(points: pd.DataFrame, fmt: str) -> str:
     if "censored" not in points.columns:
         return ""
     words = points["censored"].astype(str)
-    below, above = int((words == "below").sum()), int((words == "above").sum())
+    return censoring_text(int((words == "below").sum()), int((words == "above").sum()), fmt)
+
+
+def censoring_text(below: int, above: int, fmt: str) -> str:
+    """Give the README paragraph on ``below`` and ``above`` censored points (empty for none)."""
     if below + above == 0:
         return ""
     text = CENSORED_README.format(below=below, above=above)
@@ -131,7 +172,7 @@ def censoring_readme(points: pd.DataFrame, fmt: str) -> str:
     return text
 
 
-def record_run(catalog: Ledger, kind: str, policy: Policy, versions: list[DatasetVersion],
+def record_run(catalog: Ledger, kind: str, policy: Policy, versions: Sequence[NamedVersion],
                manifest: dict[str, Any], *, folder: Path | None = None, extra: dict[str, Any] | None = None) -> None:  # fmt: skip
     """Store the policy, write the manifest (if a folder is given) and append the run's event,
     in one transaction: what ``trace`` and ``impact`` later read.

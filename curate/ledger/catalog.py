@@ -237,6 +237,22 @@ class Ledger(Amendments):
         """Give the arrays of many content hashes in one read."""
         return self._store.series_many(content_hashes)
 
+    def series_bytes(self, content_hashes: builtins.list[str]) -> dict[str, tuple[Any, ...]]:
+        """Give the stored bytes of many content hashes: (time, value, sd, replicate, n,
+        censored), little-endian float64 / int64 / int8, None where a column is empty."""
+        return self._store.series_bytes(content_hashes)
+
+    def latest_fields(
+        self, paths: tuple[str, ...]
+    ) -> Iterator[tuple[str, int, str, str, builtins.list[Any]]]:
+        """Give (id, version, record hash, content hash, [the record's value at each JSON
+        path]) of every dataset's newest version, ordered by id, one at a time, without parsing
+        whole records (a path such as ``$.observable.unit``; a missing one gives None). A
+        number, text or null comes as itself (true and false as 1 and 0), an object or array
+        as its JSON text, for the caller to read only where it needs to."""
+        for row in self._store.latest_version_fields(paths):
+            yield str(row[0]), int(row[1]), str(row[2]), str(row[3]), list(row[4:])
+
     def verify(self, head: ChainHead | tuple[int, str] | None = None) -> VerifyReport:
         """Give the result of recomputing every content hash, record hash, policy text and the
         event chain; with ``head`` (kept outside the catalog), also whether it still extends it."""

@@ -355,8 +355,11 @@ class Store:
             )
         return _decode_series(row)
 
-    def series_many(self, content_hashes: list[str]) -> dict[str, SeriesArrays]:
-        """Give the arrays of many content hashes, read in a few queries."""
+    def series_many(
+        self, content_hashes: list[str], *, views: bool = False
+    ) -> dict[str, SeriesArrays]:
+        """Give the arrays of many content hashes, read in a few queries; ``views``: read-only
+        arrays over the stored bytes (no copy), for readers that only read."""
         found: dict[str, SeriesArrays] = {}
         wanted = list(dict.fromkeys(content_hashes))
         for start in range(0, len(wanted), 500):
@@ -368,6 +371,25 @@ class Store:
             ).fetchall()
             for row in rows:
                 found[str(row[0])] = _decode_series(row[1:])
+        missing = [h for h in wanted if h not in found]
+        if missing:
+            raise CatalogError(f"{self.path}: the arrays of content {missing[0][:12]} are missing")
+        return found
+
+    def series_bytes(self, content_hashes: list[str]) -> dict[str, tuple[Any, ...]]:
+        """Give the stored bytes of many content hashes: (time, value, sd, replicate, n,
+        censored), little-endian as :func:`curate.records.array_bytes` writes them, None where
+        a column is empty; for readers that join many series into one array."""
+        found: dict[str, tuple[Any, ...]] = {}
+        wanted = list(dict.fromkeys(content_hashes))
+        for start in range(0, len(wanted), 500):
+            chunk = wanted[start : start + 500]
+            marks = ",".join("?" * len(chunk))
+            for row in self.db.execute(
+                f"SELECT content_hash, time, value, sd, replicate, n, censored FROM series WHERE content_hash IN ({marks})",
+                chunk,
+            ).fetchall():
+                found[str(row[0])] = tuple(row[1:])
         missing = [h for h in wanted if h not in found]
         if missing:
             raise CatalogError(f"{self.path}: the arrays of content {missing[0][:12]} are missing")
@@ -420,6 +442,21 @@ class Store:
             "WHERE (dataset_id, version) IN (SELECT dataset_id, MAX(version) FROM versions"
             " GROUP BY dataset_id) ORDER BY dataset_id"
         )
+
+    def latest_version_fields(self, paths: tuple[str, ...]) -> Iterator[tuple[Any, ...]]:
+        """Give (dataset id, version, record hash, content hash, then the record's value at each
+        of ``paths``) of the newest version of every dataset, ordered by dataset id, one row at
+        a time: SQLite reads the record JSON, so no whole record is parsed in Python. A number,
+        text or null comes as that SQL value (true and false as 1 and 0), an object or array as
+        its JSON text."""
+        columns = ", ".join(["json_extract(record_json, ?)"] * len(paths))
+        cursor = self.db.execute(
+            f"SELECT dataset_id, version, record_hash, content_hash, {columns}"
+            " FROM versions WHERE (dataset_id, version) IN (SELECT dataset_id, MAX(version)"
+            " FROM versions GROUP BY dataset_id) ORDER BY dataset_id",
+            list(paths),
+        )
+        yield from cursor
 
     def first_versions_of_revised(self) -> list[VersionRow]:
         """Give version 1 of every dataset that has later versions (what it was logged as)."""

@@ -16,7 +16,7 @@ from curate.ledger.catalog import check_condition_filters, condition_matches
 from curate.records import DatasetVersion, normalise_grade
 from curate.weighting.policy import Policy
 
-__all__ = ["Selection", "select"]
+__all__ = ["Selection", "nothing_selected", "select"]
 
 
 @dataclass(frozen=True)
@@ -107,9 +107,14 @@ def select(catalog: Ledger, selection: Selection, policy: Policy) -> list[Datase
             continue
         chosen.append(version)
     if not chosen:
-        excluded = " or ".join(policy.exclude)
-        raise InputError(
-            f"the selection matches no dataset that the policy lets into a fit ({selection.describe()}; "
-            f"the policy leaves out grade {excluded}); widen it, or see `curate list`"
-        )
+        raise nothing_selected(selection, policy)
     return chosen
+
+
+def nothing_selected(selection: Selection, policy: Policy) -> InputError:
+    """Give the error of a selection that matches no dataset the policy lets into a fit."""
+    excluded = " or ".join(policy.exclude)
+    return InputError(
+        f"the selection matches no dataset that the policy lets into a fit ({selection.describe()}; "
+        f"the policy leaves out grade {excluded}); widen it, or see `curate list`"
+    )

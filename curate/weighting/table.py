@@ -26,6 +26,7 @@ from curate.ledger import Ledger
 from curate.quality import noise
 from curate.quality.measured import measured_sd, reported_sd
 from curate.records import CENSORED_WORDS, DatasetVersion, SeriesArrays, masked_points
+from curate.units import short_unit
 from curate.weighting.policy import Policy
 from curate.weighting.selection import Selection, select
 from curate.weighting.weights import WeightSummary, apply_policy
@@ -38,6 +39,7 @@ __all__ = [
     "condition_column",
     "points_table",
     "set_aside",
+    "unit_symbols",
     "weighted_table",
 ]
 
@@ -244,6 +246,19 @@ def points_table(catalog: Ledger, versions: list[DatasetVersion], policy: Policy
         )
         columns[name] = pd.Categorical.from_codes(np.repeat(codes, counts), categories=labels)
     return pd.DataFrame(columns)
+
+
+def unit_symbols(frame: pd.DataFrame) -> pd.DataFrame:
+    """Give the frame with its ``unit`` column as symbols ('nanomolar' -> 'nM')."""
+    if "unit" not in frame.columns:
+        return frame
+    column = frame["unit"]
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        renamed = [short_unit(str(c)) for c in column.cat.categories]
+        if len(set(renamed)) == len(renamed):
+            return frame.assign(unit=column.cat.rename_categories(renamed))
+    symbols = column.map(lambda u: None if u is None else short_unit(str(u)))
+    return frame.assign(unit=symbols)
 
 
 @dataclass(frozen=True)

@@ -46,10 +46,16 @@ from curate.units import short_unit
 from curate.weighting.policy import Policy
 
 __all__ = [
+    "DatasetParts",
     "DatasetWeight",
+    "Footing",
     "WeightSummary",
     "apply_policy",
+    "balance_factors",
+    "footing_of",
     "kish_n_eff",
+    "summarise_parts",
+    "zero_sd_message",
 ]
 
 # shares are sums of floating-point weights: differences below this are rounding, not weight
@@ -152,7 +158,7 @@ def apply_policy(
         floored, policy.relative_floor * np.abs(frame["value"].to_numpy(dtype=float))
     )
     if np.any(floored <= 0):
-        raise InputError(_zero_sd_message(frame[floored <= 0], policy))
+        raise InputError(zero_sd_message(frame[floored <= 0], policy))
     frame["sd"] = floored
     base = 1.0 / (floored**2 * frame["inflation"].to_numpy())
     codes, uniques = pd.factorize(frame["dataset_id"], sort=True)  # hashing: no sort of every row
@@ -164,11 +170,25 @@ def apply_policy(
     observable_of = (
         frame.groupby("dataset_id")["observable"].first().reindex(unique_ids).astype(str).to_numpy()
     )
-    footing = _footing(frame, base, inverse, observable_of, conditions)
+    footing = footing_of(frame, base, inverse, observable_of, conditions)
     # balancing and caps act within each observable (weights of different units do not add
     # up), on the footing: a relative dataset's arbitrary units must not buy or cost weight
-    footed = totals * footing.multiplier
-    factors = np.ones(len(unique_ids))
+    factors = balance_factors(totals * footing.multiplier, sizes, labs, observable_of, policy)
+    frame["balance"] = factors[inverse]
+    weight = base * frame["balance"].to_numpy()
+    frame["weight"] = weight
+    frame["sigma"] = 1.0 / np.sqrt(weight)
+    summary = _summarise(frame, policy, unique_ids, inverse, labs, footing)
+    return frame, summary
+
+
+def balance_factors(
+    footed: np.ndarray, sizes: np.ndarray, labs: np.ndarray, observable_of: np.ndarray,
+    policy: Policy,
+) -> np.ndarray:  # fmt: skip
+    """Give each dataset's balancing factor b_d from its total weight on its observable's
+    footing (``footed``), its number of points, its lab and its observable (datasets sorted by id)."""
+    factors = np.ones(len(footed))
     for observable in np.unique(observable_of):
         part = observable_of == observable
         if policy.balance == "equal":
@@ -181,16 +201,11 @@ def apply_policy(
                 _cap_labs(footed[part] * factors[part], labs[part], policy.lab_cap, policy.origin)
                 / footed[part]
             )
-    frame["balance"] = factors[inverse]
-    weight = base * frame["balance"].to_numpy()
-    frame["weight"] = weight
-    frame["sigma"] = 1.0 / np.sqrt(weight)
-    summary = _summarise(frame, policy, unique_ids, inverse, labs, footing)
-    return frame, summary
+    return factors
 
 
 @dataclass(frozen=True)
-class _Footing:
+class Footing:
     """Per dataset: the factor putting its weights on its observable's footing, and why."""
 
     multiplier: np.ndarray
@@ -212,13 +227,13 @@ def _condition_key(frame: pd.DataFrame, row: int, columns: Sequence[str]) -> tup
     return tuple(key)
 
 
-def _footing(
+def footing_of(
     frame: pd.DataFrame,
     base: np.ndarray,
     inverse: np.ndarray,
     observable_of: np.ndarray,
     conditions: Sequence[str],
-) -> _Footing:
+) -> Footing:
     """Give each dataset's footing (see the module docstring): 1 for absolute data, s^2 for
     relative data with scale factor s against the absolute data, m^2 without them."""
     count = len(observable_of)
@@ -226,7 +241,7 @@ def _footing(
     scale: list[float | None] = [None] * count
     kind = ["absolute"] * count
     if "relative" not in frame.columns or not frame["relative"].any():
-        return _Footing(multiplier, scale, kind)
+        return Footing(multiplier, scale, kind)
     order = np.argsort(inverse, kind="stable")
     rows_of = np.split(order, np.cumsum(np.bincount(inverse, minlength=count))[:-1])
     if "censored" in frame.columns:  # a censored value is a limit: no footing is read from it
@@ -270,10 +285,10 @@ def _footing(
             reference = float(np.median(np.abs(pooled)))
             s = magnitude / reference if magnitude > 0 and reference > 0 else 1.0
             multiplier[k], scale[k], kind[k] = s * s, s, "median ratio"
-    return _Footing(multiplier, scale, kind)
+    return Footing(multiplier, scale, kind)
 
 
-def _zero_sd_message(rows: pd.DataFrame, policy: Policy) -> str:
+def zero_sd_message(rows: pd.DataFrame, policy: Policy) -> str:
     """Say which points would get an infinite weight, and which floor can prevent it."""
     first = rows.iloc[0]
     dataset = first["dataset_id"]
@@ -325,48 +340,81 @@ def _summarise(
     ids: np.ndarray,
     inverse: np.ndarray,
     labs: np.ndarray,
-    footing: _Footing,
+    footing: Footing,
 ) -> WeightSummary:
     # every share, n_eff and span on the observable's one footing (module docstring)
     weight = frame["weight"].to_numpy() * footing.multiplier[inverse]
-    per_dataset = np.bincount(inverse, weights=weight)
-    per_dataset_sq = np.bincount(inverse, weights=weight**2)
     first = frame.groupby("dataset_id").first().reindex(ids)
-    sizes = np.bincount(inverse)
-    observable_of = first["observable"].astype(str).to_numpy()
+    observables = frame["observable"].astype(str).to_numpy()
+    parts = DatasetParts(
+        ids=ids,
+        sizes=np.bincount(inverse),
+        observable=first["observable"].astype(str).to_numpy(),
+        lab=first["lab"].astype(str).to_numpy(),
+        grade=first["grade_used"].astype(str).to_numpy(),
+        inflation=first["inflation"].to_numpy(dtype=float),
+        balance=first["balance"].to_numpy(dtype=float),
+        weight=np.bincount(inverse, weights=weight),
+        weight_squared=np.bincount(inverse, weights=weight**2),
+    )
+    by_observable = {obs: weight[observables == obs] for obs in np.unique(parts.observable)}
+    return summarise_parts(policy, parts, by_observable, footing)
+
+
+@dataclass(frozen=True)
+class DatasetParts:
+    """Per dataset (sorted by id): what the weight summary is made of. ``weight`` and
+    ``weight_squared`` are the sums of its points' weights (and their squares) on the footing."""
+
+    ids: np.ndarray
+    sizes: np.ndarray
+    observable: np.ndarray
+    lab: np.ndarray
+    grade: np.ndarray
+    inflation: np.ndarray
+    balance: np.ndarray
+    weight: np.ndarray
+    weight_squared: np.ndarray
+
+
+def summarise_parts(
+    policy: Policy, parts: DatasetParts, by_observable: dict[str, np.ndarray], footing: Footing
+) -> WeightSummary:
+    """Give the weight summary from per-dataset sums and each observable's point weights on
+    its footing (in table order: Kish's n_eff and the span read them whole)."""
+    ids, sizes, observable_of = parts.ids, parts.sizes, parts.observable
+    per_dataset, per_dataset_sq = parts.weight, parts.weight_squared
     totals = {
         obs: float(per_dataset[observable_of == obs].sum()) for obs in np.unique(observable_of)
     }
-    lab_of = first["lab"].astype(str).to_numpy()
-    grade_of = first["grade_used"].astype(str).to_numpy()
-    inflation_of = first["inflation"].to_numpy(dtype=float)
-    balance_of = first["balance"].to_numpy(dtype=float)
+    lab_of, grade_of, inflation_of, balance_of = (
+        parts.lab,
+        parts.grade,
+        parts.inflation,
+        parts.balance,
+    )
+    # column-wise, then as Python values once (a numpy scalar per field and dataset is slow)
+    share = per_dataset / np.asarray([totals[obs] for obs in observable_of], dtype=float)
+    n_eff_of = per_dataset**2 / per_dataset_sq
+    columns = zip(
+        [str(i) for i in ids], np.asarray(observable_of).astype(str).tolist(),
+        np.asarray(lab_of).astype(str).tolist(), np.asarray(grade_of).astype(str).tolist(),
+        np.asarray(sizes).astype(int).tolist(), np.asarray(inflation_of, dtype=float).tolist(),
+        np.asarray(balance_of, dtype=float).tolist(), share.tolist(), n_eff_of.tolist(),
+        footing.scale, footing.kind, strict=True,
+    )  # fmt: skip
     rows = [
-        DatasetWeight(
-            id=str(ident),
-            observable=str(observable_of[k]),
-            lab=str(lab_of[k]),
-            grade=str(grade_of[k]),
-            n_points=int(sizes[k]),
-            inflation=float(inflation_of[k]),
-            balance=float(balance_of[k]),
-            share=float(per_dataset[k] / totals[observable_of[k]]),
-            n_eff=float(per_dataset[k] ** 2 / per_dataset_sq[k]),
-            scale=footing.scale[k],
-            footing=footing.kind[k],
-        )
-        for k, ident in enumerate(ids)
-    ]
+        DatasetWeight(id=ident, observable=observable, lab=lab, grade=grade, n_points=size,
+                      inflation=inflation, balance=balance, share=part, n_eff=n_eff_k,
+                      scale=scale, footing=kind)
+        for ident, observable, lab, grade, size, inflation, balance, part, n_eff_k, scale, kind in columns
+    ]  # fmt: skip
     lab_shares: dict[str, dict[str, float]] = {}
     for row in rows:
         shares = lab_shares.setdefault(row.observable, {})
         shares[row.lab] = shares.get(row.lab, 0.0) + row.share
-    observables = frame["observable"].astype(str).to_numpy()
-    n_eff = {obs: kish_n_eff(weight[observables == obs]) for obs in totals}
-    span = {
-        obs: float(weight[observables == obs].max() / weight[observables == obs].min())
-        for obs in totals
-    }
+    n_eff = {obs: kish_n_eff(by_observable[obs]) for obs in totals}
+    span = {obs: float(by_observable[obs].max() / by_observable[obs].min()) for obs in totals}
     warnings = []
     for row in rows:
         # "more than half": an even split computes as 0.5000000000000001, which is not more
@@ -399,7 +447,7 @@ def _summarise(
         policy=policy,
         datasets=rows,
         lab_shares=lab_shares,
-        n_points=len(frame),
+        n_points=int(sizes.sum()),
         n_eff=n_eff,
         weight_span=span,
         likelihood=policy.is_likelihood,
