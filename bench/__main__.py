@@ -259,6 +259,49 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
     )  # fmt: skip
 
 
+def close_rates_problem() -> fitting.FitProblem:
+    """A closed-form fit along a flat valley: two decays with close rates and a small drift,
+    data rounded to 3 significant digits (as tests/flat_valley.py's CloseRates)."""
+    t = np.linspace(0.0, 300.0, 41)
+    truth = 820 * np.exp(-0.013 * t) + 260 * np.exp(-0.019 * t) + 2.5e-6 * t**2
+    noisy = truth * (1 + np.random.default_rng(7).normal(0, 0.004, len(t)))
+    points = pd.DataFrame({"time": t, "value": [float(f"{v:.2e}") for v in noisy], "weight": 1.0})
+
+    def model(p: dict[str, float], frame: pd.DataFrame) -> np.ndarray:
+        x = frame["time"].to_numpy()
+        return p["a1"] * np.exp(-p["k1"] * x) + p["a2"] * np.exp(-p["k2"] * x) + p["d"] * x * x
+
+    starts = {"a1": 700.0, "k1": 0.012, "a2": 350.0, "k2": 0.022, "d": 2.0e-6}
+    spec = fitting.spec_from_dict({"parameters": {n: {"start": v} for n, v in starts.items()}})
+    return fitting.FitProblem(points, model, spec)
+
+
+def case_fit_polish(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The polish's cost: a fit with it against the same fit without it (FitOptions(polish=
+    False)), on the ODE problem of the sensitivity case (differences, no complex step) and on
+    a closed-form flat-valley problem (complex step). Target 1.3 for the ODE fit (our own: the
+    polish must not slow an ordinary fit much), 2.0 for the closed form (milliseconds)."""
+    points, spec = sensitivity_problem(n_datasets)
+    model = fitting.PythonFunction.from_reference(f"{HERE / 'ode_model.py'}:predict")
+    rows = []
+    for make, target in ((lambda: fitting.FitProblem(points, model, spec), 1.3),
+                         (close_rates_problem, 2.0)):  # fmt: skip
+        found = {}
+        for polish in (True, False):
+            options = fitting.FitOptions(polish=polish)
+            seconds, result = median_time(
+                lambda make=make, options=options: fitting.fit(make(), options), repeats
+            )
+            found[polish] = (seconds, result)
+        (ours_s, ours), (base_s, base) = found[True], found[False]
+        rows.append({"ratio": ours_s / base_s, "target": target, "ours_s": ours_s,
+                     "baseline_s": base_s, "n": ours.n_points,
+                     "evaluations": ours.evaluations, "baseline_evaluations": base.evaluations,
+                     "chi2": ours.chi2, "baseline_chi2": base.chi2,
+                     "polished": ours.options.get("polished")})  # fmt: skip
+    return rows[0], rows[1]
+
+
 def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
     intake_times, export_times, peaks = [], [], []
     context = multiprocessing.get_context("spawn")
@@ -351,6 +394,10 @@ def main() -> None:
         results["sensitivity_exact"] = exact
         results["sensitivity_one_step"] = one_step
         print("  sensitivity done", flush=True)
+        ode_fit, closed_fit = case_fit_polish(8 if quick else 20, repeats)
+        results["fit_polish_ode"] = ode_fit
+        results["fit_polish_closed_form"] = closed_fit
+        print("  fit polish done", flush=True)
         results["scaling"] = case_scaling(
             folder, [100, 1000, 10000] if not quick else [100, 1000, 5000]
         )
@@ -376,6 +423,11 @@ def main() -> None:
     print(
         f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})"
     )
+    for case in ("fit_polish_ode", "fit_polish_closed_form"):
+        row = results[case]
+        print(f"{case}: model evaluations {row['evaluations']} with the polish, "
+              f"{row['baseline_evaluations']} without; chi2 {row['chi2']:.10g} against "
+              f"{row['baseline_chi2']:.10g}")  # fmt: skip
     scaling = results["scaling"]
     print(f"scaling exponents: intake {scaling['intake_exponent']:.2f}, export {scaling['export_exponent']:.2f}; "
           "export peak memory / raw data: " + ", ".join(f"{r:.1f}" for r in scaling["peak_over_data"]))  # fmt: skip

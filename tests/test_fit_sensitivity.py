@@ -460,12 +460,13 @@ def test_leaving_out_one_of_two_doses_flags_the_dose_response_parameters(method)
         assert all(np.isfinite(p["value"]) for p in group.parameters.values())
     errors = {g.group: g.error for g in result.groups}
     # an exact refit on one dose may run off along the lost direction (Emax and EC50 grow
-    # together; whether it does for the low dose too depends on the optimiser's path): said, not
-    # crashed. The one-step approximation never refits, so it never runs off.
+    # together; whether it does, for either dose, depends on the optimiser's path and on where
+    # the full fit ended: from the polished full fit neither does, from main's unpolished one the
+    # high dose did): said, not crashed. The one-step approximation never refits, so it never
+    # runs off.
     ran_off = "the parameters ran off to infinity"
     if method == "exact":
         assert set(errors.values()) <= {None, ran_off}
-        assert errors["100"] == ran_off
     else:
         assert errors == {"10": None, "100": None}
     # leaving out a dataset keeps both doses: nothing is lost, nothing flagged as such

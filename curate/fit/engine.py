@@ -477,9 +477,13 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
         and _polishable(problem)
         and (left is None or left >= 8 * len(theta) + 4)
     ):
-        polished = polish(problem, theta, tolerance=options.tolerance, budget=left)
-        theta, final = polished.theta, polished.jacobian
-        converged = converged or polished.reason in ("scaled step", "projected gradient")
+        try:
+            polished = polish(problem, theta, tolerance=options.tolerance, budget=left)
+        except (InputError, ArithmeticError):  # the model fails beside the optimum: as it was
+            polished = None
+        else:
+            theta, final = polished.theta, polished.jacobian
+            converged = converged or polished.reason in ("scaled step", "projected gradient")
     if final is None:
         final = jacobian(problem, theta)
     result = summarise(problem, theta, final, converged=converged, starts=starts,

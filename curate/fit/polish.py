@@ -223,10 +223,15 @@ def polish(problem: FitProblem, theta: np.ndarray, *, tolerance: float,
         if size <= tolerance:
             reason = "scaled step"
             break
-        # a converging Gauss-Newton (with the secant below) shrinks its steps; steps that do not
-        # shrink are rounding or the model's own noise (an ODE solver's tolerance) pushing the
-        # point about: twice in a row, and there is nothing left to gain
-        stalled = stalled + 1 if size >= previous / 2 or predicted <= noise else 0
+        # a converging Gauss-Newton (with the secant below) shrinks its steps. With an exact
+        # Jacobian only rounding stops that: steps that no longer shrink while the cost can no
+        # longer tell the difference. Differences may stand for a model with noise of its own
+        # (an ODE solver's tolerance) that pushes the point about: there, steps that do not
+        # halve. Twice in a row, and there is nothing left to gain.
+        if method == "complex step":
+            stalled = stalled + 1 if predicted <= noise and size >= previous else 0
+        else:
+            stalled = stalled + 1 if size >= previous / 2 or predicted <= noise else 0
         if stalled == 2:
             reason = "rounding"
             break
