@@ -225,7 +225,9 @@ def hand_written_loop(points: pd.DataFrame, spec: fitting.ParameterSpec) -> list
     return results
 
 
-def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
+def case_sensitivity(
+    n_datasets: int, repeats: int
+) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
     points, spec = sensitivity_problem(n_datasets)
     model = fitting.PythonFunction.from_reference(f"{HERE / 'ode_model.py'}:predict")
     problem = fitting.FitProblem(points, model, spec)
@@ -243,7 +245,14 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
             problem, full, labels, by="dataset", method="one-step"
         )
 
+    def auto() -> sensitivity.SensitivityResult:
+        full = fitting.fit(problem)
+        return sensitivity.leave_one_group_out(
+            problem, full, labels, by="dataset", method="auto", workers=2
+        )
+
     exact_s, exact_result = median_time(exact, repeats)
+    auto_s, auto_result = median_time(auto, repeats)
     baseline_s, _ = median_time(lambda: hand_written_loop(points, spec), 1)
     one_step_s, one_step_result = median_time(one_step, repeats)
     full_s, _ = median_time(lambda: fitting.fit(problem), repeats)
@@ -256,6 +265,9 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
         {"ratio": exact_s / baseline_s, "target": 0.12, "ours_s": exact_s, "baseline_s": baseline_s, "n": n, "datasets": n_datasets},
         {"ratio": one_step_s / full_s, "target": 1.2, "ours_s": one_step_s, "baseline_s": full_s, "n": n, "datasets": n_datasets,
          "max_error_se": max(errors), "error_target_se": 0.05},
+        {"ratio": auto_s / exact_s, "target": 0.4, "ours_s": auto_s, "baseline_s": exact_s, "n": n, "datasets": n_datasets,
+         "same_flags": sorted(auto_result.flags()) == sorted(exact_result.flags()),
+         "refitted": len((auto_result.auto or {}).get("refitted", {}))},
     )  # fmt: skip
 
 
@@ -390,9 +402,10 @@ def main() -> None:
         results["export_parquet"] = case_export(folder, n_series, repeats)
         results["export_csv_writer"] = case_csv_writer(folder, n_series, repeats)
         print("  export done", flush=True)
-        exact, one_step = case_sensitivity(8 if quick else 20, 1)
+        exact, one_step, auto = case_sensitivity(8 if quick else 20, 1)
         results["sensitivity_exact"] = exact
         results["sensitivity_one_step"] = one_step
+        results["sensitivity_auto"] = auto
         print("  sensitivity done", flush=True)
         ode_fit, closed_fit = case_fit_polish(8 if quick else 20, repeats)
         results["fit_polish_ode"] = ode_fit
@@ -423,6 +436,9 @@ def main() -> None:
     print(
         f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})"
     )
+    auto = results["sensitivity_auto"]
+    print(f"sensitivity auto: {auto['refitted']} of {auto['datasets']} groups refitted exactly; "
+          f"the flags of exact refits: {'yes' if auto['same_flags'] else 'NO'}")  # fmt: skip
     for case in ("fit_polish_ode", "fit_polish_closed_form"):
         row = results[case]
         print(f"{case}: model evaluations {row['evaluations']} with the polish, "
