@@ -296,7 +296,9 @@ def hand_written_loop(points: pd.DataFrame, spec: fitting.ParameterSpec) -> list
     return results
 
 
-def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
+def case_sensitivity(
+    n_datasets: int, repeats: int
+) -> tuple[dict[str, Any], dict[str, Any], dict[str, Any]]:
     points, spec = sensitivity_problem(n_datasets)
     model = fitting.PythonFunction.from_reference(f"{HERE / 'ode_model.py'}:predict")
     problem = fitting.FitProblem(points, model, spec)
@@ -314,7 +316,14 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
             problem, full, labels, by="dataset", method="one-step"
         )
 
+    def auto() -> sensitivity.SensitivityResult:
+        full = fitting.fit(problem)
+        return sensitivity.leave_one_group_out(
+            problem, full, labels, by="dataset", method="auto", workers=2
+        )
+
     exact_s, exact_result = median_time(exact, repeats)
+    auto_s, auto_result = median_time(auto, repeats)
     baseline_s, _ = median_time(lambda: hand_written_loop(points, spec), 1)
     one_step_s, one_step_result = median_time(one_step, repeats)
     full_s, _ = median_time(lambda: fitting.fit(problem), repeats)
@@ -327,7 +336,53 @@ def case_sensitivity(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dic
         {"ratio": exact_s / baseline_s, "target": 0.12, "ours_s": exact_s, "baseline_s": baseline_s, "n": n, "datasets": n_datasets},
         {"ratio": one_step_s / full_s, "target": 1.2, "ours_s": one_step_s, "baseline_s": full_s, "n": n, "datasets": n_datasets,
          "max_error_se": max(errors), "error_target_se": 0.05},
+        {"ratio": auto_s / exact_s, "target": 0.4, "ours_s": auto_s, "baseline_s": exact_s, "n": n, "datasets": n_datasets,
+         "same_flags": sorted(auto_result.flags()) == sorted(exact_result.flags()),
+         "refitted": len((auto_result.auto or {}).get("refitted", {}))},
     )  # fmt: skip
+
+
+def close_rates_problem() -> fitting.FitProblem:
+    """A closed-form fit along a flat valley: two decays with close rates and a small drift,
+    data rounded to 3 significant digits (as tests/flat_valley.py's CloseRates)."""
+    t = np.linspace(0.0, 300.0, 41)
+    truth = 820 * np.exp(-0.013 * t) + 260 * np.exp(-0.019 * t) + 2.5e-6 * t**2
+    noisy = truth * (1 + np.random.default_rng(7).normal(0, 0.004, len(t)))
+    points = pd.DataFrame({"time": t, "value": [float(f"{v:.2e}") for v in noisy], "weight": 1.0})
+
+    def model(p: dict[str, float], frame: pd.DataFrame) -> np.ndarray:
+        x = frame["time"].to_numpy()
+        return p["a1"] * np.exp(-p["k1"] * x) + p["a2"] * np.exp(-p["k2"] * x) + p["d"] * x * x
+
+    starts = {"a1": 700.0, "k1": 0.012, "a2": 350.0, "k2": 0.022, "d": 2.0e-6}
+    spec = fitting.spec_from_dict({"parameters": {n: {"start": v} for n, v in starts.items()}})
+    return fitting.FitProblem(points, model, spec)
+
+
+def case_fit_polish(n_datasets: int, repeats: int) -> tuple[dict[str, Any], dict[str, Any]]:
+    """The polish's cost: a fit with it against the same fit without it (FitOptions(polish=
+    False)), on the ODE problem of the sensitivity case (differences, no complex step) and on
+    a closed-form flat-valley problem (complex step). Target 1.3 for the ODE fit (our own: the
+    polish must not slow an ordinary fit much), 2.0 for the closed form (milliseconds)."""
+    points, spec = sensitivity_problem(n_datasets)
+    model = fitting.PythonFunction.from_reference(f"{HERE / 'ode_model.py'}:predict")
+    rows = []
+    for make, target in ((lambda: fitting.FitProblem(points, model, spec), 1.3),
+                         (close_rates_problem, 2.0)):  # fmt: skip
+        found = {}
+        for polish in (True, False):
+            options = fitting.FitOptions(polish=polish)
+            seconds, result = median_time(
+                lambda make=make, options=options: fitting.fit(make(), options), repeats
+            )
+            found[polish] = (seconds, result)
+        (ours_s, ours), (base_s, base) = found[True], found[False]
+        rows.append({"ratio": ours_s / base_s, "target": target, "ours_s": ours_s,
+                     "baseline_s": base_s, "n": ours.n_points,
+                     "evaluations": ours.evaluations, "baseline_evaluations": base.evaluations,
+                     "chi2": ours.chi2, "baseline_chi2": base.chi2,
+                     "polished": ours.options.get("polished")})  # fmt: skip
+    return rows[0], rows[1]
 
 
 def case_scaling(folder: Path, sizes: list[int]) -> dict[str, Any]:
@@ -416,10 +471,15 @@ def main() -> None:
         results["export_parquet"] = case_export(folder, n_series, repeats)
         results["export_csv_writer"] = case_csv_writer(folder, n_series, repeats)
         print("  export done", flush=True)
-        exact, one_step = case_sensitivity(8 if quick else 20, 1)
+        exact, one_step, auto = case_sensitivity(8 if quick else 20, 1)
         results["sensitivity_exact"] = exact
         results["sensitivity_one_step"] = one_step
+        results["sensitivity_auto"] = auto
         print("  sensitivity done", flush=True)
+        ode_fit, closed_fit = case_fit_polish(8 if quick else 20, repeats)
+        results["fit_polish_ode"] = ode_fit
+        results["fit_polish_closed_form"] = closed_fit
+        print("  fit polish done", flush=True)
         results["scaling"] = case_scaling(
             folder, [100, 1000, 10000] if not quick else [100, 1000, 5000]
         )
@@ -455,6 +515,14 @@ def main() -> None:
     print(
         f"one-step largest error against exact refits: {one['max_error_se']:.3f} SE (target {one['error_target_se']})"
     )
+    auto = results["sensitivity_auto"]
+    print(f"sensitivity auto: {auto['refitted']} of {auto['datasets']} groups refitted exactly; "
+          f"the flags of exact refits: {'yes' if auto['same_flags'] else 'NO'}")  # fmt: skip
+    for case in ("fit_polish_ode", "fit_polish_closed_form"):
+        row = results[case]
+        print(f"{case}: model evaluations {row['evaluations']} with the polish, "
+              f"{row['baseline_evaluations']} without; chi2 {row['chi2']:.10g} against "
+              f"{row['baseline_chi2']:.10g}")  # fmt: skip
     scaling = results["scaling"]
     print(f"scaling exponents: intake {scaling['intake_exponent']:.2f}, export {scaling['export_exponent']:.2f}; "
           "streamed export's traced peak / raw data: " + ", ".join(f"{r:.1f}" for r in scaling["peak_over_data"]))  # fmt: skip

@@ -1107,7 +1107,7 @@ def sensitivity(
     problem: ProblemOption = None,
     relative_tolerance: RelativeTolerance = None,
     absolute_tolerance: AbsoluteTolerance = None,
-    method: Annotated[str, typer.Option(help="exact refits, or one-step screening")] = "exact",
+    method: Annotated[str, typer.Option(help="exact refits, one-step, or auto (both)")] = "exact",
     workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
     dask: Annotated[
         str | None, typer.Option(help="Dask scheduler address, or 'local' for a LocalCluster")

@@ -19,8 +19,17 @@ are reported by calibration group.
 - A budget: ``max_evaluations`` caps the model evaluations of the search (global search and
   every start together, each Jacobian's finite differences counted; the global search stops
   after the generation that spends it, later starts get what is left); the final standard
-  errors cost 2 p + 2 evaluations more (p free parameters). ``generations`` caps the global search's generations (default
-  300). A fit stopped by its budget is reported as not converged, saying so.
+  errors cost 2 p + 2 evaluations more (p free parameters); the polish runs only if at least
+  8 p + 4 are left, and stays within them. ``generations`` caps the global search's
+  generations (default 300). A fit stopped by its budget is reported as not converged, saying
+  so.
+- The polish (:mod:`curate.fit.polish`, on unless ``polish=False``): least_squares stops when
+  the objective stops changing, which along a flat valley leaves the parameters four or five
+  digits from the minimum; Gauss-Newton steps with a complex-step (or fourth-order difference)
+  Jacobian then run until the scaled step or the projected gradient is below the tolerance, and
+  the covariance uses that Jacobian. Skipped for a backend whose numbers are good only to a
+  solver's tolerance (``accuracy`` above 4 eps): no finish beats the model's own noise.
+  ``options['polished']`` says where it stopped and how the Jacobian was taken.
 """
 
 from __future__ import annotations
@@ -36,6 +45,7 @@ from scipy.stats import qmc
 
 from curate.errors import InputError
 from curate.fit.censored import censored_curvature
+from curate.fit.polish import Polished, polish
 from curate.fit.problem import FitProblem
 
 __all__ = [
@@ -62,6 +72,7 @@ class FitOptions:
     tolerance: float = 1e-10
     max_evaluations: int | None = None  # model evaluations of the whole fit (each refit apart)
     generations: int | None = None  # of the global search (None: 300)
+    polish: bool = True  # finish with Gauss-Newton steps and an accurate Jacobian (see below)
 
 
 @dataclass
@@ -338,7 +349,8 @@ def summarise(problem: FitProblem, theta: np.ndarray, jacobian: np.ndarray, *, c
         objective="nllh" if problem.noise_model else "chi2",
         options={"starts": options.starts, "seed": options.seed, "global_search": options.global_search,
                  "scale_covariance": options.scale_covariance, "tolerance": options.tolerance,
-                 "max_evaluations": options.max_evaluations, "generations": options.generations},
+                 "max_evaluations": options.max_evaluations, "generations": options.generations,
+                 "polish": options.polish},
     )  # fmt: skip
 
 
@@ -356,6 +368,13 @@ def evaluate_at_start(problem: FitProblem, options: FitOptions | None = None) ->
     result.options["evaluate"] = True
     result.evaluations = problem.calls - first
     return result
+
+
+def _polishable(problem: FitProblem) -> bool:
+    """Tell whether a polish can sharpen the fit: the model's numbers are good to machine
+    precision (an ODE solver's tolerance bounds what any finish could reach; its backend says
+    so with ``accuracy``)."""
+    return problem.backend.accuracy <= 4 * float(np.finfo(float).eps) and len(problem.free) > 0
 
 
 def fit(problem: FitProblem, options: FitOptions | None = None, *,
@@ -449,7 +468,28 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
         raise InputError("no start converged: " + "; ".join(str(s["message"]) for s in starts[:3]))
     if spent_all and not converged:
         message = f"stopped: the budget of {budget} model evaluations is spent ({message})"
-    result = summarise(problem, theta, jacobian(problem, theta), converged=converged, starts=starts,
+    final: np.ndarray | None = None
+    polished: Polished | None = None
+    left = None if budget is None else budget - (problem.calls - first)
+    if (
+        options.polish
+        and best is not None
+        and _polishable(problem)
+        and (left is None or left >= 8 * len(theta) + 4)
+    ):
+        try:
+            polished = polish(problem, theta, tolerance=options.tolerance, budget=left)
+        except (InputError, ArithmeticError):  # the model fails beside the optimum: as it was
+            polished = None
+        else:
+            theta, final = polished.theta, polished.jacobian
+            converged = converged or polished.reason in ("scaled step", "projected gradient")
+    if final is None:
+        final = jacobian(problem, theta)
+    result = summarise(problem, theta, final, converged=converged, starts=starts,
                        message=message, options=options)  # fmt: skip
+    if polished is not None:
+        result.options["polished"] = {"stopped_on": polished.reason, "jacobian": polished.method,
+                                      "steps": polished.accepted}  # fmt: skip
     result.evaluations = problem.calls - first  # the final Jacobian's 2 p included
     return result

@@ -105,6 +105,9 @@ class FitProblem:
         # the optimiser works on O(1) numbers: ln p for log parameters, p / |start| otherwise
         # (finite-difference Jacobians lose digits when parameters span many decades)
         self.typical = np.array([1.0 if p.log or p.start == 0 else abs(p.start) for p in self.free])
+        # whether the model carries complex parameters through (complex-step derivatives):
+        # None until curate.fit.polish has tried
+        self.complex_step: bool | None = None
 
     @property
     def scale_groups(self) -> list[str]:
@@ -296,6 +299,26 @@ class FitProblem:
         return residuals_with_censoring(
             residual, self.censored if rows is None else self.censored[rows]
         )
+
+    def complex_residual(self, theta: np.ndarray) -> np.ndarray:
+        """Give :meth:`residual` of every row at complex ``theta`` (for complex-step derivatives;
+        observed points without a noise model only). The model is called as it is, so a model
+        written for floats may raise anything here: the caller decides what that means."""
+        values: dict[str, Any] = dict(self.fixed)
+        for p, x, t in zip(self.free, theta, self.typical, strict=True):
+            values[p.name] = np.exp(x) if p.log else x * t
+        self.calls += 1
+        prediction = np.asarray(self.backend.predict(values, self.points))
+        if prediction.shape != self.y.shape:
+            raise InputError(f"the model returned {prediction.size} values for {len(self.y)} rows")
+        factor: np.ndarray = np.ones(len(prediction))
+        if self._group_names:  # s* = sum(w y h) / sum(w h^2), analytic in h: no float() here
+            factor = factor.astype(complex)
+            for k in range(len(self._group_names)):
+                part = self._groups == k
+                denominator = np.sum(self.w[part] * prediction[part] ** 2)
+                factor[part] = np.sum(self.w[part] * self.y[part] * prediction[part]) / denominator
+        return np.asarray(self.sqrt_w * (self.y - factor * prediction))
 
     def group_index(self, rows: np.ndarray | None = None) -> np.ndarray:
         """Give each row's scale-group number (-1 for rows without a scale factor)."""

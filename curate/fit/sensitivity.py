@@ -7,6 +7,11 @@ For each group g (a dataset, a lab, a condition value) the fit is repeated witho
 - one-step: one Gauss-Newton step from the full optimum using the remaining rows,
   delta = -(J_r^T J_r)^-1 J_r^T r_r. For a linear model this is exact and equals the
   group-deletion formula delta_beta = (X'WX)^-1 X_g' W_g (I - H_gg)^-1 e_g.
+- auto: the one-step screen for every group, then exact refits of the groups it cannot settle:
+  a screened shift or Cook distance within a factor AUTO_MARGIN (2) of its flag threshold, or a
+  step along which the quadratic model fails (the actual change of the remaining rows' objective
+  differs from the model's prediction by more than AUTO_MODEL_MISMATCH, 25 %, of it). The
+  result's ``auto`` names each refitted group and why.
 
 Per group: each parameter's shift in units of its full-fit standard error, the Cook-type
 distance D_g = dtheta' C^-1 dtheta / p (Cook 1977, for groups), the held-out chi2 and dof of
@@ -44,6 +49,7 @@ from curate.errors import InputError
 from curate.fit.backends import ModelBackend, rebuild
 from curate.fit.engine import FitOptions, FitResult, covariance_from_jacobian, least_squares
 from curate.fit.engine import jacobian as fitting_jacobian
+from curate.fit.polish import accurate_jacobian
 from curate.fit.problem import FitProblem
 from curate.fit.spec import ParameterSpec
 from curate.weighting.splitters import training_gaps
@@ -124,6 +130,9 @@ class SensitivityResult:
     profiles: dict[str, Any] | None = None
     # the ensemble's families without each group (``--ensemble``): see curate.fit.families
     families: dict[str, Any] | None = None
+    # --method auto: which groups were refitted exactly and why ({"refitted": {group: why},
+    # "screened": n, "groups": n})
+    auto: dict[str, Any] | None = None
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> SensitivityResult:
@@ -140,7 +149,7 @@ class SensitivityResult:
             full=data["full"], by=data["by"], method=data["method"], groups=groups,
             jackknife_stderr=data["jackknife_stderr"], shift_threshold=data["shift_threshold"],
             cook_threshold=data["cook_threshold"], policies=data.get("policies", []), executor=data.get("executor", ""),
-            profiles=data.get("profiles"), families=data.get("families"),
+            profiles=data.get("profiles"), families=data.get("families"), auto=data.get("auto"),
         )  # fmt: skip
 
     def flags(self) -> list[str]:
@@ -195,6 +204,7 @@ class SensitivityResult:
             "notes": self.notes(),
             **({"profiles": self.profiles} if self.profiles is not None else {}),
             **({"families": self.families} if self.families is not None else {}),
+            **({"auto": self.auto} if self.auto is not None else {}),
         }
 
 
@@ -393,8 +403,8 @@ def leave_one_group_out(
     progress: Callable[[int, int], None] | None = None,
 ) -> SensitivityResult:
     """Give the leave-one-group-out sensitivity of ``full`` (a fit of ``problem``)."""
-    if method not in ("exact", "one-step"):
-        raise InputError(f"--method {method}: expected exact or one-step")
+    if method not in ("exact", "one-step", "auto"):
+        raise InputError(f"--method {method}: expected exact, one-step or auto")
     if shift_threshold <= 0:
         raise InputError(
             f"--threshold {shift_threshold}: expected a positive number of standard errors"
@@ -446,13 +456,41 @@ def leave_one_group_out(
                 )  # fmt: skip
     refits: dict[str, tuple[np.ndarray | None, bool, str | None]] = {}
     executor = "no refits"
-    if method == "exact":
+    exact = [group for group, (_, _, gap) in plans.items() if gap is None]
+    screened: dict[str, str] = {}  # group -> why auto refits it exactly
+    screened_note: dict[str, Any] | None = None
+    if method != "exact":
+        # auto judges each screen by its numbers: it takes them from the polish's Jacobian
+        # (complex step, or fourth-order differences whose larger steps stand above an ODE
+        # solver's noise, where second-order ones of eps^(1/3) do not)
+        steps_jacobian = accurate_jacobian(problem, theta)[0] if method == "auto" else jacobian
+        for done, (group, (keep, _, gap)) in enumerate(plans.items()):
+            if gap is None:
+                kept_rows = problem.residual_index(keep)
+                mask = moving[group]
+                j, r = steps_jacobian[np.ix_(kept_rows, mask)], residual[kept_rows]
+                step = np.zeros(len(theta))
+                if group in weak:  # step only along the directions the rest still determines
+                    step[mask] = -_determined_step(j, r)
+                else:
+                    step[mask] = -covariance_from_jacobian(j) @ (j.T @ r)
+                refits[group] = (theta + step, True, None)
+                if method == "auto":
+                    reason = _screen(problem, theta, step, keep, steps_jacobian[kept_rows], r,
+                                     _Limits(names, stderr, natural_full, inverse_cov, mask,
+                                             shift_threshold, cook_threshold))  # fmt: skip
+                    if reason is not None:
+                        screened[group] = reason
+            if progress and method == "one-step":
+                progress(done + 1, len(plans))
+        exact = list(screened)
+    if exact:
         in_worker = dask is not None or workers > 1
         tasks = [
-            _Task.of(problem, group, keep, theta, options, in_worker=in_worker, held=holding[group])
-            for group, (keep, _, gap) in plans.items()
-            if gap is None
-        ]
+            _Task.of(problem, group, plans[group][0], theta, options, in_worker=in_worker,
+                     held=holding[group])
+            for group in exact
+        ]  # fmt: skip
         results, executor = _run_tasks(tasks, workers=workers, dask=dask, progress=progress)
         for group, new_theta, _, converged, error in results:
             if new_theta is not None and holding[group]:  # back to the full vector
@@ -460,20 +498,12 @@ def leave_one_group_out(
                 full_theta[moving[group]] = new_theta
                 new_theta = full_theta
             refits[group] = (new_theta, converged, error)
-    else:
-        for done, (group, (keep, _, gap)) in enumerate(plans.items()):
-            if gap is None:
-                kept_rows = problem.residual_index(keep)
-                mask = moving[group]
-                j, r = jacobian[np.ix_(kept_rows, mask)], residual[kept_rows]
-                step = np.zeros(len(theta))
-                if group in weak:  # step only along the directions the rest still determines
-                    step[mask] = -_determined_step(j, r)
-                else:
-                    step[mask] = -covariance_from_jacobian(j) @ (j.T @ r)
-                refits[group] = (theta + step, True, None)
-            if progress:
-                progress(done + 1, len(plans))
+    if method == "auto":
+        screened_note = {"refitted": screened, "screened": len(refits), "groups": len(plans)}
+        executor = (f"auto: {len(screened)} of {len(refits)} groups refitted exactly"
+                    + (f" ({executor})" if screened else ""))  # fmt: skip
+        if progress and not screened:
+            progress(len(plans), len(plans))
     groups = []
     for group, (_, held, gap) in plans.items():
         if gap is not None:
@@ -533,7 +563,60 @@ def leave_one_group_out(
     return SensitivityResult(
         full=full, by=by, method=method, groups=groups, jackknife_stderr=jackknife_stderr(good, names),  # type: ignore[arg-type]
         shift_threshold=shift_threshold, cook_threshold=cook_threshold, executor=executor,
+        auto=screened_note,
     )  # fmt: skip
+
+
+# --method auto refits a group exactly when its one-step screen comes within this factor of a
+# flag threshold, or when the quadratic model's predicted change of the objective misses the
+# actual change by more than this fraction of it (common practice in trust-region methods,
+# which judge a step by actual / predicted reduction; the numbers are ours)
+AUTO_MARGIN = 2.0
+AUTO_MODEL_MISMATCH = 0.25
+
+
+@dataclass(frozen=True)
+class _Limits:
+    """What a one-step screen is judged against."""
+
+    names: Sequence[str]
+    stderr: dict[str, float | None]
+    natural_full: dict[str, float]
+    inverse_covariance: np.ndarray
+    moving: np.ndarray
+    shift_threshold: float
+    cook_threshold: float
+
+
+def _screen(problem: FitProblem, theta: np.ndarray, step: np.ndarray, keep: np.ndarray,
+            jacobian: np.ndarray, residual: np.ndarray, limits: _Limits) -> str | None:  # fmt: skip
+    """Give why a group's one-step screen cannot be trusted (it comes within AUTO_MARGIN of a
+    flag threshold, or the quadratic model does not hold along the step), or None."""
+    natural = problem.to_natural(theta + step)
+    delta = np.array([natural[n] - limits.natural_full[n] for n in limits.names])
+    for k, name in enumerate(limits.names):
+        se = limits.stderr[name]
+        if se and abs(delta[k] / se) * AUTO_MARGIN > limits.shift_threshold:
+            return f"{name} shifts {delta[k] / se:+.2f} SE in the screen"
+    mask = limits.moving
+    block = limits.inverse_covariance[np.ix_(mask, mask)]
+    cook = float(delta[mask] @ block @ delta[mask] / max(1, int(mask.sum())))
+    if cook * AUTO_MARGIN > limits.cook_threshold:
+        return f"Cook distance {cook:.2f} in the screen"
+    change = jacobian @ step
+    predicted = 2 * float(residual @ change) + float(change @ change)
+    try:
+        moved = problem.residual(theta + step, keep)
+    except (InputError, ArithmeticError):
+        return "the model fails at the screened point"
+    actual = float(moved @ moved) - float(residual @ residual)
+    if abs(actual - predicted) > AUTO_MODEL_MISMATCH * abs(predicted) + 1e-12 * float(
+        residual @ residual
+    ):
+        return (
+            f"the objective changes by {actual:.4g} where the quadratic model says {predicted:.4g}"
+        )
+    return None
 
 
 def _determined_step(j: np.ndarray, r: np.ndarray) -> np.ndarray:
