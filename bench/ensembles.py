@@ -4,6 +4,8 @@
 
 - ``ensemble_2_workers``: N starts of the bench ODE model (bench/ode_model.py, 8 datasets in
   relative units) on 2 workers against the same N starts in one process; target 1 / 1.8.
+- ``ensemble_dask``: the same starts on a Dask LocalCluster (2 workers) against the process
+  pool; target 1.15 (the cluster's start-up counts).
 - ``ensemble_overhead``: the ensemble in one process against the bare local fits it makes
   (the same starts through ``least_squares`` one after another): the ratio minus 1 is
   curate's own cost per start (the sampler, bookkeeping, clustering); target 1.05.
@@ -52,6 +54,15 @@ def case_workers(starts: int) -> dict[str, Any]:
     return {"ratio": pooled_s / serial_s, "target": round(1 / 1.8, 3), "ours_s": pooled_s,
             "baseline_s": serial_s, "n": starts, "executor": pooled.executor,
             "same_objectives": same}  # fmt: skip
+
+
+def case_dask(starts: int) -> dict[str, Any]:
+    problem = ode_problem()
+    options = fitting.FitOptions(starts=starts, seed=0)
+    pooled_s, _ = median_time(lambda: ensembles.ensemble(problem, options, workers=2), 1)
+    dask_s, spread = median_time(lambda: ensembles.ensemble(problem, options, dask="local"), 1)
+    return {"ratio": dask_s / pooled_s, "target": 1.15, "ours_s": dask_s, "baseline_s": pooled_s,
+            "n": starts, "executor": spread.executor}  # fmt: skip
 
 
 def case_overhead(starts: int) -> dict[str, Any]:
@@ -110,6 +121,7 @@ def run(quick: bool) -> dict[str, Any]:
     """Give the ensemble cases' results."""
     results = {
         "ensemble_2_workers": case_workers(60 if quick else 1000),
+        "ensemble_dask": case_dask(60 if quick else 1000),
         "ensemble_overhead": case_overhead(20 if quick else 200),
         "ensemble_memory": case_memory(100 if quick else 1000),
     }

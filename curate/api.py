@@ -242,7 +242,7 @@ class Catalog(Ledger):
                  problem: str | None = None, options: FitOptions | None = None,
                  threshold: float | None = None, cut: float = DEFAULT_CUT, policy: PolicyLike = None,
                  selection: Selection | None = None, tolerances: dict[str, float] | None = None,
-                 workers: int = 1,
+                 workers: int = 1, dask: str | None = None,
                  progress: Callable[[int, int, str], None] | None = None) -> EnsembleResult:  # fmt: skip
         """Fit from many starts (``options.starts``, Latin hypercube, ``options.seed``); keep every
         fit within ``threshold`` (chi2 units; default chi2(0.95, p)) of the best; cluster them."""
@@ -255,13 +255,14 @@ class Catalog(Ledger):
             return runs.run_ensemble(self, problem_id=problem, spec=spec, policy=chosen,
                                      selection=selection or Selection(), options=options,
                                      threshold=threshold, cut=cut, tolerances=tolerances, workers=workers,
-                                     progress=progress)  # fmt: skip
+                                     progress=progress, dask=dask)  # fmt: skip
         if model is None or params is None:
             raise InputError("ensemble: give --model with --params, or --problem ID")
         backend = model if isinstance(model, ModelBackend) else PythonFunction.from_reference(model)
         return runs.run_ensemble(self, backend=backend, spec=load_spec(params), policy=chosen,
                                  selection=selection or Selection(), options=options,
-                                 threshold=threshold, cut=cut, workers=workers, progress=progress)  # fmt: skip
+                                 threshold=threshold, cut=cut, workers=workers, progress=progress,
+                                 dask=dask)  # fmt: skip
 
     def predict(self, model: str | ModelBackend | None = None, params: str | Path | None = None, *,
                 conditions: dict[str, str], times: Sequence[float], time_unit: str = "s",

@@ -110,3 +110,13 @@ def test_past_the_clustering_limit_the_rest_join_the_nearest_family(monkeypatch)
     assert sorted(c.size for c in sampled.clusters) == sorted(c.size for c in whole.clusters)
     for a, b in zip(sampled.clusters, whole.clusters, strict=True):
         assert a.parameters["k1"]["median"] == pytest.approx(b.parameters["k1"]["median"], rel=1e-6)
+
+
+@pytest.mark.xdist_group("own_processes")
+def test_dask_gives_the_serial_ensemble():
+    pytest.importorskip("dask.distributed")
+    serial = ensemble(mirror_problem(), fitting.FitOptions(starts=16, seed=3))
+    spread = ensemble(mirror_problem(), fitting.FitOptions(starts=16, seed=3), dask="local")
+    assert spread.executor.startswith("dask (local, ")
+    np.testing.assert_allclose(spread.objectives, serial.objectives, rtol=1e-10)
+    assert [c.size for c in spread.clusters] == [c.size for c in serial.clusters]

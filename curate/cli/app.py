@@ -949,6 +949,10 @@ def ensemble(
         float, typer.Option(help="clustering cut in the optimiser's coordinates (ln p for log)")
     ] = 0.5,
     workers: Annotated[int, typer.Option(help="local worker processes (default: cores)")] = 0,
+    dask: Annotated[
+        str | None,
+        typer.Option(help="run the starts on a Dask scheduler at this address, or 'local'"),
+    ] = None,
     as_json: JsonFlag = False,
 ) -> None:
     """Fit from many starts; keep every fit about as good as the best; group them into families."""
@@ -959,7 +963,7 @@ def ensemble(
         result = catalog.ensemble(
             model, params, problem=problem, options=FitOptions(starts=starts, seed=seed),
             threshold=threshold, cut=cut, policy=policy, selection=selection,
-            tolerances=tolerances, workers=count, progress=update,
+            tolerances=tolerances, workers=count, dask=dask, progress=update,
         )  # fmt: skip
     _show(result.to_dict(), lambda: run_text.ensemble_text(result), as_json)
 

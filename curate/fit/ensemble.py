@@ -30,7 +30,7 @@ from curate.fit.engine import DEFAULT_GENERATIONS, FitOptions, least_squares, st
 from curate.fit.problem import FitProblem
 
 # what starting a worker costs before its first fit: the same estimate as for refits
-from curate.fit.sensitivity import WORKER_START_SECONDS
+from curate.fit.sensitivity import WORKER_START_SECONDS, dask_client
 from curate.fit.spec import ParameterSpec
 
 __all__ = [
@@ -156,11 +156,46 @@ def _worker_fit(task: tuple[int, np.ndarray, FitOptions]) -> _Outcome:
     return _local_fit(_WORKER["problem"], number, x0, options)
 
 
+def _dask_chunk(payload: tuple[Any, ...], chunk: list[tuple[int, np.ndarray]],
+                options: FitOptions) -> list[_Outcome]:  # fmt: skip
+    backend, description, points, spec = payload
+    problem = FitProblem(points, backend if backend is not None else rebuild(description), spec)
+    return [_local_fit(problem, number, x0, options) for number, x0 in chunk]
+
+
+def _refine_on_dask(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
+                    address: str, progress: Callable[[int, int, str], None] | None,
+                    ) -> tuple[list[Outcome], str]:  # fmt: skip
+    """Give every start's local optimum from a Dask cluster: the problem sent once to every
+    worker, the starts in chunks (a few per worker, so one slow start does not hold the rest)."""
+    backend = problem.backend
+    portable = backend.portable
+    payload = (None if portable else backend, backend.describe() if portable else None,
+               problem.points, problem.spec)  # fmt: skip
+    numbered = list(enumerate(candidates))
+    with dask_client(address) as client:
+        workers = max(1, len(client.scheduler_info().get("workers", {})))
+        size = max(1, len(numbered) // (4 * workers))
+        chunks = [numbered[k : k + size] for k in range(0, len(numbered), size)]
+        shared = client.scatter(payload, broadcast=True)
+        futures = client.map(_dask_chunk, [shared] * len(chunks), chunks, [options] * len(chunks),
+                             pure=False)  # fmt: skip
+        outcomes: list[Outcome] = []
+        for done, future in enumerate(futures):
+            outcomes += future.result()
+            if progress is not None:
+                progress(min(len(numbered), (done + 1) * size), len(numbered), "starts")
+    return outcomes, f"dask ({address}, {workers} workers)"
+
+
 def refine(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
            workers: int = 1, progress: Callable[[int, int, str], None] | None = None,
-           ) -> tuple[list[Outcome], str]:  # fmt: skip
+           dask: str | None = None) -> tuple[list[Outcome], str]:  # fmt: skip
     """Give every start's local optimum, here or on a process pool (spawned workers, each
-    building the problem once), whichever is quicker; and which it was."""
+    building the problem once), whichever is quicker, or on the Dask cluster at ``dask``
+    ("local": a LocalCluster); and which it was."""
+    if dask is not None:
+        return _refine_on_dask(problem, candidates, options, dask, progress)
     total = len(candidates)
     outcomes = []
     started = time.perf_counter()
@@ -299,6 +334,7 @@ def ensemble(
     workers: int = 1,
     progress: Callable[[int, int, str], None] | None = None,
     candidates: list[np.ndarray] | None = None,
+    dask: str | None = None,
 ) -> EnsembleResult:
     """Give the ensemble of ``options.starts`` local fits (the spec's start and a Latin
     hypercube over the bounds, log scale where the spec says so; or the final population of a
@@ -318,7 +354,7 @@ def ensemble(
     origin = "given starts"
     if candidates is None:
         candidates, origin = _candidates(problem, options)
-    outcomes, executor = refine(problem, candidates, options, workers, progress)
+    outcomes, executor = refine(problem, candidates, options, workers, progress, dask=dask)
     finished: list[tuple[int, float, np.ndarray]] = []
     failed: list[dict[str, Any]] = []
     for number, value, theta, error in sorted(outcomes, key=lambda o: o[0]):

@@ -184,14 +184,16 @@ def run_ensemble(catalog: Ledger, *, backend: ModelBackend | None = None,
                  spec: ParameterSpec | None = None, problem_id: str | None = None, policy: Policy,
                  selection: Selection, options: FitOptions, threshold: float | None = None,
                  cut: float = DEFAULT_CUT, tolerances: dict[str, float] | None = None, workers: int = 1,
-                 progress: Callable[[int, int, str], None] | None = None) -> EnsembleResult:  # fmt: skip
-    """Run an ensemble of local fits from many starts; record it as a run (seed included)."""
+                 progress: Callable[[int, int, str], None] | None = None,
+                 dask: str | None = None) -> EnsembleResult:  # fmt: skip
+    """Run an ensemble of local fits from many starts (here, on a process pool or on Dask);
+    record it as a run (seed included)."""
     problem, backend, spec, weighted = _chosen_problem(
         catalog, backend=backend, spec=spec, problem_id=problem_id, policy=policy,
         selection=selection, tolerances=tolerances, what="ensemble",
     )  # fmt: skip
     result = ensemble(problem, options, threshold=threshold, cut=cut, workers=workers,
-                      progress=progress)  # fmt: skip
+                      progress=progress, dask=dask)  # fmt: skip
     summary = {**result.to_dict(), "seed": options.seed, "cut": cut}
     _record(catalog, "ensemble", backend, spec, weighted, summary)
     return result

@@ -36,8 +36,9 @@ import dataclasses
 import math
 import multiprocessing
 import time
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from concurrent.futures import ProcessPoolExecutor
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -61,6 +62,7 @@ __all__ = [
     "MIN_JACKKNIFE_GROUPS",
     "GroupResult",
     "SensitivityResult",
+    "dask_client",
     "jackknife_stderr",
     "leave_one_group_out",
     "leave_one_group_out_external",
@@ -356,9 +358,10 @@ def _run_tasks(tasks: list[_Task], *, workers: int, dask: str | None,
     return results, f"process pool ({workers} workers)"
 
 
-def _run_on_dask(
-    tasks: list[_Task], address: str, progress: Callable[[int, int], None] | None
-) -> list[Any]:
+@contextmanager
+def dask_client(address: str) -> Iterator[Any]:
+    """Give a Dask distributed client: a two-worker LocalCluster for ``local``, else the
+    scheduler at ``address``; closed (with the cluster) afterwards."""
     try:
         from dask.distributed import Client, LocalCluster
     except ImportError:
@@ -377,15 +380,22 @@ def _run_on_dask(
     except OSError as err:
         raise InputError(f"--dask {address}: cannot reach the scheduler ({err})") from None
     try:
+        yield client
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def _run_on_dask(
+    tasks: list[_Task], address: str, progress: Callable[[int, int], None] | None
+) -> list[Any]:
+    with dask_client(address) as client:
         futures = client.map(_exact_refit, tasks, pure=False)
         results = client.gather(futures)
         if progress:
             progress(len(tasks), len(tasks))
         return list(results)
-    finally:
-        client.close()
-        if cluster is not None:
-            cluster.close()
 
 
 def leave_one_group_out(
