@@ -156,7 +156,13 @@ def _parse(text: str, *, role: str) -> Any:
     try:
         return _parse_cached(text)
     except UnitError as err:
-        raise UnitError(str(err).replace("unknown value unit", f"unknown {role} unit")) from None
+        message = str(err).replace("unknown value unit", f"unknown {role} unit")
+        if "time" in role:
+            message = (
+                message.split(": expected")[0]
+                + ": expected a unit of time such as 's', 'min', 'h' or 'day'"
+            )
+        raise UnitError(message) from None
 
 
 @functools.lru_cache(maxsize=4096)
@@ -181,9 +187,13 @@ def _parse_cached(text: str) -> Any:
         SyntaxError,
         AssertionError,
     ):
+        examples = (
+            "'s', 'min', 'h' or 'day'"
+            if "time" in role
+            else "'s', 'min', 'um', 'nM', 'um/min', 'a.u.' or '1'"
+        )
         raise UnitError(
-            f"unknown {role} unit '{text}': expected a unit such as 's', 'min', 'um', 'nM', "
-            "'um/min', 'a.u.' or '1'"
+            f"unknown {role} unit '{text}': expected a unit such as {examples}"
         ) from None
 
 

@@ -78,6 +78,8 @@ def test_predict_gives_the_band_in_the_data_units_and_records_a_run(cli, two_lab
         (("--conditions", "dose=15uM", "--times", "ten"), "--times 'ten': expected a number"),
         (("--conditions", "dose=15uM"), "--times: give at least one time"),
         (("--conditions", "dose=15uM", "--times", "0", "--time-unit", "nM"), "--time-unit"),
+        (("--conditions", "dose=15uM", "--times", "0", "--time-unit", "foo"),
+         "unknown --time-unit unit 'foo': expected a unit of time such as 's', 'min', 'h' or 'day'"),
         (("--conditions", "dose=15uM", "--times", "0", "--workers", "999"), "--workers 999"),
         (("--conditions", "dose=15uM", "--times", "0", "--starts", "1"), "at least 2 starts"),
         (("--conditions", "dose=15uM", "--times", "0", "--threshold", "0"), "--threshold 0"),
