@@ -120,3 +120,17 @@ def test_dask_gives_the_serial_ensemble():
     assert spread.executor.startswith("dask (local, ")
     np.testing.assert_allclose(spread.objectives, serial.objectives, rtol=1e-10)
     assert [c.size for c in spread.clusters] == [c.size for c in serial.clusters]
+
+
+def test_a_parameter_the_model_never_reads_is_named_and_does_not_split_families():
+    problem = mirror_problem()
+    spec = fitting.spec_from_dict({"parameters": {
+        "k1": {"start": 0.05, "lower": 0.01, "upper": 10.0, "log": True},
+        "k2": {"start": 3.0, "lower": 0.01, "upper": 10.0, "log": True},
+        "k_leak": {"start": 0.01, "lower": 0.001, "upper": 1.0, "log": True}}})  # fmt: skip
+    result = ensemble(fitting.FitProblem(problem.points, two_exponentials, spec),
+                      fitting.FitOptions(starts=20, seed=0))  # fmt: skip
+    assert result.notes == ["k_leak changes no residual: the model does not read it; fix it in the "
+                            "spec (families are told apart without it)"]  # fmt: skip
+    assert len([c for c in result.clusters if c.size >= 2]) == 2  # the mirror pair, not 20
+    assert ensemble(mirror_problem(), fitting.FitOptions(starts=5)).notes == []

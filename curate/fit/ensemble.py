@@ -15,7 +15,7 @@ from __future__ import annotations
 import math
 import multiprocessing
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from concurrent.futures import ProcessPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
@@ -45,6 +45,7 @@ __all__ = [
     "families",
     "global_population",
     "refine",
+    "unused_parameters",
 ]
 
 DEFAULT_CUT = 0.5  # in the optimiser's coordinates: a factor e^0.5 = 1.65 for a log parameter
@@ -94,6 +95,7 @@ class EnsembleResult:
     rejected: list[Cluster] = field(default_factory=list)
     kept_theta: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)), repr=False)
     origin: str = "latin hypercube"
+    notes: list[str] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         """Give ``{"starts", "failed", "threshold", "best": {"objective", "parameters"},
@@ -110,6 +112,7 @@ class EnsembleResult:
             "executor": self.executor,
             "rejected": [c.to_dict() for c in self.rejected],
             "origin": self.origin,
+            "notes": self.notes,
         }
 
     @property
@@ -259,6 +262,28 @@ def global_population(problem: FitProblem, options: FitOptions) -> list[np.ndarr
     return [problem.to_internal({p.name: p.start for p in problem.free}), *population]
 
 
+def unused_parameters(problem: FitProblem, theta: np.ndarray) -> list[str]:
+    """Give the free parameters whose change (a hundredth of the bounds' span, or 1 % of the
+    value) leaves every residual exactly as it was: parameters the model never reads."""
+    try:
+        base = problem.residual(theta)
+    except (InputError, ArithmeticError):
+        return []
+    lower, upper = problem.bounds()
+    unused = []
+    for k, parameter in enumerate(problem.free):
+        span = upper[k] - lower[k]
+        step = 0.01 * span if np.isfinite(span) else 0.01 * max(abs(theta[k]), 1.0)
+        moved = theta.copy()
+        moved[k] = theta[k] + step if theta[k] + step <= upper[k] else theta[k] - step
+        try:
+            if np.array_equal(problem.residual(moved), base):
+                unused.append(parameter.name)
+        except (InputError, ArithmeticError):
+            continue
+    return unused
+
+
 def _labels(coordinates: np.ndarray, objectives: np.ndarray, cut: float) -> np.ndarray:
     """Give each fit's cluster label: average linkage over at most MAX_CLUSTERED fits (spread
     evenly over the objective ranks; linkage needs memory quadratic in the fits), every other
@@ -289,14 +314,17 @@ def _labels(coordinates: np.ndarray, objectives: np.ndarray, cut: float) -> np.n
 
 
 def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cut: float,
-             first_id: int = 1) -> list[Cluster]:  # fmt: skip
+             first_id: int = 1, ignore: Sequence[str] = ()) -> list[Cluster]:  # fmt: skip
     """Give the families of fits (start, objective, optimiser coordinates): scipy's
     average-linkage clusters cut at ``cut``, best family first, numbered from ``first_id``."""
     if not found:
         return []
     free = [p.name for p in problem.free]
     coordinates = np.array([theta for _, _, theta in found])
-    labels = _labels(coordinates, np.array([value for _, value, _ in found]), cut)
+    used = np.array([p.name not in ignore for p in problem.free], dtype=bool)
+    if not used.any():
+        used[:] = True
+    labels = _labels(coordinates[:, used], np.array([value for _, value, _ in found]), cut)
     groups = []
     for label in np.unique(labels):
         rows = np.flatnonzero(labels == label)
@@ -354,6 +382,7 @@ def ensemble(
     origin = "given starts"
     if candidates is None:
         candidates, origin = _candidates(problem, options)
+    unused = unused_parameters(problem, candidates[0])
     outcomes, executor = refine(problem, candidates, options, workers, progress, dask=dask)
     finished: list[tuple[int, float, np.ndarray]] = []
     failed: list[dict[str, Any]] = []
@@ -372,8 +401,9 @@ def ensemble(
     best = min(finished, key=lambda item: item[1])
     kept = [item for item in finished if item[1] - best[1] <= limit]
     beyond = [item for item in finished if item[1] - best[1] > limit]
-    clusters = families(problem, kept, cut)
-    rejected = families(problem, beyond, cut, first_id=len(clusters) + 1)[:MAX_REJECTED]
+    clusters = families(problem, kept, cut, ignore=unused)
+    rejected = families(problem, beyond, cut, first_id=len(clusters) + 1, ignore=unused)
+    rejected = rejected[:MAX_REJECTED]
     return EnsembleResult(
         starts=len(candidates),
         failed=failed,
@@ -393,4 +423,12 @@ def ensemble(
         rejected=rejected,
         kept_theta=np.array([t for _, _, t in kept]),
         origin=origin,
+        notes=[
+            f"{', '.join(unused)} change{'s' if len(unused) == 1 else ''} no residual: the model "
+            "does not read "
+            f"{'it' if len(unused) == 1 else 'them'}; fix {'it' if len(unused) == 1 else 'them'} "
+            "in the spec (families are told apart without it)"
+        ]
+        if unused
+        else [],
     )

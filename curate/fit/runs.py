@@ -22,7 +22,7 @@ from curate.fit.backends import ExternalFitter, ModelBackend, PythonFunction
 from curate.fit.censored import fit_points
 from curate.fit.deciding import profiles_by_group
 from curate.fit.engine import FitOptions, FitResult, evaluate_at_start, fit
-from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble
+from curate.fit.ensemble import DEFAULT_CUT, EnsembleResult, ensemble, unused_parameters
 from curate.fit.families import families_by_group
 from curate.fit.new_points import new_points
 from curate.fit.predict import PredictionBand, prediction_band
@@ -88,8 +88,14 @@ def run_fit(catalog: Ledger, backend: ModelBackend, spec: ParameterSpec, *, poli
         )
     weighted = weighted_table(catalog, policy, selection)
     points, censored_notes = fit_points(weighted.table, policy.censored)
-    result = fit(FitProblem(points, backend, spec), options, progress=progress)
+    fitted = FitProblem(points, backend, spec)
+    result = fit(fitted, options, progress=progress)
     result.notes += ungraded_note(weighted) + censored_notes
+    unused = unused_parameters(fitted, result.theta) if len(result.theta) else []
+    if unused:
+        result.notes.append(f"{', '.join(unused)}: no residual changes with "
+                            f"{'it' if len(unused) == 1 else 'them'}; the model does not read "
+                            f"{'it' if len(unused) == 1 else 'them'} (fix in the spec)")  # fmt: skip
     _record(catalog, "fit", backend, spec, weighted,
             {k: v for k, v in result.to_dict().items() if k != "starts"})  # fmt: skip
     return result

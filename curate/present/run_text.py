@@ -332,6 +332,7 @@ def ensemble_text(result: EnsembleResult) -> Group:
         parts.append(Text(f"failed start {failure['start']}: {failure['error']}"))
     if len(result.failed) > 3:
         parts.append(Text(f"... and {len(result.failed) - 3} more failed starts (see --json)"))
+    parts += [Text(f"note: {n}") for n in result.notes]
     return Group(*parts)
 
 
