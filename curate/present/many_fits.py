@@ -116,14 +116,21 @@ def profiles_section(catalog: Ledger) -> str:
 
 
 def _heat_map(values: np.ndarray, labels: list[list[str]], rows: list[str], columns: list[str],
-              *, colour_label: str, centre: float | None, alt: str) -> str:  # fmt: skip
+              *, colour_label: str, centre: float | None, alt: str,
+              limits: tuple[float, float, float] | None = None) -> str:  # fmt: skip
     """Give a heat map figure with each cell's label written in it."""
     plt = pyplot()
     height = 0.9 + 0.32 * len(rows)
     width = 2.6 + 0.85 * len(columns)
     figure, axis = plt.subplots(figsize=(min(width, 14.0), min(height, 16.0)))
     shown = np.ma.masked_invalid(values)
-    if centre is None:
+    if limits is not None:
+        from matplotlib.colors import TwoSlopeNorm
+
+        low, middle, high = limits
+        image = axis.imshow(shown, cmap="RdBu_r", aspect="auto",
+                            norm=TwoSlopeNorm(vmin=low, vcenter=middle, vmax=high))  # fmt: skip
+    elif centre is None:
         image = axis.imshow(shown, cmap="viridis_r", aspect="auto")
     else:
         span = float(np.nanmax(np.abs(values - centre))) if np.isfinite(values).any() else 1.0
@@ -191,7 +198,7 @@ def _family_map(families: dict[str, Any]) -> str:
         labels.append(line)
     columns = [f"family {f['id']}{' (kept)' if f['kept'] else ''}" for f in listed]
     return _heat_map(values, labels, [f"without {g['group']}" for g in groups], columns,
-                     colour_label="objective above the best / threshold (capped at 3)", centre=1.0,
+                     colour_label="above the best / threshold", centre=1.0, limits=(0.0, 1.0, 3.0),
                      alt=f"group x family: which families fit without each {families['by']}")  # fmt: skip
 
 
