@@ -58,13 +58,19 @@ def warm_starts(full: EnsembleResult) -> tuple[list[np.ndarray], list[int]]:
     return starts, origins
 
 
-def assign(theta: np.ndarray, full: EnsembleResult) -> int | None:
-    """Give the id of the full family whose median point lies nearest ``theta``, within the
-    clustering cut; None if none does (a family not seen with all the data)."""
+def assign(theta: np.ndarray, full: EnsembleResult, start_family: int | None = None) -> int | None:
+    """Give the id of the full family ``theta`` lies in: the family its refit started from while
+    it stays within the clustering cut of that family's median point (so two neighbouring
+    families do not trade refits), else the nearest family within the cut; None if none is
+    (a family not seen with all the data)."""
     best: tuple[float, int] | None = None
     for family in full.families:
         distance = float(np.linalg.norm(theta - family.centre))
-        if distance <= full.cut and (best is None or distance < best[0]):
+        if distance > full.cut:
+            continue
+        if family.id == start_family:
+            return family.id
+        if best is None or distance < best[0]:
             best = (distance, family.id)
     return None if best is None else best[1]
 
@@ -102,7 +108,7 @@ def refit_without(problem: FitProblem, keep: np.ndarray, full: EnsembleResult,
     errors = [o[3] for o in outcomes if o[3]]
     if not np.isfinite(objectives).any():
         raise InputError("no refit finished: " + "; ".join(errors[:2]))
-    joined = [None if t is None else assign(t, full) for t in thetas]
+    joined = [None if t is None else assign(t, full, origins[k]) for k, t in enumerate(thetas)]
     return Refitted(sub, objectives, thetas, joined, float(np.nanmin(objectives)), errors,
                     origins)  # fmt: skip
 
