@@ -121,15 +121,17 @@ def typical_sd(problem: FitProblem) -> float:
     return float(np.median(1.0 / np.sqrt(weight[usable])))
 
 
-def undetermined(problem: FitProblem, jacobian: np.ndarray | None, keep: np.ndarray) -> list[str]:
+def undetermined(problem: FitProblem, jacobian: np.ndarray | None, keep: np.ndarray,
+                 already: int | None = None) -> list[str]:  # fmt: skip
     """Give the parameters the rows ``keep`` barely determine at the best fit (directions of
     the scaled Jacobian lost beyond those lost with all the data), as the sensitivity check
-    names them."""
+    names them; ``already``: the directions lost with all the data, if counted before)."""
     if jacobian is None:
         return []
     rows = problem.residual_index(np.flatnonzero(keep))
     lost, weights = small_directions(jacobian, rows)
-    already = small_directions(jacobian, np.arange(len(jacobian)))[0]
+    if already is None:
+        already = small_directions(jacobian, np.arange(len(jacobian)))[0]
     if lost <= already:
         return []
     names = [p.name for p in problem.free]
@@ -193,6 +195,9 @@ def prediction_band(
     text = labels.astype(str)
     groups = [str(g) for g in dict.fromkeys(text.tolist())]
     jacobian = fitting_jacobian(problem, full.clusters[0].best) if full.clusters else None
+    lost_with_all = (
+        small_directions(jacobian, np.arange(len(jacobian)))[0] if jacobian is not None else 0
+    )
     for done, group in enumerate(groups):
         if progress is not None:
             progress(done, len(groups))
@@ -217,7 +222,7 @@ def prediction_band(
                      lower=without["lower"].tolist(), upper=without["upper"].tolist(),
                      max_widening=None if widening is None else float(np.nanmax(
                          np.where(scale > 0, width / np.where(scale > 0, scale, 1.0), np.nan))),
-                     undetermined=undetermined(problem, jacobian, keep))  # fmt: skip
+                     undetermined=undetermined(problem, jacobian, keep, lost_with_all))  # fmt: skip
         result.groups.append(entry)
     if progress is not None:
         progress(len(groups), len(groups))
