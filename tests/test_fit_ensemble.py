@@ -134,3 +134,23 @@ def test_a_parameter_the_model_never_reads_is_named_and_does_not_split_families(
                             "spec (families are told apart without it)"]  # fmt: skip
     assert len([c for c in result.clusters if c.size >= 2]) == 2  # the mirror pair, not 20
     assert ensemble(mirror_problem(), fitting.FitOptions(starts=5)).notes == []
+
+
+def test_a_small_family_the_clustering_sample_misses_is_still_found(monkeypatch):
+    from curate.fit import ensemble as module
+
+    # two large families and one of two fits far from both, whose objectives rank where the
+    # evenly spread sample of 8 does not look
+    rng = np.random.default_rng(4)
+    coordinates = np.vstack([rng.normal(0.0, 0.05, (30, 2)), rng.normal(5.0, 0.05, (20, 2)),
+                             [[20.0, 20.0], [20.02, 20.0]]])  # fmt: skip
+    objectives = np.arange(52, dtype=float)
+    objectives[50:] = [0.5, 1.5]  # ranks 1 and 2: between the sampled ranks 0 and 7
+    exact = module._labels(coordinates, objectives, 0.5)
+    monkeypatch.setattr(module, "MAX_CLUSTERED", 8)
+    sampled = module._labels(coordinates, objectives, 0.5)
+    assert len(np.unique(exact)) == 3
+    # the same partition, whatever the names
+    pairs = {(int(a), int(b)) for a, b in zip(exact, sampled, strict=True)}
+    assert len(pairs) == 3
+    assert sampled[50] == sampled[51] and sampled[50] not in set(sampled[:50])

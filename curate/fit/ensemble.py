@@ -50,8 +50,11 @@ __all__ = [
 
 DEFAULT_CUT = 0.5  # in the optimiser's coordinates: a factor e^0.5 = 1.65 for a log parameter
 PLATEAU_GAP = 0.1  # chi2 units between sorted objectives that still share a plateau
+DASK_TASKS = 2000  # tasks an ensemble sends to Dask at most (one per start below that)
 MAX_REJECTED = 10  # families of finished fits beyond the threshold that are kept for comparison
-MAX_CLUSTERED = 2000  # fits clustered by linkage (quadratic memory); the rest join the nearest
+MAX_CLUSTERED = (
+    1000  # fits clustered by linkage (quadratic memory: 4 MB); the rest join the nearest
+)
 
 
 @dataclass
@@ -88,7 +91,11 @@ class EnsembleResult:
     objectives: list[float]  # every finished start's objective, sorted (the waterfall)
     cut: float
     objective: str = "chi2"
-    kept: list[dict[str, Any]] = field(default_factory=list)  # start, objective, parameters
+    # the kept fits, in arrays: start numbers, objectives, natural values (columns: names)
+    kept_starts: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=int), repr=False)
+    kept_objectives: np.ndarray = field(default_factory=lambda: np.zeros(0), repr=False)
+    kept_natural: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)), repr=False)
+    names: list[str] = field(default_factory=list)  # the free parameters
     executor: str = "serial"
     # the best families of finished fits beyond the threshold (ids after the kept ones): what a
     # leave-one-group-out ensemble asks about ("which data rule this family out")
@@ -114,6 +121,16 @@ class EnsembleResult:
             "origin": self.origin,
             "notes": self.notes,
         }
+
+    @property
+    def kept(self) -> list[dict[str, Any]]:
+        """Give each kept fit as ``{"start", "objective", "parameters": {NAME: value}}``."""
+        return [
+            {"start": int(n), "objective": float(v),
+             "parameters": dict(zip(self.names, map(float, row), strict=True))}
+            for n, v, row in zip(self.kept_starts, self.kept_objectives, self.kept_natural,
+                                 strict=True)
+        ]  # fmt: skip
 
     @property
     def families(self) -> list[Cluster]:
@@ -166,51 +183,67 @@ def _dask_chunk(payload: tuple[Any, ...], chunk: list[tuple[int, np.ndarray]],
     return [_local_fit(problem, number, x0, options) for number, x0 in chunk]
 
 
-def _refine_on_dask(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
+def _refine_on_dask(problem: FitProblem, candidates: Sequence[np.ndarray] | np.ndarray, options: FitOptions,
                     address: str, progress: Callable[[int, int, str], None] | None,
-                    ) -> tuple[list[Outcome], str]:  # fmt: skip
-    """Give every start's local optimum from a Dask cluster: the problem sent once to every
-    worker, the starts in chunks (a few per worker, so one slow start does not hold the rest)."""
+                    keep: Callable[[Outcome], None]) -> str:  # fmt: skip
+    """Give every start's local optimum (to ``keep``) from a Dask cluster, and what ran it: the
+    problem sent once to every worker, the starts in small chunks as they finish (one task per
+    start up to DASK_TASKS starts, so one slow start does not hold the rest back)."""
+    from dask.distributed import as_completed
+
     backend = problem.backend
     portable = backend.portable
     payload = (None if portable else backend, backend.describe() if portable else None,
                problem.points, problem.spec)  # fmt: skip
-    numbered = list(enumerate(candidates))
+    total = len(candidates)
+    size = max(1, math.ceil(total / DASK_TASKS))
     with dask_client(address) as client:
         workers = max(1, len(client.scheduler_info().get("workers", {})))
-        size = max(1, len(numbered) // (4 * workers))
-        chunks = [numbered[k : k + size] for k in range(0, len(numbered), size)]
         shared = client.scatter(payload, broadcast=True)
-        futures = client.map(_dask_chunk, [shared] * len(chunks), chunks, [options] * len(chunks),
-                             pure=False)  # fmt: skip
-        outcomes: list[Outcome] = []
-        for done, future in enumerate(futures):
-            outcomes += future.result()
+        chunks = [
+            [(number, candidates[number]) for number in range(k, min(total, k + size))]
+            for k in range(0, total, size)
+        ]
+        futures = client.map(_dask_chunk, [shared] * len(chunks), chunks,
+                             [options] * len(chunks), pure=False)  # fmt: skip
+        done = 0
+        for future in as_completed(futures):  # type: ignore[no-untyped-call]
+            chunk = future.result()
+            future.release()
+            for outcome in chunk:
+                keep(outcome)
+            done += len(chunk)
             if progress is not None:
-                progress(min(len(numbered), (done + 1) * size), len(numbered), "starts")
-    return outcomes, f"dask ({address}, {workers} workers)"
+                progress(done, total, "starts")
+    return f"dask ({address}, {workers} workers)"
 
 
-def refine(problem: FitProblem, candidates: list[np.ndarray], options: FitOptions,
+def refine(problem: FitProblem, candidates: Sequence[np.ndarray] | np.ndarray, options: FitOptions,
            workers: int = 1, progress: Callable[[int, int, str], None] | None = None,
-           dask: str | None = None) -> tuple[list[Outcome], str]:  # fmt: skip
+           dask: str | None = None,
+           collect: Callable[[Outcome], None] | None = None) -> tuple[list[Outcome], str]:  # fmt: skip
     """Give every start's local optimum, here or on a process pool (spawned workers, each
     building the problem once), whichever is quicker, or on the Dask cluster at ``dask``
-    ("local": a LocalCluster); and which it was."""
+    ("local": a LocalCluster); and which it was.
+
+    With ``collect`` each outcome goes to it as it arrives and the list given back is empty
+    (an ensemble of many starts keeps them in arrays, not as one object per start).
+    """
+    outcomes: list[Outcome] = []
+    keep = collect if collect is not None else outcomes.append
     if dask is not None:
-        return _refine_on_dask(problem, candidates, options, dask, progress)
+        return outcomes, _refine_on_dask(problem, candidates, options, dask, progress, keep)
     total = len(candidates)
-    outcomes = []
     started = time.perf_counter()
-    outcomes.append(_local_fit(problem, 0, candidates[0], options))
+    keep(_local_fit(problem, 0, candidates[0], options))
     took = time.perf_counter() - started
     if progress is not None:
         progress(1, total, "starts")
-    rest = list(enumerate(candidates))[1:]
+    rest = range(1, total)
     here = took * len(rest)
     if workers <= 1 or not rest or here <= WORKER_START_SECONDS + here / min(workers, len(rest)):
-        for number, x0 in rest:
-            outcomes.append(_local_fit(problem, number, x0, options))
+        for number in rest:
+            keep(_local_fit(problem, number, candidates[number], options))
             if progress is not None:
                 progress(number + 1, total, "starts")
         why = (
@@ -225,10 +258,10 @@ def refine(problem: FitProblem, candidates: list[np.ndarray], options: FitOption
                 problem.points, problem.spec)  # fmt: skip
     with ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"),
                              initializer=_worker_start, initargs=initargs) as pool:  # fmt: skip
-        chunk = max(1, len(rest) // (8 * workers))
-        tasks = [(number, x0, options) for number, x0 in rest]
+        chunk = max(1, min(16, len(rest) // (8 * workers)))
+        tasks = ((number, candidates[number], options) for number in rest)
         for done, outcome in enumerate(pool.map(_worker_fit, tasks, chunksize=chunk)):
-            outcomes.append(outcome)
+            keep(outcome)
             if progress is not None:
                 progress(done + 2, total, "starts")
     return outcomes, f"process pool ({workers} workers)"
@@ -287,7 +320,9 @@ def unused_parameters(problem: FitProblem, theta: np.ndarray) -> list[str]:
 def _labels(coordinates: np.ndarray, objectives: np.ndarray, cut: float) -> np.ndarray:
     """Give each fit's cluster label: average linkage over at most MAX_CLUSTERED fits (spread
     evenly over the objective ranks; linkage needs memory quadratic in the fits), every other
-    fit joining the cluster whose median lies nearest."""
+    fit joining the cluster whose median lies nearest if it lies within the cut of it. Fits
+    within the cut of no sampled cluster are clustered the same way among themselves (new
+    labels), so a small family the sample missed is still found."""
     n = len(coordinates)
     if n == 1:
         return np.array([1])
@@ -304,12 +339,17 @@ def _labels(coordinates: np.ndarray, objectives: np.ndarray, cut: float) -> np.n
     )
     names = np.unique(sampled)
     centres = np.array([np.median(coordinates[sample][sampled == name], axis=0) for name in names])
-    labels = np.empty(n, dtype=int)
+    labels = np.zeros(n, dtype=int)
     for begin in range(0, n, 4096):  # in blocks: distances to every centre at once, bounded
         block = coordinates[begin : begin + 4096]
         distances = np.linalg.norm(block[:, None, :] - centres[None, :, :], axis=2)
-        labels[begin : begin + 4096] = names[np.argmin(distances, axis=1)]
+        nearest = np.argmin(distances, axis=1)
+        placed = distances[np.arange(len(block)), nearest] <= cut
+        labels[begin : begin + 4096] = np.where(placed, names[nearest], 0)
     labels[sample] = sampled
+    astray = np.flatnonzero(labels == 0)
+    if len(astray):
+        labels[astray] = _labels(coordinates[astray], objectives[astray], cut) + int(names.max())
     return labels
 
 
@@ -319,25 +359,49 @@ def families(problem: FitProblem, found: list[tuple[int, float, np.ndarray]], cu
     average-linkage clusters cut at ``cut``, best family first, numbered from ``first_id``."""
     if not found:
         return []
+    return families_of(
+        problem,
+        np.array([n for n, _, _ in found], dtype=int),
+        np.array([v for _, v, _ in found], dtype=float),
+        np.array([t for _, _, t in found], dtype=float),
+        cut,
+        first_id=first_id,
+        ignore=ignore,
+    )
+
+
+def natural_values(problem: FitProblem, coordinates: np.ndarray) -> np.ndarray:
+    """Give the free parameters' natural values, one row per row of optimiser coordinates
+    (the columns of ``problem.to_natural`` in the order of ``problem.free``)."""
+    logged = np.array([p.log for p in problem.free], dtype=bool)
+    typical = np.asarray(problem.typical, dtype=float)
+    return np.where(logged, np.exp(np.where(logged, coordinates, 0.0)), coordinates * typical)
+
+
+def families_of(problem: FitProblem, starts: np.ndarray, values: np.ndarray,
+                coordinates: np.ndarray, cut: float, first_id: int = 1,
+                ignore: Sequence[str] = ()) -> list[Cluster]:  # fmt: skip
+    """Give the families of fits given as arrays (start numbers, objectives, one row of
+    optimiser coordinates per fit); as ``families``, without a Python object per fit."""
+    if len(starts) == 0:
+        return []
     free = [p.name for p in problem.free]
-    coordinates = np.array([theta for _, _, theta in found])
     used = np.array([p.name not in ignore for p in problem.free], dtype=bool)
     if not used.any():
         used[:] = True
-    labels = _labels(coordinates[:, used], np.array([value for _, value, _ in found]), cut)
+    labels = _labels(coordinates[:, used], values, cut)
     groups = []
     for label in np.unique(labels):
         rows = np.flatnonzero(labels == label)
-        members = [found[k] for k in rows]
-        natural = [problem.to_natural(theta) for _, _, theta in members]
-        summary = {}
-        for name in free:
-            values = np.array([n[name] for n in natural])
-            summary[name] = {"median": float(np.median(values)), "min": float(values.min()),
-                             "max": float(values.max())}  # fmt: skip
-        best = min(members, key=lambda m: m[1])
-        groups.append((best[1], len(members), summary, [n for n, _, _ in members],
-                       np.median(coordinates[rows], axis=0), best[2]))  # fmt: skip
+        natural = natural_values(problem, coordinates[rows])
+        summary = {
+            name: {"median": float(np.median(natural[:, j])), "min": float(natural[:, j].min()),
+                   "max": float(natural[:, j].max())}
+            for j, name in enumerate(free)
+        }  # fmt: skip
+        best = rows[int(np.argmin(values[rows]))]
+        groups.append((float(values[best]), len(rows), summary, [int(n) for n in starts[rows]],
+                       np.median(coordinates[rows], axis=0), coordinates[best].copy()))  # fmt: skip
     # best first; families of equal objective (mirror optima) in the order of their centres, so
     # the numbering does not depend on which start found which
     groups.sort(key=lambda g: (round(g[0], 6), -g[1], tuple(np.round(g[4], 6))))
@@ -382,46 +446,58 @@ def ensemble(
     origin = "given starts"
     if candidates is None:
         candidates, origin = _candidates(problem, options)
-    unused = unused_parameters(problem, candidates[0])
-    outcomes, executor = refine(problem, candidates, options, workers, progress, dask=dask)
-    finished: list[tuple[int, float, np.ndarray]] = []
-    failed: list[dict[str, Any]] = []
-    for number, value, theta, error in sorted(outcomes, key=lambda o: o[0]):
+    # every start in arrays (8 (p + 1) bytes each), not as one Python object per start
+    starts = np.asarray(candidates, dtype=float).reshape(len(candidates), len(free))
+    del candidates
+    total = len(starts)
+    objectives = np.full(total, math.nan)
+    optima = np.full((total, len(free)), math.nan)
+    errors: dict[int, str] = {}
+
+    def collect(outcome: Outcome) -> None:
+        number, value, theta, error = outcome
         if value is None or theta is None:
-            failed.append({"start": number, "error": error or "failed"})
+            errors[number] = error or "failed"
         else:
-            finished.append((number, value, theta))
+            objectives[number], optima[number] = value, theta
+
+    unused = unused_parameters(problem, starts[0])
+    _, executor = refine(problem, starts, options, workers, progress, dask=dask, collect=collect)
+    failed = [{"start": number, "error": errors[number]} for number in sorted(errors)]
     if progress is not None:
-        progress(len(candidates), len(candidates), "starts")
-    if not finished:
+        progress(total, total, "starts")
+    done = np.flatnonzero(np.isfinite(objectives))
+    if not len(done):
         raise InputError(
             "no start finished: "
             + "; ".join(f"start {f['start']}: {f['error']}" for f in failed[:3])
         )
-    best = min(finished, key=lambda item: item[1])
-    kept = [item for item in finished if item[1] - best[1] <= limit]
-    beyond = [item for item in finished if item[1] - best[1] > limit]
-    clusters = families(problem, kept, cut, ignore=unused)
-    rejected = families(problem, beyond, cut, first_id=len(clusters) + 1, ignore=unused)
-    rejected = rejected[:MAX_REJECTED]
+    best_row = done[int(np.argmin(objectives[done]))]
+    best_value = float(objectives[best_row])
+    kept = done[objectives[done] - best_value <= limit]
+    beyond = done[objectives[done] - best_value > limit]
+    clusters = families_of(problem, kept, objectives[kept], optima[kept], cut, ignore=unused)
+    rejected = families_of(problem, beyond, objectives[beyond], optima[beyond], cut,
+                           first_id=len(clusters) + 1, ignore=unused)[:MAX_REJECTED]  # fmt: skip
     return EnsembleResult(
-        starts=len(candidates),
+        starts=total,
         failed=failed,
         threshold=limit,
-        best_objective=best[1],
-        best_parameters={k: v for k, v in problem.to_natural(best[2]).items() if k in free},
+        best_objective=best_value,
+        best_parameters={
+            k: v for k, v in problem.to_natural(optima[best_row]).items() if k in free
+        },
         accepted=len(kept),
         clusters=clusters,
-        plateaus=_plateaus([v for _, v, _ in kept]),
-        objectives=sorted(v for _, v, _ in finished),
+        plateaus=_plateaus(objectives[kept].tolist()),
+        objectives=np.sort(objectives[done]).tolist(),
         cut=cut,
         objective="2 nllh" if problem.noise_model else "chi2",
-        kept=[
-            {"start": n, "objective": v, "parameters": problem.to_natural(t)} for n, v, t in kept
-        ],
+        kept_starts=kept,
+        kept_objectives=objectives[kept],
         executor=executor,
         rejected=rejected,
-        kept_theta=np.array([t for _, _, t in kept]),
+        kept_theta=optima[kept],
         origin=origin,
         notes=[
             f"{', '.join(unused)} change{'s' if len(unused) == 1 else ''} no residual: the model "
@@ -431,4 +507,6 @@ def ensemble(
         ]
         if unused
         else [],
+        names=free,
+        kept_natural=natural_values(problem, optima[kept]),
     )

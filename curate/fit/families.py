@@ -54,7 +54,7 @@ def warm_starts(full: EnsembleResult) -> tuple[list[np.ndarray], list[int]]:
         spread = np.unique(np.linspace(0, len(kept) - 1, min(MAX_WARM, len(kept))).astype(int))
         for k in spread:
             starts.append(np.asarray(kept[k], dtype=float))
-            origins.append(family_of[full.kept[k]["start"]])
+            origins.append(family_of[int(full.kept_starts[k])])
     return starts, origins
 
 
