@@ -291,3 +291,23 @@ def test_a_sparse_series_of_a_curve_is_no_evidence_against_a_dense_one():
     third = make("third", "C", np.linspace(0, 1200, 25), rng, sd=0.2)
     results = {r.id: r for r in cons.against_consensus([dense, sparse, third])}
     assert all(r.p_value > 0.01 for r in results.values()), results
+
+
+def test_a_tie_between_consistent_sets_is_named_not_decided():
+    from curate.present.text import consistent_labs_line
+
+    # two pairs that agree within each pair and not across: both pairs pass the chi2 test
+    # (Cox 2007, Metrologia 44:187, defines the largest consistent subset; when two subsets of
+    # that size pass, choosing one by its chi2 alone would decide what the data cannot)
+    x, dx = np.array([1.0, 1.01, 2.0, 2.012]), np.full(4, 0.01)
+    assert cons.consistent_subsets(x, dx) == [(0, 1), (2, 3)]  # chi2 0.5 before 0.72
+    summary = cons.summary_consistency(["A", "B", "C", "D"], x, dx)
+    assert summary.consistent_subset == ("A", "B") and summary.tied_subsets == (("C", "D"),)
+    line = consistent_labs_line(summary)
+    assert line.startswith("no single largest consistent set of labs: {A, B}; {C, D}")
+    # two labs that disagree: no set of two passes; the line says so instead of naming one
+    one = cons.summary_consistency(["A", "B"], np.array([1.0, 2.0]), np.array([0.01, 0.02]))
+    assert one.consistent_subset == ("A",) and one.tied_subsets == ()
+    assert consistent_labs_line(one).startswith("no two labs agree within their uncertainties")
+    agree = cons.summary_consistency(["A", "B"], np.array([1.0, 1.01]), np.array([0.01, 0.01]))
+    assert consistent_labs_line(agree) == "largest consistent set of labs: A, B"

@@ -19,6 +19,7 @@ from curate.ledger.problems import ProblemSummary
 from curate.present.tables import field_table
 from curate.present.tables import table as plain_table
 from curate.quality.actions import ConsistencyReport, NoiseOutcome
+from curate.quality.consistency import SummaryConsistency
 from curate.quality.grading import GradeSuggestion
 from curate.records import ConditionValue, DatasetVersion
 from curate.units import condition_text, short_unit, to_unit
@@ -350,6 +351,23 @@ def inspection_text(found: FileInspection) -> Group:
     return Group(*lines)
 
 
+def consistent_labs_line(summary: SummaryConsistency) -> str:
+    """Give the line naming the largest consistent set of labs, or saying there is none."""
+    if len(summary.labels) >= 2 and len(summary.consistent_subset) <= 1:
+        return (
+            f"no two labs agree within their uncertainties (chi2 test at {summary.alpha:g}); "
+            "no consistent set of labs"
+        )
+    if summary.tied_subsets:
+        sets = [summary.consistent_subset, *summary.tied_subsets]
+        return (
+            "no single largest consistent set of labs: "
+            + "; ".join("{" + ", ".join(s) + "}" for s in sets)
+            + " each pass alone; the data cannot tell which is right"
+        )
+    return "largest consistent set of labs: " + ", ".join(summary.consistent_subset)
+
+
 def _num(value: float | None, spec: str = ".3g") -> str:
     return "-" if value is None else format(value, spec)
 
@@ -445,12 +463,7 @@ def consistency_text(result: ConsistencyReport) -> Group:
                 )
             )
         if group.lab_summary is not None:
-            parts.append(
-                Text(
-                    "  largest consistent set of labs: "
-                    + ", ".join(group.lab_summary.consistent_subset)
-                )
-            )
+            parts.append(Text("  " + consistent_labs_line(group.lab_summary)))
         parts.append(Text(""))
     for note in result.notes:
         parts.append(Text(f"note: {note}"))

@@ -38,6 +38,7 @@ __all__ = [
     "against_consensus",
     "collapse_replicates",
     "consensus_at",
+    "consistent_subsets",
     "largest_consistent_subset",
     "match_groups",
     "pdg_scale_factor",
@@ -523,20 +524,31 @@ def largest_consistent_subset(
     (chi2 <= chi2_{1-alpha}(n-1)), the one with the smallest chi2. Exhaustive up to 16 entries;
     beyond that, the entry with the largest normalised deviation is removed one at a time.
     """
+    return consistent_subsets(x, dx, alpha=alpha)[0]
+
+
+def consistent_subsets(
+    x: np.ndarray, dx: np.ndarray, *, alpha: float = 0.05
+) -> list[tuple[int, ...]]:
+    """Give every subset of the largest size whose chi2 test passes at ``alpha``, smallest chi2
+    first (as ``largest_consistent_subset``). More than one means the largest consistent set
+    is not unique: the data cannot tell which of those groups is right. A single entry of one
+    index means no two values agree (the most precise one is given)."""
     x = np.asarray(x, dtype=float)
     dx = np.asarray(dx, dtype=float)
     n = len(x)
     if n <= 16:
         for size in range(n, 1, -1):
-            best: tuple[float, tuple[int, ...]] | None = None
+            passing: list[tuple[float, tuple[int, ...]]] = []
+            limit = stats.chi2.ppf(1 - alpha, size - 1)
             for subset in itertools.combinations(range(n), size):
                 index = np.asarray(subset)
                 chi2 = _chi2_about_mean(x[index], dx[index])
-                if chi2 <= stats.chi2.ppf(1 - alpha, size - 1) and (best is None or chi2 < best[0]):
-                    best = (chi2, subset)
-            if best is not None:
-                return best[1]
-        return (int(np.argmin(dx)),) if n else ()
+                if chi2 <= limit:
+                    passing.append((chi2, subset))
+            if passing:
+                return [subset for _, subset in sorted(passing)]
+        return [(int(np.argmin(dx)),)] if n else [()]
     keep = list(range(n))
     while len(keep) > 1:
         index = np.asarray(keep)
@@ -545,7 +557,7 @@ def largest_consistent_subset(
         w = 1.0 / dx[index] ** 2
         mean = np.sum(w * x[index]) / np.sum(w)
         keep.pop(int(np.argmax(np.abs(x[index] - mean) / dx[index])))
-    return tuple(keep)
+    return [tuple(keep)]
 
 
 @dataclass(frozen=True)
@@ -573,6 +585,8 @@ class SummaryConsistency:
     scaled_stderr: float
     consistent_subset: tuple[str, ...]
     alpha: float
+    # other subsets of the same size that pass too: the largest consistent set is not unique
+    tied_subsets: tuple[tuple[str, ...], ...] = ()
     extra: dict[str, Any] = field(default_factory=dict)
 
     def to_dict(self) -> dict[str, Any]:
@@ -630,7 +644,8 @@ def summary_consistency(
     tau2_pm = _paule_mandel(values, sd**2)
     w_pm = 1.0 / (sd**2 + tau2_pm)
     scale, n_used, _ = pdg_scale_factor(values, sd)
-    subset = largest_consistent_subset(values, sd, alpha=alpha)
+    subsets = consistent_subsets(values, sd, alpha=alpha)
+    subset = subsets[0]
     return SummaryConsistency(
         labels=tuple(labels),
         values=tuple(float(v) for v in values),
@@ -653,6 +668,7 @@ def summary_consistency(
         scaled_stderr=stderr * max(scale, 1.0),
         consistent_subset=tuple(labels[i] for i in subset),
         alpha=alpha,
+        tied_subsets=tuple(tuple(labels[i] for i in other) for other in subsets[1:]),
     )
 
 
