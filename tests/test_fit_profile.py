@@ -188,3 +188,31 @@ def test_the_report_draws_the_newest_ensemble_and_profiles(cli, tmp_path):
     assert '<section id="profiles"><h2>Profiles</h2>' in page
     assert 'alt="waterfall' in page and "each parameter&#x27;s profile with its threshold" in page
     assert page.count("identifiable") >= 2
+
+
+def test_a_mirror_optimum_found_by_the_starts_is_named_beside_the_interval():
+    # two decays of equal amplitude: swapping k1 and k2 gives the same curve, so the profile of
+    # k1 comes back to the optimum at the other rate (textbook non-uniqueness; no source needed)
+    t = np.linspace(0.0, 20.0, 40)
+    y = np.exp(-0.1 * t) + np.exp(-1.0 * t) + 0.002 * np.sin(3 * t)
+    points = pd.DataFrame({"time": t, "value": y, "weight": np.full(len(t), 1.0 / 0.01**2)})
+
+    def decays(params, frame):
+        time = frame["time"].to_numpy()
+        return np.exp(-params["k1"] * time) + np.exp(-params["k2"] * time)
+
+    spec = fitting.spec_from_dict({"parameters": {
+        "k1": {"start": 0.05, "lower": 0.01, "upper": 10.0, "log": True},
+        "k2": {"start": 3.0, "lower": 0.01, "upper": 10.0, "log": True}}})  # fmt: skip
+    problem = fitting.FitProblem(points, decays, spec)
+    best = fitting.fit(problem, fitting.FitOptions(starts=12, seed=0))
+    result = profile(problem, best, ["k1"])
+    k1 = result.parameters["k1"]
+    assert k1.verdict == VERDICTS[0]
+    mirror = 1.0 if k1.value < 0.5 else 0.1
+    assert not (k1.lower <= mirror <= k1.upper)
+    notes = [n for n in result.notes if "not one interval" in n]
+    assert len(notes) == 1 and f"k1 = {mirror:.4g}" in notes[0].replace("0.1000", "0.1")
+    # one start: no other optimum is known, nothing is claimed
+    alone = profile(problem, fitting.fit(problem, fitting.FitOptions(starts=1)), ["k1"])
+    assert not [n for n in alone.notes if "not one interval" in n]

@@ -448,7 +448,8 @@ def fit(problem: FitProblem, options: FitOptions | None = None, *,
             continue
         chi2 = float(2 * solution.cost)
         record: dict[str, Any] = {"start": problem.to_natural(x0), "chi2": chi2, "converged": bool(solution.success),
-                  "message": str(solution.message), "from": _origin(number, options)}  # fmt: skip
+                  "message": str(solution.message), "from": _origin(number, options),
+                  "optimum": problem.to_natural(np.asarray(solution.x)), "objective": chi2}  # fmt: skip
         if problem.noise_model:  # the cost also holds the noise terms: give both parts apart
             fitted = np.asarray(solution.fun)[: len(problem.y)]
             record["chi2"] = float(fitted @ fitted)

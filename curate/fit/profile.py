@@ -209,6 +209,40 @@ def _others_at_bounds(problem: FitProblem, index: int, theta: np.ndarray) -> lis
     ]
 
 
+def _elsewhere(found: ParameterProfile, best: FitResult, optimum: float, threshold: float,
+               level: float) -> list[str]:  # fmt: skip
+    """Give a note for each other optimum the fit's starts found within the threshold with the
+    parameter outside its interval. The profile there lies at or below that fit's objective
+    (it minimises over the others), so the confidence set is not one interval there: the walked
+    interval is only the part around the best fit."""
+    low = -math.inf if found.lower is None else found.lower
+    high = math.inf if found.upper is None else found.upper
+    seen: list[tuple[float, float, int]] = []  # value, rise, starts ending there
+    for record in best.starts:
+        value = (record.get("optimum") or {}).get(found.name)
+        objective = record.get("objective")
+        if value is None or objective is None or not math.isfinite(objective):
+            continue
+        rise = float(objective) - optimum
+        span = max(abs(high - low) if math.isfinite(high - low) else 0.0, 1e-12)
+        if rise > threshold or low - 1e-3 * span <= value <= high + 1e-3 * span:
+            continue
+        for k, (other, other_rise, count) in enumerate(seen):
+            if abs(other - value) <= 1e-3 * max(abs(other), abs(value), 1e-300):
+                seen[k] = (other, min(other_rise, rise), count + 1)
+                break
+        else:
+            seen.append((float(value), rise, 1))
+    return [
+        f"{found.name}: {count} start{'s' if count > 1 else ''} of the fit ended at "
+        f"{found.name} = {value:.4g}, {max(rise, 0.0):.3g} above the optimum (within "
+        f"{threshold:.3g}), outside the interval: the {100 * level:g} % confidence set of "
+        f"{found.name} is not one interval; the one given is the part around the best fit "
+        "(`curate ensemble` finds every family of good fits)"
+        for value, rise, count in sorted(seen)
+    ]
+
+
 def _natural(problem: FitProblem, index: int, x: float) -> float:
     parameter = problem.free[index]
     return float(math.exp(x)) if parameter.log else float(x * problem.typical[index])
@@ -282,6 +316,7 @@ def profile(
             upper=None if high is None else _natural(problem, index, high),
             verdict=verdict, points=points, lower_end=sides[-1.0][2], upper_end=sides[1.0][2],
         )  # fmt: skip
+        result.notes += _elsewhere(result.parameters[name], best, optimum, threshold, level)
     if progress is not None:
         progress(len(chosen), len(chosen), "profiles")
     result.refits = walker.refits

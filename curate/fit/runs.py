@@ -263,7 +263,8 @@ def run_profile(catalog: Ledger, *, backend: ModelBackend | None = None,
     if not best.converged:
         result.notes.append(f"the fit the profiles start from did not converge: {best.message}")
     summary = {**result.to_dict(), "threshold": result.threshold, "level": level,
-               "optimum": result.optimum, "objective": result.objective}  # fmt: skip
+               "optimum": result.optimum, "objective": result.objective,
+               "notes": result.notes}  # fmt: skip
     _record(catalog, "profile", backend, spec, weighted, summary)
     return result
 
