@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import hashlib
 import multiprocessing
 import os
 import random
@@ -100,6 +101,81 @@ def test_killed_intake_leaves_every_file_whole(tmp_path):
         assert check_after_kill(catalog, inbox) == GOOD
         assert len(list((inbox / "quarantine").glob("bad_*.csv"))) == BAD
     assert partial_seen >= 3  # the kills really landed in the middle of intakes
+
+
+BATCH = 25
+# a bulk intake: the inbox's good files read into drafts, logged 25 at a time, each batch one
+# transaction sealed by one event (bad files are left where they are)
+_BULK_INTAKE = """
+import sys
+from pathlib import Path
+import curate
+from curate.errors import CurateError
+catalog, inbox, batch = sys.argv[1], Path(sys.argv[2]), int(sys.argv[3])
+with curate.open_catalog(catalog, actor="bulk") as opened:
+    drafts = []
+    for path in sorted(inbox.glob("*.csv")):
+        try:
+            drafts.append(opened.read_file(path))
+        except CurateError:
+            continue
+        if len(drafts) == batch:
+            opened.add_drafts(drafts, batch=True)
+            drafts = []
+    if drafts:
+        opened.add_drafts(drafts, batch=True)
+"""
+
+
+def bulk_intake_process(catalog: Path, inbox: Path) -> subprocess.Popen:
+    return subprocess.Popen([sys.executable, "-c", _BULK_INTAKE, str(catalog), str(inbox), str(BATCH)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)  # fmt: skip
+
+
+def check_after_bulk_kill(catalog: Path, inbox: Path) -> int:
+    logged = check_after_kill(catalog, inbox)
+    with curate.open_catalog(catalog) as opened:
+        events = opened.events()
+        for version in opened.list():  # every logged file whole: its bytes as they were read
+            raw = (inbox / str(version.record.source.raw_file_name)).read_bytes()
+            assert hashlib.sha256(raw).hexdigest() == version.record.source.raw_file_sha256
+    # whole batches or none: each batch event names 25 datasets (or the last few)
+    sizes = [len(e["payload"]["datasets"]) for e in events if e["kind"] == "add_batch"]
+    assert all(size == BATCH for size in sizes[:-1]) and sum(sizes) == logged
+    assert logged % BATCH == 0 or logged == GOOD
+    return logged
+
+
+@pytest.mark.slow
+@pytest.mark.xdist_group("own_processes")
+def test_killed_bulk_intake_leaves_every_file_logged_whole_or_waiting(tmp_path):
+    rng = random.Random(20261205)
+    make_inbox(tmp_path / "probe")
+    started = time.monotonic()
+    assert bulk_intake_process(tmp_path / "probe.db", tmp_path / "probe").wait(timeout=600) == 0
+    duration = time.monotonic() - started
+    started = time.monotonic()
+    subprocess.run([sys.executable, "-c", "import curate"], check=True, timeout=120)
+    startup = time.monotonic() - started
+    working = max(duration - startup, 0.2)
+    partial_seen = 0
+    for trial in range(30):
+        if trial >= 10 and partial_seen >= 3:
+            break
+        inbox, catalog = tmp_path / f"inbox{trial}", tmp_path / f"c{trial}.db"
+        make_inbox(inbox)
+        process = bulk_intake_process(catalog, inbox)
+        time.sleep(startup + rng.uniform(0.05, 0.95) * working)
+        process.send_signal(signal.SIGKILL)
+        process.wait(timeout=60)
+        if not catalog.exists():
+            continue
+        logged = check_after_bulk_kill(catalog, inbox)
+        partial_seen += 0 < logged < GOOD
+        # a rerun logs the rest: what was logged is recognised, nothing is added twice
+        assert bulk_intake_process(catalog, inbox).wait(timeout=600) == 0
+        assert check_after_bulk_kill(catalog, inbox) == GOOD
+    assert partial_seen >= 3
 
 
 def _writer(catalog: str, worker: int, count: int, queue) -> None:

@@ -30,6 +30,7 @@ from curate.export.petab_problem import (
 from curate.export.prov import write_prov
 from curate.export.table import write_table, write_table_batches, write_units
 from curate.ledger import Ledger
+from curate.ledger.provenance import BATCH_EVENT
 from curate.records import DatasetVersion
 from curate.units import (
     canonical_unit,
@@ -124,9 +125,13 @@ def _dataset_facts(
 
 
 def _version_facts(catalog: Ledger, versions: list[DatasetVersion]) -> list[dict[str, Any]]:
-    events = {
-        (e["dataset_id"], e["version"]): e for e in catalog.events() if e["version"] is not None
-    }
+    events: dict[tuple[Any, Any], dict[str, Any]] = {}
+    for e in catalog.events():
+        if e["version"] is not None:
+            events[(e["dataset_id"], e["version"])] = e
+        elif e["kind"] == BATCH_EVENT:  # one event wrote many versions
+            for entry in e["payload"].get("datasets", []):
+                events[(entry[0], entry[1])] = e
     return [
         {
             "id": v.id, "version": v.version, "content_hash": v.record.content_hash, "record_hash": v.record_hash,

@@ -44,7 +44,14 @@ from curate.ledger.problems import (
     store_problem,
     summarise_problems,
 )
-from curate.ledger.provenance import ChainHead, head_problem, text_sha256
+from curate.ledger.provenance import (
+    BATCH_EVENT,
+    BATCH_FIELDS,
+    ChainHead,
+    batch_entries,
+    head_problem,
+    text_sha256,
+)
 from curate.ledger.store import Store, VersionRow
 from curate.ledger.verify import VerifyReport, verify_store
 from curate.records import (
@@ -454,13 +461,76 @@ class Ledger(Amendments):
             warnings=tuple(w.message for w in plan.record.warnings),
         )
 
-    def add_drafts(self, drafts: Iterable[Draft]) -> builtins.list[AddResult]:
-        """Log many drafts as one action: one transaction, all or nothing."""
+    def add_drafts(
+        self, drafts: Iterable[Draft], *, batch: bool = False
+    ) -> builtins.list[AddResult]:
+        """Log many drafts as one action: one transaction, all or nothing.
+
+        With ``batch`` the new datasets are written with a few multi-row statements and sealed
+        by one ``add_batch`` event that names each dataset with its version, record hash and
+        content hash (so ``verify`` still names a single broken record); without it each
+        dataset gets its own ``add`` event, as a single add does. A draft that supersedes
+        another dataset is always written on its own (it writes a version of that one too).
+        """
         with self._store.transaction():
             context = ActionContext(self._store)
-            results = []
-            for draft in drafts:
-                results.append(self.apply(self.plan_add(draft, context), context))
+            if not batch:
+                return [self.apply(self.plan_add(draft, context), context) for draft in drafts]
+            return self._add_batch(drafts, context)
+
+    def _add_batch(
+        self, drafts: Iterable[Draft], context: ActionContext
+    ) -> builtins.list[AddResult]:
+        created = dt.datetime.now(dt.UTC)
+        stamp = created.isoformat()
+        results: builtins.list[AddResult] = []
+        series: dict[str, SeriesArrays] = {}
+        rows: builtins.list[VersionRow] = []
+        sealed: builtins.list[builtins.list[Any]] = []
+        for draft in drafts:
+            plan = self.plan_add(draft, context)
+            if plan.duplicate_of is not None or plan.record.supersedes is not None:
+                results.append(self.apply(plan, context))
+                continue
+            record = plan.record
+            record_json = canonical_json(record.model_dump(mode="json"))
+            digest = record_hash(plan.dataset_id, 1, record_json)
+            series.setdefault(record.content_hash, draft.arrays)
+            if draft.as_given is not None and record.as_given is not None:
+                series.setdefault(record.as_given, draft.as_given)
+            rows.append(
+                VersionRow(
+                    dataset_id=plan.dataset_id, version=1, created_at=stamp,
+                    record_json=record_json, record_hash=digest,
+                    content_hash=record.content_hash, observable=record.observable.id,
+                    lab=record.source.lab, grade=record.trust.grade if record.trust else None,
+                    retired=record.retired,
+                )
+            )  # fmt: skip
+            sealed.append(
+                [plan.dataset_id, 1, digest, record.content_hash, draft.origin,
+                 record.source.raw_file_sha256]
+            )  # fmt: skip
+            context.remember(
+                DatasetVersion.model_construct(
+                    id=plan.dataset_id, version=1, created_at=created, record=record,
+                    record_hash=digest,
+                )
+            )  # fmt: skip
+            results.append(
+                AddResult(
+                    id=plan.dataset_id, version=1, added=True, duplicate_of=None,
+                    origin=draft.origin, warnings=tuple(w.message for w in record.warnings),
+                )
+            )  # fmt: skip
+        if rows:
+            self._store.put_series_many(series)
+            self._store.put_versions(rows)
+            self._store.append_event(
+                BATCH_EVENT,
+                {"datasets": sealed, "fields": list(BATCH_FIELDS)},
+                actor=self.actor,
+            )
         return results
 
     def add(
@@ -764,6 +834,15 @@ class Ledger(Amendments):
         entries = []
         for event in self._store.events(dataset_id):
             payload = event.payload
+            if event.kind == BATCH_EVENT:  # one event for many datasets: this one's entry
+                entry = next(e for e in batch_entries(event) if e["dataset_id"] == dataset_id)
+                entries.append(
+                    HistoryEntry(
+                        seq=event.seq, at=event.at, actor=event.actor, kind="add",
+                        version=entry.get("version"), changes=(), reason=None,
+                    )
+                )  # fmt: skip
+                continue
             changes = tuple(payload.get("changes", ()))
             if payload.get("supersedes"):
                 changes += (f"supersedes {payload['supersedes']} (retired by this log)",)

@@ -180,8 +180,10 @@ class ActionContext:
         for key, value in conditions.items():
             kind = condition_kind(value)
             for other, ids in self.kinds.get(key, {}).items():
+                if other == kind:  # the usual case: no list of holders to build (N adds, not N^2)
+                    continue
                 holders = [i for i in ids if i != dataset_id]
-                if other != kind and holders:
+                if holders:
                     raise InputError(
                         f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
                         f"{_kind_text(kind)}, but other datasets hold '{key}' as "

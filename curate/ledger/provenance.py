@@ -25,10 +25,13 @@ from curate.errors import InputError
 from curate.records import canonical_json
 
 __all__ = [
+    "BATCH_EVENT",
+    "BATCH_FIELDS",
     "GENESIS",
     "ChainHead",
     "ChainProblem",
     "Event",
+    "batch_entries",
     "event_hash",
     "head_problem",
     "parse_head",
@@ -37,6 +40,10 @@ __all__ = [
 ]
 
 GENESIS = "0" * 64
+# the event that seals a batch of new datasets at once (``Ledger.add_drafts(batch=True)``):
+# its payload's "datasets" holds one list per dataset, with these fields in this order
+BATCH_EVENT = "add_batch"
+BATCH_FIELDS = ("dataset_id", "version", "record_hash", "content_hash", "origin", "raw_file_sha256")
 
 
 @dataclass(frozen=True)
@@ -196,3 +203,16 @@ def head_problem(events: list[Event], head: ChainHead) -> str | None:
         f"the catalog no longer extends head {short}{where}: its event {head.seq} has hash "
         f"{found[:12]} (the log was rewritten from there)"
     )
+
+
+def batch_entries(event: Event) -> list[dict[str, Any]]:
+    """Give the datasets a batch event wrote, one dict per dataset (fields as
+    :data:`BATCH_FIELDS` name them); nothing for any other event."""
+    if event.kind != BATCH_EVENT:
+        return []
+    entries = event.payload.get("datasets")
+    if not isinstance(entries, list):
+        return []
+    return [
+        dict(zip(BATCH_FIELDS, entry, strict=False)) for entry in entries if isinstance(entry, list)
+    ]

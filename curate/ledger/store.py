@@ -39,7 +39,7 @@ import numpy as np
 import sqlite_utils
 
 from curate.errors import CatalogError
-from curate.ledger.provenance import GENESIS, Event, event_hash
+from curate.ledger.provenance import BATCH_EVENT, GENESIS, Event, event_hash
 from curate.records import SeriesArrays, array_bytes, canonical_json
 
 __all__ = ["PolicyRow", "ProblemRow", "Store", "VersionRow", "read_chain"]
@@ -321,7 +321,8 @@ class Store:
         return Event(seq + 1, at, actor, kind, dataset_id, version, payload, prev, sealed)
 
     def events(self, dataset_id: str | None = None) -> list[Event]:
-        """Give the events in order, all or those of one dataset."""
+        """Give the events in order, all or those of one dataset (with the batch events that
+        name it among the datasets they wrote)."""
         return _read_events(self.db.conn, dataset_id)
 
     # -- series ----------------------------------------------------------------------------
@@ -342,6 +343,32 @@ class Store:
             f" VALUES (?,?,{','.join('?' * len(names))})",
             [content_hash, len(arrays), *(blobs[name] for name in names)],
         )
+
+    def put_series_many(self, arrays_by_hash: dict[str, SeriesArrays]) -> None:
+        """Store many series under their content hashes in one statement per column layout
+        (those already there are left as they are)."""
+        plain, censored = [], []
+        for content_hash, arrays in arrays_by_hash.items():
+            blobs = [
+                None if a is None else array_bytes(name, a)
+                for name, a in arrays.named().items()
+                if name != "censored"
+            ]
+            codes = arrays.censored
+            if codes is not None and codes.any():
+                censored.append([content_hash, len(arrays), *blobs, array_bytes("censored", codes)])
+            else:
+                plain.append([content_hash, len(arrays), *blobs])
+        names = "content_hash, n_points, time, value, sd, replicate, n"
+        if plain:
+            self.db.conn.executemany(
+                f"INSERT OR IGNORE INTO series({names}) VALUES (?,?,?,?,?,?,?)", plain
+            )
+        if censored:
+            self.db.conn.executemany(
+                f"INSERT OR IGNORE INTO series({names}, censored) VALUES (?,?,?,?,?,?,?,?)",
+                censored,
+            )
 
     def series(self, content_hash: str) -> SeriesArrays:
         """Give the arrays stored under a content hash."""
@@ -427,6 +454,17 @@ class Store:
                 int(row.retired),
             ],
         )
+
+    def put_versions(self, rows: list[VersionRow]) -> None:
+        """Insert many new version rows in one statement (never replaces one)."""
+        self.db.conn.executemany(
+            f"INSERT INTO versions({self._VERSION_COLUMNS}) VALUES (?,?,?,?,?,?,?,?,?,?)",
+            [
+                [r.dataset_id, r.version, r.created_at, r.record_json, r.record_hash,
+                 r.content_hash, r.observable, r.lab, r.grade, int(r.retired)]
+                for r in rows
+            ],
+        )  # fmt: skip
 
     def _versions(self, where: str = "", args: list[Any] | None = None) -> list[VersionRow]:
         sql = f"SELECT {self._VERSION_COLUMNS} FROM versions {where}"
@@ -593,8 +631,11 @@ def _read_events(conn: sqlite3.Connection, dataset_id: str | None = None) -> lis
     sql = "SELECT seq, at, actor, kind, dataset_id, version, payload, prev_hash, hash FROM events"
     args: list[Any] = []
     if dataset_id is not None:
-        sql += " WHERE dataset_id = ?"
-        args.append(dataset_id)
+        sql += (
+            " WHERE dataset_id = ? OR (kind = ? AND dataset_id IS NULL AND EXISTS (SELECT 1"
+            " FROM json_each(payload, '$.datasets') WHERE json_extract(value, '$[0]') = ?))"
+        )
+        args.extend([dataset_id, BATCH_EVENT, dataset_id])
     rows = conn.execute(sql + " ORDER BY seq", args).fetchall()
     return [
         Event(int(r[0]), r[1], r[2], r[3], r[4], r[5], json.loads(r[6]), r[7], r[8]) for r in rows

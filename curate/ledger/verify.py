@@ -35,6 +35,7 @@ from curate.ledger.provenance import (
     GENESIS,
     ChainHead,
     Event,
+    batch_entries,
     head_problem,
     text_sha256,
     verify_chain,
@@ -162,6 +163,10 @@ def verify_store(store: Store, head: ChainHead | None = None) -> VerifyReport:
     for event in events:
         if event.dataset_id is not None and event.version is not None:
             logged[(event.dataset_id, event.version)] = str(event.payload.get("record_hash"))
+        for entry in batch_entries(event):  # a batch: one event names many versions
+            version = entry.get("version")
+            written = (str(entry.get("dataset_id")), version if isinstance(version, int) else 0)
+            logged[written] = str(entry.get("record_hash"))
     for version_key, sealed in sealed_by_version.items():
         if logged.get(version_key) != sealed:
             report.problems.append(
