@@ -29,6 +29,7 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
 import curate  # noqa: E402
+from bench import folder as folder_intake  # noqa: E402
 from bench import petab_problems, workbook  # noqa: E402
 from bench.peak import report_peak, streamed_export_peak  # noqa: E402
 from bench.timing import median_time  # noqa: E402
@@ -493,6 +494,11 @@ def main() -> None:
         )
         results["workbook_calamine"] = workbook.case_workbook_intake(folder, 10_000, repeats)
         print(f"  workbook done (ratio {results['workbook_calamine']['ratio']:.3f})", flush=True)
+        results["folder_intake_scaling"] = folder_intake.case_folder_scaling(
+            folder, [300, 3000] if quick else [1000, 10000]
+        )
+        exponent = results["folder_intake_scaling"]["ratio"]
+        print(f"  folder intake done (exponent {exponent:.2f})", flush=True)
         results["intake"], results["intake_batch"] = case_intake(folder, n_series, repeats)
         print(f"  intake done ({results['intake']['ours_s']:.2f} s)", flush=True)
         results["export_parquet"] = case_export(folder, n_series, repeats)

@@ -156,3 +156,84 @@ def test_logging_a_fixed_file_resolves_its_old_quarantine_note(catalog, tmp_path
     note = (jail / "run.csv.resolved.txt").read_text().splitlines()
     assert "'n.d.' is not a number" in note[2]
     assert note[-1].endswith(f"run.csv was logged later as {report.items[0].id}")
+
+
+def _velarin_folder(folder, count):
+    """Write ``count`` small files of one observable (two labs) and one unit clash."""
+    for k in range(count):
+        rows = "\n".join(f"{t},{(k + 1) * 0.5 + t / 10:g},0.1" for t in range(0, 40, 10))
+        write(folder / f"run_{k:02d}.csv", "time,value,sd\n" + rows + "\n")
+        write(
+            folder / f"run_{k:02d}.toml",
+            'observable.id = "velarin"\nobservable.unit = "nM"\ntime.unit = "min"\n'
+            f'source.lab = "Lab {"AB"[k % 2]}"\n[conditions]\ndose = "{k} nM"\n',
+        )
+    # the values of run_03 under other conditions (a copy by mistake), and a unit of another
+    # dimension for the same observable
+    write(folder / "run_90.csv", (folder / "run_03.csv").read_text())
+    write(folder / "run_90.toml", (folder / "run_03.toml").read_text().replace("3 nM", "30 nM"))
+    write(folder / "run_91.csv", LONG_CSV)
+    write(folder / "run_91.toml", 'observable.id = "velarin"\nobservable.unit = "s"\n'
+          'time.unit = "min"\nsource.lab = "Lab A"\n')  # fmt: skip
+
+
+def test_intake_reads_the_catalog_once_and_gives_what_file_by_file_adds_give(
+    catalog, tmp_path, monkeypatch
+):
+    import curate.ledger.intake as intake_module
+    from curate import open_catalog
+    from curate.errors import CurateError
+
+    builds = []
+
+    class Counted(intake_module.ActionContext):
+        def __init__(self, store):
+            builds.append(1)
+            super().__init__(store)
+
+    monkeypatch.setattr(intake_module, "ActionContext", Counted)
+    _velarin_folder(tmp_path / "inbox", 12)
+    report = catalog.intake(tmp_path / "inbox")
+    assert len(builds) == 1  # one read of the catalog for 14 files, a quarantined one among them
+    assert report.count("added") == 13 and report.count("quarantined") == 1
+
+    # the reference: each file added alone, each add reading the whole catalog afresh
+    _velarin_folder(tmp_path / "again", 12)
+    with open_catalog(tmp_path / "reference.db", actor="tester") as reference:
+        expected = []
+        for data in sorted((tmp_path / "again").glob("*.csv")):
+            try:
+                added = reference.add(data)
+            except CurateError as err:  # the refusal is what is compared
+                expected.append((data.name, "quarantined", None, str(err), ()))
+                continue
+            expected.append((data.name, "added", added.id, None, added.warnings))
+    got = [(i.file, i.status, i.id, i.reason, i.warnings) for i in report.items]
+    assert [row[:3] for row in got] == [row[:3] for row in expected]
+    assert [row[4] for row in got] == [row[4] for row in expected]
+    assert "values identical to dataset" in " ".join(dict((r[0], r[4]) for r in got)["run_90.csv"])
+    assert "does not fit observable 'velarin'" in got[-1][3]
+    assert got[-1][3].split(": ", 1)[1] == expected[-1][3].split(": ", 1)[1]
+    assert catalog.verify().ok
+
+
+def test_intake_reads_the_catalog_again_when_another_writer_logged_between_files(
+    catalog, tmp_path
+):
+    from curate import open_catalog
+
+    _velarin_folder(tmp_path / "inbox", 4)
+    other_file = tmp_path / "other.csv"
+    write(other_file, (tmp_path / "inbox" / "run_02.csv").read_text())
+    write(tmp_path / "other.toml", (tmp_path / "inbox" / "run_02.toml").read_text())
+
+    def other_writer(done, total, name):
+        if name == "run_01.csv":  # before run_01 is read: run_02's data logged by someone else
+            with open_catalog(catalog.path, actor="someone else") as other:
+                other.add(other_file)
+
+    report = catalog.intake(tmp_path / "inbox", progress=other_writer)
+    status = {item.file: (item.status, item.id) for item in report.items}
+    assert status["run_02.csv"][0] == "duplicate"
+    assert status["run_01.csv"] == ("added", "lab_velarin_03")  # numbered past the other's 02
+    assert catalog.verify().ok

@@ -75,6 +75,10 @@ def _kind_example(kind: str) -> str:
     return examples.get(kind, f"a value with a unit such as '10 {units.short_unit(kind)}'")
 
 
+def _neighbour_order(neighbour: Neighbour) -> str:
+    return neighbour.dataset_id
+
+
 def _unit_text(unit: str) -> str:
     return f"{units.short_unit(unit)} ({units.dimension_of(unit)})"
 
@@ -116,7 +120,10 @@ class ActionContext:
             dataset_id=version.id, observable=rec.observable.id, unit=rec.observable.unit,
             conditions=conditions, lab=rec.source.lab, content_hash=rec.content_hash, magnitude=magnitude,
         )  # fmt: skip
-        self.by_hash.setdefault(rec.content_hash, []).append(neighbour)
+        # in id order, as a fresh build reads them, so a kept index warns as a fresh one would
+        bisect.insort(
+            self.by_hash.setdefault(rec.content_hash, []), neighbour, key=_neighbour_order
+        )
         if magnitude > 0:
             bisect.insort(
                 self.levels.setdefault((rec.observable.id, rec.observable.unit), []), magnitude
@@ -163,12 +170,14 @@ class ActionContext:
         held = self.units.get(rec.observable.id, {})
         others = [(u, ids) for u, ids in held.items() if u != rec.observable.unit and ids]
         if others:
-            unit, ids = others[0]
+            # the unit of the earliest id, as in an index built afresh (kept ones grow in
+            # another order)
+            unit, ids = min(others, key=lambda other: min(other[1]))
             raise InputError(
                 f"{origin}: unit '{rec.observable.unit_original}' "
                 f"({units.dimension_of(rec.observable.unit)}) does not fit observable "
                 f"'{rec.observable.id}', whose datasets are in {_unit_text(unit)}, e.g. "
-                f"{ids[0]}; one observable keeps one dimension: give a unit of that dimension, "
+                f"{min(ids)}; one observable keeps one dimension: give a unit of that dimension, "
                 "mark relative data as relative, or log it under another observable id"
             )
 
@@ -179,18 +188,22 @@ class ActionContext:
         differs from what the catalog's other datasets hold under the same key."""
         for key, value in conditions.items():
             kind = condition_kind(value)
-            for other, ids in self.kinds.get(key, {}).items():
-                if other == kind:  # the usual case: no list of holders to build (N adds, not N^2)
-                    continue
-                holders = [i for i in ids if i != dataset_id]
-                if holders:
-                    raise InputError(
-                        f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
-                        f"{_kind_text(kind)}, but other datasets hold '{key}' as "
-                        f"{_kind_text(other)}, e.g. {holders[0]}; a condition key keeps one "
-                        f"kind across the catalog: give {_kind_example(other)}, or use "
-                        "another key"
-                    )
+            # only the other kinds are looked through (the dataset's own kind may be held by
+            # every dataset); the one named is that of the earliest id, as a fresh index gives
+            clashes = [
+                (min(holders), other)
+                for other, ids in self.kinds.get(key, {}).items()
+                if other != kind and (holders := [i for i in ids if i != dataset_id])
+            ]
+            if clashes:
+                holder, other = min(clashes)
+                raise InputError(
+                    f"{origin}, condition '{key}': '{units.condition_text(value)}' is "
+                    f"{_kind_text(kind)}, but other datasets hold '{key}' as "
+                    f"{_kind_text(other)}, e.g. {holder}; a condition key keeps one "
+                    f"kind across the catalog: give {_kind_example(other)}, or use "
+                    "another key"
+                )
 
     def level(self, observable: str, unit: str) -> float | None:
         """Give the median typical value of the datasets of one observable and unit."""
