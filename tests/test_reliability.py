@@ -63,6 +63,27 @@ def check_after_kill(catalog: Path, inbox: Path) -> int:
     return len(logged)
 
 
+class KillWindow:
+    """Random kill moments that home in on the stretch where an intake is under way.
+
+    Drawn between ``low`` and ``high`` seconds after the start; a kill that found nothing
+    logged moves ``low`` up to its moment, one that found everything logged moves ``high``
+    down, so a machine faster or slower than the probe run still gets kills mid-intake.
+    """
+
+    def __init__(self, startup: float, working: float, rng: random.Random) -> None:
+        self.low, self.high, self.rng = startup, startup + working, rng
+
+    def moment(self) -> float:
+        return self.low + self.rng.uniform(0.05, 0.95) * max(self.high - self.low, 0.05)
+
+    def learn(self, moment: float, logged: int | None) -> None:
+        if logged is None or logged == 0:
+            self.low = min(moment, self.high - 0.05)
+        elif logged >= GOOD:
+            self.high = max(moment, self.low + 0.05)
+
+
 @pytest.mark.slow
 @pytest.mark.xdist_group("own_processes")
 def test_killed_intake_leaves_every_file_whole(tmp_path):
@@ -81,6 +102,7 @@ def test_killed_intake_leaves_every_file_whole(tmp_path):
     startup = time.monotonic() - started
     working = max(duration - startup, 0.2)
     partial_seen = 0
+    window = KillWindow(startup, working, rng)
     # at least 10 trials; more (up to 30) while fewer than 3 kills landed mid-intake, since a
     # loaded machine shifts the timing the random kill moments are drawn from
     for trial in range(30):
@@ -89,12 +111,15 @@ def test_killed_intake_leaves_every_file_whole(tmp_path):
         inbox, catalog = tmp_path / f"inbox{trial}", tmp_path / f"c{trial}.db"
         make_inbox(inbox)
         process = intake_process(catalog, inbox)
-        time.sleep(startup + rng.uniform(0.05, 0.95) * working)
+        moment = window.moment()
+        time.sleep(moment)
         process.send_signal(signal.SIGKILL)
         process.wait(timeout=60)
         if not catalog.exists():
+            window.learn(moment, None)
             continue  # killed before the catalog was even created: nothing to check
         logged = check_after_kill(catalog, inbox)
+        window.learn(moment, logged)
         partial_seen += 0 < logged < GOOD
         # a rerun completes the job, with no duplicate datasets
         assert intake_process(catalog, inbox).wait(timeout=600) in (0, 1)
@@ -159,18 +184,22 @@ def test_killed_bulk_intake_leaves_every_file_logged_whole_or_waiting(tmp_path):
     startup = time.monotonic() - started
     working = max(duration - startup, 0.2)
     partial_seen = 0
+    window = KillWindow(startup, working, rng)
     for trial in range(30):
         if trial >= 10 and partial_seen >= 3:
             break
         inbox, catalog = tmp_path / f"inbox{trial}", tmp_path / f"c{trial}.db"
         make_inbox(inbox)
         process = bulk_intake_process(catalog, inbox)
-        time.sleep(startup + rng.uniform(0.05, 0.95) * working)
+        moment = window.moment()
+        time.sleep(moment)
         process.send_signal(signal.SIGKILL)
         process.wait(timeout=60)
         if not catalog.exists():
+            window.learn(moment, None)
             continue
         logged = check_after_bulk_kill(catalog, inbox)
+        window.learn(moment, logged)
         partial_seen += 0 < logged < GOOD
         # a rerun logs the rest: what was logged is recognised, nothing is added twice
         assert bulk_intake_process(catalog, inbox).wait(timeout=600) == 0
