@@ -63,25 +63,27 @@ def check_after_kill(catalog: Path, inbox: Path) -> int:
     return len(logged)
 
 
-class KillWindow:
-    """Random kill moments that home in on the stretch where an intake is under way.
+def kill_after_logged(process: subprocess.Popen, catalog: Path, count: int) -> None:
+    """Kill the process as soon as the catalog holds ``count`` versions (or when it ends).
 
-    Drawn between ``low`` and ``high`` seconds after the start; a kill that found nothing
-    logged moves ``low`` up to its moment, one that found everything logged moves ``high``
-    down, so a machine faster or slower than the probe run still gets kills mid-intake.
+    Reading the catalog beside the writer (WAL lets readers in) puts the kill in the middle
+    of an intake however fast or loaded the machine is; a kill at a random moment alone
+    lands mid-intake only when the write phase is long against the timing noise.
     """
-
-    def __init__(self, startup: float, working: float, rng: random.Random) -> None:
-        self.low, self.high, self.rng = startup, startup + working, rng
-
-    def moment(self) -> float:
-        return self.low + self.rng.uniform(0.05, 0.95) * max(self.high - self.low, 0.05)
-
-    def learn(self, moment: float, logged: int | None) -> None:
-        if logged is None or logged == 0:
-            self.low = min(moment, self.high - 0.05)
-        elif logged >= GOOD:
-            self.high = max(moment, self.low + 0.05)
+    while process.poll() is None:
+        if catalog.exists():
+            try:
+                conn = sqlite3.connect(catalog, timeout=0.05)
+                try:
+                    held = conn.execute("SELECT count(*) FROM versions").fetchone()[0]
+                finally:
+                    conn.close()
+            except sqlite3.OperationalError:  # not created yet, or locked for a moment
+                held = 0
+            if held >= count:
+                break
+        time.sleep(0.002)
+    process.send_signal(signal.SIGKILL)
 
 
 @pytest.mark.slow
@@ -102,7 +104,6 @@ def test_killed_intake_leaves_every_file_whole(tmp_path):
     startup = time.monotonic() - started
     working = max(duration - startup, 0.2)
     partial_seen = 0
-    window = KillWindow(startup, working, rng)
     # at least 10 trials; more (up to 30) while fewer than 3 kills landed mid-intake, since a
     # loaded machine shifts the timing the random kill moments are drawn from
     for trial in range(30):
@@ -111,15 +112,15 @@ def test_killed_intake_leaves_every_file_whole(tmp_path):
         inbox, catalog = tmp_path / f"inbox{trial}", tmp_path / f"c{trial}.db"
         make_inbox(inbox)
         process = intake_process(catalog, inbox)
-        moment = window.moment()
-        time.sleep(moment)
-        process.send_signal(signal.SIGKILL)
+        if trial % 2:  # at a random moment (early kills too: before the catalog exists)
+            time.sleep(startup + rng.uniform(0.05, 0.95) * working)
+            process.send_signal(signal.SIGKILL)
+        else:  # once a random number of files is in: mid-intake on any machine
+            kill_after_logged(process, catalog, rng.randint(1, GOOD - 1))
         process.wait(timeout=60)
         if not catalog.exists():
-            window.learn(moment, None)
             continue  # killed before the catalog was even created: nothing to check
         logged = check_after_kill(catalog, inbox)
-        window.learn(moment, logged)
         partial_seen += 0 < logged < GOOD
         # a rerun completes the job, with no duplicate datasets
         assert intake_process(catalog, inbox).wait(timeout=600) in (0, 1)
@@ -184,22 +185,21 @@ def test_killed_bulk_intake_leaves_every_file_logged_whole_or_waiting(tmp_path):
     startup = time.monotonic() - started
     working = max(duration - startup, 0.2)
     partial_seen = 0
-    window = KillWindow(startup, working, rng)
     for trial in range(30):
         if trial >= 10 and partial_seen >= 3:
             break
         inbox, catalog = tmp_path / f"inbox{trial}", tmp_path / f"c{trial}.db"
         make_inbox(inbox)
         process = bulk_intake_process(catalog, inbox)
-        moment = window.moment()
-        time.sleep(moment)
-        process.send_signal(signal.SIGKILL)
+        if trial % 2:  # at a random moment (early kills too: before the catalog exists)
+            time.sleep(startup + rng.uniform(0.05, 0.95) * working)
+            process.send_signal(signal.SIGKILL)
+        else:  # once a random number of files is in: mid-intake on any machine
+            kill_after_logged(process, catalog, rng.randint(1, GOOD - 1))
         process.wait(timeout=60)
         if not catalog.exists():
-            window.learn(moment, None)
             continue
         logged = check_after_bulk_kill(catalog, inbox)
-        window.learn(moment, logged)
         partial_seen += 0 < logged < GOOD
         # a rerun logs the rest: what was logged is recognised, nothing is added twice
         assert bulk_intake_process(catalog, inbox).wait(timeout=600) == 0
