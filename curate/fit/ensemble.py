@@ -52,9 +52,8 @@ DEFAULT_CUT = 0.5  # in the optimiser's coordinates: a factor e^0.5 = 1.65 for a
 PLATEAU_GAP = 0.1  # chi2 units between sorted objectives that still share a plateau
 DASK_TASKS = 2000  # tasks an ensemble sends to Dask at most (one per start below that)
 MAX_REJECTED = 10  # families of finished fits beyond the threshold that are kept for comparison
-MAX_CLUSTERED = (
-    1000  # fits clustered by linkage (quadratic memory: 4 MB); the rest join the nearest
-)
+# fits clustered by linkage (quadratic memory: 4 MB); the rest join the nearest within the cut
+MAX_CLUSTERED = 1000
 
 
 @dataclass
